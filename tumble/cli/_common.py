@@ -1,0 +1,114 @@
+"""Options shared by the sub-commands that read photometry (no science here)."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+__all__ = ["add_input_options", "read_options", "add_output_options", "print_json", "parse_elements",
+           "parse_observatory"]
+
+
+def add_input_options(parser: argparse.ArgumentParser) -> None:
+    """The reading options common to every command that takes photometry files."""
+    g = parser.add_argument_group("input")
+    g.add_argument("--columns", metavar="MAP",
+                   help="map the file's columns to ours, e.g. time=JD,mag=V,err=sigma,session=night")
+    g.add_argument("--time-format", choices=["jd", "mjd", "iso"],
+                   help="format of the time column (default: guessed from its name and values)")
+    g.add_argument("--time-scale", choices=["utc", "tt", "tdb"], default="utc",
+                   help="time scale of the time column (default: utc)")
+    g.add_argument("--light-time-corrected", action="store_true",
+                   help="times are already light-time corrected (emission times)")
+    g.add_argument("--session-gap-h", type=float, default=6.0, metavar="H",
+                   help="without a session column, start a new session after a gap of H hours (default: 6)")
+    g.add_argument("--min-points", type=int, default=10, metavar="N",
+                   help="fewer usable points than N is an error (default: 10)")
+    g.add_argument("--default-err", type=float, metavar="MAG",
+                   help="error (mag) for points whose error is missing or non-positive (default: such points are an error)")
+    g.add_argument("--duplicates", choices=["merge", "reject", "error"], default="merge",
+                   help="points at the same time in the same band: weighted mean, keep the first, or fail (default: merge)")
+    g.add_argument("--band", metavar="NAME", help="band to assume when the file has no band column")
+    g.add_argument("--object", dest="object_id", metavar="NAME",
+                   help="object name (default: the object column, else the file name)")
+    g.add_argument("--flux-zero-point", type=float, default=0.0, metavar="MAG",
+                   help="zero point for flux columns: mag = ZP - 2.5 log10(flux) (default: 0)")
+    g.add_argument("--elements", metavar="A,E,I,NODE,PERI,M,EPOCH",
+                   help="osculating heliocentric ecliptic J2000 elements (au, deg, JD TDB) to compute the geometry")
+    g.add_argument("--observatory", metavar="LON,LAT,HEIGHT_M",
+                   help="ground station (deg east, deg, m) for topocentric geometry with --elements")
+
+
+def _floats(text: str, n: int, what: str) -> list[float]:
+    from tumble.exceptions import GeometryError
+
+    parts = [p.strip() for p in text.split(",")]
+    if len(parts) != n:
+        raise GeometryError(f"--{what}: expected {n} comma-separated numbers, got {len(parts)}")
+    try:
+        return [float(p) for p in parts]
+    except ValueError:
+        raise GeometryError(f"--{what}: '{text}' holds something that is not a number") from None
+
+
+def parse_elements(text: str | None):
+    """``--elements a,e,i,node,peri,M,epoch`` -> OrbitalElements (or None)."""
+    if not text:
+        return None
+    from tumble.geometry import OrbitalElements
+
+    a, e, i, node, peri, m, epoch = _floats(text, 7, "elements")
+    return OrbitalElements(a, e, i, node, peri, m, epoch)
+
+
+def parse_observatory(text: str | None):
+    """``--observatory lon,lat,height_m`` -> Observatory (or None)."""
+    if not text:
+        return None
+    from tumble.geometry import Observatory
+
+    lon, lat, h = _floats(text, 3, "observatory")
+    return Observatory(lon, lat, h)
+
+
+def read_options(args: argparse.Namespace):
+    """A ReadOptions from the parsed input options."""
+    from tumble.photometry import ReadOptions
+
+    return ReadOptions(
+        columns=args.columns or {},
+        time_format=args.time_format,
+        time_scale=args.time_scale,
+        light_time_corrected=args.light_time_corrected,
+        session_gap_h=args.session_gap_h,
+        min_points=args.min_points,
+        default_err=args.default_err,
+        duplicates=args.duplicates,
+        band=args.band,
+        object_id=args.object_id,
+        flux_zero_point=args.flux_zero_point,
+        elements=parse_elements(args.elements),
+        observatory=parse_observatory(args.observatory),
+    )
+
+
+def add_output_options(parser: argparse.ArgumentParser) -> None:
+    """``--json`` and ``--quiet``."""
+    parser.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
+    parser.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+def print_json(obj) -> None:
+    """Print ``obj`` as indented JSON (numpy scalars and arrays converted)."""
+    import numpy as np
+
+    def default(o):
+        if isinstance(o, np.generic):
+            return o.item()
+        if isinstance(o, np.ndarray):
+            return o.tolist()
+        return str(o)
+
+    json.dump(obj, sys.stdout, indent=2, default=default, allow_nan=True)
+    sys.stdout.write("\n")

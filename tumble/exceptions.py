@@ -1,0 +1,44 @@
+"""Exception and warning types of tumble.
+
+The library raises these; only the command line turns them into one-line
+messages and exit codes (0 success, 2 bad input, 1 internal error).
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "TumbleError",
+    "PhotometryError",
+    "GeometryError",
+    "TumbleWarning",
+    "DataWarning",
+    "ConvergenceWarning",
+]
+
+
+class TumbleError(Exception):
+    """Base class of every error tumble raises on purpose."""
+
+
+class PhotometryError(TumbleError, ValueError):
+    """Bad photometry input.
+
+    The message names the file, the row or column, and the problem, in one line,
+    e.g. ``lc.csv: row 17, column 'mag': 'abc' is not a number``.
+    """
+
+
+class GeometryError(TumbleError, ValueError):
+    """Bad or inconsistent observing geometry or orbital elements."""
+
+
+class TumbleWarning(UserWarning):
+    """Base class of tumble's warnings."""
+
+
+class DataWarning(TumbleWarning):
+    """Input data were altered in a way the user should know about."""
+
+
+class ConvergenceWarning(TumbleWarning):
+    """A numerical method (solver, sampler) did not meet its convergence criteria."""
