@@ -88,6 +88,7 @@ _EXT_FORMAT = {
 
 MAG_RANGE = (-5.0, 35.0)
 _DUP_TOL_D = 1e-8  # about 1 ms: times closer than this are the same instant
+_LT_GIVEN = "input already light-time corrected"
 _VEC_COLUMNS = ("sun_x", "sun_y", "sun_z", "obs_x", "obs_y", "obs_z")
 
 
@@ -422,6 +423,17 @@ class _RawTable:
         return len(next(iter(self.columns.values()))) if self.columns else 0
 
 
+def _is_negative_int(text: str) -> bool:
+    try:
+        return int(float(text)) < 0
+    except (TypeError, ValueError):
+        return False
+
+
+def _rows(n: int) -> str:
+    return f"{n} row" if n == 1 else f"{n} rows"
+
+
 def _fail(source, where, problem) -> PhotometryError:
     where = f" {where}:" if where else ""
     return PhotometryError(f"{source}:{where} {problem}")
@@ -534,7 +546,14 @@ def _read_text(src: str, text: str) -> _RawTable:
         raise _fail(src, "", "header only, no data rows")
     cols = {name: np.array([r[k].strip() for r in rows], dtype=object) for k, name in enumerate(header)}
     fmt = {",": "csv", "\t": "tsv", ";": "csv", None: "txt"}[delim]
-    return _RawTable(source=src, names=header, columns=cols, row_labels=labels, format=fmt)
+    meta = {}
+    for line in lines[:data_start]:
+        body = line.strip().lstrip("#").strip()
+        if line.strip().startswith("#") and ":" in body:
+            key, value = body.split(":", 1)
+            if key.strip() and " " not in key.strip():
+                meta[key.strip()] = value.strip()
+    return _RawTable(source=src, names=header, columns=cols, row_labels=labels, meta=meta, format=fmt)
 
 
 def _guess_delimiter(header_line: str):
@@ -618,7 +637,11 @@ def _read_votable(src: str, data: bytes) -> _RawTable:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             vot = parse(io.BytesIO(data))
-            table = vot.get_first_table().to_table(use_names_over_ids=True)
+            vtable = vot.get_first_table()
+            table = vtable.to_table(use_names_over_ids=True)
+            for param in vtable.params:
+                value = param.value
+                table.meta[param.name] = value.decode() if isinstance(value, bytes) else str(value)
     except Exception as exc:
         raise _fail(src, "", f"unreadable VOTable ({_first_line(exc)})") from None
     return _table_to_raw(src, table, "votable")
@@ -745,8 +768,7 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
         bad = np.flatnonzero(~np.isfinite(time))
         if bad.size:
             raise _fail(src, f"{labels[bad[0]]}, column '{tname}'",
-                        f"time is {'NaN' if np.isnan(time[bad[0]]) else 'infinite'} "
-                        f"({bad.size} such row{'s' if bad.size > 1 else ''})")
+                        f"time is {'NaN' if np.isnan(time[bad[0]]) else 'infinite'} ({_rows(bad.size)} like this)")
 
     # --- magnitudes (or fluxes)
     if have_mag and not (have_flux and "mag" not in opts.columns and "flux" in opts.columns):
@@ -758,7 +780,7 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
             i = out_of_range[0]
             raise _fail(src, f"{labels[i]}, column '{mname}'",
                         f"magnitude {mag[i]:g} outside {MAG_RANGE[0]:g}..{MAG_RANGE[1]:g} "
-                        f"({out_of_range.size} such rows); fluxes given as magnitudes? map them with --columns flux=NAME")
+                        f"({_rows(out_of_range.size)} like this); fluxes given as magnitudes? map them with --columns flux=NAME")
         if finite.size == 0:
             raise _fail(src, f"column '{mname}'", "no finite magnitudes")
         if "err" in mapping:
@@ -796,7 +818,7 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
             i = int(np.flatnonzero(bad_err)[0])
             what = "missing" if not np.isfinite(err[i]) else f"non-positive ({err[i]:g})"
             raise _fail(src, f"{labels[i]}, column '{err_name}'",
-                        f"magnitude error is {what} ({int(bad_err.sum())} such rows); fix them or give --default-err MAG")
+                        f"magnitude error is {what} ({_rows(int(bad_err.sum()))} like this); fix them or give --default-err MAG")
         err = np.where(bad_err, opts.default_err, err)
         reductions.append(f"{int(bad_err.sum())} missing or non-positive errors set to {opts.default_err:g} mag")
     # rows with no usable magnitude are dropped and counted
@@ -902,19 +924,22 @@ def _assemble(pieces: Sequence[_Piece], opts: ReadOptions, object_id: str) -> Li
         t_utc_parts.append(utc)
         t_tdb_parts.append(tdb)
         if p.session is not None:
-            labels = [s if s else f"__auto{k}" for s in p.session]
-            uniq = {lab: i for i, lab in enumerate(dict.fromkeys(labels))}
-            ids = np.array([uniq[lab] for lab in labels], dtype=int)
             empty = np.array([not s for s in p.session])
+            sparse = np.array([_is_negative_int(s) for s in p.session])
+            named = [s for s, e, sp in zip(p.session, empty, sparse) if not (e or sp)]
+            uniq = {lab: i for i, lab in enumerate(dict.fromkeys(named))}
+            ids = np.array([uniq.get(s, -1) for s in p.session], dtype=int)
             ids[empty] = -2  # no session given for this row: split by gaps below
-            sess_parts.append(np.where(ids >= 0, ids + session_offset, -2))
+            ids[sparse] = -3  # a negative session means "sparse" (the convention of our writer)
+            sess_parts.append(np.where(ids >= 0, ids + session_offset, ids))
             session_offset += len(uniq)
         else:
             sess_parts.append(np.full(len(p.mag), -2, dtype=int))
         # each file gets its own automatic sessions: mark with a file tag
         sess_parts[-1] = np.where(sess_parts[-1] == -2, -(10 + k), sess_parts[-1])
     if not t_utc_parts:
-        raise _fail(where, "", "no usable points (every magnitude is missing)")
+        why = ", ".join(f"{v} {k}" for k, v in dropped.items()) or "every magnitude is missing"
+        raise _fail(where, "", f"no usable points ({why})")
     t_utc = np.concatenate(t_utc_parts)
     t_tdb = np.concatenate(t_tdb_parts)
     sess_raw = np.concatenate(sess_parts)
@@ -1002,9 +1027,10 @@ def _assemble(pieces: Sequence[_Piece], opts: ReadOptions, object_id: str) -> Li
         reductions.append("phase angle computed from the Sun and observer directions")
 
     # --- light time
-    if opts.light_time_corrected:
+    flagged = any(_truthy(_meta_value(p.meta, "ltcorr")) for p in pieces)
+    if opts.light_time_corrected or flagged:
         t_model = t_tdb
-        light = "input already light-time corrected"
+        light = _LT_GIVEN
     elif delta_au is not None:
         t_model = t_tdb - geometry.light_time_days(delta_au)
         light = "corrected: t = t_obs(TDB) - delta_au/c"
@@ -1044,14 +1070,12 @@ def _assemble(pieces: Sequence[_Piece], opts: ReadOptions, object_id: str) -> Li
 
 def _assign_sessions(t: np.ndarray, band: np.ndarray, sess_raw: np.ndarray, opts: ReadOptions) -> np.ndarray:
     """Final session indices: given ones kept, the rest split by gaps per band and file; small ones sparse."""
-    key = np.empty(len(t), dtype=object)
+    key = np.full(len(t), None, dtype=object)
     gap_d = opts.session_gap_h / 24.0
-    for i in range(len(t)):
-        key[i] = None
     given = sess_raw >= 0
     for i in np.flatnonzero(given):
         key[i] = ("given", int(sess_raw[i]))
-    auto = ~given
+    auto = (sess_raw < 0) & (sess_raw != -3)  # -3: given as sparse, stays sparse
     for tag in np.unique(sess_raw[auto]):
         for b in np.unique(band[auto & (sess_raw == tag)]):
             idx = np.flatnonzero(auto & (sess_raw == tag) & (band == b))
@@ -1064,7 +1088,8 @@ def _assign_sessions(t: np.ndarray, band: np.ndarray, sess_raw: np.ndarray, opts
     for i, k in enumerate(key):
         first.setdefault(k, t[i])
         count[k] = count.get(k, 0) + 1
-    ordered = sorted((k for k in first if count[k] >= opts.min_session_points), key=lambda k: (first[k], str(k)))
+    ordered = sorted((k for k in first if k is not None and count[k] >= opts.min_session_points),
+                     key=lambda k: (first[k], str(k)))
     index = {k: i for i, k in enumerate(ordered)}
     return np.array([index.get(k, -1) for k in key], dtype=int)
 
@@ -1131,8 +1156,23 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
         if len(names) > 1:
             raise _fail(pieces[0].source, f"column '{pieces[0].columns['object']}'",
                         f"holds {len(names)} objects; read it with read_survey (tumble survey)")
-        object_id = names.pop() if names else _object_name_from_path(paths[0])
+        if names:
+            object_id = names.pop()
+        else:
+            object_id = _meta_value(pieces[0].meta, "object") or _object_name_from_path(paths[0])
     return _assemble(pieces, opts, object_id=object_id)
+
+
+def _meta_value(meta: Mapping, key: str):
+    """A file-metadata value by case-insensitive key, or None."""
+    for k, v in meta.items():
+        if str(k).lower() == key.lower():
+            return v
+    return None
+
+
+def _truthy(value) -> bool:
+    return str(value).strip().lower() in ("true", "t", "1", "yes")
 
 
 def iter_survey(path_or_paths, columns=None, *, options: ReadOptions | None = None,
@@ -1233,9 +1273,10 @@ def lightcurve_table(lc: LightCurve, *, object_column: bool = False):
         if vec is not None:
             for k, axis in enumerate("xyz"):
                 t[f"{prefix}_{axis}"] = np.asarray(vec)[:, k]
-    t.meta["object"] = lc.object_id
-    t.meta["time_scale"] = "utc"
-    t.meta["light_time_corrected"] = lc.meta.get("light_time") == "input already light-time corrected"
+    # short keys, valid as FITS header keywords too
+    t.meta["OBJECT"] = lc.object_id
+    t.meta["TIMESYS"] = "UTC"
+    t.meta["LTCORR"] = bool(lc.meta.get("light_time") == _LT_GIVEN)
     return t
 
 
@@ -1255,7 +1296,7 @@ def write_lightcurve(lc: LightCurve, path: str | os.PathLike, *, format: str | N
     buf = io.BytesIO()
     if fmt in ("csv", "tsv", "txt"):
         delim = {"csv": ",", "tsv": "\t", "txt": " "}[fmt]
-        lines = [f"# object: {lc.object_id}", "# time: JD (UTC)"]
+        lines = [f"# {k}: {v}" for k, v in table.meta.items() if isinstance(v, (str, int, float, bool))]
         lines.append(delim.join(table.colnames))
         cols = [table[c] for c in table.colnames]
         for row in zip(*cols):
@@ -1273,7 +1314,12 @@ def write_lightcurve(lc: LightCurve, path: str | os.PathLike, *, format: str | N
     elif fmt == "votable":
         from astropy.io.votable import from_table, writeto
 
+        from astropy.io.votable.tree import Param
+
         vt = from_table(table)
+        vtable = vt.get_first_table()
+        for key, value in table.meta.items():  # keep the metadata as PARAMs
+            vtable.params.append(Param(vt, name=str(key), datatype="char", arraysize="*", value=str(value)))
         writeto(vt, buf)
     data = buf.getvalue()
     if compress:
