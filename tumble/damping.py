@@ -607,16 +607,16 @@ class DampingEstimate:
         """One sentence on what the estimate says about a tumbler (or a PA rotator)."""
         p = self.p_tau_exceeds_age
         t = f"{self.age_gyr:.3g} Gyr"
-        how = " under the Harris calibration, with mu Q fixed," if self.formula == "harris" else ""
+        how = "; Harris calibration, mu Q fixed" if self.formula == "harris" else ""
         if p >= 0.9:
-            return (f"Damping very likely takes longer than {t}{how} (P(tau > age) = {p:.2f}): tumbling, "
+            return (f"Damping very likely takes longer than {t} (P(tau > age) = {p:.2f}{how}): tumbling, "
                     f"if seen, can be primordial or old; a principal-axis state then means the body was "
                     f"never excited or was spun down by something else.")
         if p <= 0.1:
-            return (f"Damping very likely ends within {t}{how} (P(tau > age) = {p:.2f}): tumbling, if "
+            return (f"Damping very likely ends within {t} (P(tau > age) = {p:.2f}{how}): tumbling, if "
                     f"seen, points to an excitation within the last few damping times (tau ~ "
                     f"{self.tau_gyr:.2g} Gyr; collision, planetary encounter or YORP spin-down).")
-        return (f"Undecided{how}: the chance that damping outlasts {t} is {p:.2f}; tumbling would be "
+        return (f"Undecided: the chance that damping outlasts {t} is {p:.2f}{how}; tumbling would be "
                 f"consistent with either an old or a recent excitation.")
 
     def to_dict(self) -> dict:
