@@ -156,11 +156,9 @@ def carlson_pi_incomplete(n, amplitude, m):
     c = np.cos(a)
     d2 = 1.0 - m * s * s
     part = s * special.elliprf(c * c, d2, 1.0) + n / 3.0 * s**3 * special.elliprj(c * c, d2, 1.0, 1.0 - n * s * s)
-    out = part.copy()
-    nz = j != 0
-    if np.any(nz):
-        out[nz] = part[nz] + 2.0 * j[nz] * carlson_pi_complete(n[nz], m[nz])
-    return out
+    if np.any(j != 0):
+        part = part + 2.0 * j * carlson_pi_complete(n, m)
+    return part
 
 
 # ---------------------------------------------------------------------------
@@ -204,7 +202,7 @@ def _check_inertia(i1, i2, idd):
     # Triangle inequality of principal moments, I1 + I2 >= I3 (any rigid body).
     if np.any(i1 + i2 < 1.0 - 1e-12):
         raise RotationStateError("principal moments violate I1 + I2 >= I3 (no rigid body has them)")
-    if np.any(idd > 1.0) or np.any(idd <= i1):
+    if np.any(idd > 1.0) or np.any((idd < 1.0) & (idd <= i1)):
         raise RotationStateError(
             "dynamic inertia must satisfy I1/I3 < Id/I3 <= 1 (Id = I1 would be a spin about the long axis, not supported)"
         )
@@ -863,7 +861,7 @@ class RotationState:
         if not (p_psi_h > 0 and p_phi_h > 0):
             raise RotationStateError("periods must be positive")
         i1, i2 = float(i1_i3), float(i2_i3)
-        _check_inertia(np.array([i1]), np.array([i2]), np.array([max(i2, i1 + 1e-9) if mode == "LAM" else 1.0]))
+        _check_inertia(np.array([i1]), np.array([i2]), np.array([1.0]))
         target = p_phi_h / p_psi_h
         tol = SEPARATRIX_TOLERANCE
         if mode == "SAM":
