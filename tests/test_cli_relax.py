@@ -129,13 +129,23 @@ def _sample_catalog(path, seed, log10_mu_q_pa, n=250, use_h=False):
         "p2_h": np.where(npa, 0.5 * p, nan),
     }
     if use_h:
-        cols["h_mag"] = 5 * np.log10(1329.0 / (np.sqrt(0.2) * d))  # inverse of Pravec & Harris (2007)
+        # a plain astropy Table with H and albedo; H from the inverse of Pravec & Harris (2007)
+        cols["h_mag"] = 5 * np.log10(1329.0 / (np.sqrt(0.2) * d))
         cols["albedo"] = np.full(n, 0.2)
+        t = Table(cols)
+        t["period_h"].unit = "h"
+        t.write(path, format="ascii.ecsv", overwrite=True)
     else:
-        cols["diameter_km"] = d
-    t = Table(cols)
-    t["period_h"].unit = "h"
-    t.write(path, format="ascii.ecsv", overwrite=True)
+        # through the project's results-catalog writer, with diameter_km as an extra column
+        from tumble.results import empty_row, write_results
+
+        rows = []
+        for i in range(n):
+            row = empty_row(cols["object"][i])
+            row.update({k: v[i] for k, v in cols.items() if k not in ("object", "status", "message")})
+            row["diameter_km"] = d[i]
+            rows.append(row)
+        write_results(rows, path, extra_columns=["diameter_km"])
     return npa
 
 

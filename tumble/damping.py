@@ -992,19 +992,15 @@ def sample_from_table(table, *, source: str = "table", albedo_default: float = 0
 
 
 def read_relax_sample(path: str | os.PathLike, **kwargs) -> RelaxSample:
-    """Read a results catalog (ECSV, or any format astropy reads) and call :func:`sample_from_table`."""
-    from astropy.table import Table
+    """Read a results catalog (:func:`tumble.results.read_results`) and call :func:`sample_from_table`.
 
-    path = os.fspath(path)
-    if not os.path.exists(path):
-        raise DampingError(f"{path}: no such file")
-    try:
-        table = Table.read(path, format="ascii.ecsv") if path.lower().endswith((".ecsv", ".ecsv.gz")) \
-            else Table.read(path)
-    except Exception as exc:  # astropy raises many types for unreadable files
-        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise DampingError(f"{path}: cannot read the table: {msg}") from None
-    return sample_from_table(table, source=path, **kwargs)
+    Besides the catalog columns the table needs a size: ``diameter_km``, or ``h_mag``
+    (with ``albedo`` where known).
+    """
+    from tumble.results import read_results
+
+    table = read_results(path)
+    return sample_from_table(table, source=os.fspath(path), **kwargs)
 
 
 #: Parameter names of the boundary model, in vector order.

@@ -8,6 +8,9 @@ from tumble.cli._common import add_output_options, print_json
 
 CAUTION = ("Caution: mu Q is uncertain by orders of magnitude, so tau is an order-of-magnitude "
            "scientific estimate, not a measurement and not operational advice.")
+SAMPLE_CAUTION = ("Caution: mu Q is uncertain by orders of magnitude, and this constraint rests on the assumed "
+                  "excitation age, density, shape factor and a simple boundary model; it is an "
+                  "order-of-magnitude scientific estimate, not a measurement and not operational advice.")
 
 
 def add_parser(sub) -> None:
@@ -130,7 +133,7 @@ def _run_sample(args: argparse.Namespace) -> int:
     if args.json:
         out = res.to_dict()
         out["sample"] = args.sample
-        out["caution"] = CAUTION
+        out["caution"] = SAMPLE_CAUTION
         out["seed"] = args.seed
         print_json(out)
         return 0
@@ -154,5 +157,5 @@ def _run_sample(args: argparse.Namespace) -> int:
     print("assumptions")
     for a in res.assumptions:
         print(f"  - {a}")
-    print(CAUTION)
+    print(SAMPLE_CAUTION)
     return 0
