@@ -610,14 +610,26 @@ class DampingEstimate:
         how = "; Harris calibration, mu Q fixed" if self.formula == "harris" else ""
         if p >= 0.9:
             return (f"Damping very likely takes longer than {t} (P(tau > age) = {p:.2f}{how}): tumbling, "
-                    f"if seen, can be primordial or old; a principal-axis state then means the body was "
-                    f"never excited or was spun down by something else.")
+                    f"if seen, can be primordial or old; a principal-axis state then suggests the body has "
+                    f"not been excited since it formed or was last reshaped.")
         if p <= 0.1:
             return (f"Damping very likely ends within {t} (P(tau > age) = {p:.2f}{how}): tumbling, if "
                     f"seen, points to an excitation within the last few damping times (tau ~ "
                     f"{self.tau_gyr:.2g} Gyr; collision, planetary encounter or YORP spin-down).")
-        return (f"Undecided: the chance that damping outlasts {t} is {p:.2f}{how}; tumbling would be "
-                f"consistent with either an old or a recent excitation.")
+        parts = [] if self.formula == "harris" else ["rigidity (mu Q)"]
+        if self.diameter_km_hi > self.diameter_km_lo:
+            parts.append("size")
+        if self.prior("period_h") is not None and self.prior("period_h").kind != "fixed":
+            parts.append("period")
+        if len(parts) > 1:
+            why = ", ".join(parts[:-1]) + " and " + parts[-1] + " uncertainties leave"
+        else:
+            why = (parts[0] if parts else "input") + " uncertainty leaves"
+        if p >= 0.5:
+            return (f"Damping more likely than not takes longer than {t} (P(tau > age) = {p:.2f}{how}), but "
+                    f"the {why} a recent excitation possible.")
+        return (f"Damping more likely than not ends within {t} (P(tau > age) = {p:.2f}{how}), but the "
+                f"{why} an old, undamped tumbling state possible.")
 
     def to_dict(self) -> dict:
         """JSON-ready summary (the Monte Carlo draws are left out)."""
