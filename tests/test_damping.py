@@ -319,6 +319,9 @@ def test_estimate_is_deterministic_for_a_seed_and_frozen():
     (dict(period_h=10.0, diameter_km=1.0, formula="sharma-burns-hui"), "shape coefficient"),
     (dict(period_h=10.0, diameter_km=1.0, age_gyr=0.0), "age_gyr"),
     (dict(period_h=10.0, diameter_km=0.0), "diameter_km"),
+    (dict(period_h=[10.0, 11.0], period_h_err=0.5, diameter_km=1.0), "single period_h"),
+    (dict(period_h=10.0, diameter_km=["a", "b"]), "not a number"),
+    (dict(period_h=10.0, diameter_km=1.0, n_samples=10), "n_samples"),
 ])
 def test_estimate_bad_input(kwargs, match):
     with pytest.raises(TumbleError, match=match):

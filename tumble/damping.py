@@ -301,9 +301,10 @@ def _as_prior(value, default: Prior | None, unit: str, what: str) -> Prior:
         return default
     if isinstance(value, Prior):
         return value
-    arr = np.asarray(value, dtype=float) if not isinstance(value, str) else None
-    if arr is None:
-        raise DampingError(f"{what}: {value!r} is not a number")
+    try:
+        arr = np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        raise DampingError(f"{what}: {value!r} is not a number or an array of numbers") from None
     if arr.ndim == 0 or arr.size == 1:
         return Prior.fixed(float(arr.ravel()[0]), unit, "user value")
     return Prior.from_samples(arr, unit, "user samples")
@@ -449,14 +450,12 @@ def damping_timescale(period_h, diameter_km, formula: str = "burns-safronov", *,
         Damping time, Gyr.
     """
     f = _formula(formula)
-    if f.name == "harris":
-        return tau_harris_gyr(period_h, diameter_km, c)
-    if f.name == "burns-safronov":
-        return tau_burns_safronov_gyr(period_h, diameter_km, mu_q_pa, density_kg_m3, k3_squared)
-    if shape_coefficient is None:
+    if f.name == "sharma-burns-hui" and shape_coefficient is None:
         raise DampingError("the sharma-burns-hui formula needs its shape coefficient D(h) "
                            "(a few times 10^2; not tabulated here)")
-    return tau_sharma_burns_hui_gyr(period_h, diameter_km, mu_q_pa, density_kg_m3, shape_coefficient)
+    given = dict(mu_q_pa=mu_q_pa, density_kg_m3=density_kg_m3, k3_squared=k3_squared, c=c,
+                 shape_coefficient=shape_coefficient)
+    return f.kernel(period_h, diameter_km, *(given[name] for name in f.params))
 
 
 def _reference_timescale_gyr(period_h: float, diameter_km: float, formula: str, *,
@@ -717,6 +716,10 @@ def estimate_damping(period_h, diameter_km=None, *, period_h_err: float | None =
 
     priors: list[tuple[str, Prior]] = []
     assumptions: list[str] = []
+
+    for name, value, err in (("period_h", period_h, period_h_err), ("diameter_km", diameter_km, diameter_km_err)):
+        if err and (isinstance(value, Prior) or np.ndim(value) > 0):
+            raise DampingError(f"{name}_err goes with a single {name} value, not with samples or a prior")
 
     # period
     if isinstance(period_h, Prior):
