@@ -224,6 +224,17 @@ def test_estimate_from_h_and_fixed_albedo():
     assert est.diameter_source == "H and albedo"
 
 
+def test_estimate_from_h_samples(rng):
+    # H posterior draws around 18 with p_V = 0.14 fixed: the median diameter is D(18, 0.14) = 0.89220 km
+    # (Pravec & Harris 2007), since D is monotone in H.
+    h = 18.0 + 0.1 * rng.standard_normal(4001)
+    est = dm.estimate_damping(17.0, h_mag=h, albedo=0.14, formula="harris", n_samples=20000, rng=rng)
+    assert est.prior("h_mag").kind == "samples"
+    assert est.diameter_km == pytest.approx(float(dm.diameter_from_h(np.median(h), 0.14)), rel=0.01)
+    with pytest.raises(TumbleError, match="h_mag_err"):
+        dm.estimate_damping(17.0, h_mag=h, h_mag_err=0.2, rng=0)
+
+
 def test_estimate_default_albedo_prior_widens_diameter():
     # Default albedo prior log-normal (median 0.14, 0.25 dex): D = 1329/sqrt(p) 10^(-H/5) (Pravec & Harris 2007)
     # is then log-normal with median D(0.14) and sigma 0.125 dex, so the 68% range is D(0.14) * 10^(+-0.125).
@@ -322,6 +333,7 @@ def test_estimate_is_deterministic_for_a_seed_and_frozen():
     (dict(period_h=[10.0, 11.0], period_h_err=0.5, diameter_km=1.0), "single period_h"),
     (dict(period_h=10.0, diameter_km=["a", "b"]), "not a number"),
     (dict(period_h=10.0, diameter_km=1.0, n_samples=10), "n_samples"),
+    (dict(period_h=10.0, diameter_km=1.0, albedo=0.2), "albedo goes with H"),
 ])
 def test_estimate_bad_input(kwargs, match):
     with pytest.raises(TumbleError, match=match):

@@ -735,6 +735,8 @@ def estimate_damping(period_h, diameter_km=None, *, period_h_err: float | None =
     # diameter
     if diameter_km is not None and h_mag is not None:
         raise DampingError("give either the diameter or H (with an albedo), not both")
+    if albedo is not None and h_mag is None:
+        raise DampingError("an albedo goes with H, not with a given diameter")
     if diameter_km is not None:
         if isinstance(diameter_km, Prior):
             d_prior = diameter_km
@@ -755,6 +757,8 @@ def estimate_damping(period_h, diameter_km=None, *, period_h_err: float | None =
             raise DampingError(f"h_mag must be finite, got {h_mag!r}")
         a_prior = _as_prior(albedo, DEFAULT_ALBEDO_PRIOR, "", "albedo")
         if h_arr.size > 1:
+            if h_mag_err:
+                raise DampingError("h_mag_err goes with a single H value, not with samples")
             h_draws = gen.choice(h_arr.ravel(), size=n, replace=True)
             h_desc = Prior("samples", float(np.median(h_arr)), math.nan, "mag", "user samples",
                            np.asarray(h_arr, float).ravel())
