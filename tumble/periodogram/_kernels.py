@@ -1,0 +1,548 @@
+"""Pure array kernels of the period search: trigonometric sums and batched solves.
+
+Nothing here knows about light curves. The scan kernel evaluates, at every
+frequency ``f`` of a grid, the weighted least-squares chi-square of a model made
+of
+
+- a fixed *nuisance* part (zero-points, phase-angle slopes, fixed harmonics)
+  that is profiled out group by group, and
+- a *scanned* part: the real and imaginary parts of complex exponentials
+  ``exp(2 pi i (alpha_a + k_a f) t)`` with fixed offsets ``alpha_a`` (cycles/day)
+  and integer multipliers ``k_a >= 1``.
+
+For a 1-D Fourier scan of order m the scanned basis is ``alpha_a = 0``,
+``k_a = 1..m``; for the second-period scan of the 2-D series at fixed ``f1`` it
+is ``alpha = j f1``, ``k = 1..m`` (j = -m..m).
+
+Method (see ``docs/methods-period-search.md``): the normal equations are built
+from trigonometric sums, never from a per-frequency design matrix.
+
+* Products of two basis functions are sums and differences of frequencies:
+  ``cos a cos b = [cos(a-b) + cos(a+b)] / 2`` etc., so the Gram matrix needs
+  ``T(nu) = sum_i w_i exp(2 pi i nu t_i)`` at ``nu = (alpha_a +- alpha_b) +
+  (k_a +- k_b) f``.
+* The nuisance part is removed by the Schur complement
+  ``A = X'WX - sum_c (V_c'X)' (V_c'X)``, where the columns ``V_c`` span the
+  weighted nuisance space group by group. The correction needs the products
+  of per-group sums; for small groups these are written as sums over *pairs*
+  of points of the group, ``sum_{i,i'} K_ii' exp(2 pi i f (k_a t_i +- k_b t_i'))``,
+  which are again trigonometric sums (over pair "times").
+* Every such sum, for all frequencies of a uniform grid at once, is one type-1
+  non-uniform FFT (Greengard & Lee 2004; the FINUFFT library, Barnett et al.
+  2019); for an arbitrary grid a type-3 NUFFT; a plain matrix product is the
+  small-problem engine.
+* The small systems are solved in batches by a vectorised Cholesky
+  factorisation of the augmented, Jacobi-scaled matrix ``[[A, b], [b', chi2_0]]``
+  whose last pivot is the chi-square ``chi2_0 - b'A^-1 b``; the smallest pivot
+  of the scaled ``A`` flags ill-conditioned frequencies, which the caller
+  recomputes with the exact reference (QR least squares).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = [
+    "NuisanceGroup",
+    "SumEngine",
+    "UniformNufftEngine",
+    "Type3NufftEngine",
+    "DirectEngine",
+    "make_engine",
+    "scan_basis_chi2",
+    "augmented_cholesky_chi2",
+    "reference_basis_chi2",
+    "is_uniform",
+]
+
+TWO_PI = 2.0 * np.pi
+
+#: Requested relative accuracy of the NUFFT sums (FINUFFT ``eps``) with upsampling factor 2.
+NUFFT_EPS = float(__import__("os").environ.get("TUMBLE_NUFFT_EPS", 1e-13))
+#: FINUFFT upsampling factor (2 allows the high accuracy; 1.25 is faster but limited to ~1e-11).
+NUFFT_UPSAMPFAC = float(__import__("os").environ.get("TUMBLE_NUFFT_UPSAMPFAC", 2.0))
+_FFTW_ESTIMATE = 64  # FFTW planner flag: no measuring, plan at once
+
+
+@dataclass(frozen=True)
+class NuisanceGroup:
+    """One group of points with its own nuisance columns, profiled out of every fit.
+
+    Attributes
+    ----------
+    index : numpy.ndarray of int, shape (n_g,)
+        Positions of the group's points in the light curve.
+    v : numpy.ndarray, shape (n_g, q_g)
+        ``W^(1/2) Q`` where ``Q`` (orthonormal columns) spans ``W^(1/2) Z_g``
+        for the group's nuisance design ``Z_g`` (e.g. a column of ones for a
+        zero-point, plus a phase-angle column). ``sum_c v[:, c] v[:, c]'`` is
+        the weighted projector onto the nuisance space.
+    """
+
+    index: np.ndarray
+    v: np.ndarray
+
+
+# ---------------------------------------------------------------------------
+# Trigonometric-sum engines: out[r, n] = sum_j c[r, j] exp(2 pi i f_n tau_j).
+
+
+class SumEngine:
+    """Computes ``sum_j c_j exp(2 pi i f_n tau_j)`` for every grid frequency ``f_n``."""
+
+    frequencies: np.ndarray
+
+    def __call__(self, tau: np.ndarray, c: np.ndarray) -> np.ndarray:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+def _phase(freq: float, tau: np.ndarray) -> np.ndarray:
+    """``exp(2 pi i freq tau)`` with the cycle count reduced before multiplying by 2 pi."""
+    cycles = np.mod(freq * tau, 1.0)
+    return np.exp(1j * TWO_PI * cycles)
+
+
+class UniformNufftEngine(SumEngine):
+    """Type-1 NUFFT onto the uniform grid ``f_n = f0 + n df``, n = 0..F-1 (FINUFFT).
+
+    ``exp(2 pi i f_n tau) = exp(2 pi i f0 tau) exp(i n x)`` with ``x = 2 pi df tau``
+    reduced to [-pi, pi); the type-1 transform returns modes k = -F//2 .. F-F//2-1,
+    so the strengths are multiplied by ``exp(i (F//2) x)`` to shift k to n.
+    """
+
+    def __init__(self, f0: float, df: float, n: int, eps: float = NUFFT_EPS, upsampfac: float = NUFFT_UPSAMPFAC):
+        import finufft  # noqa: F401  (fail early if missing)
+
+        self.upsampfac = float(upsampfac)
+        self.f0 = float(f0)
+        self.df = float(df)
+        self.n = int(n)
+        self.eps = float(eps)
+        self.frequencies = self.f0 + self.df * np.arange(self.n)
+        self._plans: dict = {}
+
+    def __call__(self, tau, c):
+        import finufft
+
+        tau = np.ascontiguousarray(tau, dtype=float)
+        c = np.atleast_2d(c)
+        if tau.size == 0:
+            return np.zeros((c.shape[0], self.n), dtype=complex)
+        x = TWO_PI * np.mod(self.df * tau, 1.0)
+        x[x >= np.pi] -= TWO_PI
+        # exp(2 pi i f0 tau) exp(i (F//2) x) in one exponential
+        arg = x * (self.n // 2) + TWO_PI * np.mod(self.f0 * tau, 1.0)
+        strengths = np.ascontiguousarray(c * np.exp(1j * arg)[None, :], dtype=complex)
+        n_trans = strengths.shape[0]
+        plan = self._plans.get(n_trans)
+        if plan is None:
+            plan = finufft.Plan(1, (self.n,), n_trans=n_trans, eps=self.eps, isign=1, nthreads=1,
+                                upsampfac=self.upsampfac, modeord=0, fftw=_FFTW_ESTIMATE)
+            self._plans[n_trans] = plan
+        plan.setpts(x)
+        if n_trans == 1:
+            strengths = strengths[0]
+        out = plan.execute(strengths)
+        return np.asarray(out).reshape(n_trans, self.n)
+
+
+class Type3NufftEngine(SumEngine):
+    """Type-3 NUFFT (arbitrary times to arbitrary frequencies), for non-uniform grids."""
+
+    def __init__(self, frequencies: np.ndarray, eps: float = NUFFT_EPS):
+        import finufft  # noqa: F401
+
+        self.frequencies = np.asarray(frequencies, dtype=float)
+        self.eps = float(eps)
+
+    def __call__(self, tau, c):
+        import finufft
+
+        c = np.atleast_2d(c)
+        if np.size(tau) == 0:
+            return np.zeros((c.shape[0], self.frequencies.size), dtype=complex)
+        # centre times and frequencies so that the transform works on small numbers
+        t_mid = 0.5 * (np.min(tau) + np.max(tau))
+        f_mid = 0.5 * (self.frequencies.min() + self.frequencies.max())
+        x = TWO_PI * (np.asarray(tau, float) - t_mid)
+        s = self.frequencies - f_mid
+        strengths = np.ascontiguousarray(c * _phase(f_mid, np.asarray(tau, float))[None, :], dtype=complex)
+        out = np.empty((c.shape[0], s.size), dtype=complex)
+        for r in range(c.shape[0]):
+            out[r] = finufft.nufft1d3(x, strengths[r], s, eps=self.eps, isign=1, nthreads=1)
+        # restore the exp(2 pi i (f - f_mid) t_mid) factor removed by centring the times
+        return out * _phase_array(self.frequencies - f_mid, t_mid)[None, :]
+
+
+def _phase_array(freqs: np.ndarray, tau: float) -> np.ndarray:
+    return np.exp(1j * TWO_PI * np.mod(freqs * tau, 1.0))
+
+
+class DirectEngine(SumEngine):
+    """Plain summation, ``exp(2 pi i f tau) @ c``, in blocks (small problems, tests)."""
+
+    def __init__(self, frequencies: np.ndarray, block: int = 2048):
+        self.frequencies = np.asarray(frequencies, dtype=float)
+        self.block = int(block)
+
+    def __call__(self, tau, c):
+        c = np.atleast_2d(c)
+        tau = np.asarray(tau, dtype=float)
+        out = np.empty((c.shape[0], self.frequencies.size), dtype=complex)
+        for lo in range(0, self.frequencies.size, self.block):
+            f = self.frequencies[lo:lo + self.block]
+            e = np.exp(1j * TWO_PI * np.mod(np.outer(f, tau), 1.0))
+            out[:, lo:lo + self.block] = (e @ c.T).T
+        return out
+
+
+def is_uniform(frequencies: np.ndarray, rtol: float = 1e-9) -> bool:
+    """True when the grid is uniformly spaced (to ``rtol`` of its step) with at least 2 points."""
+    f = np.asarray(frequencies, dtype=float)
+    if f.size < 2:
+        return False
+    d = np.diff(f)
+    return bool(d[0] > 0 and np.all(np.abs(d - d[0]) <= rtol * abs(d[0]) + 1e-12 * np.abs(f[1:])))
+
+
+def make_engine(frequencies: np.ndarray, method: str = "auto") -> SumEngine:
+    """Choose a sum engine: 'nufft' (type 1 on uniform grids, else type 3), 'direct', or 'auto'."""
+    f = np.asarray(frequencies, dtype=float)
+    if method == "direct":
+        return DirectEngine(f)
+    if method == "auto" and f.size <= 64:
+        return DirectEngine(f)
+    if is_uniform(f):
+        df = (f[-1] - f[0]) / (f.size - 1)
+        return UniformNufftEngine(f[0], df, f.size)
+    return Type3NufftEngine(f)
+
+
+# ---------------------------------------------------------------------------
+# The scan kernel.
+
+
+def _pair_arrays(groups, t):
+    """Indices of the points of each pair (i, i') inside each paired group, and K_ii'."""
+    pi, pj, kij = [], [], []
+    for g in groups:
+        idx = g.index
+        k = g.v @ g.v.T
+        a, b = np.meshgrid(idx, idx, indexing="ij")
+        pi.append(a.ravel())
+        pj.append(b.ravel())
+        kij.append(k.ravel())
+    if not pi:
+        e = np.zeros(0, dtype=int)
+        return e, e, np.zeros(0)
+    return np.concatenate(pi), np.concatenate(pj), np.concatenate(kij)
+
+
+def split_groups(groups, n_freq: int, n_basis: int):
+    """Split nuisance groups into those handled by pair sums and those handled explicitly.
+
+    Pair sums cost about ``2 n_b^2 n_g^2`` kernel spreadings; the explicit route
+    costs ``q_g n_b`` extra transforms plus ``q_g n_b^2`` products per frequency.
+    """
+    paired, explicit = [], []
+    for g in groups:
+        n_g, q_g = g.v.shape
+        cost_pairs = 2.0 * n_basis * n_basis * n_g * n_g * 16.0
+        cost_explicit = q_g * n_basis * (40.0 * n_freq + 16.0 * n_g) + q_g * n_basis * n_basis * 8.0 * n_freq
+        (paired if cost_pairs <= cost_explicit else explicit).append(g)
+    return paired, explicit
+
+
+class _Phases:
+    """``exp(2 pi i j f1 t)`` for integers j and each row's f1, computed once."""
+
+    def __init__(self, f1, t, jmax):
+        self.f1 = None if f1 is None else np.atleast_1d(np.asarray(f1, dtype=float))
+        self.rows = 1 if self.f1 is None else self.f1.size
+        self.jmax = int(jmax)
+        if self.f1 is not None and self.jmax > 0:
+            j = np.arange(-self.jmax, self.jmax + 1)
+            cycles = np.mod(self.f1[:, None, None] * j[None, :, None] * t[None, None, :], 1.0)
+            self.table = np.exp(1j * TWO_PI * cycles)  # (R, 2 jmax + 1, n)
+        else:
+            self.table = None
+
+    def get(self, j: int, index=None):
+        """Array (R, len) of exp(2 pi i j f1 t[index]); None when it is identically 1."""
+        if self.table is None or j == 0:
+            return None
+        row = self.table[:, j + self.jmax]
+        return row if index is None else row[:, index]
+
+
+def _times_strength(rows, base, phase):
+    """Broadcast a real base strength (len,) against optional phases (R, len) -> (R, len) complex."""
+    if phase is None:
+        return np.broadcast_to(base.astype(complex), (rows, base.size))
+    return base[None, :] * phase
+
+
+def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=None, paired=None,
+                    explicit=None):
+    """Chi-square of nuisance + scanned-basis model at every frequency of ``engine``.
+
+    The scanned basis holds the real and imaginary parts of
+    ``exp(2 pi i (j_a f1 + k_a f) t)``, a = 1..n_b, for each row's fixed ``f1``
+    and each grid frequency ``f``.
+
+    Parameters
+    ----------
+    t : numpy.ndarray, shape (n,)
+        Times, days, relative to a reference epoch.
+    w : numpy.ndarray, shape (n,)
+        Weights 1/sigma^2, mag^-2.
+    y_res : numpy.ndarray, shape (n,)
+        Data with the nuisance fit removed (weighted residuals of the
+        nuisance-only model), mag.
+    groups : sequence of NuisanceGroup
+        Nuisance columns (all mutually orthonormal in the weighted space);
+        ignored when ``paired``/``explicit`` are given.
+    jmult, kmult : sequence of int, length n_b
+        Integer multipliers of ``f1`` and of the scanned frequency (k_a >= 0;
+        k_a = 0 terms are fixed per row, e.g. the harmonics of ``f1``).
+    engine : SumEngine
+        Grid and trigonometric-sum engine.
+    f1 : numpy.ndarray, shape (R,), or None
+        Fixed frequency of each row, cycles/day (None: no ``j`` terms, one row).
+
+    Returns
+    -------
+    chi2 : numpy.ndarray, shape (R, F)
+        Chi-square at each (row, frequency) (nan where the factorisation failed).
+    min_pivot : numpy.ndarray, shape (R, F)
+        Smallest pivot of the Jacobi-scaled normal matrix (1 = orthogonal basis;
+        small = ill-conditioned).
+    """
+    t = np.asarray(t, dtype=float)
+    w = np.asarray(w, dtype=float)
+    y_res = np.asarray(y_res, dtype=float)
+    jm = np.asarray(jmult, dtype=int)
+    km = np.asarray(kmult, dtype=int)
+    n_b = km.size
+    n_freq = engine.frequencies.size
+    if paired is None or explicit is None:
+        paired, explicit = split_groups(groups, n_freq, n_b)
+    ph = _Phases(f1, t, 2 * int(np.max(np.abs(jm))) if n_b else 0)
+    rows = ph.rows
+    chi2_0 = float(np.sum(w * y_res**2))
+
+    pi, pj, pk = _pair_arrays(paired, t)
+    ab = [(a, b) for a in range(n_b) for b in range(a, n_b)]
+    s_plus: dict = {}
+    s_minus: dict = {}
+    by_mult: dict = {}
+    for a, b in ab:
+        by_mult.setdefault((int(km[a]), int(km[b])), []).append((a, b))
+    for (ka, kb), combos in by_mult.items():
+        for sign in (+1, -1):
+            tau_direct = (ka + sign * kb) * t
+            tau_pairs = ka * t[pi] + sign * kb * t[pj]
+            tau = np.concatenate([tau_direct, tau_pairs])
+            strengths = np.empty((len(combos), rows, tau.size), dtype=complex)
+            for r, (a, b) in enumerate(combos):
+                strengths[r, :, : t.size] = _times_strength(rows, 0.5 * w, ph.get(int(jm[a] + sign * jm[b])))
+                if pi.size:
+                    pa, pb = ph.get(int(jm[a]), pi), ph.get(int(sign * jm[b]), pj)
+                    phase = pa if pb is None else (pb if pa is None else pa * pb)
+                    strengths[r, :, t.size:] = _times_strength(rows, -0.5 * pk, phase)
+            flat = strengths.reshape(len(combos) * rows, tau.size)
+            if not np.any(tau):
+                out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1)
+            else:
+                out = engine(tau, flat)
+            out = out.reshape(len(combos), rows, n_freq)
+            for r, ab_pair in enumerate(combos):
+                (s_plus if sign > 0 else s_minus)[ab_pair] = out[r]
+    if explicit:
+        idx = np.concatenate([g.index for g in explicit])
+        ncol = sum(g.v.shape[1] for g in explicit)
+        vmat = np.zeros((ncol, idx.size))
+        r0 = c0 = 0
+        for g in explicit:
+            n_g, q_g = g.v.shape
+            vmat[c0:c0 + q_g, r0:r0 + n_g] = g.v.T
+            r0 += n_g
+            c0 += q_g
+        te = t[idx]
+        u = {}
+        for k in np.unique(km):
+            sel = np.flatnonzero(km == k)
+            blocks = []
+            for a in sel:
+                phase = ph.get(int(jm[a]), idx)
+                blocks.append(np.broadcast_to(vmat.astype(complex), (rows, ncol, idx.size)) if phase is None
+                              else vmat[None, :, :] * phase[:, None, :])
+            strengths = np.stack(blocks).reshape(sel.size * rows * ncol, idx.size)
+            if k == 0:
+                out = np.repeat(strengths.sum(axis=1)[:, None], n_freq, axis=1)
+            else:
+                out = engine(k * te, strengths)
+            out = out.reshape(sel.size, rows, ncol, n_freq)
+            for r, a in enumerate(sel):
+                u[a] = out[r]
+        for a, b in ab:
+            s_plus[(a, b)] = s_plus[(a, b)] - 0.5 * np.sum(u[a] * u[b], axis=1)
+            s_minus[(a, b)] = s_minus[(a, b)] - 0.5 * np.sum(u[a] * np.conj(u[b]), axis=1)
+    y_sum = {}
+    for k in np.unique(km):
+        sel = np.flatnonzero(km == k)
+        strengths = np.stack([_times_strength(rows, w * y_res, ph.get(int(jm[a]))) for a in sel])
+        flat = strengths.reshape(sel.size * rows, t.size)
+        out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1) if k == 0 else engine(k * t, flat)
+        out = out.reshape(sel.size, rows, n_freq)
+        for r, a in enumerate(sel):
+            y_sum[a] = out[r]
+
+    p = 2 * n_b
+    m = np.empty((p + 1, p + 1, rows * n_freq))
+    for a, b in ab:
+        sp, sm = s_plus[(a, b)].ravel(), s_minus[(a, b)].ravel()
+        ra, ia, rb, ib = 2 * a, 2 * a + 1, 2 * b, 2 * b + 1
+        m[ra, rb] = m[rb, ra] = sm.real + sp.real
+        m[ia, ib] = m[ib, ia] = sm.real - sp.real
+        m[ra, ib] = m[ib, ra] = sp.imag - sm.imag
+        m[ia, rb] = m[rb, ia] = sp.imag + sm.imag
+    for a in range(n_b):
+        ys = y_sum[a].ravel()
+        m[2 * a, p] = m[p, 2 * a] = ys.real
+        m[2 * a + 1, p] = m[p, 2 * a + 1] = ys.imag
+    m[p, p] = chi2_0
+    chi2, min_pivot = augmented_cholesky_chi2(m)
+    return chi2.reshape(rows, n_freq), min_pivot.reshape(rows, n_freq)
+
+
+def augmented_cholesky_chi2(m: np.ndarray):
+    """Last pivot and smallest scaled pivot of a batch of augmented normal matrices.
+
+    Parameters
+    ----------
+    m : numpy.ndarray, shape (p + 1, p + 1, B)
+        ``[[A, b], [b', chi2_0]]`` for each of B systems (symmetric; overwritten).
+
+    Returns
+    -------
+    chi2 : numpy.ndarray, shape (B,)
+        ``chi2_0 - b' A^-1 b`` (nan where A is not numerically positive definite).
+    min_pivot : numpy.ndarray, shape (B,)
+        Smallest pivot of the Jacobi-scaled A (a cheap inverse-condition indicator).
+
+    Notes
+    -----
+    Outer-product Cholesky with loops over the small axis only; the pivots of
+    the unit-diagonal (Jacobi-scaled) matrix are the pivots divided by the
+    diagonal of A, since the factorisation commutes with diagonal scaling.
+    The last pivot of the augmented matrix is the Schur complement
+    ``chi2_0 - b' A^-1 b`` (e.g. Golub & Van Loan 2013, sec. 4.2).
+    """
+    p = m.shape[0] - 1
+    diag = np.einsum("iib->ib", m[:p, :p]).copy()
+    bad = np.any(~(diag > 0), axis=0)
+    min_pivot = np.full(m.shape[2], np.inf)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for j in range(p):
+            d = m[j, j]
+            # the pivot of the Jacobi-scaled matrix is d / A_jj (Cholesky commutes with diagonal scaling)
+            np.minimum(min_pivot, d / diag[j], out=min_pivot)
+            bad |= ~(d > 0)
+            d[~(d > 0)] = np.nan
+            col = m[j + 1:, j]
+            col /= np.sqrt(d)
+            for i in range(j + 1, p + 1):
+                # lower triangle only: row i, columns j+1..i
+                m[i, j + 1:i + 1] -= col[i - j - 1] * col[: i - j]
+    chi2 = m[p, p].copy()
+    chi2[bad] = np.nan
+    min_pivot[bad] = 0.0
+    return chi2, min_pivot
+
+
+# ---------------------------------------------------------------------------
+# Slow, obviously correct reference: one least-squares solve per frequency.
+
+
+def design_matrix(t, freq, jmult, kmult, f1=0.0):
+    """Columns cos/sin(2 pi (j_a f1 + k_a f) t) in the kernel's order (Re_a, Im_a, ...)."""
+    nu = np.asarray(jmult, float) * float(f1) + np.asarray(kmult, float) * float(freq)
+    ph = TWO_PI * np.mod(np.outer(t, nu), 1.0)
+    x = np.empty((t.size, 2 * nu.size))
+    x[:, 0::2] = np.cos(ph)
+    x[:, 1::2] = np.sin(ph)
+    return x
+
+
+def reference_basis_chi2(t, y, w, z, jmult, kmult, frequencies, f1=0.0) -> np.ndarray:
+    """Chi-square of ``[Z | X(f)]`` fitted by ``numpy.linalg.lstsq`` at each frequency.
+
+    The slow reference for :func:`scan_basis_chi2`: build the weighted design at
+    each frequency and solve the least-squares problem from scratch (SVD).
+
+    Parameters
+    ----------
+    t, y, w : numpy.ndarray, shape (n,)
+        Times (days), magnitudes (mag) and weights (mag^-2).
+    z : numpy.ndarray, shape (n, q)
+        Nuisance design (zero-point indicators, phase-angle columns).
+    jmult, kmult : sequence of int
+        Scanned exponentials, as in :func:`scan_basis_chi2`.
+    frequencies : numpy.ndarray, shape (F,)
+        Trial frequencies, cycles/day.
+    f1 : float
+        The fixed frequency of the ``j`` terms, cycles/day.
+    """
+    sw = np.sqrt(np.asarray(w, float))
+    yw = sw * np.asarray(y, float)
+    out = np.empty(np.size(frequencies))
+    for n, f in enumerate(np.atleast_1d(frequencies)):
+        x = np.hstack([z, design_matrix(t, f, jmult, kmult, f1)]) * sw[:, None]
+        coef, *_ = np.linalg.lstsq(x, yw, rcond=None)
+        r = yw - x @ coef
+        out[n] = float(r @ r)
+    return out
+
+
+def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, block: int = 256):
+    """Exact chi-square by Householder QR after projecting out the nuisance columns.
+
+    Used for the frequencies the fast kernel flags as ill-conditioned: the
+    weighted design ``W^1/2 X(f)`` minus its projection on the (orthonormal)
+    nuisance columns is factorised by QR (numerically stable; no normal
+    equations), in batches of frequencies.
+    """
+    t = np.asarray(t, float)
+    sw = np.sqrt(np.asarray(w, float))
+    yw = sw * np.asarray(y_res, float)
+    freqs = np.atleast_1d(np.asarray(frequencies, float))
+    out = np.empty(freqs.size)
+    nu_j = np.asarray(jmult, float) * float(f1)
+    km = np.asarray(kmult, float)
+    for lo in range(0, freqs.size, block):
+        f = freqs[lo:lo + block]
+        nu = nu_j[None, :] + km[None, :] * f[:, None]  # (B, n_b)
+        ph = TWO_PI * np.mod(t[None, :, None] * nu[:, None, :], 1.0)  # (B, n, n_b)
+        x = np.empty((f.size, t.size, 2 * km.size))
+        x[:, :, 0::2] = np.cos(ph)
+        x[:, :, 1::2] = np.sin(ph)
+        x *= sw[None, :, None]
+        for g in groups:
+            q = g.v / sw[g.index, None]
+            xg = x[:, g.index, :]
+            x[:, g.index, :] = xg - np.einsum("ic,bcp->bip", q, np.einsum("ic,bip->bcp", q, xg))
+        qx, rx = np.linalg.qr(x)
+        proj = np.einsum("bip,i->bp", qx, yw)
+        r = yw[None, :] - np.einsum("bip,bp->bi", qx, proj)
+        out[lo:lo + block] = np.sum(r**2, axis=1)
+        # rank-deficient designs (coinciding frequencies): QR is not safe, use SVD least squares
+        rd = np.abs(np.einsum("bii->bi", rx))
+        deficient = np.flatnonzero(np.min(rd, axis=1) <= 1e-9 * np.max(rd, axis=1))
+        for b in deficient:
+            coef, *_ = np.linalg.lstsq(x[b], yw, rcond=1e-10)
+            res = yw - x[b] @ coef
+            out[lo + b] = float(res @ res)
+    return out

@@ -1,0 +1,400 @@
+"""Two-period Fourier series for tumbling (NPA) light curves: ``two_period_scan``.
+
+The model (Pravec et al. 2005, Icarus 173, 108, eq. 1) of order m is
+
+    F(t) = C0 + sum_{j=1..m} [C_j0 cos(2 pi j f1 t) + S_j0 sin(2 pi j f1 t)]
+              + sum_{k=1..m} sum_{j=-m..m} [C_jk cos(2 pi (j f1 + k f2) t) + S_jk sin(...)]
+
+with (2m+1)^2 coefficients (the constant is one of the zero-points here), plus
+the nuisance terms of the 1-D scan (one zero-point per session, optional
+phase-angle terms). Pravec et al. fit in flux; we fit magnitudes, which is
+the same to first order for amplitudes of a few tenths of a magnitude.
+
+Search (Pravec et al. 2005, sec. 3): P1 from the 1-D scan; a P2 scan with P1
+held; joint least-squares refinement of both. A full (P1, P2) grid gives a
+map. The evidence that the second period is needed is the F-test and the
+Delta BIC between the best 1-D and 2-D fits (docs/methods-period-search.md).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize, stats
+
+from tumble.periodogram import _kernels as K
+from tumble.periodogram._design import PeriodSearchError, ScanData, prepare
+from tumble.periodogram.scan import (
+    HOURS_PER_DAY,
+    OVERSAMPLE,
+    EXACT_COND_FACTOR,
+    ScanResult,
+    _check_order,
+    default_period_range_h,
+    fourier_scan,
+    frequency_grid,
+)
+
+__all__ = ["TwoPeriodResult", "two_period_scan", "two_period_basis", "two_period_chi2",
+           "two_period_chi2_reference"]
+
+
+def two_period_basis(order: int) -> tuple[np.ndarray, np.ndarray]:
+    """Integer multipliers (j, k) of (f1, f2) of the 2-D series' exponentials, in kernel order.
+
+    First the harmonics of f1 (j = 1..m, k = 0), then k = 1..m with j = -m..m:
+    ``m + m (2m + 1)`` exponentials, i.e. ``(2m + 1)^2 - 1`` real columns.
+    """
+    jm = list(range(1, order + 1))
+    km = [0] * order
+    for k in range(1, order + 1):
+        for j in range(-order, order + 1):
+            jm.append(j)
+            km.append(k)
+    return np.array(jm, dtype=int), np.array(km, dtype=int)
+
+
+@dataclass(frozen=True)
+class TwoPeriodResult:
+    """Result of :func:`two_period_scan`.
+
+    Attributes
+    ----------
+    object_id : str
+        Object designation.
+    order : int
+        Order m of the 2-D series.
+    mode : str
+        'refine' (1-D P1, P2 scan, joint refinement) or 'grid' (full map, then refinement).
+    p1_h, p1_h_err, p2_h, p2_h_err : float
+        Best periods and 1-sigma errors (marginal, from the Delta chi2 = 1
+        ellipse after rescaling by the reduced chi-square), hours.
+    f1_per_d, f2_per_d : float
+        The corresponding frequencies, cycles/day.
+    chi2_1d, chi2_2d : float
+        Chi-square of the best 1-D fit (order m at P1) and of the best 2-D fit.
+    n_params_1d, n_params_2d : int
+        Free parameters of each model, counting nuisance terms and the frequencies.
+    n_points : int
+        Number of points.
+    f_test_p_value : float
+        p-value of the F-test of the 2-D against the 1-D model.
+    delta_bic : float
+        ``BIC_1D - BIC_2D`` with BIC = chi2 + k ln n: positive favours the second period.
+    p2_grid_h : numpy.ndarray, shape (F2,)
+        Trial P2 values, hours.
+    chi2_p2 : numpy.ndarray, shape (F2,) or (F1, F2)
+        Chi-square of the P2 scan at P1 fixed ('refine'), or the full map ('grid');
+        at commensurate pairs the value of the reduced (rank-deficient) model.
+    p1_grid_h : numpy.ndarray or None
+        Trial P1 values of the map, hours ('grid' mode).
+    delta_chi2_map : numpy.ndarray
+        ``chi2_p2 - min(chi2_p2)``.
+    coefficients_mag : numpy.ndarray, shape (n_b, 2)
+        (cos, sin) amplitudes of each exponential of :func:`two_period_basis`, mag.
+    amplitude_mag : float
+        Peak-to-peak range of the fitted 2-D series over the data span, mag.
+    epoch_jd : float
+        Reference epoch (TDB JD) of the phases.
+    scan_1d : ScanResult or None
+        The 1-D scan that gave P1 (None when P1 was given).
+    """
+
+    object_id: str
+    order: int
+    mode: str
+    p1_h: float
+    p1_h_err: float
+    p2_h: float
+    p2_h_err: float
+    f1_per_d: float
+    f2_per_d: float
+    chi2_1d: float
+    chi2_2d: float
+    n_params_1d: int
+    n_params_2d: int
+    n_points: int
+    f_test_p_value: float
+    delta_bic: float
+    p2_grid_h: np.ndarray
+    chi2_p2: np.ndarray
+    p1_grid_h: np.ndarray | None
+    delta_chi2_map: np.ndarray
+    coefficients_mag: np.ndarray
+    amplitude_mag: float
+    epoch_jd: float
+    scan_1d: ScanResult | None
+
+    def frequencies_per_d(self) -> np.ndarray:
+        """Frequencies j f1 + k f2 of the fitted exponentials, cycles/day."""
+        jm, km = two_period_basis(self.order)
+        return jm * self.f1_per_d + km * self.f2_per_d
+
+    def to_dict(self) -> dict:
+        return {
+            "object": self.object_id,
+            "order": self.order,
+            "mode": self.mode,
+            "p1_h": self.p1_h,
+            "p1_h_err": self.p1_h_err,
+            "p2_h": self.p2_h,
+            "p2_h_err": self.p2_h_err,
+            "chi2_1d": self.chi2_1d,
+            "chi2_2d": self.chi2_2d,
+            "n_params_1d": self.n_params_1d,
+            "n_params_2d": self.n_params_2d,
+            "f_test_p_value": self.f_test_p_value,
+            "delta_bic": self.delta_bic,
+            "amplitude_mag": self.amplitude_mag,
+        }
+
+
+# ---------------------------------------------------------------------------
+
+
+def _exact(data: ScanData, order: int, f1: float, f2: float) -> float:
+    """Exact chi-square of the 2-D series at (f1, f2) by least squares (SVD, rank-safe)."""
+    jm, km = two_period_basis(order)
+    return float(K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm, km, [f2], f1=f1)[0])
+
+
+def _fit2d(data: ScanData, order: int, f1: float, f2: float):
+    jm, km = two_period_basis(order)
+    sw = np.sqrt(data.w)
+    x = np.hstack([data.z, K.design_matrix(data.t, f2, jm, km, f1)]) * sw[:, None]
+    coef, *_ = np.linalg.lstsq(x, sw * data.y, rcond=None)
+    c = coef[data.n_nuisance:].reshape(-1, 2)
+    model = K.design_matrix(data.t, f2, jm, km, f1) @ coef[data.n_nuisance:]
+    return c, float(np.ptp(model))
+
+
+def two_period_chi2(lc, p1_h, p2_h, *, order: int = 2, sessions: bool = True, phase_term=None,
+                    method: str = "auto", progress=None) -> np.ndarray:
+    """Chi-square map of the 2-D series over trial periods (hours): shape (len(p1_h), len(p2_h)).
+
+    The fast kernel (NUFFT sums over the P2 axis, rows in batches). At
+    commensurate pairs, where two exponentials of the series coincide, the
+    value is that of the reduced (rank-deficient) model.
+    """
+    data = prepare(lc, sessions=sessions, phase_term=phase_term)
+    _check_order(order, data)
+    f1 = HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_h, float))
+    f2 = HOURS_PER_DAY / np.atleast_1d(np.asarray(p2_h, float))
+    order_f2 = np.argsort(f2)
+    chi2 = _map_chi2(data, order, f1, f2[order_f2], method=method, progress=progress)
+    out = np.empty_like(chi2)
+    out[:, order_f2] = chi2
+    return out
+
+
+def two_period_chi2_reference(lc, p1_h, p2_h, *, order: int = 2, sessions: bool = True,
+                              phase_term=None) -> np.ndarray:
+    """Slow reference of :func:`two_period_chi2`: one ``lstsq`` per (P1, P2) pair (no masking)."""
+    data = prepare(lc, sessions=sessions, phase_term=phase_term)
+    jm, km = two_period_basis(order)
+    f1 = HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_h, float))
+    f2 = HOURS_PER_DAY / np.atleast_1d(np.asarray(p2_h, float))
+    return np.array([K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm, km, f2, f1=a) for a in f1])
+
+
+def _map_chi2(data: ScanData, order: int, f1: np.ndarray, f2: np.ndarray, *, method="auto", progress=None):
+    jm, km = two_period_basis(order)
+    n_b = jm.size
+    engine = K.make_engine(f2, "direct" if method == "direct" else "nufft")
+    paired, explicit = K.split_groups(data.groups, f2.size, n_b)
+    n_pairs = sum(g.index.size ** 2 for g in paired)
+    # rows per batch: keep the per-call strengths and the (p+1)^2 matrices near 200 MB
+    per_row = 25 * (data.n_points + n_pairs) * 16 + (2 * n_b + 1) ** 2 * f2.size * 8 * 2 \
+        + 2 * n_b * (n_b + 1) * f2.size * 16
+    rows = int(max(1, min(64, 2e8 // per_row)))
+    chi2 = np.empty((f1.size, f2.size))
+    chi2_0 = data.chi2_nuisance
+    for lo in range(0, f1.size, rows):
+        fb = f1[lo:lo + rows]
+        c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine, f1=fb,
+                                   paired=paired, explicit=explicit)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            risk = EXACT_COND_FACTOR * (chi2_0 / c) / np.sqrt(piv)
+        flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
+        for r in np.flatnonzero(np.any(flag, axis=1)):
+            idx = np.flatnonzero(flag[r])
+            c[r, idx] = K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, f2[idx],
+                                            f1=float(fb[r]))
+        chi2[lo:lo + rows] = c
+        if progress is not None:
+            progress(fb.size)
+    return chi2
+
+
+def _halfwidth(fun, x0, c0, s2, step0, limit):
+    """Distance from x0 to where (fun(x) - c0)/s2 = 1, averaged over both sides."""
+    out = []
+    for direction in (+1, -1):
+        step, inner, found = step0, x0, None
+        for _ in range(50):
+            x = x0 + direction * min(step, limit)
+            val = (fun(x) - c0) / s2 - 1.0
+            if val > 0:
+                a, b = sorted((inner, x))
+                g = lambda z: (fun(z) - c0) / s2 - 1.0  # noqa: E731
+                try:
+                    found = abs(optimize.brentq(g, a, b, xtol=1e-3 * step0 + 1e-15, rtol=1e-10) - x0)
+                except ValueError:
+                    found = abs(x - x0)
+                break
+            if step >= limit:
+                found = limit
+                break
+            inner = x
+            step *= 2.0
+        out.append(found if found is not None else limit)
+    return 0.5 * (out[0] + out[1])
+
+
+def _refine_pair(data, order, f1, f2, step1, step2):
+    """Joint least-squares refinement of (f1, f2) from a grid point (Nelder-Mead on exact chi2)."""
+    fun = lambda v: _exact(data, order, f1 + v[0] * step1, f2 + v[1] * step2)  # noqa: E731
+    res = optimize.minimize(fun, x0=[0.0, 0.0], method="Nelder-Mead",
+                            options={"xatol": 1e-6, "fatol": 1e-9, "initial_simplex": [[0, 0], [0.5, 0], [0, 0.5]],
+                                     "maxiter": 400})
+    v = res.x if res.fun <= fun([0.0, 0.0]) else np.zeros(2)
+    return f1 + v[0] * step1, f2 + v[1] * step2, float(min(res.fun, fun([0.0, 0.0])))
+
+
+def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *, p1_grid=None,
+                    min_period_h: float | None = None, max_period_h: float | None = None,
+                    sessions: bool = True, phase_term: bool | None = None, oversample: float = OVERSAMPLE,
+                    method: str = "auto", progress=False) -> TwoPeriodResult:
+    """Two-period (2-D Fourier series) search.
+
+    Parameters
+    ----------
+    lc : LightCurve
+        The light curve.
+    order : int
+        Order m of the 2-D series ((2m+1)^2 coefficients; Pravec et al. 2005).
+    p1 : float or None
+        First period, hours. None: the period of the global minimum of a 1-D
+        :func:`fourier_scan` of the same order (then refined jointly with P2).
+    p2_grid : array_like or None
+        Trial P2 values, hours. None: the automatic grid over
+        ``[min_period_h, max_period_h]`` (see :func:`frequency_grid`).
+    p1_grid : array_like or None
+        Trial P1 values, hours. When given, the full (P1, P2) grid is computed
+        ('grid' mode) and its minimum refined; otherwise 'refine' mode.
+    min_period_h, max_period_h : float or None
+        Period range of the automatic grids, hours.
+    sessions, phase_term, oversample, method : see :func:`fourier_scan`.
+    progress : bool or callable
+        tqdm bar (True) or a callable receiving the rows/frequencies done.
+
+    Returns
+    -------
+    TwoPeriodResult
+    """
+    data = prepare(lc, sessions=sessions, phase_term=phase_term)
+    _check_order(order, data)
+    n_b = two_period_basis(order)[0].size
+    if data.n_points <= data.n_nuisance + 2 * n_b + 2:
+        raise PeriodSearchError(
+            f"{data.n_points} points cannot constrain an order-{order} two-period series "
+            f"({2 * n_b} coefficients and {data.n_nuisance} zero-points/phase terms)")
+    span = data.span_d
+    if min_period_h is None or max_period_h is None:
+        d_lo, d_hi = default_period_range_h(data, sessions)
+        min_period_h = d_lo if min_period_h is None else min_period_h
+        max_period_h = d_hi if max_period_h is None else max_period_h
+    if p2_grid is None:
+        f2 = frequency_grid(span, order, min_period_h, max_period_h, oversample)
+    else:
+        f2 = np.sort(HOURS_PER_DAY / np.atleast_1d(np.asarray(p2_grid, float)))
+    scan_1d = None
+
+    bar = None
+    cb = progress if callable(progress) else None
+    if progress is True:
+        from tqdm.auto import tqdm
+
+        total = (len(p1_grid) if p1_grid is not None else 1)
+        bar = tqdm(total=total, unit="row", delay=1.0, leave=False, desc=f"2-D scan {lc.object_id}")
+        cb = bar.update
+    try:
+        if p1_grid is not None:
+            mode = "grid"
+            f1_grid = np.sort(HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_grid, float)))
+            chi2_map = _map_chi2(data, order, f1_grid, f2, method=method, progress=cb)
+            if not np.any(np.isfinite(chi2_map)):
+                raise PeriodSearchError(f"{lc.object_id}: every (P1, P2) pair of the grid is degenerate")
+            r, c = np.unravel_index(np.nanargmin(chi2_map), chi2_map.shape)
+            f1_0, f2_0 = float(f1_grid[r]), float(f2[c])
+            step1 = float(np.median(np.diff(f1_grid))) if f1_grid.size > 1 else 1.0 / (oversample * order * span)
+            p1_grid_h = HOURS_PER_DAY / f1_grid
+        else:
+            mode = "refine"
+            if p1 is None:
+                scan_1d = fourier_scan(lc, order=order, min_period_h=min_period_h, max_period_h=max_period_h,
+                                       sessions=sessions, phase_term=phase_term, oversample=oversample,
+                                       method=method)
+                f1_0 = HOURS_PER_DAY / scan_1d.fit_period_h
+            else:
+                f1_0 = HOURS_PER_DAY / float(p1)
+            chi2_map = _map_chi2(data, order, np.array([f1_0]), f2, method=method, progress=cb)[0]
+            if not np.any(np.isfinite(chi2_map)):
+                raise PeriodSearchError(f"{lc.object_id}: every P2 of the grid is commensurate with P1")
+            f2_0 = float(f2[np.nanargmin(chi2_map)])
+            step1 = 1.0 / (oversample * order * span)
+            p1_grid_h = None
+    finally:
+        if bar is not None:
+            bar.close()
+    step2 = float(np.median(np.diff(f2))) if f2.size > 1 else 1.0 / (oversample * order * span)
+    f1_b, f2_b, chi2_2d = _refine_pair(data, order, f1_0, f2_0, step1, step2)
+
+    # the best 1-D fit: order m at P1, refined locally
+    jm1, km1 = np.zeros(order, dtype=int), np.arange(1, order + 1)
+    one_d = lambda f: float(K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm1, km1, [f])[0])  # noqa: E731
+    res1 = optimize.minimize_scalar(one_d, bounds=(f1_b - 2 * step1, f1_b + 2 * step1), method="bounded",
+                                    options={"xatol": 1e-6 * step1})
+    chi2_1d = float(min(res1.fun, one_d(f1_b)))
+
+    n = data.n_points
+    k1 = data.n_nuisance + 2 * order + 1
+    k2 = data.n_nuisance + 2 * n_b + 2
+    dof2 = n - k2
+    if dof2 > 0 and chi2_2d > 0 and chi2_1d > chi2_2d:
+        fstat = ((chi2_1d - chi2_2d) / (k2 - k1)) / (chi2_2d / dof2)
+        p_f = float(stats.f.sf(fstat, k2 - k1, dof2))
+    else:
+        p_f = 1.0
+    delta_bic = float((chi2_1d + k1 * np.log(n)) - (chi2_2d + k2 * np.log(n)))
+
+    # uncertainties: Delta chi2 = 1 after rescaling, marginal over the other frequency
+    s2 = chi2_2d / dof2 if dof2 > 0 and chi2_2d > 0 else 1.0
+    g1 = lambda f: _exact(data, order, f, f2_b)  # noqa: E731
+    g2 = lambda f: _exact(data, order, f1_b, f)  # noqa: E731
+    w1 = _halfwidth(g1, f1_b, chi2_2d, s2, 0.01 * step1, 2.0 / span)
+    w2 = _halfwidth(g2, f2_b, chi2_2d, s2, 0.01 * step2, 2.0 / span)
+    # curvature matrix from the two conditional widths and one diagonal point
+    h11, h22 = 2.0 * s2 / w1**2, 2.0 * s2 / w2**2
+    c12 = _exact(data, order, f1_b + w1, f2_b + w2) - chi2_2d
+    h12 = (c12 - 0.5 * h11 * w1**2 - 0.5 * h22 * w2**2) / (w1 * w2)
+    hess = np.array([[h11, h12], [h12, h22]])
+    try:
+        cov = 2.0 * s2 * np.linalg.inv(hess)
+        sig1, sig2 = np.sqrt(cov[0, 0]), np.sqrt(cov[1, 1])
+        if not (np.isfinite(sig1) and np.isfinite(sig2) and cov[0, 0] > 0 and cov[1, 1] > 0):
+            raise np.linalg.LinAlgError
+    except np.linalg.LinAlgError:
+        sig1, sig2 = w1, w2
+    coefs, amp = _fit2d(data, order, f1_b, f2_b)
+    finite = np.where(np.isfinite(chi2_map), chi2_map, np.nan)
+    return TwoPeriodResult(
+        object_id=lc.object_id, order=int(order), mode=mode,
+        p1_h=HOURS_PER_DAY / f1_b, p1_h_err=HOURS_PER_DAY * sig1 / f1_b**2,
+        p2_h=HOURS_PER_DAY / f2_b, p2_h_err=HOURS_PER_DAY * sig2 / f2_b**2,
+        f1_per_d=f1_b, f2_per_d=f2_b, chi2_1d=chi2_1d, chi2_2d=chi2_2d, n_params_1d=k1, n_params_2d=k2,
+        n_points=n, f_test_p_value=p_f, delta_bic=delta_bic, p2_grid_h=HOURS_PER_DAY / f2,
+        chi2_p2=chi2_map, p1_grid_h=p1_grid_h, delta_chi2_map=finite - np.nanmin(finite),
+        coefficients_mag=coefs, amplitude_mag=amp, epoch_jd=data.epoch_jd, scan_1d=scan_1d,
+    )
