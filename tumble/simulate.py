@@ -361,7 +361,7 @@ def _axes_tuple(axes) -> np.ndarray:
 
 def model_magnitudes(state, axes, t_tdb_jd, sun_dir, obs_dir, *, r_au=None, delta_au=None, phase_deg=None,
                      h_mag: float = 0.0, law: str = "lommel-seeliger", lambert_weight: float = 0.1,
-                     trend: brightness.PhaseTrend | None = None, order: int = 32) -> np.ndarray:
+                     trend: brightness.PhaseTrend | None = None, order: int = 24) -> np.ndarray:
     """Noise-free model magnitudes of a rotating ellipsoid (no per-night offsets).
 
     ``m = H - 2.5 log10(I / I_sphere(0)) + 5 log10(r Delta) + trend(alpha)``;
