@@ -925,10 +925,10 @@ class RotationState:
     Notes
     -----
     Each NPA state has a mirror solution with the opposite sense of rotation
-    about the reference axis (``theta -> 180 deg - theta``). It is this same
-    motion with body axes rotated 180 degrees about axis 1 (SAM) or axis 3
-    (LAM), a symmetry of a triaxial ellipsoid, so it is not parametrised
-    separately.
+    about the reference axis, ``(w1, w2, w3) -> (-w1, w2, -w3)`` and
+    ``theta -> 180 deg - theta``. It is this same motion with the body axes
+    turned 180 degrees about axis 2 (``R -> R diag(-1, 1, -1)``, same L), a
+    symmetry of a triaxial ellipsoid, so it is not parametrised separately.
     """
 
     i1_i3: float
