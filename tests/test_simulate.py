@@ -65,7 +65,7 @@ def test_pa_simulation_peaks_at_twice_the_rotation_frequency():
     # viewing geometry over a few hours.
     period_h = 6.0
     state = RotationState.principal_axis(period_h, 30.0, 60.0, 0.0, START)
-    plan = sim.DenseCampaign(START + 0.1, n_nights=3, hours_per_night=7.0, cadence_min=5.0)
+    plan = sim.DenseCampaign(START + 0.1, n_nights=3, hours_per_night=7.0, cadence_min=5.0, jitter_fraction=0.0)
     out = sim.simulate_lightcurve(state, AXES, plan, noise=sim.NoiseModel(sigma_mag=0.0), rng=1)
     lc = out.lightcurve
     t_h = (lc.t - lc.t[0]) * 24.0
@@ -142,6 +142,7 @@ def test_truth_in_ecsv_metadata_and_state_round_trip(tmp_path, lam_state):
     state = sim.state_from_dict(truth["state"])
     assert state == lam_state
     assert sim.plan_from_dict(truth["plan"]) == sim.DenseCampaign(START, n_nights=1)
+    assert sim.plan_from_dict(sim.SparseSurvey(START).to_dict()) == sim.SparseSurvey(START)
     with pytest.raises(sim.SimulationError):
         sim.write_simulation(out, tmp_path / "a.csv", sidecar=False)
 
@@ -149,8 +150,9 @@ def test_truth_in_ecsv_metadata_and_state_round_trip(tmp_path, lam_state):
 # ---------------------------------------------------------------- plans, noise, seeds
 
 
-def test_dense_plan_counts():
-    plan = sim.DenseCampaign(START, n_nights=4, hours_per_night=6.0, cadence_min=5.0, night_spacing_d=2.0)
+def test_dense_plan_counts(rng):
+    plan = sim.DenseCampaign(START, n_nights=4, hours_per_night=6.0, cadence_min=5.0, night_spacing_d=2.0,
+                             jitter_fraction=0.0)
     assert plan.points_per_night == 73  # 6 h every 5 min, both ends
     times = plan.times()
     assert len(times.t_utc_jd) == plan.n_points == 4 * 73
@@ -158,6 +160,12 @@ def test_dense_plan_counts():
     starts = [times.t_utc_jd[times.night == k].min() for k in range(4)]
     np.testing.assert_allclose(np.diff(starts), 2.0)
     np.testing.assert_allclose(np.diff(times.t_utc_jd[times.night == 0]) * 1440, 5.0)
+    # with timing jitter: same counts, each time within +-10 % of a cadence of its grid point
+    jittered = sim.DenseCampaign(START, n_nights=4, hours_per_night=6.0, cadence_min=5.0, night_spacing_d=2.0)
+    tj = jittered.times(rng).t_utc_jd
+    assert len(tj) == 4 * 73 and np.all(np.diff(tj) > 0)
+    dev = (tj - times.t_utc_jd) * 1440
+    assert np.all(np.abs(dev) <= 0.5) and np.std(dev) > 0.1
     with pytest.raises(sim.SimulationError):
         sim.DenseCampaign(START, hours_per_night=30.0)
 

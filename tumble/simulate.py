@@ -123,6 +123,10 @@ class DenseCampaign:
         has its own calibration; the offsets are drawn once per night).
     band : str
         Band label written with the data.
+    jitter_fraction : float
+        Each exposure time is shifted by a uniform random amount within
+        +-``jitter_fraction`` of the cadence (default 0.1; 0 gives an exactly
+        regular grid, which makes every period scan's cadence aliases exact).
     """
 
     start_jd_utc: float
@@ -132,6 +136,7 @@ class DenseCampaign:
     night_spacing_d: float = 1.0
     zero_point_sigma_mag: float = 0.0
     band: str = "V"
+    jitter_fraction: float = 0.1
 
     def __post_init__(self):
         if not (isinstance(self.n_nights, (int, np.integer)) and self.n_nights >= 1):
@@ -144,6 +149,8 @@ class DenseCampaign:
             raise SimulationError("dense plan: start_jd_utc must be finite")
         if self.hours_per_night / 24.0 >= self.night_spacing_d:
             raise SimulationError("dense plan: a night's run must be shorter than the spacing between nights")
+        if not (0.0 <= self.jitter_fraction < 0.5):
+            raise SimulationError(f"dense plan: jitter_fraction must lie in [0, 0.5), got {self.jitter_fraction!r}")
 
     @property
     def points_per_night(self) -> int:
@@ -156,11 +163,14 @@ class DenseCampaign:
         return self.n_nights * self.points_per_night
 
     def times(self, rng=None) -> ObservingTimes:
-        """The plan's observation times (deterministic; ``rng`` is accepted for symmetry)."""
+        """The plan's observation times (the jitter is drawn from ``rng``)."""
         k = np.arange(self.points_per_night)
         nights = np.arange(self.n_nights)
         t = (self.start_jd_utc + nights[:, None] * self.night_spacing_d
              + k[None, :] * (self.cadence_min / 1440.0)).reshape(-1)
+        if self.jitter_fraction > 0:
+            g = _rng(rng)
+            t = t + g.uniform(-self.jitter_fraction, self.jitter_fraction, t.size) * (self.cadence_min / 1440.0)
         night = np.repeat(nights, self.points_per_night)
         return ObservingTimes(t_utc_jd=t, night=night, session=night.copy())
 
