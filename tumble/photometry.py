@@ -20,6 +20,7 @@ import csv
 import gzip
 import io
 import os
+import re
 import warnings
 import zlib
 from dataclasses import dataclass, field, replace
@@ -605,7 +606,14 @@ def _read_ecsv(src: str, text: str) -> _RawTable:
     try:
         table = Table.read(text, format="ascii.ecsv")
     except Exception as exc:  # astropy raises many types for malformed ECSV
-        raise _fail(src, "", f"malformed ECSV ({_first_line(exc)})") from None
+        msg = _first_line(exc)
+        hit = re.search(r"column '([^']+)' failed to convert: could not convert string to \w+: '([^']*)'", msg)
+        if hit:  # name the line of the first bad cell
+            for i, line in enumerate(text.splitlines()):
+                if not line.startswith("#") and hit.group(2) in line.split():
+                    raise _fail(src, f"line {i + 1}, column '{hit.group(1)}'",
+                                f"'{hit.group(2)}' is not a number") from None
+        raise _fail(src, "", f"malformed ECSV ({msg})") from None
     return _table_to_raw(src, table, "ecsv")
 
 
