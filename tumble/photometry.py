@@ -90,6 +90,7 @@ _EXT_FORMAT = {
 MAG_RANGE = (-5.0, 35.0)
 _DUP_TOL_D = 1e-8  # about 1 ms: times closer than this are the same instant
 _LT_GIVEN = "input already light-time corrected"
+_BULK_TIME_COLUMNS = ("__jd_utc", "__jd_tdb")
 _VEC_COLUMNS = ("sun_x", "sun_y", "sun_z", "obs_x", "obs_y", "obs_z")
 
 
@@ -863,6 +864,9 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
         if bad.size:
             raise _fail(src, f"{labels[bad[0]]}, column '{mapping['phase_deg']}'",
                         f"phase angle must lie in 0..180 deg, got {ph[bad[0]]:g}")
+    for name in _BULK_TIME_COLUMNS:  # times converted once for a whole survey table
+        if name in table.columns:
+            extra[name] = np.asarray(table.columns[name], dtype=float)
     object_col = None
     if "object" in mapping:
         object_col = np.array([str(v).strip() for v in table.columns[mapping["object"]]], dtype=object)
@@ -888,8 +892,39 @@ def _select_piece(piece: _Piece, keep: np.ndarray) -> _Piece:
     )
 
 
+def _bulk_times(table: _RawTable, mapping: dict[str, str], opts: ReadOptions):
+    """Convert a whole table's time column at once (JD UTC, JD TDB), or None if any cell is bad.
+
+    Survey tables hold thousands of objects; one astropy conversion for all of
+    them replaces one per object. Bad cells are left to the per-object path,
+    which reports them with their line.
+    """
+    from astropy.time import Time
+
+    if "time" not in mapping:
+        return None
+    name = mapping["time"]
+    try:
+        fmt = _guess_time_format(table, name, table.columns[name], opts)
+        if fmt == "iso":
+            values = [str(v).strip() for v in table.columns[name]]
+            t = Time(values, format="isot" if "T" in values[0] else "iso", scale=opts.time_scale)
+        else:
+            values = _numeric(table, name, allow_missing=False)
+            if not np.all(np.isfinite(values)):
+                return None
+            t = Time(values, format=fmt, scale=opts.time_scale)
+        utc, tdb = t.utc, t.tdb
+        return utc.jd1 + utc.jd2, tdb.jd1 + tdb.jd2
+    except Exception:
+        return None
+
+
 def _to_jd_utc_tdb(piece: _Piece, opts: ReadOptions):
     from astropy.time import Time
+
+    if all(name in piece.extra for name in _BULK_TIME_COLUMNS):
+        return piece.extra["__jd_utc"], piece.extra["__jd_tdb"]
 
     try:
         if piece.time_format == "iso":
@@ -1205,12 +1240,20 @@ def iter_survey(path_or_paths, columns=None, *, options: ReadOptions | None = No
                 yield name, exc
             continue
         objects = np.array([str(v).strip() for v in table.columns[mapping["object"]]], dtype=object)
-        for name in dict.fromkeys(objects.tolist()):
-            rows = np.flatnonzero(objects == name)
+        columns = dict(table.columns)
+        bulk = _bulk_times(table, mapping, opts)
+        if bulk is not None:
+            columns["__jd_utc"], columns["__jd_tdb"] = bulk
+        names, first, inverse = np.unique(objects, return_index=True, return_inverse=True)
+        order = np.argsort(inverse, kind="stable")
+        bounds = np.concatenate([[0], np.cumsum(np.bincount(inverse, minlength=len(names)))])
+        for g in np.argsort(first):  # objects in order of first appearance
+            name = names[g]
+            rows = order[bounds[g]:bounds[g + 1]]
             sub = _RawTable(
                 source=f"{table.source} [object {name}]",
                 names=table.names,
-                columns={k: v[rows] for k, v in table.columns.items()},
+                columns={k: v[rows] for k, v in columns.items()},
                 row_labels=[table.label(i) for i in rows],
                 meta=table.meta,
                 format=table.format,
