@@ -223,6 +223,33 @@ def test_sparse_simulation_keeps_points_sparse(lam_state):
     assert out.truth["n_nights"] == 30
 
 
+def test_sparse_elongation_cut(lam_state):
+    # Solar elongation from the geometry against astropy's own Sun and asteroid
+    # positions seen from the geocentre (GCRS separation); visits below the cut
+    # are dropped and counted.
+    from astropy.coordinates import get_body_barycentric
+    from tumble import geometry
+
+    plan = sim.SparseSurvey(START, span_d=720.0, n_nights=100, points_per_night=2, min_elongation_deg=90.0)
+    out = sim.simulate_lightcurve(lam_state, AXES, plan, rng=8)
+    truth = out.truth
+    lc = out.lightcurve
+    assert lc.n_points + truth["n_dropped_elongation"] == plan.n_points
+    assert 0 < truth["n_dropped_elongation"] < plan.n_points  # two years span every elongation
+    tdb = Time(lc.t_obs, format="jd", scale="utc").tdb
+    sun = get_body_barycentric("sun", tdb, ephemeris="builtin").xyz.to_value("au").T
+    earth = get_body_barycentric("earth", tdb, ephemeris="builtin").xyz.to_value("au").T
+    ast_helio = -lc.sun_dir * lc.r_au[:, None]  # ecliptic, from the simulator
+    ast = geometry.equatorial_to_ecliptic(sun - earth) + ast_helio  # geocentric asteroid, ecliptic
+    to_sun = geometry.equatorial_to_ecliptic(sun - earth)
+    cosang = np.sum(ast * to_sun, axis=1) / np.linalg.norm(ast, axis=1) / np.linalg.norm(to_sun, axis=1)
+    elong = np.degrees(np.arccos(np.clip(cosang, -1, 1)))
+    assert elong.min() >= 90.0 - 1e-3
+    np.testing.assert_allclose(sim.solar_elongation_deg(
+        geometry.observing_geometry(tdb.jd1 + tdb.jd2, geometry.OrbitalElements(**truth["elements"]))), elong,
+        atol=2e-3)  # light time moves the asteroid by ~1e-3 deg
+
+
 def test_same_seed_same_output(tmp_path, lam_state):
     plan = sim.SparseSurvey(START, span_d=300.0, n_nights=25, points_per_night=2)
     noise = sim.NoiseModel(sigma_mag=0.03, outlier_fraction=0.1)

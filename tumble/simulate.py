@@ -49,6 +49,8 @@ __all__ = [
     "SimulatedLightCurve",
     "utc_to_tdb",
     "opposition_elements",
+    "solar_elongation_deg",
+    "plan_from_dict",
     "model_magnitudes",
     "simulate_lightcurve",
     "write_simulation",
@@ -202,6 +204,11 @@ class SparseSurvey:
         ``window_h`` hours of the night.
     band : str
         Band label written with the data.
+    min_elongation_deg : float
+        Visits at a solar elongation (Sun-observer-asteroid angle) below this
+        are dropped when the light curve is simulated, as a survey cannot
+        point near the Sun (default 0: no cut). The number dropped is in the
+        truth (``n_dropped_elongation``).
     """
 
     start_jd_utc: float
@@ -211,6 +218,7 @@ class SparseSurvey:
     visit_spacing_min: float = 30.0
     window_h: float = 6.0
     band: str = "r"
+    min_elongation_deg: float = 0.0
 
     def __post_init__(self):
         _positive("sparse plan: span_d", self.span_d)
@@ -227,6 +235,8 @@ class SparseSurvey:
             raise SimulationError("sparse plan: a night's visits must fit within a day")
         if not math.isfinite(self.start_jd_utc):
             raise SimulationError("sparse plan: start_jd_utc must be finite")
+        if not (0.0 <= self.min_elongation_deg < 180.0):
+            raise SimulationError(f"sparse plan: min_elongation_deg must lie in [0, 180), got {self.min_elongation_deg!r}")
 
     @property
     def n_points(self) -> int:
@@ -354,6 +364,16 @@ def opposition_elements(t_tdb_jd: float, *, a_au: float = 2.4, e: float = 0.1, i
             break
         m += diff  # dlon/dM is about 1 for a low-eccentricity orbit
     return geometry.OrbitalElements(a_au, e, i_deg, node_deg, peri_deg, math.degrees(m) % 360.0, t_opp)
+
+
+def solar_elongation_deg(geo: geometry.ObservingGeometry) -> np.ndarray:
+    """Solar elongation (angle Sun-observer-asteroid, degrees) from an ObservingGeometry.
+
+    The observer-to-Sun vector is ``r e_sun - Delta e_obs`` and the
+    observer-to-asteroid direction ``-e_obs`` (e: asteroid-centric unit vectors).
+    """
+    to_sun = geo.r_au[:, None] * geo.sun_dir - geo.delta_au[:, None] * geo.obs_dir
+    return geometry.phase_angle_deg(to_sun, -geo.obs_dir)
 
 
 # ---------------------------------------------------------------------------
@@ -550,6 +570,16 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
     if elements is None:
         elements = opposition_elements(float(t_tdb[0]))
     geo = geometry.observing_geometry(t_tdb, elements, observatory)
+    n_dropped = 0
+    min_elong = getattr(plan, "min_elongation_deg", 0.0)
+    if min_elong > 0:
+        keep = solar_elongation_deg(geo) >= min_elong
+        n_dropped = int(np.sum(~keep))
+        if not keep.any():
+            raise SimulationError(f"no visit of the plan is at a solar elongation of {min_elong:g} deg or more")
+        geo = geometry.ObservingGeometry(**{f.name: getattr(geo, f.name)[keep] for f in fields(geo)})
+        t_utc, t_tdb = t_utc[keep], t_tdb[keep]
+        times = ObservingTimes(t_utc_jd=times.t_utc_jd[keep], night=times.night[keep], session=times.session[keep])
     t_model = t_tdb - geo.light_time_d  # emission times (light time)
     model = model_magnitudes(state, ax, t_model, geo.sun_dir, geo.obs_dir, r_au=geo.r_au, delta_au=geo.delta_au,
                              phase_deg=geo.phase_deg, h_mag=h_mag, law=law, lambert_weight=lambert_weight,
@@ -557,6 +587,7 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
     zp_sigma = getattr(plan, "zero_point_sigma_mag", 0.0)
     n_nights = int(times.night.max()) + 1 if times.night.size else 0
     night_zp = zp_sigma * g.standard_normal(n_nights) if zp_sigma > 0 else np.zeros(n_nights)
+    n_nights_observed = int(len(np.unique(times.night)))
     offset = night_zp[times.night]
     noise_mag, outlier = noise.draw(len(model), g)
     mag = model + offset + noise_mag
@@ -590,7 +621,8 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
         "seed": None if seed_used is None else int(seed_used),
         "night_zero_points_mag": [float(v) for v in night_zp],
         "n_points": int(len(mag)),
-        "n_nights": n_nights,
+        "n_nights": n_nights_observed,
+        "n_dropped_elongation": n_dropped,
         "n_outliers": int(outlier.sum()),
         "magnitude_model": "m = H - 2.5 log10(I/I_sphere(0)) + 5 log10(r Delta) + trend(alpha) + night offset + noise",
     }

@@ -83,6 +83,8 @@ def add_parser(sub) -> None:
     g.add_argument("--points-per-night", type=int, default=2, metavar="N", help="sparse: visits per night (2)")
     g.add_argument("--visit-spacing-min", type=float, default=30.0, metavar="MIN",
                    help="sparse: mean minutes between visits in a night (30)")
+    g.add_argument("--min-elongation", type=float, default=0.0, metavar="DEG",
+                   help="sparse: drop visits closer to the Sun than DEG of solar elongation (0: keep all)")
     g.add_argument("--band", help="band label (default: dense V, sparse r)")
     g.add_argument("--elements", metavar="A,E,I,NODE,PERI,M,EPOCH",
                    help="heliocentric ecliptic J2000 elements (au, deg, JD TDB); default: an invented orbit "
@@ -153,7 +155,7 @@ def run(args: argparse.Namespace) -> int:
     else:
         plan = SparseSurvey(args.start, span_d=args.span_days, n_nights=args.nights or 60,
                             points_per_night=args.points_per_night, visit_spacing_min=args.visit_spacing_min,
-                            band=args.band or "r")
+                            band=args.band or "r", min_elongation_deg=args.min_elongation)
     start_tdb = float(utc_to_tdb([args.start])[1][0])
     state = _state(args, np.asarray(axes), start_tdb)
     if args.phase_slope is not None:
