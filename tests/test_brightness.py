@@ -2,6 +2,8 @@
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import integrate
 
 from tumble import brightness as br
@@ -138,6 +140,28 @@ def test_limits_are_finite_and_safe():
         val = br.lommel_seeliger_ellipsoid(sun, obs, axes)
         assert np.isfinite(val) and val >= 0
         assert val == pytest.approx(br.ellipsoid_quadrature(sun, obs, axes), rel=1e-8, abs=1e-14)
+
+
+_component = st.floats(-1.0, 1.0, allow_nan=False)
+_vector = st.tuples(_component, _component, _component).filter(lambda v: np.linalg.norm(v) > 1e-3)
+_axis = st.floats(0.2, 5.0, allow_nan=False)
+
+
+@settings(max_examples=60, deadline=None)
+@given(_vector, _vector, st.tuples(_axis, _axis, _axis))
+def test_property_finite_nonnegative_reciprocal_and_exact(sun, obs, axes):
+    # For any geometry and any positive axes (not only a >= b >= c): finite,
+    # non-negative, symmetric in Sun and observer (LS reciprocity, common
+    # practice), and equal to the surface quadrature (Muinonen & Lumme 2015).
+    s = np.asarray(sun) / np.linalg.norm(sun)
+    o = np.asarray(obs) / np.linalg.norm(obs)
+    ax = np.asarray(axes)
+    val = br.lommel_seeliger_ellipsoid(s, o, ax)
+    assert np.isfinite(val) and val >= 0
+    scale = 0.5 * br.projected_area(s, ax)  # the zero-phase value for this Sun direction
+    assert abs(val - br.lommel_seeliger_ellipsoid(o, s, ax)) <= 1e-12 * scale
+    quad = br.ellipsoid_quadrature(s, o, ax, order=64)
+    assert abs(val - quad) <= 1e-9 * max(val, 1e-3 * scale)
 
 
 def test_broadcasting_over_states_and_points(rng):
