@@ -602,3 +602,21 @@ def test_invalid_periods_and_directions():
 def test_ellipk_consistency():
     # scipy.special.ellipk takes the parameter m = k^2 (scipy docs): K(0) = pi/2.
     assert special.ellipk(0.0) == pytest.approx(math.pi / 2)
+
+
+def test_mirror_sense_is_the_same_motion_turned_about_axis_2():
+    # Euler's equations are invariant under (w1, w2, w3) -> (-w1, w2, -w3)
+    # (Landau & Lifshitz section 37); the attitude R diag(-1, 1, -1) then solves them
+    # with the same L. Checked against solve_ivp started from the mirrored state.
+    d = np.diag([-1.0, 1.0, -1.0])
+    for idd in (0.9, 0.6):
+        s = RotationState.excited(0.5, 0.8, idd, 8.0, 40, -10, 50, 60, EPOCH)
+        t = EPOCH + np.linspace(0, 3 * 8.0 / 24, 200)
+        r = s.attitude(t)
+        w = angular_velocity_body(s, t)
+        ref = integrate_free_rotation((0.5, 0.8, 1.0), d @ w[0], r[0] @ d, (t - t[0]) * 24)
+        assert _axis_angles(ref.matrices, r @ d) < 1e-8
+        inertia = np.array([0.5, 0.8, 1.0])
+        l_mirror = np.einsum("nij,nj->ni", ref.matrices, ref.omega_body_rad_h * inertia)
+        l_orig = np.einsum("nij,nj->ni", r, w * inertia)
+        assert np.max(np.abs(l_mirror - l_orig)) < 1e-9 * np.max(np.abs(l_orig))

@@ -56,6 +56,7 @@ Two evaluation routes share these formulas:
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -446,50 +447,95 @@ def _harmonics_needed(nome):
 
 @dataclass(frozen=True)
 class _Series:
-    """Fourier coefficients of B in Euler-column order (before the permutation P).
+    """Fourier series of B (Euler-column order) on the common basis cos(2 i x).
 
     Symmetries of the closed form fix the structure (u -> -u: sn odd, cn and dn
     even, phi_per odd; u -> u + 2K: sn and cn change sign, dn does not):
+    Euler columns x and y hold only odd harmonics of x, column z only even
+    ones, and every entry is a pure cosine or a pure sine series. Call "A" the
+    column whose rows are (sin, cos, cos) series and "B" the column
+    (cos, sin, sin): SAM has x = A, y = B; LAM has x = B, y = A; column z is
+    (sin, cos, cos) with even harmonics in both modes.
 
-    - Euler columns x and y hold only odd harmonics of x, column z only even ones;
-    - every entry is a pure cosine or a pure sine series. Call "A" the column
-      (sin, cos, cos) down its rows and "B" the column (cos, sin, sin): SAM has
-      x = A, y = B; LAM has x = B, y = A; column z is of type A in both.
+    Each such series is rewritten exactly as a prefactor times a cosine
+    series in 2x, using
+    ``sin((2j+1)x) = sin x [1 + 2 sum_{i=1..j} cos 2ix]``,
+    ``cos((2j+1)x) = cos x (-1)^j [1 + 2 sum_{i=1..j} (-1)^i cos 2ix]`` and
+    ``sin(2jx) = sin 2x U_{j-1}(cos 2x)`` (Chebyshev polynomial of the second
+    kind, itself a sum of cos 2kx), so one recurrence serves all nine entries.
 
-    Arrays (per state, harmonics in increasing order):
-
-    odd_cos : (K, 3, n_odd)   entries (A row 1, A row 2, B row 0), cos(1x), cos(3x), ...
-    odd_sin : (K, 3, n_odd)   entries (A row 0, B row 1, B row 2), sin(1x), sin(3x), ...
-    even_cos : (K, 2, n_even) entries (z row 1, z row 2), cos(0x), cos(2x), ...
-    even_sin : (K, 1, n_even - 1)  entry (z row 0), sin(2x), sin(4x), ...
+    coef : (K, 9, n_basis)
+        Entries in the order (A0, A1, A2, B0, B1, B2, z0, z1, z2) with
+        prefactors (sin x, cos x, cos x, cos x, sin x, sin x, sin 2x, 1, 1).
     """
 
-    odd_cos: np.ndarray
-    odd_sin: np.ndarray
-    even_cos: np.ndarray
-    even_sin: np.ndarray
+    coef: np.ndarray
+
+
+#: Prefactor kind of each entry of _Series.coef: 0 -> 1, 1 -> sin x, 2 -> cos x, 3 -> sin 2x.
+_PREFACTOR = (1, 2, 2, 2, 1, 1, 3, 0, 0)
+
+
+@functools.lru_cache(maxsize=64)
+def _basis_maps(n_odd, n_even, n_basis):
+    """Matrices taking natural-basis coefficients to the cos(2 i x) basis (see _Series)."""
+    t_sin_odd = np.zeros((n_odd, n_basis))
+    t_cos_odd = np.zeros((n_odd, n_basis))
+    for j in range(n_odd):
+        t_sin_odd[j, 0] = 1.0
+        t_sin_odd[j, 1 : j + 1] = 2.0
+        t_cos_odd[j, 0] = (-1.0) ** j
+        t_cos_odd[j, 1 : j + 1] = 2.0 * (-1.0) ** (j + np.arange(1, j + 1))
+    t_sin_even = np.zeros((max(n_even - 1, 0), n_basis))  # rows: sin 2x, sin 4x, ...
+    for j in range(1, n_even):
+        nu = j - 1
+        if nu % 2 == 0:
+            t_sin_even[j - 1, 0] = 1.0
+            t_sin_even[j - 1, 2 : nu + 1 : 2] = 2.0
+        else:
+            t_sin_even[j - 1, 1 : nu + 1 : 2] = 2.0
+    t_cos_even = np.eye(n_even, n_basis)
+    return t_sin_odd, t_cos_odd, t_sin_even, t_cos_even
 
 
 def _fourier_coefficients(c, sel, harmonics):
-    """Fourier series of B(x) up to ``harmonics`` per state, from 2H+2 direct samples (FFT)."""
+    """Fourier series of B(x) up to ``harmonics`` per state, from 2H+2 direct samples (FFT).
+
+    Only the first half period is sampled: ``B(x + pi) = B(x) diag(-1, -1, 1)``
+    in Euler columns (u -> u + 2K).
+    """
     h = int(harmonics)
     msamp = 2 * h + 2
-    xs = np.arange(msamp) * (_TWO_PI / msamp)
-    b, _, _ = _direct_parts(c, sel, np.broadcast_to(xs, (len(sel), msamp)), euler_columns=True)
+    half = msamp // 2
+    xs = np.arange(half) * (_TWO_PI / msamp)
+    bh, _, _ = _direct_parts(c, sel, np.broadcast_to(xs, (len(sel), half)), euler_columns=True)
+    b = np.concatenate([bh, bh * np.array([-1.0, -1.0, 1.0])], axis=1)
     spec = np.fft.rfft(b, axis=1) / msamp  # (K, h+2, 3, 3)
     h_odd = h if h % 2 else h - 1
     h_even = h if h % 2 == 0 else h - 1
+    n_odd = (h_odd + 1) // 2
+    n_even = h_even // 2 + 1
+    n_basis = max(n_odd, n_even)
     so = spec[:, 1 : h_odd + 1 : 2]  # (K, n_odd, 3, 3)
     se = spec[:, 0 : h_even + 1 : 2, :, 2]  # (K, n_even, 3)
     lam_mode = (c.mode[sel] == _MODE_LAM)[:, None, None]
     col_a = np.where(lam_mode, so[..., 1], so[..., 0])  # (K, n_odd, 3 rows)
     col_b = np.where(lam_mode, so[..., 0], so[..., 1])
-    odd_cos = 2.0 * np.stack([col_a[..., 1].real, col_a[..., 2].real, col_b[..., 0].real], axis=1)
-    odd_sin = -2.0 * np.stack([col_a[..., 0].imag, col_b[..., 1].imag, col_b[..., 2].imag], axis=1)
-    even_cos = 2.0 * np.stack([se[..., 1].real, se[..., 2].real], axis=1)
-    even_cos[:, :, 0] *= 0.5
-    even_sin = -2.0 * se[:, None, 1:, 0].imag
-    return _Series(odd_cos=odd_cos, odd_sin=odd_sin, even_cos=even_cos, even_sin=even_sin)
+    t_so, t_co, t_se, t_ce = _basis_maps(n_odd, n_even, n_basis)
+    cos_even = 2.0 * se.real
+    cos_even[:, 0] *= 0.5
+    sin_even = -2.0 * se[:, 1:].imag
+    coef = np.empty((len(sel), 9, n_basis))
+    coef[:, 0] = (-2.0 * col_a[..., 0].imag) @ t_so
+    coef[:, 1] = (2.0 * col_a[..., 1].real) @ t_co
+    coef[:, 2] = (2.0 * col_a[..., 2].real) @ t_co
+    coef[:, 3] = (2.0 * col_b[..., 0].real) @ t_co
+    coef[:, 4] = (-2.0 * col_b[..., 1].imag) @ t_so
+    coef[:, 5] = (-2.0 * col_b[..., 2].imag) @ t_so
+    coef[:, 6] = sin_even[..., 0] @ t_se if n_even > 1 else 0.0
+    coef[:, 7] = cos_even[..., 1] @ t_ce
+    coef[:, 8] = cos_even[..., 2] @ t_ce
+    return _Series(coef=coef)
 
 
 #: Basis rows per block of the Fourier evaluation are kept to about this many floats (cache size).
@@ -502,8 +548,7 @@ def _fourier_eval(series, sel, x, lam_mode, out, work=None):
     Parameters
     ----------
     series : _Series
-        Coefficients of the states ``sel`` (may hold more harmonics than needed;
-        the number of harmonics used is the series' own length).
+        Coefficients of the states ``sel``; all basis functions given are used.
     sel : ndarray (k,)
         Rows of ``out`` to fill.
     x : ndarray (k, n)
@@ -515,18 +560,17 @@ def _fourier_eval(series, sel, x, lam_mode, out, work=None):
         Scratch space reused across calls (fresh large allocations cost page
         faults that would dominate the run time).
 
-    Cosines and sines of the odd and even harmonics come from the Chebyshev
-    recurrences ``c_{j+2} = 2 cos(2x) c_j - c_{j-2}`` (same for sines); the sums
-    are small matrix products per block of states and points, sized to stay in
-    cache.
+    ``cos(2 i x)`` comes from the Chebyshev recurrence
+    ``c_{i+1} = 2 cos(2x) c_i - c_{i-1}``; the nine sums are one small matrix
+    product per block of states and points (sized to stay in cache), then
+    each entry is multiplied by its prefactor (1, sin x, cos x or sin 2x).
     """
     k, npt = x.shape
-    no = series.odd_cos.shape[2]
-    ne = series.even_cos.shape[2]
+    nb = series.coef.shape[2]
     # Body columns of Euler columns A, B, z (P: SAM identity; LAM body 1,2,3 = Euler z,x,y).
     col_a, col_b, col_z = (2, 1, 0) if lam_mode else (0, 1, 2)
-    rows = 2 * no + 2 * ne - 1
-    pchunk = max(64, _BLOCK_FLOATS // rows)
+    dest = ((0, col_a), (1, col_a), (2, col_a), (0, col_b), (1, col_b), (2, col_b), (0, col_z), (1, col_z), (2, col_z))
+    pchunk = max(64, _BLOCK_FLOATS // (nb + 12))
     kb = max(1, pchunk // max(npt, 1))
     pchunk = min(pchunk, npt)
     for k0 in range(0, k, kb):
@@ -536,104 +580,64 @@ def _fourier_eval(series, sel, x, lam_mode, out, work=None):
             p1 = min(npt, p0 + pchunk)
             xx = x[k0:k1, p0:p1]
             shp = xx.shape
-            # Harmonic-major layout (rows, k, p): every recurrence operand is contiguous.
             size = shp[0] * shp[1]
-            need = (2 * no + ne + max(ne - 1, 1) + 1) * size
+            need = (nb + 1) * size
             if work is None or work.size < need:
                 work = np.empty(need)
-            views = []
-            offset = 0
-            for nrow in (no, no, ne, max(ne - 1, 1), 1):
-                views.append(work[offset : offset + nrow * size].reshape((nrow,) + shp))
-                offset += nrow * size
-            co, so, ce, se, tmp = views
-            tmp = tmp[0]
-            c1 = np.cos(xx, out=co[0])
-            s1 = np.sin(xx, out=so[0])
+            ce = work[: nb * size].reshape((nb,) + shp)
+            tmp = work[nb * size : (nb + 1) * size].reshape(shp)
+            c1 = np.cos(xx)
+            s1 = np.sin(xx)
+            pre = (None, s1, c1, 2.0 * s1 * c1)
             ce[0] = 1.0
-            c2 = c1 * c1 - s1 * s1
-            two_c2 = 2.0 * c2
-            if ne > 1:
-                ce[1] = c2
-                np.multiply(2.0 * s1, c1, out=se[0])
-            if no > 1:
-                np.multiply(two_c2, c1, out=tmp)
-                np.subtract(tmp, c1, out=co[1])
-                np.multiply(two_c2, s1, out=tmp)
-                np.add(tmp, s1, out=so[1])
-            for j in range(2, no):
-                np.multiply(two_c2, co[j - 1], out=tmp)
-                np.subtract(tmp, co[j - 2], out=co[j])
-                np.multiply(two_c2, so[j - 1], out=tmp)
-                np.subtract(tmp, so[j - 2], out=so[j])
-            if ne > 2:
-                np.multiply(two_c2, c2, out=tmp)
-                np.subtract(tmp, 1.0, out=ce[2])
-                np.multiply(two_c2, se[0], out=se[1])
-            for j in range(3, ne):
-                np.multiply(two_c2, ce[j - 1], out=tmp)
-                np.subtract(tmp, ce[j - 2], out=ce[j])
-                np.multiply(two_c2, se[j - 2], out=tmp)
-                np.subtract(tmp, se[j - 3], out=se[j - 1])
-            sl = slice(k0, k1)
-            oc = np.matmul(series.odd_cos[sl], co.transpose(1, 0, 2))  # (kb, 3, p): A1, A2, B0
-            os_ = np.matmul(series.odd_sin[sl], so.transpose(1, 0, 2))  # A0, B1, B2
-            ec = np.matmul(series.even_cos[sl], ce.transpose(1, 0, 2))  # z1, z2
-            if ne > 1:
-                es = np.matmul(series.even_sin[sl], se[: ne - 1].transpose(1, 0, 2))[:, 0]  # z0
-            else:
-                es = np.zeros(shp)
+            if nb > 1:
+                np.multiply(c1, c1, out=ce[1])
+                np.multiply(s1, s1, out=tmp)
+                ce[1] -= tmp
+                two_c2 = 2.0 * ce[1]
+            for i in range(2, nb):
+                np.multiply(two_c2, ce[i - 1], out=tmp)
+                np.subtract(tmp, ce[i - 2], out=ce[i])
+            sums = np.matmul(series.coef[k0:k1], ce.transpose(1, 0, 2))  # (kb, 9, p)
             dst = out[:, :, :, p0:p1] if (p0, p1) != (0, npt) else out
-            for (r, col), src in (
-                ((0, col_a), os_[:, 0]),
-                ((1, col_a), oc[:, 0]),
-                ((2, col_a), oc[:, 1]),
-                ((0, col_b), oc[:, 2]),
-                ((1, col_b), os_[:, 1]),
-                ((2, col_b), os_[:, 2]),
-                ((0, col_z), es),
-                ((1, col_z), ec[:, 0]),
-                ((2, col_z), ec[:, 1]),
-            ):
-                dst[rows_out, r, col] = src
+            for e, (r, col) in enumerate(dest):
+                f = pre[_PREFACTOR[e]]
+                dst[rows_out, r, col] = sums[:, e] if f is None else sums[:, e] * f
 
 
 def _fourier_route(c, npa_idx, x, out):
     """Fill ``out[npa_idx]`` (K, 3, 3, n) with B(x) by the Fourier route; return the rest.
 
     States are sorted by the harmonics they need; coefficients come from one
-    FFT per tier of sample counts, and each small group of states is evaluated
-    with its own truncation. Returns the indices (into ``npa_idx``) of states
-    that need more than :data:`MAX_HARMONICS` harmonics.
+    FFT per tier of sample counts and mode, and each small group of states is
+    evaluated with its own truncation. Returns the indices (into ``npa_idx``)
+    of states that need more than :data:`MAX_HARMONICS` harmonics.
     """
     npt = x.shape[1]
     need = _harmonics_needed(c.nome[npa_idx])
-    work = np.empty(2 * _BLOCK_FLOATS + 8 * max(npt, 64))
+    work = np.empty(2 * _BLOCK_FLOATS + 16 * max(npt, 64))
     todo = np.flatnonzero(need <= MAX_HARMONICS)
     for tier_lo, tier_hi in ((0, 24), (24, 48), (48, MAX_HARMONICS)):
-        for mode in (_MODE_SAM, _MODE_LAM):
-            members = todo[(need[todo] > tier_lo) & (need[todo] <= tier_hi) & (c.mode[npa_idx[todo]] == mode)]
-            if members.size == 0:
-                continue
-            members = members[np.argsort(need[members], kind="stable")]
-            series = _fourier_coefficients(c, npa_idx[members], int(need[members].max()))
-            start = 0
-            while start < len(members):
-                h = int(need[members[start]])
-                per_group = max(1, _BLOCK_FLOATS // ((2 * h + 2) * max(npt, 1)))
-                stop = min(len(members), start + per_group)
-                h = int(need[members[start:stop]].max())
-                no = (h + 1) // 2
-                ne = h // 2 + 1
-                part = _Series(
-                    odd_cos=series.odd_cos[start:stop, :, :no],
-                    odd_sin=series.odd_sin[start:stop, :, :no],
-                    even_cos=series.even_cos[start:stop, :, :ne],
-                    even_sin=series.even_sin[start:stop, :, : max(ne - 1, 0)],
-                )
-                grp = members[start:stop]
-                _fourier_eval(part, npa_idx[grp], x[grp], mode == _MODE_LAM, out, work)
-                start = stop
+        members = todo[(need[todo] > tier_lo) & (need[todo] <= tier_hi)]
+        if members.size == 0:
+            continue
+        # Sort by mode, then by harmonics needed (one FFT for the tier, both modes).
+        members = members[np.lexsort((need[members], c.mode[npa_idx[members]]))]
+        series = _fourier_coefficients(c, npa_idx[members], int(need[members].max()))
+        modes = c.mode[npa_idx[members]]
+        start = 0
+        while start < len(members):
+            h = int(need[members[start]])
+            per_group = max(1, _BLOCK_FLOATS // ((h // 2 + 13) * max(npt, 1)))
+            stop = start + 1
+            while stop < len(members) and stop - start < per_group and modes[stop] == modes[start]:
+                stop += 1
+            h = int(need[members[start:stop]].max())
+            nb = max((h + 1) // 2, h // 2 + 1)
+            part = _Series(coef=series.coef[start:stop, :, :nb])
+            grp = members[start:stop]
+            _fourier_eval(part, npa_idx[grp], x[grp], modes[start] == _MODE_LAM, out, work)
+            start = stop
     return np.flatnonzero(need > MAX_HARMONICS)
 
 
@@ -792,18 +796,37 @@ def attitude_matrices(
     """
     batch = _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd)
     phi_mean, b = _attitude_parts(batch, method)
-    cph = np.cos(phi_mean)
-    sph = np.sin(phi_mean)
     k, npt = phi_mean.shape
     q = batch.q_ecl
     out = np.empty((k, npt, 3, 3))
-    for j in range(3):
-        u = cph * b[:, 0, j] - sph * b[:, 1, j]  # rows of Rz(phi_mean) B
-        w = sph * b[:, 0, j] + cph * b[:, 1, j]
-        z = b[:, 2, j]
-        for i in range(3):
-            out[:, :, i, j] = q[:, i, 0, None] * u + q[:, i, 1, None] * w + q[:, i, 2, None] * z
+    for ks, ps in _blocks(k, npt):
+        cph = np.cos(phi_mean[ks, ps])
+        sph = np.sin(phi_mean[ks, ps])
+        qb = q[ks]
+        for j in range(3):
+            b0, b1, z = b[ks, 0, j, ps], b[ks, 1, j, ps], b[ks, 2, j, ps]
+            u = cph * b0 - sph * b1  # rows of Rz(phi_mean) B
+            w = sph * b0 + cph * b1
+            for i in range(3):
+                out[ks, ps, i, j] = qb[:, i, 0, None] * u + qb[:, i, 1, None] * w + qb[:, i, 2, None] * z
     return out
+
+
+#: Elements per block of the element-wise compositions (small temporaries stay
+#: in cache and in the allocator's heap instead of fresh, page-faulting mappings).
+_COMPOSE_BLOCK = 8192
+
+
+def _blocks(k, npt):
+    """(state slice, point slice) pairs covering a (k, npt) array in cache-sized blocks."""
+    if npt >= _COMPOSE_BLOCK:
+        for k0 in range(k):
+            for p0 in range(0, npt, _COMPOSE_BLOCK):
+                yield slice(k0, k0 + 1), slice(p0, min(npt, p0 + _COMPOSE_BLOCK))
+    else:
+        kb = max(1, _COMPOSE_BLOCK // max(npt, 1))
+        for k0 in range(0, k, kb):
+            yield slice(k0, min(k, k0 + kb)), slice(0, npt)
 
 
 def ecliptic_to_body(
@@ -824,20 +847,52 @@ def ecliptic_to_body(
     v = np.asarray(vectors, dtype=float)
     if v.ndim < 2 or v.shape[-1] != 3 or v.shape[-2] != npt:
         raise RotationStateError("vectors must have shape (..., n, 3) with n matching t_jd")
+    lead = np.broadcast_shapes(v.shape[:-2], (k,))
     phi_mean, b = _attitude_parts(batch, method)
-    cph = np.cos(phi_mean)
-    sph = np.sin(phi_mean)
     q = batch.q_ecl  # (K, 3, 3)
-    v0, v1, v2 = v[..., 0], v[..., 1], v[..., 2]
-    # L-frame components (Q^T v)_i = sum_j Q_ji v_j, each broadcast to (..., K, n).
-    vl = [q[:, 0, i, None] * v0 + q[:, 1, i, None] * v1 + q[:, 2, i, None] * v2 for i in range(3)]
-    # Rotate by -phi_mean about the L axis.
-    x1 = cph * vl[0] + sph * vl[1]
-    x2 = cph * vl[1] - sph * vl[0]
-    x3 = vl[2]
-    out = np.empty(x1.shape + (3,))
-    for j in range(3):
-        out[..., j] = b[:, 0, j] * x1 + b[:, 1, j] * x2 + b[:, 2, j] * x3
+    out = np.empty(lead + (npt, 3))
+    vlead = v.shape[:-2]
+    shared = len(vlead) == 0 or vlead[-1] == 1
+    if shared:
+        # Vectors common to all states: L-frame components for every state in one
+        # BLAS product, (K, 3, 3)^T @ (3, S n) -> (K, 3, S, n).
+        sets = v.reshape((-1, npt, 3))
+        n_sets = sets.shape[0]
+        vt = np.ascontiguousarray(np.moveaxis(sets, 2, 0).reshape(3, n_sets * npt))
+        lfr = np.matmul(np.swapaxes(q, 1, 2), vt).reshape(k, 3, n_sets, npt)
+        out_sets = out.reshape((n_sets, k, npt, 3))
+    else:
+        v = np.broadcast_to(v, lead + (npt, 3))
+    for ks, ps in _blocks(k, npt):
+        cph = np.cos(phi_mean[ks, ps])
+        sph = np.sin(phi_mean[ks, ps])
+        bb = b[ks, :, :, ps]  # (kb, 3, 3, p)
+        if shared:
+            parts = [(lfr[ks, 0, si, ps], lfr[ks, 1, si, ps], lfr[ks, 2, si, ps], out_sets[si, ks, ps]) for si in range(n_sets)]
+        else:
+            qb = q[ks]
+            vv = v[..., ks, ps, :]
+            v0, v1, v2 = vv[..., 0], vv[..., 1], vv[..., 2]
+            # L-frame components (Q^T v)_i = sum_j Q_ji v_j.
+            l0 = qb[:, 0, 0, None] * v0 + qb[:, 1, 0, None] * v1 + qb[:, 2, 0, None] * v2
+            l1 = qb[:, 0, 1, None] * v0 + qb[:, 1, 1, None] * v1 + qb[:, 2, 1, None] * v2
+            x3 = qb[:, 0, 2, None] * v0 + qb[:, 1, 2, None] * v1 + qb[:, 2, 2, None] * v2
+            parts = [(l0, l1, x3, out[..., ks, ps, :])]
+        for l0, l1, x3, dst in parts:
+            # Rotate by -phi_mean about the L axis, then apply B^T.
+            x1 = cph * l0
+            x1 += sph * l1
+            x2 = cph * l1
+            x2 -= sph * l0
+            acc = np.empty(x1.shape)
+            tmp = np.empty(x1.shape)
+            for j in range(3):
+                np.multiply(bb[:, 0, j], x1, out=acc)
+                np.multiply(bb[:, 1, j], x2, out=tmp)
+                acc += tmp
+                np.multiply(bb[:, 2, j], x3, out=tmp)
+                acc += tmp
+                dst[..., j] = acc
     return out
 
 
