@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from tumble.exceptions import ConvergenceWarning, TumbleError
+from tumble.exceptions import TumbleError
 
 __all__ = [
     "ReferenceSolution",
@@ -174,9 +174,7 @@ def integrate_free_rotation(inertia, omega0_rad_h, r0, t_h, rtol=1e-11, atol=1e-
     lvec_b = inertia * w
     lmag = np.linalg.norm(lvec_b, axis=1)
     l_in = np.einsum("nij,nj->ni", mats, lvec_b) / lmag[:, None]
-    cosang = np.clip(l_in @ l_in[0], -1.0, 1.0)
     dir_drift = float(np.max(2 * np.arcsin(np.clip(np.linalg.norm(l_in - l_in[0], axis=1) / 2, 0, 1))))
-    del cosang
     return ReferenceSolution(
         t_h=t_h,
         matrices=mats,
@@ -210,7 +208,3 @@ def integrate_state(state, t_jd, rtol=1e-11, atol=1e-13):
     w0 = angular_velocity_body(state, t_jd[:1])[0]
     t_h = (t_jd - t_jd[0]) * 24.0
     return integrate_free_rotation((state.i1_i3, state.i2_i3, 1.0), w0, r0, t_h, rtol=rtol, atol=atol)
-
-
-# ConvergenceWarning is re-exported for callers that want to filter integrator warnings.
-_ = ConvergenceWarning
