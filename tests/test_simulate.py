@@ -349,3 +349,15 @@ def test_cli_state_file_json_output_and_errors(tmp_path, capsys):
     assert main(["simulate", "-o", str(tmp_path / "s.csv"), "--no-sidecar"]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 5 and "tumble simulate: error:" in err
+
+
+def test_scan_recovers_the_simulated_pa_period(tmp_path, capsys):
+    # End to end: `tumble scan` reads what `tumble simulate` wrote and finds the
+    # rotation period of a double-peaked PA light curve (common practice).
+    pytest.importorskip("tumble.cli.scan_cmd")
+    out = tmp_path / "pa.csv"
+    assert main(["simulate", "-o", str(out), "--mode", "pa", "--period", "6.0", "--nights", "3", "--seed", "1",
+                 "--quiet"]) == 0
+    assert main(["scan", str(out), "--json", "--quiet"]) == 0
+    res = json.loads(capsys.readouterr().out)
+    assert res["rotation_period_h"] == pytest.approx(6.0, abs=max(3 * res["rotation_period_h_err"], 2e-3))
