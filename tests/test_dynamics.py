@@ -115,8 +115,7 @@ def _independent_periods(i1, i2, idd, mode, n_periods=6):
     ev = sol.t_events[0]
     ev = ev[ev > 1e-9]
     p_psi = float(np.mean(np.diff(ev)))
-    # Attitude over n_periods whole periods, starting from R = I (L along Z since L(0) lies... not along Z):
-    # put L along Z: rotate so that the inertial Z is the initial L direction.
+    # Attitude over whole periods in a frame whose Z is the initial L direction.
     lb = inertia * w0
     z = lb / np.linalg.norm(lb)
     x = np.cross([0.0, 1.0, 0.0], z)
@@ -175,7 +174,7 @@ def test_periods_against_integration_random(seed, mode):
 
 
 def test_oblate_limit():
-    # Symmetric (oblate) top, I1 = I2 (Landau & Lifshitz section 33): the symmetry
+    # Symmetric (oblate) top, I1 = I2 (Landau & Lifshitz section 33, section number from memory): the symmetry
     # axis 3 precesses about L at Omega = L/I1, and omega circles axis 3 in the body
     # at |omega_3 (I3 - I1)/I1| with omega_3 = L cos(theta)/I3.
     i1 = 0.6
@@ -188,7 +187,7 @@ def test_oblate_limit():
 
 
 def test_prolate_limit():
-    # Symmetric (prolate) top, I2 = I3 (Landau & Lifshitz section 33): LAM with
+    # Symmetric (prolate) top, I2 = I3 (Landau & Lifshitz section 33, section number from memory): LAM with
     # the long axis precessing at Omega = L/I3.
     i1 = 0.4
     for idd in (0.45, 0.7, 0.95):
@@ -510,6 +509,7 @@ def test_apophis_state():
     assert freqs.labels[0] == "f_phi - f_psi"
     assert 1.0 / freqs.dominant_per_h[0] == pytest.approx(30.553, abs=0.005)
     assert 1.0 / freqs.dominant_per_h[0] == pytest.approx(30.56, abs=0.02)
+    # Derived (not published): m = 0.3755 for these inertia ratios and periods.
     assert s.elliptic_parameter == pytest.approx(0.3755, abs=5e-4)
 
 
@@ -527,7 +527,8 @@ def test_2008tc3_frequencies():
 
 def test_toutatis_frequencies():
     # Hudson & Ostro 1995 (Science 270, 84): LAM, P_psi = 5.41 d, P_phi = 7.35 d, axes
-    # 4.60, 2.40, 1.92 km. Homogeneous-ellipsoid moments (Landau & Lifshitz section 32);
+    # 4.60, 2.40, 1.92 km. Homogeneous-ellipsoid moments I1 ~ b^2 + c^2 etc. (textbook, e.g.
+    # Landau & Lifshitz section 32, section number from memory);
     # light-curve frequencies 0.135, 0.271, 0.643 +- 0.008 per day (Mueller et al. 2000)
     # should be f_phi, 2 f_phi, 2 (f_phi + f_psi).
     a, b, c = 4.60, 2.40, 1.92

@@ -6,7 +6,8 @@ attitude quaternion using scipy's ``solve_ivp`` (DOP853, Dormand & Prince
 Used by the tests to check the closed form of :mod:`tumble.dynamics`, and
 available to users who want an independent check.
 
-Equations (Landau & Lifshitz 1976, Mechanics, section 36)::
+Equations (Euler's equations, Landau & Lifshitz 1976, Mechanics, section 36
+(section number from memory))::
 
     I1 w1' = (I2 - I3) w2 w3
     I2 w2' = (I3 - I1) w3 w1
