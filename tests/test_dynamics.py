@@ -436,6 +436,20 @@ def test_ecliptic_to_body_matches_transpose(rng):
     assert np.max(np.abs(got - expect)) < 1e-13
     single = states[0].to_body(t, v[0, 0])
     assert np.max(np.abs(single - expect[0, 0])) < 1e-13
+    # Per-state vectors (K, n, 3) and (S, K, n, 3) take the general path.
+    vk = rng.normal(size=(3, 40, 3))
+    got_k = ecliptic_to_body(*args, t, vk)
+    assert got_k.shape == (3, 40, 3)
+    assert np.max(np.abs(got_k - np.einsum("knji,knj->kni", r, vk))) < 1e-13
+    vsk = rng.normal(size=(2, 3, 40, 3))
+    got_sk = ecliptic_to_body(*args, t, vsk)
+    assert np.max(np.abs(got_sk - np.einsum("knji,sknj->skni", r, vsk))) < 1e-13
+    # Long series (more points than one composition block) take the chunked path.
+    tl = EPOCH + np.linspace(-30, 30, 20000)
+    vl = rng.normal(size=(20000, 3))
+    rl = attitude_matrices(*args, tl)
+    assert np.max(np.abs(ecliptic_to_body(*args, tl, vl) - np.einsum("knji,nj->kni", rl, vl))) < 1e-13
+    assert np.max(np.abs(rl - attitude_matrices(*args, tl, method="direct"))) < 1e-12
 
 
 # ---------------------------------------------------------------------------
