@@ -304,6 +304,21 @@ def test_fourier_route_matches_library_route(rng):
     assert np.max(np.abs(fast - slow)) < 1e-12
 
 
+def test_fourier_coefficients_decay_like_the_nome():
+    # Analyticity of R(t) in the strip |Im u| < K' (poles of sn, cn, dn at i K';
+    # DLMF 22.2) makes the Fourier coefficients of the periodic factor fall like
+    # q**(j/2): the harmonics beyond the count used must be negligible.
+    from tumble import dynamics
+
+    for i1, i2, idd in ((0.5, 0.8, 0.9), (0.5, 0.8, 0.6), (0.64, 0.97, 0.98812), (0.5, 0.8, 0.81), (0.4, 0.7, 0.69)):
+        c = dynamics._constants(np.array([i1]), np.array([i2]), np.array([idd]))
+        h = int(dynamics._harmonics_needed(c.nome)[0])
+        coef = dynamics._fourier_coefficients(c, np.array([0]), h + 40).coef[0]
+        nb = max((h + 1) // 2, h // 2 + 1)
+        assert np.max(np.abs(coef[:, nb:])) < 1e-14
+        assert np.max(np.abs(coef[:, :nb])) > 0.1
+
+
 def test_fourier_route_high_elliptic_parameter():
     # m close to 1 needs many harmonics; near the separatrix the direct route takes over.
     t = EPOCH + np.linspace(0, 30, 400)
@@ -612,6 +627,8 @@ def test_invalid_periods_and_directions():
         RotationState.from_periods(0.5, 0.8, 10.0, 100.0, "SAM")
     with pytest.raises(RotationStateError):
         RotationState.from_periods(0.5, 0.8, 10.0, 5.0, "XAM")
+    with pytest.raises(RotationStateError):
+        RotationState.principal_axis(5.0, 0, 0).attitude([EPOCH], method="spline")
 
 
 def test_ellipk_consistency():

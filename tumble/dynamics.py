@@ -729,7 +729,7 @@ def _attitude_parts(batch, method):
     phi_mean = np.empty((k, npt))
     b = np.empty((k, 3, 3, npt))
     if method not in ("fourier", "direct"):
-        raise ValueError(f"unknown method {method!r}; use 'fourier' or 'direct'")
+        raise RotationStateError(f"unknown method {method!r}; use 'fourier' or 'direct'")
     if pa_idx.size:
         phi_mean[pa_idx] = batch.phi0[pa_idx, None] + _TWO_PI * batch.dt_h[pa_idx] / batch.p_psi_h[pa_idx, None]
         b[pa_idx] = np.eye(3)[None, :, :, None]
