@@ -250,6 +250,28 @@ def test_sparse_elongation_cut(lam_state):
         atol=2e-3)  # light time moves the asteroid by ~1e-3 deg
 
 
+def test_given_cadence_injection(lam_state, sam_state, gault_csv):
+    # Injection into a real cadence: the sparse ZTF times of (6478) Gault
+    # (shared external data) and a simulated dense campaign's times and sessions.
+    real = read_lightcurve(gault_csv)
+    plan = sim.GivenCadence.from_lightcurve(real)
+    out = sim.simulate_lightcurve(lam_state, AXES, plan, noise=sim.NoiseModel(sigma_mag=0.0), rng=1)
+    np.testing.assert_array_equal(out.lightcurve.t_obs, real.t_obs)
+    np.testing.assert_array_equal(out.lightcurve.session, real.session)
+    np.testing.assert_array_equal(out.lightcurve.band, real.band)
+    dense = sim.simulate_lightcurve(sam_state, AXES, sim.DenseCampaign(START, n_nights=3, zero_point_sigma_mag=0.1),
+                                    rng=2).lightcurve
+    again = sim.simulate_lightcurve(lam_state, AXES, sim.GivenCadence.from_lightcurve(dense, 0.05), rng=3)
+    np.testing.assert_array_equal(again.lightcurve.session, dense.session)
+    for k in range(3):  # one zero point per given session
+        assert np.ptp(again.night_offset_mag[dense.session == k]) == 0.0
+    assert len(set(np.round(again.night_offset_mag, 12))) == 3
+    back = sim.plan_from_dict(json.loads(json.dumps(again.truth["plan"])))
+    np.testing.assert_array_equal(back.t_utc_jd, dense.t_obs)
+    with pytest.raises(sim.SimulationError):
+        sim.GivenCadence([START, START])
+
+
 def test_same_seed_same_output(tmp_path, lam_state):
     plan = sim.SparseSurvey(START, span_d=300.0, n_nights=25, points_per_night=2)
     noise = sim.NoiseModel(sigma_mag=0.03, outlier_fraction=0.1)

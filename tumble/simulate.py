@@ -44,6 +44,7 @@ __all__ = [
     "SimulationError",
     "DenseCampaign",
     "SparseSurvey",
+    "GivenCadence",
     "NoiseModel",
     "ObservingTimes",
     "SimulatedLightCurve",
@@ -93,7 +94,8 @@ class ObservingTimes:
     t_utc_jd : numpy.ndarray, shape (n,)
         Observation times, JD (UTC), sorted.
     night : numpy.ndarray of int, shape (n,)
-        Index of the night of each point (0, 1, ...).
+        Index of the night (or zero-point group) of each point (0, 1, ...);
+        -1 for points without a zero point of their own.
     session : numpy.ndarray of int, shape (n,)
         Session of each point: the night for a dense campaign (one zero-point
         each), -1 (sparse) for a survey.
@@ -259,13 +261,80 @@ class SparseSurvey:
         return {"plan": "sparse", **asdict(self)}
 
 
+@dataclass(frozen=True, eq=False)
+class GivenCadence:
+    """Observation times taken as given: e.g. the cadence of a real light curve, for injection-recovery.
+
+    Attributes
+    ----------
+    t_utc_jd : numpy.ndarray, shape (n,)
+        Observation times, JD (UTC), strictly increasing.
+    session : numpy.ndarray of int, shape (n,), or None
+        Session of each point (>= 0: its own zero point, drawn from
+        N(0, ``zero_point_sigma_mag``) per session; -1: sparse). Default: all -1.
+    band : str or numpy.ndarray of str
+        Band label, one for all points or one per point.
+    zero_point_sigma_mag : float
+        Scatter of the per-session zero points, mag.
+    """
+
+    t_utc_jd: np.ndarray
+    session: np.ndarray | None = None
+    band: object = "V"
+    zero_point_sigma_mag: float = 0.0
+
+    def __post_init__(self):
+        t = np.atleast_1d(np.asarray(self.t_utc_jd, dtype=float))
+        if t.ndim != 1 or t.size < 2 or not np.all(np.isfinite(t)) or np.any(np.diff(t) <= 0):
+            raise SimulationError("given cadence: need at least two finite, strictly increasing times")
+        object.__setattr__(self, "t_utc_jd", t)
+        sess = np.full(t.size, -1) if self.session is None else np.asarray(self.session)
+        if sess.shape != t.shape:
+            raise SimulationError(f"given cadence: {sess.size} sessions for {t.size} times")
+        try:
+            sess = sess.astype(int)
+        except (TypeError, ValueError):
+            raise SimulationError("given cadence: sessions must be integers (-1 for sparse points)") from None
+        # renumber the sessions 0, 1, ... in order of first appearance; negatives stay sparse
+        labels = [int(v) for v in dict.fromkeys(sess[sess >= 0].tolist())]
+        index = {v: i for i, v in enumerate(labels)}
+        object.__setattr__(self, "session", np.array([index.get(int(v), -1) for v in sess], dtype=int))
+        band = np.asarray(self.band)
+        if band.ndim not in (0, 1) or (band.ndim == 1 and band.shape != t.shape):
+            raise SimulationError("given cadence: band must be one label or one per point")
+        _non_negative("given cadence: zero_point_sigma_mag", self.zero_point_sigma_mag)
+
+    @classmethod
+    def from_lightcurve(cls, lc, zero_point_sigma_mag: float = 0.0) -> "GivenCadence":
+        """The cadence, sessions and bands of a :class:`tumble.photometry.LightCurve`."""
+        return cls(np.asarray(lc.t_obs), np.asarray(lc.session), np.asarray(lc.band).astype(str),
+                   zero_point_sigma_mag)
+
+    @property
+    def n_points(self) -> int:
+        """Number of points."""
+        return int(self.t_utc_jd.size)
+
+    def times(self, rng=None) -> ObservingTimes:
+        """The given times (nothing is drawn)."""
+        return ObservingTimes(t_utc_jd=self.t_utc_jd.copy(), night=self.session.copy(), session=self.session.copy())
+
+    def to_dict(self) -> dict:
+        """JSON-ready description (the times in full)."""
+        band = np.asarray(self.band)
+        return {"plan": "given", "t_utc_jd": [float(v) for v in self.t_utc_jd],
+                "session": [int(v) for v in self.session],
+                "band": str(band) if band.ndim == 0 else [str(b) for b in band],
+                "zero_point_sigma_mag": float(self.zero_point_sigma_mag)}
+
+
 def plan_from_dict(d: dict):
-    """Rebuild a plan from :meth:`DenseCampaign.to_dict` or :meth:`SparseSurvey.to_dict`."""
+    """Rebuild a plan from the ``to_dict`` of :class:`DenseCampaign`, :class:`SparseSurvey` or :class:`GivenCadence`."""
     d = dict(d)
     kind = d.pop("plan", None)
-    cls = {"dense": DenseCampaign, "sparse": SparseSurvey}.get(kind)
+    cls = {"dense": DenseCampaign, "sparse": SparseSurvey, "given": GivenCadence}.get(kind)
     if cls is None:
-        raise SimulationError(f"unknown plan '{kind}' (dense or sparse)")
+        raise SimulationError(f"unknown plan '{kind}' (dense, sparse or given)")
     names = {f.name for f in fields(cls)}
     unknown = set(d) - names
     if unknown:
@@ -532,7 +601,7 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
         Rotation state (its epoch is a TDB JD).
     axes : array_like (3,)
         Semi-axes a >= b >= c (any unit; only ratios matter).
-    plan : DenseCampaign or SparseSurvey
+    plan : DenseCampaign, SparseSurvey or GivenCadence
         Observing plan; times in UTC.
     elements : tumble.geometry.OrbitalElements, optional
         Heliocentric orbit; default :func:`opposition_elements` for the plan's
@@ -585,18 +654,23 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
                              phase_deg=geo.phase_deg, h_mag=h_mag, law=law, lambert_weight=lambert_weight,
                              trend=trend)
     zp_sigma = getattr(plan, "zero_point_sigma_mag", 0.0)
-    n_nights = int(times.night.max()) + 1 if times.night.size else 0
-    night_zp = zp_sigma * g.standard_normal(n_nights) if zp_sigma > 0 else np.zeros(n_nights)
-    n_nights_observed = int(len(np.unique(times.night)))
-    offset = night_zp[times.night]
+    n_zp = int(times.night.max()) + 1 if times.night.size else 0
+    night_zp = zp_sigma * g.standard_normal(n_zp) if zp_sigma > 0 else np.zeros(n_zp)
+    if isinstance(plan, GivenCadence):  # nights as JD days (noon to noon UTC)
+        n_nights_observed = int(len(np.unique(np.floor(times.t_utc_jd))))
+    else:
+        n_nights_observed = int(len(np.unique(times.night)))
+    offset = np.where(times.night >= 0, night_zp[np.maximum(times.night, 0)], 0.0) if n_zp else np.zeros(len(model))
     noise_mag, outlier = noise.draw(len(model), g)
     mag = model + offset + noise_mag
     sparse = isinstance(plan, SparseSurvey)
     overrides = {"min_points": 2}
     if sparse:
         overrides["min_session_points"] = len(mag) + 1  # every point stays sparse (session -1)
+    band = np.asarray(plan.band).astype(str)
+    band = np.full(len(mag), str(band)) if band.ndim == 0 else band
     lc = LightCurve.from_arrays(
-        t_utc, mag, np.full(len(mag), noise.err_mag), session=times.session, band=np.full(len(mag), plan.band),
+        t_utc, mag, np.full(len(mag), noise.err_mag), session=times.session, band=band,
         r_au=geo.r_au, delta_au=geo.delta_au, phase_deg=geo.phase_deg, sun_dir=geo.sun_dir, obs_dir=geo.obs_dir,
         object_id=object_id, source="<simulation>", **overrides,
     )
