@@ -450,7 +450,7 @@ def _scan_chi2(data: ScanData, order: int, freqs: np.ndarray, *, method: str = "
         c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine)
         c, piv = c[0], piv[0]
         with np.errstate(divide="ignore", invalid="ignore"):
-            risk = EXACT_COND_FACTOR * (chi2_0 / c) / np.sqrt(piv)
+            risk = EXACT_COND_FACTOR * engine.risk_scale * (chi2_0 / c) / np.sqrt(piv)
         flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
         if np.any(flag):
             idx = np.flatnonzero(flag)
@@ -482,7 +482,8 @@ def fourier_chi2(lc, frequencies_per_d, *, order: int = 4, sessions: bool = True
     """
     data = prepare(lc, sessions=sessions, phase_term=phase_term)
     _check_order(order, data)
-    chi2, _, _ = _scan_chi2(data, order, np.atleast_1d(np.asarray(frequencies_per_d, float)), method=method)
+    with K.single_thread_blas():
+        chi2, _, _ = _scan_chi2(data, order, np.atleast_1d(np.asarray(frequencies_per_d, float)), method=method)
     return chi2
 
 
@@ -727,6 +728,13 @@ def fourier_scan(lc, order: int | None = None, periods=None, *, min_period_h: fl
     PeriodSearchError
         Too few points for the order, or an empty or too large grid.
     """
+    with K.single_thread_blas():
+        return _fourier_scan(lc, order, periods, min_period_h, max_period_h, sessions, phase_term, oversample,
+                             max_peaks, fap_threshold, method, progress)
+
+
+def _fourier_scan(lc, order, periods, min_period_h, max_period_h, sessions, phase_term, oversample, max_peaks,
+                  fap_threshold, method, progress):
     data = prepare(lc, sessions=sessions, phase_term=phase_term)
     if order is None:
         order = 2 if data.sparse else 4

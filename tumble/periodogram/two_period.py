@@ -28,7 +28,6 @@ from tumble.periodogram._design import PeriodSearchError, ScanData, prepare
 from tumble.periodogram.scan import (
     HOURS_PER_DAY,
     OVERSAMPLE,
-    EXACT_COND_FACTOR,
     ScanResult,
     _check_order,
     default_period_range_h,
@@ -36,18 +35,24 @@ from tumble.periodogram.scan import (
     frequency_grid,
 )
 
-__all__ = ["TwoPeriodResult", "two_period_scan", "two_period_basis", "two_period_chi2",
+#: Ill-conditioning test of the 2-D map (cf. scan.EXACT_COND_FACTOR): the map is kept to ~1e-8
+#: relative accuracy, the refined best pair is always exact (least squares).
+MAP_COND_FACTOR = 1.0 / 1500.0
+
+__all__ = ["TwoPeriodResult", "two_period_scan", "commensurate_mask", "two_period_basis", "two_period_chi2",
            "two_period_chi2_reference"]
 
 
-def two_period_basis(order: int) -> tuple[np.ndarray, np.ndarray]:
+def two_period_basis(order: int, order_1d: int | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Integer multipliers (j, k) of (f1, f2) of the 2-D series' exponentials, in kernel order.
 
-    First the harmonics of f1 (j = 1..m, k = 0), then k = 1..m with j = -m..m:
-    ``m + m (2m + 1)`` exponentials, i.e. ``(2m + 1)^2 - 1`` real columns.
+    First the harmonics of f1 (j = 1..max(m, order_1d), k = 0), then k = 1..m
+    with j = -m..m: for order_1d <= m, ``m + m (2m + 1)`` exponentials, i.e.
+    ``(2m + 1)^2 - 1`` real columns (Pravec et al. 2005).
     """
-    jm = list(range(1, order + 1))
-    km = [0] * order
+    n1 = max(order, order_1d or 0)
+    jm = list(range(1, n1 + 1))
+    km = [0] * n1
     for k in range(1, order + 1):
         for j in range(-order, order + 1):
             jm.append(j)
@@ -65,6 +70,8 @@ class TwoPeriodResult:
         Object designation.
     order : int
         Order m of the 2-D series.
+    order_1d : int
+        Order of the 1-D comparison model (its f1 harmonics are also in the 2-D model).
     mode : str
         'refine' (1-D P1, P2 scan, joint refinement) or 'grid' (full map, then refinement).
     p1_h, p1_h_err, p2_h, p2_h_err : float
@@ -73,7 +80,7 @@ class TwoPeriodResult:
     f1_per_d, f2_per_d : float
         The corresponding frequencies, cycles/day.
     chi2_1d, chi2_2d : float
-        Chi-square of the best 1-D fit (order m at P1) and of the best 2-D fit.
+        Chi-square of the best 1-D fit (order ``order_1d`` at P1) and of the best 2-D fit.
     n_params_1d, n_params_2d : int
         Free parameters of each model, counting nuisance terms and the frequencies.
     n_points : int
@@ -86,7 +93,7 @@ class TwoPeriodResult:
         Trial P2 values, hours.
     chi2_p2 : numpy.ndarray, shape (F2,) or (F1, F2)
         Chi-square of the P2 scan at P1 fixed ('refine'), or the full map ('grid');
-        at commensurate pairs the value of the reduced (rank-deficient) model.
+        nan where f2 is commensurate with f1 (:func:`commensurate_mask`).
     p1_grid_h : numpy.ndarray or None
         Trial P1 values of the map, hours ('grid' mode).
     delta_chi2_map : numpy.ndarray
@@ -103,6 +110,7 @@ class TwoPeriodResult:
 
     object_id: str
     order: int
+    order_1d: int
     mode: str
     p1_h: float
     p1_h_err: float
@@ -128,13 +136,14 @@ class TwoPeriodResult:
 
     def frequencies_per_d(self) -> np.ndarray:
         """Frequencies j f1 + k f2 of the fitted exponentials, cycles/day."""
-        jm, km = two_period_basis(self.order)
+        jm, km = two_period_basis(self.order, self.order_1d)
         return jm * self.f1_per_d + km * self.f2_per_d
 
     def to_dict(self) -> dict:
         return {
             "object": self.object_id,
             "order": self.order,
+            "order_1d": self.order_1d,
             "mode": self.mode,
             "p1_h": self.p1_h,
             "p1_h_err": self.p1_h_err,
@@ -153,20 +162,37 @@ class TwoPeriodResult:
 # ---------------------------------------------------------------------------
 
 
-def _exact(data: ScanData, order: int, f1: float, f2: float) -> float:
-    """Exact chi-square of the 2-D series at (f1, f2) by least squares (SVD, rank-safe)."""
-    jm, km = two_period_basis(order)
-    return float(K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm, km, [f2], f1=f1)[0])
+def _exact(data: ScanData, basis, f1: float, f2: float) -> float:
+    """Exact chi-square of the 2-D series at (f1, f2) (QR after projecting out the nuisance; SVD if rank-deficient)."""
+    jm, km = basis
+    return float(K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, [f2], f1=f1)[0])
 
 
-def _fit2d(data: ScanData, order: int, f1: float, f2: float):
-    jm, km = two_period_basis(order)
+def _fit2d(data: ScanData, basis, f1: float, f2: float):
+    jm, km = basis
     sw = np.sqrt(data.w)
     x = np.hstack([data.z, K.design_matrix(data.t, f2, jm, km, f1)]) * sw[:, None]
     coef, *_ = np.linalg.lstsq(x, sw * data.y, rcond=None)
     c = coef[data.n_nuisance:].reshape(-1, 2)
     model = K.design_matrix(data.t, f2, jm, km, f1) @ coef[data.n_nuisance:]
     return c, float(np.ptp(model))
+
+
+def commensurate_mask(order: int, f1, f2, span_d: float) -> np.ndarray:
+    """True where f2 lies within 1/(2 span) of (p/q) f1 with q = 1..order (shape (len(f1), len(f2))).
+
+    There the 2-D series is a 1-D series of f1/q with more harmonics, not a
+    second period (e.g. a principal-axis rotator's higher harmonics would pass
+    for P2); such pairs are excluded from the search and the evidence.
+    """
+    f1 = np.atleast_1d(np.asarray(f1, float))[:, None]
+    f2 = np.atleast_1d(np.asarray(f2, float))[None, :]
+    mask = np.zeros((f1.shape[0], f2.shape[1]), dtype=bool)
+    for q in range(1, order + 1):
+        base = f1 / q
+        p = np.maximum(np.round(f2 / base), 1.0)
+        mask |= np.abs(f2 - p * base) < 0.5 / span_d
+    return mask
 
 
 def two_period_chi2(lc, p1_h, p2_h, *, order: int = 2, sessions: bool = True, phase_term=None,
@@ -182,7 +208,8 @@ def two_period_chi2(lc, p1_h, p2_h, *, order: int = 2, sessions: bool = True, ph
     f1 = HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_h, float))
     f2 = HOURS_PER_DAY / np.atleast_1d(np.asarray(p2_h, float))
     order_f2 = np.argsort(f2)
-    chi2 = _map_chi2(data, order, f1, f2[order_f2], method=method, progress=progress)
+    with K.single_thread_blas():
+        chi2 = _map_chi2(data, two_period_basis(order), f1, f2[order_f2], method=method, progress=progress)
     out = np.empty_like(chi2)
     out[:, order_f2] = chi2
     return out
@@ -198,8 +225,8 @@ def two_period_chi2_reference(lc, p1_h, p2_h, *, order: int = 2, sessions: bool 
     return np.array([K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm, km, f2, f1=a) for a in f1])
 
 
-def _map_chi2(data: ScanData, order: int, f1: np.ndarray, f2: np.ndarray, *, method="auto", progress=None):
-    jm, km = two_period_basis(order)
+def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="auto", progress=None):
+    jm, km = basis
     n_b = jm.size
     engine = K.make_engine(f2, "direct" if method == "direct" else "nufft")
     paired, explicit = K.split_groups(data.groups, f2.size, n_b)
@@ -215,7 +242,7 @@ def _map_chi2(data: ScanData, order: int, f1: np.ndarray, f2: np.ndarray, *, met
         c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine, f1=fb,
                                    paired=paired, explicit=explicit)
         with np.errstate(divide="ignore", invalid="ignore"):
-            risk = EXACT_COND_FACTOR * (chi2_0 / c) / np.sqrt(piv)
+            risk = MAP_COND_FACTOR * engine.risk_scale * (chi2_0 / c) / np.sqrt(piv)
         flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
         for r in np.flatnonzero(np.any(flag, axis=1)):
             idx = np.flatnonzero(flag[r])
@@ -252,9 +279,9 @@ def _halfwidth(fun, x0, c0, s2, step0, limit):
     return 0.5 * (out[0] + out[1])
 
 
-def _refine_pair(data, order, f1, f2, step1, step2):
+def _refine_pair(data, basis, f1, f2, step1, step2):
     """Joint least-squares refinement of (f1, f2) from a grid point (Nelder-Mead on exact chi2)."""
-    fun = lambda v: _exact(data, order, f1 + v[0] * step1, f2 + v[1] * step2)  # noqa: E731
+    fun = lambda v: _exact(data, basis, f1 + v[0] * step1, f2 + v[1] * step2)  # noqa: E731
     res = optimize.minimize(fun, x0=[0.0, 0.0], method="Nelder-Mead",
                             options={"xatol": 1e-6, "fatol": 1e-9, "initial_simplex": [[0, 0], [0.5, 0], [0, 0.5]],
                                      "maxiter": 400})
@@ -262,10 +289,28 @@ def _refine_pair(data, order, f1, f2, step1, step2):
     return f1 + v[0] * step1, f2 + v[1] * step2, float(min(res.fun, fun([0.0, 0.0])))
 
 
+def _one_d_chi2(data, order_1d, f):
+    jm1, km1 = np.zeros(order_1d, dtype=int), np.arange(1, order_1d + 1)
+    return float(K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm1, km1, [f])[0])
+
+
+def _choose_order_1d(data, f1, order, max_order):
+    """1-D Fourier order at f1 with the lowest BIC (Schwarz 1978), between 1 and ``max_order``."""
+    n = data.n_points
+    best, best_bic = order, np.inf
+    for m1 in range(1, max_order + 1):
+        if n <= data.n_nuisance + 2 * m1 + 2:
+            break
+        bic = _one_d_chi2(data, m1, f1) + (data.n_nuisance + 2 * m1 + 1) * np.log(n)
+        if bic < best_bic:
+            best, best_bic = m1, bic
+    return best
+
+
 def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *, p1_grid=None,
-                    min_period_h: float | None = None, max_period_h: float | None = None,
-                    sessions: bool = True, phase_term: bool | None = None, oversample: float = OVERSAMPLE,
-                    method: str = "auto", progress=False) -> TwoPeriodResult:
+                    order_1d: int | None = None, min_period_h: float | None = None,
+                    max_period_h: float | None = None, sessions: bool = True, phase_term: bool | None = None,
+                    oversample: float = OVERSAMPLE, method: str = "auto", progress=False) -> TwoPeriodResult:
     """Two-period (2-D Fourier series) search.
 
     Parameters
@@ -283,23 +328,30 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
     p1_grid : array_like or None
         Trial P1 values, hours. When given, the full (P1, P2) grid is computed
         ('grid' mode) and its minimum refined; otherwise 'refine' mode.
+    order_1d : int or None
+        Order of the 1-D comparison model, whose f1 harmonics are also kept in
+        the 2-D model (so that the models are nested and the f2 terms are not
+        credited with higher harmonics of f1). None: chosen by BIC between 1 and
+        ``max(4, 2 m)`` at P1 ('refine' mode), ``m`` in 'grid' mode.
     min_period_h, max_period_h : float or None
         Period range of the automatic grids, hours.
     sessions, phase_term, oversample, method : see :func:`fourier_scan`.
     progress : bool or callable
-        tqdm bar (True) or a callable receiving the rows/frequencies done.
+        tqdm bar (True) or a callable receiving the rows done.
 
     Returns
     -------
     TwoPeriodResult
     """
+    with K.single_thread_blas():
+        return _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, max_period_h, sessions,
+                                phase_term, oversample, method, progress)
+
+
+def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, max_period_h, sessions,
+                     phase_term, oversample, method, progress):
     data = prepare(lc, sessions=sessions, phase_term=phase_term)
     _check_order(order, data)
-    n_b = two_period_basis(order)[0].size
-    if data.n_points <= data.n_nuisance + 2 * n_b + 2:
-        raise PeriodSearchError(
-            f"{data.n_points} points cannot constrain an order-{order} two-period series "
-            f"({2 * n_b} coefficients and {data.n_nuisance} zero-points/phase terms)")
     span = data.span_d
     if min_period_h is None or max_period_h is None:
         d_lo, d_hi = default_period_range_h(data, sessions)
@@ -322,8 +374,12 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
     try:
         if p1_grid is not None:
             mode = "grid"
+            m1 = int(order_1d or order)
+            basis = two_period_basis(order, m1)
+            _check_size(data, basis, order)
             f1_grid = np.sort(HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_grid, float)))
-            chi2_map = _map_chi2(data, order, f1_grid, f2, method=method, progress=cb)
+            chi2_map = _map_chi2(data, basis, f1_grid, f2, method=method, progress=cb)
+            chi2_map[commensurate_mask(order, f1_grid, f2, span)] = np.nan
             if not np.any(np.isfinite(chi2_map)):
                 raise PeriodSearchError(f"{lc.object_id}: every (P1, P2) pair of the grid is degenerate")
             r, c = np.unravel_index(np.nanargmin(chi2_map), chi2_map.shape)
@@ -339,7 +395,11 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
                 f1_0 = HOURS_PER_DAY / scan_1d.fit_period_h
             else:
                 f1_0 = HOURS_PER_DAY / float(p1)
-            chi2_map = _map_chi2(data, order, np.array([f1_0]), f2, method=method, progress=cb)[0]
+            m1 = int(order_1d or _choose_order_1d(data, f1_0, order, max(4, 2 * order)))
+            basis = two_period_basis(order, m1)
+            _check_size(data, basis, order)
+            chi2_map = _map_chi2(data, basis, np.array([f1_0]), f2, method=method, progress=cb)[0]
+            chi2_map[commensurate_mask(order, [f1_0], f2, span)[0]] = np.nan
             if not np.any(np.isfinite(chi2_map)):
                 raise PeriodSearchError(f"{lc.object_id}: every P2 of the grid is commensurate with P1")
             f2_0 = float(f2[np.nanargmin(chi2_map)])
@@ -349,17 +409,19 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
         if bar is not None:
             bar.close()
     step2 = float(np.median(np.diff(f2))) if f2.size > 1 else 1.0 / (oversample * order * span)
-    f1_b, f2_b, chi2_2d = _refine_pair(data, order, f1_0, f2_0, step1, step2)
+    f1_b, f2_b, chi2_2d = _refine_pair(data, basis, f1_0, f2_0, step1, step2)
+    if commensurate_mask(order, [f1_b], [f2_b], span)[0, 0]:
+        # the refinement drifted onto a commensurate pair: keep the grid point
+        f1_b, f2_b, chi2_2d = f1_0, f2_0, _exact(data, basis, f1_0, f2_0)
 
-    # the best 1-D fit: order m at P1, refined locally
-    jm1, km1 = np.zeros(order, dtype=int), np.arange(1, order + 1)
-    one_d = lambda f: float(K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm1, km1, [f])[0])  # noqa: E731
-    res1 = optimize.minimize_scalar(one_d, bounds=(f1_b - 2 * step1, f1_b + 2 * step1), method="bounded",
-                                    options={"xatol": 1e-6 * step1})
-    chi2_1d = float(min(res1.fun, one_d(f1_b)))
+    # the best 1-D fit: order m1 at P1, refined locally
+    res1 = optimize.minimize_scalar(lambda f: _one_d_chi2(data, m1, f), bounds=(f1_b - 2 * step1, f1_b + 2 * step1),
+                                    method="bounded", options={"xatol": 1e-6 * step1})
+    chi2_1d = float(min(res1.fun, _one_d_chi2(data, m1, f1_b)))
 
     n = data.n_points
-    k1 = data.n_nuisance + 2 * order + 1
+    n_b = basis[0].size
+    k1 = data.n_nuisance + 2 * m1 + 1
     k2 = data.n_nuisance + 2 * n_b + 2
     dof2 = n - k2
     if dof2 > 0 and chi2_2d > 0 and chi2_1d > chi2_2d:
@@ -371,13 +433,13 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
 
     # uncertainties: Delta chi2 = 1 after rescaling, marginal over the other frequency
     s2 = chi2_2d / dof2 if dof2 > 0 and chi2_2d > 0 else 1.0
-    g1 = lambda f: _exact(data, order, f, f2_b)  # noqa: E731
-    g2 = lambda f: _exact(data, order, f1_b, f)  # noqa: E731
+    g1 = lambda f: _exact(data, basis, f, f2_b)  # noqa: E731
+    g2 = lambda f: _exact(data, basis, f1_b, f)  # noqa: E731
     w1 = _halfwidth(g1, f1_b, chi2_2d, s2, 0.01 * step1, 2.0 / span)
     w2 = _halfwidth(g2, f2_b, chi2_2d, s2, 0.01 * step2, 2.0 / span)
     # curvature matrix from the two conditional widths and one diagonal point
     h11, h22 = 2.0 * s2 / w1**2, 2.0 * s2 / w2**2
-    c12 = _exact(data, order, f1_b + w1, f2_b + w2) - chi2_2d
+    c12 = _exact(data, basis, f1_b + w1, f2_b + w2) - chi2_2d
     h12 = (c12 - 0.5 * h11 * w1**2 - 0.5 * h22 * w2**2) / (w1 * w2)
     hess = np.array([[h11, h12], [h12, h22]])
     try:
@@ -387,10 +449,10 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
             raise np.linalg.LinAlgError
     except np.linalg.LinAlgError:
         sig1, sig2 = w1, w2
-    coefs, amp = _fit2d(data, order, f1_b, f2_b)
+    coefs, amp = _fit2d(data, basis, f1_b, f2_b)
     finite = np.where(np.isfinite(chi2_map), chi2_map, np.nan)
     return TwoPeriodResult(
-        object_id=lc.object_id, order=int(order), mode=mode,
+        object_id=lc.object_id, order=int(order), order_1d=int(m1), mode=mode,
         p1_h=HOURS_PER_DAY / f1_b, p1_h_err=HOURS_PER_DAY * sig1 / f1_b**2,
         p2_h=HOURS_PER_DAY / f2_b, p2_h_err=HOURS_PER_DAY * sig2 / f2_b**2,
         f1_per_d=f1_b, f2_per_d=f2_b, chi2_1d=chi2_1d, chi2_2d=chi2_2d, n_params_1d=k1, n_params_2d=k2,
@@ -398,3 +460,11 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
         chi2_p2=chi2_map, p1_grid_h=p1_grid_h, delta_chi2_map=finite - np.nanmin(finite),
         coefficients_mag=coefs, amplitude_mag=amp, epoch_jd=data.epoch_jd, scan_1d=scan_1d,
     )
+
+
+def _check_size(data, basis, order):
+    n_b = basis[0].size
+    if data.n_points <= data.n_nuisance + 2 * n_b + 2:
+        raise PeriodSearchError(
+            f"{data.n_points} points cannot constrain an order-{order} two-period series "
+            f"({2 * n_b} coefficients and {data.n_nuisance} zero-points/phase terms)")
