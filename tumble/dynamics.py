@@ -47,9 +47,10 @@ Two evaluation routes share these formulas:
   the strip ``|Im x| < pi K'/(2K)`` (Euler's equations are linear in R with
   coefficients whose nearest poles lie at ``u = i K'``), so its Fourier
   coefficients fall like ``q**(j/2)`` with the nome ``q = exp(-pi K'/K)``.
-  The coefficients are obtained per state from ``2H + 2`` direct samples by
-  FFT; evaluating ``H`` harmonics per point costs a cosine/sine recurrence and
-  one small matrix product instead of per-point elliptic functions. States
+  The coefficients are obtained per state from ``H + 1`` direct samples over
+  half a period (the other half follows by symmetry) and one FFT; evaluating
+  them per point costs one cos/sin pair, a Chebyshev recurrence in ``cos 2x``
+  and one small matrix product instead of per-point elliptic functions. States
   whose nome needs more than :data:`MAX_HARMONICS` harmonics fall back to the
   direct route.
 """
