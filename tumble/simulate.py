@@ -38,7 +38,7 @@ from pathlib import Path
 import numpy as np
 
 from tumble import brightness, geometry
-from tumble.exceptions import GeometryError, TumbleError
+from tumble.exceptions import TumbleError
 
 __all__ = [
     "SimulationError",
