@@ -1021,7 +1021,8 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
         p1, e1 = _period_from_frequency(f1, sf1)
         mult = 1.0 if evidence.second_harmonic_dominates else 2.0
         if mult == 2.0:
-            warn.append("single-peaked one-period fit: rotation period taken as twice the light-curve period")
+            warn.append("the fundamental of the one-period fit dominates its second harmonic: rotation period taken "
+                        "as twice the light-curve period (double-peaked convention)")
         v.update(period_h=p1 * mult, period_h_err=e1 * mult, p1_h=p1)
         longest = p1 * mult
     else:

@@ -573,6 +573,24 @@ def _inertia_from_ratios(ab, bc):
     return (b2 + c2) / (a2 + b2), (a2 + c2) / (a2 + b2)
 
 
+def _space_class():
+    """ParameterSpace whose ``log_prior`` also accepts a single (ndim,) vector.
+
+    (Work-around: at the time of writing the inference module's vectorised prior
+    assumed a leading walker axis.)
+    """
+    from tumble.inference import ParameterSpace
+
+    class _Space(ParameterSpace):
+        def log_prior(self, x):
+            x = np.asarray(x, float)
+            if x.ndim == 1:
+                return np.asarray(super().log_prior(x[None]))[0]
+            return super().log_prior(x)
+
+    return _Space
+
+
 class PhysicalModel:
     """Ellipsoid light-curve model of a PA, SAM or LAM rotator, vectorised over walkers.
 
@@ -642,7 +660,7 @@ class PhysicalModel:
                 Parameter("phi0_rad", PeriodicUniform(), "rad", "Euler angle phi at the epoch"),
                 Parameter("psi0_rad", PeriodicUniform(), "rad", "Euler angle psi at the epoch"),
             ]
-        self.space = ParameterSpace(params + common_tail)
+        self.space = _space_class()(params + common_tail)
 
     # -- parameters -> state arrays --------------------------------------------
 

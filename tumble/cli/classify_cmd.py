@@ -1,0 +1,172 @@
+"""``tumble classify FILE``: PA or NPA? Verdict, periods, rotation state and damping for one object."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+
+from tumble.cli._common import add_input_options, add_output_options, print_json, read_options
+
+#: verdict.json keys, in order (results-column names where DESIGN.md has them).
+VERDICT_KEYS = (
+    "object", "rotation", "mode", "p_npa", "prior_npa", "ln_bayes_factor", "ln_bayes_factor_err", "grade",
+    "period_h", "period_h_err", "p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "p_phi_h", "p_phi_h_lo", "p_phi_h_hi",
+    "p1_h", "p2_h", "excitation", "excitation_lo", "excitation_hi", "a_over_b", "b_over_c", "l_lon_deg",
+    "l_lat_deg", "amplitude_mag", "tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "evidence_route",
+    "state_converged", "mode_margin", "n_points", "n_sessions", "span_d", "screen", "seed", "warnings",
+)
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser(
+        "classify",
+        help="decide PA or NPA rotation, with probability, grade, periods and rotation state",
+        description="Decide from one object's photometry whether it rotates about its principal axis (PA) "
+                    "or tumbles (NPA, SAM or LAM): Bayes factor of shape-free one- and two-period models, "
+                    "posterior probability at the given prior, a grade on the Kass & Raftery (1995) scale, "
+                    "periods with 68%% intervals, and the rotation state from a physical ellipsoid fit. "
+                    "Writes verdict.json, results.ecsv and posterior.npz to --out.",
+    )
+    p.add_argument("files", nargs="+", metavar="FILE", help="photometry files of one object")
+    p.add_argument("--out", metavar="DIR", help="output directory (default: OBJECT-classify)")
+    p.add_argument("--screen", action="store_true",
+                   help="fast screen from the 1-D and 2-D scans only (Delta BIC), no physical fit")
+    p.add_argument("--seed", type=int, default=0, metavar="N", help="random seed (default: 0)")
+    p.add_argument("--walkers", type=int, metavar="W", help="emcee walkers per ensemble (default: 4 x parameters)")
+    p.add_argument("--max-steps", type=int, default=1500, metavar="S",
+                   help="emcee step budget per ensemble for the rotation state (default: 1500; 0 = optimise only)")
+    p.add_argument("--prior-npa", type=float, default=0.1, metavar="P",
+                   help="prior probability of NPA rotation (default: 0.1)")
+    p.add_argument("--robust", action="store_true",
+                   help="Student-t re-weighting of outliers (evidence) and Student-t likelihood (physical fit)")
+    p.add_argument("--min-period-h", type=float, default=0.5, metavar="H",
+                   help="shortest light-curve period searched, hours (default: 0.5)")
+    p.add_argument("--max-period-h", type=float, default=2000.0, metavar="H",
+                   help="longest light-curve period searched, hours (default: 2000; also limited by the span)")
+    size = p.add_mutually_exclusive_group()
+    size.add_argument("--diameter-km", type=float, metavar="D", help="diameter, km (for the damping time)")
+    size.add_argument("--h-mag", type=float, metavar="H", help="absolute magnitude H (for the damping time)")
+    p.add_argument("--albedo", type=float, metavar="A", help="geometric albedo with --h-mag")
+    add_input_options(p)
+    add_output_options(p)
+    p.set_defaults(run=run)
+
+
+def _clean(v):
+    """JSON-safe value: NaN/inf -> None, numpy scalars -> Python, tuples -> lists."""
+    import numpy as np
+
+    if isinstance(v, (list, tuple)):
+        return [_clean(x) for x in v]
+    if isinstance(v, (np.generic,)):
+        v = v.item()
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    return v
+
+
+def _damping(verdict, args, rng):
+    import numpy as np
+
+    from tumble.damping import damping_for_verdict
+
+    if args.diameter_km is None and args.h_mag is None:
+        return None
+    if verdict.rotation == "PA":
+        p, e = verdict.period_h, verdict.period_h_err
+    elif verdict.rotation == "NPA" and math.isfinite(verdict.p_phi_h):
+        p, e = verdict.p_phi_h, 0.5 * (verdict.p_phi_h_hi - verdict.p_phi_h_lo)
+    else:
+        p, e = verdict.p1_h, math.nan
+    if not math.isfinite(p):
+        return None
+    e = e if math.isfinite(e) and e > 0 else 1e-3 * p
+    samples = np.abs(p + e * rng.standard_normal(4000))
+    return damping_for_verdict(samples, diameter_km=args.diameter_km, h_mag=args.h_mag, albedo=args.albedo,
+                               rng=rng)
+
+
+def run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    import numpy as np
+
+    from tumble._io import atomic_path, atomic_write_text
+    from tumble.classify import ClassifyError, classify, screen
+    from tumble.photometry import read_lightcurve
+    from tumble.results import write_results
+
+    if not 0 < args.prior_npa < 1:
+        raise ClassifyError(f"--prior-npa must lie strictly between 0 and 1, got {args.prior_npa}")
+    if args.albedo is not None and args.h_mag is None:
+        raise ClassifyError("--albedo needs --h-mag")
+    lc = read_lightcurve(args.files, options=read_options(args))
+    rng = np.random.default_rng(args.seed)
+    fit = None
+    if args.screen:
+        verdict = screen(lc, prior_npa=args.prior_npa)
+    else:
+        verdict, _, fit = classify(lc, prior_npa=args.prior_npa, rng=rng, n_walkers=args.walkers,
+                                   max_steps=args.max_steps, student_t=args.robust, p_min_h=args.min_period_h,
+                                   p_max_h=args.max_period_h, progress=not args.quiet)
+    damp = _damping(verdict, args, np.random.default_rng(args.seed + 1))
+    d = verdict.to_dict()
+    d["object"] = d.pop("object_id")
+    d["screen"] = bool(args.screen)
+    d["seed"] = int(args.seed)
+    d["tau_damp_gyr"] = damp.tau_gyr if damp else math.nan
+    d["tau_damp_gyr_lo"] = damp.tau_gyr_lo if damp else math.nan
+    d["tau_damp_gyr_hi"] = damp.tau_gyr_hi if damp else math.nan
+    out = {k: _clean(d.get(k)) for k in VERDICT_KEYS}
+    out_dir = Path(args.out or f"{lc.object_id}-classify")
+    out_dir.mkdir(parents=True, exist_ok=True)
+    # verdict.json holds no wall-clock time, so the same seed gives the same bytes
+    atomic_write_text(out_dir / "verdict.json", json.dumps(out, indent=2, sort_keys=False) + "\n")
+    row = verdict.results_row()
+    row["tau_damp_gyr"], row["tau_damp_gyr_lo"], row["tau_damp_gyr_hi"] = (
+        d["tau_damp_gyr"], d["tau_damp_gyr_lo"], d["tau_damp_gyr_hi"])
+    write_results([row], out_dir / "results.ecsv")
+    arrays = {}
+    if fit is not None and fit.posterior is not None:
+        post = fit.posterior
+        arrays = {"samples": post.samples, "log_prob": post.log_prob, "log_likelihood": post.log_likelihood,
+                  "names": np.array(post.names), "units": np.array(post.units),
+                  "mode": np.array(fit.mode), "converged": np.array(fit.converged)}
+    with atomic_path(out_dir / "posterior.npz") as tmp:
+        with open(tmp, "wb") as fh:
+            np.savez(fh, **arrays)
+    if args.json:
+        print_json(out)
+        return 0
+    _print_verdict(out, damp)
+    print(f"wrote {out_dir / 'verdict.json'}, {out_dir / 'results.ecsv'}, {out_dir / 'posterior.npz'}")
+    return 0
+
+
+def _fmt(x, digits=5):
+    return "-" if x is None else f"{x:.{digits}g}"
+
+
+def _print_verdict(v: dict, damp) -> None:
+    print(f"object        {v['object']}  ({v['n_points']} points, {v['n_sessions']} sessions, "
+          f"{v['span_d']:.3g} d)")
+    print(f"rotation      {v['rotation']}" + (f"  (mode {v['mode']})" if v["rotation"] == "NPA" else ""))
+    print(f"probability   p(NPA) = {_fmt(v['p_npa'], 3)} at prior {v['prior_npa']:g};  "
+          f"ln B(NPA:PA) = {_fmt(v['ln_bayes_factor'], 4)} +- {_fmt(v['ln_bayes_factor_err'], 2)}")
+    print(f"grade         {v['grade']}  (Kass & Raftery 1995 scale on 2|ln B|)")
+    if v["period_h"] is not None:
+        print(f"period        {_fmt(v['period_h'], 8)} +- {_fmt(v['period_h_err'], 2)} h")
+    if v["p_psi_h"] is not None:
+        print(f"P_psi         {_fmt(v['p_psi_h'], 7)} h  (68%: {_fmt(v['p_psi_h_lo'], 7)} .. {_fmt(v['p_psi_h_hi'], 7)})")
+        print(f"P_phi         {_fmt(v['p_phi_h'], 7)} h  (68%: {_fmt(v['p_phi_h_lo'], 7)} .. {_fmt(v['p_phi_h_hi'], 7)})")
+    if v["p2_h"] is not None:
+        print(f"light curve   P1 = {_fmt(v['p1_h'], 7)} h, P2 = {_fmt(v['p2_h'], 7)} h")
+    if v["excitation"] is not None:
+        print(f"E/E0          {_fmt(v['excitation'], 4)}  (68%: {_fmt(v['excitation_lo'], 4)} .. "
+              f"{_fmt(v['excitation_hi'], 4)})")
+    if damp is not None:
+        print(f"damping       tau = {_fmt(damp.tau_gyr, 3)} Gyr (68%: {_fmt(damp.tau_gyr_lo, 3)} .. "
+              f"{_fmt(damp.tau_gyr_hi, 3)}); an order-of-magnitude estimate")
+    for w in v["warnings"]:
+        print(f"warning       {w}")
