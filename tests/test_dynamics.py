@@ -31,6 +31,7 @@ from tumble.dynamics import (
     attitude_matrices,
     carlson_pi_complete,
     carlson_pi_incomplete,
+    dynamic_inertia_from_periods,
     ecliptic_to_body,
     momentum_to_ecliptic_matrix,
     periods_unit_momentum,
@@ -569,6 +570,21 @@ def test_toutatis_frequencies():
     assert per_day["f_phi"] == pytest.approx(0.135, abs=0.002)
     assert per_day["2 f_phi"] == pytest.approx(0.271, abs=0.002)
     assert per_day["2 (f_phi + f_psi)"] == pytest.approx(0.643, abs=0.008)
+
+
+def test_vectorised_inverse_mapping(rng):
+    # Same root as the scalar Brent route (scipy brentq) for a batch of states.
+    states = [_random_state(rng, "SAM" if i % 2 else "LAM", margin=1e-5) for i in range(30)]
+    cols = [np.array([getattr(s, f) for s in states]) for f in ("i1_i3", "i2_i3", "p_psi_h", "p_phi_h")]
+    got = dynamic_inertia_from_periods(*cols, [s.mode for s in states])
+    assert np.max(np.abs(got - np.array([s.id_i3 for s in states]))) < 1e-12
+    brent = [RotationState.from_periods(s.i1_i3, s.i2_i3, s.p_psi_h, s.p_phi_h, s.mode).id_i3 for s in states[:5]]
+    assert np.max(np.abs(got[:5] - brent)) < 1e-12
+    # A SAM of I = (0.5, 0.8, 1) cannot have P_phi/P_psi = 0.5 (the ratio stays below ~0.3).
+    out = dynamic_inertia_from_periods([0.5, 0.5], [0.8, 0.8], [10.0, 14.938922], [5.0, 4.242455], "SAM", errors="nan")
+    assert np.isnan(out[0]) and out[1] == pytest.approx(0.9, abs=1e-6)
+    with pytest.raises(RotationStateError):
+        dynamic_inertia_from_periods(0.5, 0.8, 10.0, 5.0, "SAM")
 
 
 def test_from_periods_roundtrip(rng):

@@ -74,6 +74,7 @@ __all__ = [
     "RotationState",
     "LightcurveFrequencies",
     "periods_unit_momentum",
+    "dynamic_inertia_from_periods",
     "attitude_matrices",
     "ecliptic_to_body",
     "angular_velocity_body",
@@ -322,6 +323,95 @@ def periods_unit_momentum(i1_i3, i2_i3, id_i3):
     if p_psi.ndim == 0:
         return float(p_psi), float(p_phi)
     return p_psi, p_phi
+
+
+def _period_ratio(i1, i2, idd):
+    """P_phi/P_psi for NPA arrays (no validation)."""
+    c = _constants(i1, i2, idd)
+    return c.p_phi_unit / c.p_psi_unit
+
+
+def dynamic_inertia_from_periods(i1_i3, i2_i3, p_psi_h, p_phi_h, mode, errors="raise"):
+    """Vectorised inverse mapping (I1/I3, I2/I3, P_psi, P_phi, mode) -> I_d/I3.
+
+    ``P_phi/P_psi`` depends only on the inertia ratios and I_d/I3 and is
+    monotonic in I_d within each mode (checked numerically; it tends to 0 at
+    the separatrix), so I_d is found by a bracketed Illinois (modified regula
+    falsi) iteration on that ratio in ``(I2 + 1e-6, 1)`` for SAM or
+    ``(I1, I2 - 1e-6)`` for LAM, for all states at once (Kaasalainen 2001;
+    the scalar version is :meth:`RotationState.from_periods`).
+
+    Parameters
+    ----------
+    i1_i3, i2_i3 : array_like (K,)
+        Inertia ratios.
+    p_psi_h, p_phi_h : array_like (K,)
+        Periods in hours (any common unit).
+    mode : str or array_like of str (K,)
+        'SAM' or 'LAM' per state.
+    errors : {'raise', 'nan'}
+        For a ratio no state of that mode can produce: raise
+        :class:`RotationStateError`, or return NaN there (convenient inside a
+        log-probability).
+
+    Returns
+    -------
+    ndarray (K,)
+        I_d/I3.
+    """
+    i1, i2, p_psi, p_phi, modes = np.broadcast_arrays(
+        np.atleast_1d(np.asarray(i1_i3, dtype=float)),
+        np.atleast_1d(np.asarray(i2_i3, dtype=float)),
+        np.atleast_1d(np.asarray(p_psi_h, dtype=float)),
+        np.atleast_1d(np.asarray(p_phi_h, dtype=float)),
+        np.atleast_1d(np.asarray(mode)),
+    )
+    modes = np.char.upper(modes.astype(str))
+    if not np.all((modes == "SAM") | (modes == "LAM")):
+        raise RotationStateError("mode must be 'SAM' or 'LAM' for every state")
+    _check_inertia(i1, i2, np.ones_like(i1))
+    if np.any(~(p_psi > 0)) or np.any(~(p_phi > 0)):
+        raise RotationStateError("periods must be positive")
+    sam = modes == "SAM"
+    tol = SEPARATRIX_TOLERANCE
+    lo = np.where(sam, i2 + tol, i1 + 1e-13)
+    hi = np.where(sam, 1.0 - 1e-13, i2 - tol)
+    exists = lo < hi
+    lo = np.where(exists, lo, 0.5 * (i1 + 1.0))
+    hi = np.where(exists, hi, np.nextafter(lo, 2.0))
+    target = p_phi / p_psi
+    f_lo = _period_ratio(i1, i2, lo) - target
+    f_hi = _period_ratio(i1, i2, hi) - target
+    ok = exists & (f_lo * f_hi <= 0)
+    if errors == "raise" and not np.all(ok):
+        bad = int(np.flatnonzero(~ok)[0])
+        raise RotationStateError(
+            f"state {bad}: P_phi/P_psi = {target[bad]:.6g} cannot be produced by a {modes[bad]} "
+            f"with I1/I3 = {i1[bad]}, I2/I3 = {i2[bad]}"
+        )
+    side = np.zeros(lo.shape, dtype=np.int8)  # +1: hi kept last step, -1: lo kept
+    for _ in range(100):
+        active = ok & (np.abs(hi - lo) > 4e-16 * np.abs(hi)) & (f_lo != 0) & (f_hi != 0)
+        if not np.any(active):
+            break
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = (lo * f_hi - hi * f_lo) / (f_hi - f_lo)
+        bisect = ~np.isfinite(x) | (x <= np.minimum(lo, hi)) | (x >= np.maximum(lo, hi))
+        x = np.where(bisect, 0.5 * (lo + hi), x)
+        x = np.where(active, x, lo)
+        f_x = _period_ratio(i1, i2, x) - target
+        left = active & (f_x * f_lo > 0)  # root between x and hi: move lo, keep hi
+        right = active & ~left  # move hi, keep lo
+        # Illinois: halve the kept end's value when the same end is kept twice running.
+        f_hi = np.where(left & (side == 1), 0.5 * f_hi, f_hi)
+        f_lo = np.where(right & (side == -1), 0.5 * f_lo, f_lo)
+        lo = np.where(left, x, lo)
+        f_lo = np.where(left, f_x, f_lo)
+        hi = np.where(right, x, hi)
+        f_hi = np.where(right, f_x, f_hi)
+        side = np.where(left, 1, np.where(right, -1, side)).astype(np.int8)
+    idd = np.where(np.abs(f_lo) <= np.abs(f_hi), lo, hi)
+    return np.where(ok, idd, np.nan)
 
 
 # ---------------------------------------------------------------------------
