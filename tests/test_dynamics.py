@@ -29,6 +29,7 @@ from tumble.dynamics import (
     SeparatrixError,
     angular_velocity_body,
     attitude_matrices,
+    batch_arguments,
     carlson_pi_complete,
     carlson_pi_incomplete,
     dynamic_inertia_from_periods,
@@ -433,6 +434,7 @@ def test_batch_kernel_matches_single_states(rng):
     batch = attitude_matrices(*args, t)
     for k, s in enumerate(states):
         assert np.max(np.abs(batch[k] - s.attitude(t))) < 1e-14
+    assert all(np.array_equal(a, b) for a, b in zip(batch_arguments(states), args))
     # Per-state times (K, n) broadcast too.
     tt = t[None, :] + np.arange(3)[:, None]
     batch2 = attitude_matrices(*args, tt)

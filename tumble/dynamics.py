@@ -75,6 +75,7 @@ __all__ = [
     "LightcurveFrequencies",
     "periods_unit_momentum",
     "dynamic_inertia_from_periods",
+    "batch_arguments",
     "attitude_matrices",
     "ecliptic_to_body",
     "angular_velocity_body",
@@ -842,6 +843,19 @@ def _attitude_parts(batch, method):
         bd, _, _ = _direct_parts(c, sub, x[rest])
         b[sub] = np.moveaxis(bd, 1, 3)
     return phi_mean, b
+
+
+def batch_arguments(states):
+    """Stack :class:`RotationState` objects into the array arguments of the kernels.
+
+    Returns the nine 1-D arrays ``(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg,
+    l_lat_deg, phi0_deg, psi0_deg, epoch_jd)`` for :func:`attitude_matrices`
+    and :func:`ecliptic_to_body`.
+    """
+    rows = [s.kernel_arguments() for s in states]
+    if not rows:
+        raise RotationStateError("need at least one state")
+    return tuple(np.array(col, dtype=float) for col in zip(*rows))
 
 
 def attitude_matrices(
