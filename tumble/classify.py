@@ -95,6 +95,8 @@ NPA_COMBO_ORDERS = (1, 2, 3)
 NPA_MAX_BASE_HARMONICS = 4
 #: Candidate f1 windows (after the best) that get the two-period integration.
 NPA_MAX_WINDOWS = 4
+#: Alias tolerance (cycles/day) around k/day for sparse data, whose daily window aliases slow variations.
+SPARSE_ALIAS_TOL_PER_D = 0.02
 #: Sidereal day (d) for the 1/day alias guard.
 SIDEREAL_DAY_D = 0.99726958
 
@@ -964,7 +966,7 @@ def _near_daily_alias(f_per_d, tol_per_d):
 
 def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAULT_PRIOR_NPA,
            fit: RotationFit | None = None, object_id: str = "object", n_points: int = 0, n_sessions: int = 0,
-           extra_warnings=(), route: str | None = None) -> Verdict:
+           extra_warnings=(), route: str | None = None, sparse: bool = False) -> Verdict:
     """Turn the evidence (and the physical fit, if any) into a :class:`Verdict` by the stated rules.
 
     Rules, in order:
@@ -972,12 +974,13 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
     1. ``2 |ln B| < 2`` (the lowest Kass & Raftery level) -> undecided.
     2. NPA favoured (``ln B > 0``) but ``p_npa < 0.5`` at this prior -> undecided.
     3. Candidate period windows holding >= 10 % of the posterior mass favour different
-       hypotheses -> undecided; if they agree but the dominant window holds < 90 %, the
-       grade is capped at ``tentative`` (period ambiguous).
-    4. The estimated quadrature error of ln B exceeds 1 nat, or ``2 ln B`` lies within two such
-       errors of the undecided band -> undecided.
-    5. NPA with a second period within ``0.5/span`` (or 3 sigma) of 1, 2 or 3 cycles per
-       (solar or sidereal) day -> undecided (calibration or window-function alias).
+       hypotheses -> undecided; if the dominant window of the favoured family holds < 50 % of
+       its mass -> undecided (multimodal); < 90 % -> grade capped at ``tentative``.
+    4. ``2 ln B`` lies within two of its estimated quadrature errors (``2 x ln_bayes_factor_err``)
+       of the undecided band -> undecided.
+    5. NPA with either light-curve basis frequency within ``0.5/span`` (or 3 sigma; for sparse
+       data :data:`SPARSE_ALIAS_TOL_PER_D`) of 1, 2 or 3 cycles per (solar or sidereal) day ->
+       undecided (calibration or window-function alias of a slow variation).
     6. The data span is shorter than :data:`MIN_CYCLES` times the longest claimed period -> undecided.
     7. NPA: the mode is the physical fit's best mode unless SAM and LAM reach log-likelihoods
        within 2 nats of each other (mode ``none``); an unconverged or multimodal physical
@@ -1003,10 +1006,13 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
         rotation = "undecided"
         warn.append("period windows with comparable posterior mass favour different hypotheses")
     mass = evidence.npa_window_mass if favour == "NPA" else evidence.pa_window_mass
-    if mass < 0.9:
+    if mass < 0.5:
+        rotation = "undecided"
+        warn.append(f"period posterior is multimodal: the dominant window holds only {100 * mass:.0f} % of its mass")
+    elif mass < 0.9:
         cap = "tentative"
         warn.append(f"period posterior is multimodal: the dominant window holds {100 * mass:.0f} % of its mass")
-    if rotation != "undecided" and (err > 1.0 or abs(2 * ln_b) - 2 < 4 * err):
+    if rotation != "undecided" and abs(2 * ln_b) - 2 < 4 * err:
         warn.append(f"ln B = {ln_b:.2f} has a quadrature error of {err:.2f} nats, too large for this margin")
         rotation = "undecided"
     span_h = span_d * 24.0
@@ -1030,10 +1036,12 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
         p2, _ = _period_from_frequency(evidence.f2_per_d, evidence.f2_sigma_per_d)
         v.update(p1_h=p1, p2_h=p2)
         longest = max(p1, p2)
-        tol = max(0.5 / span_d, 3 * (evidence.f2_sigma_per_d if np.isfinite(evidence.f2_sigma_per_d) else 0.0))
-        if _near_daily_alias(evidence.f2_per_d, tol):
-            rotation = "undecided"
-            warn.append(f"second period {p2:.4g} h lies at a 1/day alias")
+        for name, f, sf in (("first", evidence.f1_npa_per_d, evidence.f1_npa_sigma_per_d),
+                            ("second", evidence.f2_per_d, evidence.f2_sigma_per_d)):
+            tol = max(0.5 / span_d, 3 * (sf if np.isfinite(sf) else 0.0), SPARSE_ALIAS_TOL_PER_D if sparse else 0.0)
+            if _near_daily_alias(f, tol) and rotation != "undecided":
+                rotation = "undecided"
+                warn.append(f"{name} light-curve period {24.0 / f:.4g} h lies at a 1/day alias")
     if fit is not None:
         state_conv = fit.converged
         if not fit.converged:
@@ -1074,7 +1082,7 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
         grade = cap
     if rotation == "undecided":
         mode = "none"
-        grade = "none" if abs(2 * ln_b) < 2 else grade
+        grade = "none"  # no hypothesis is stated, so no strength is claimed
     if rotation != "NPA":
         mode = "none"
     return Verdict(rotation=rotation, mode=mode, grade=grade, state_converged=bool(state_conv),
@@ -1130,7 +1138,8 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
         fit = fit_rotation_state(lc, ev, favour, rng=rng, n_walkers=n_walkers, max_steps=max_steps,
                                  progress=progress, student_t=student_t)
     verdict = decide(ev, span_d=lc.span_d, prior_npa=prior_npa, fit=fit, object_id=lc.object_id,
-                     n_points=lc.n_points, n_sessions=lc.n_sessions, extra_warnings=extra)
+                     n_points=lc.n_points, n_sessions=lc.n_sessions, extra_warnings=extra,
+                     sparse=bool(np.mean(lc.session < 0) > 0.5))
     from dataclasses import replace
 
     return replace(verdict, runtime_s=float(time.perf_counter() - t0)), ev, fit
@@ -1206,7 +1215,8 @@ def screen(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, order: int = 2) -> Verdi
     from dataclasses import replace
 
     v = decide(ev, span_d=lc.span_d, prior_npa=prior_npa, object_id=lc.object_id, n_points=lc.n_points,
-               n_sessions=lc.n_sessions, extra_warnings=["screen only: no physical fit, no mode"])
+               n_sessions=lc.n_sessions, extra_warnings=["screen only: no physical fit, no mode"],
+               sparse=bool(np.mean(lc.session < 0) > 0.5))
     if v.rotation == "PA":
         v = replace(v, period_h=float(res.scan_1d.rotation_period_h), period_h_err=float(res.scan_1d.rotation_period_h_err),
                     p1_h=float(res.scan_1d.best_period_h))

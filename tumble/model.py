@@ -12,8 +12,12 @@ Two families live here (the decision logic is in :mod:`tumble.classify`):
    - ``PA(H, d)``: harmonics ``j = 1..H`` of ``f1``; with ``d = 1`` every
      coefficient may drift linearly in time across the data span;
    - ``NPA(H, d, m)``: ``PA(H, d)`` plus the combination terms
-     ``j f1 + k f2`` with ``k = 1..m`` and ``j = -m..m`` of the
+     ``j f1 + k f2`` with ``k = 1..m`` and ``j = -m..-1, 1..m`` of the
      two-dimensional Fourier series of Pravec et al. (2005, Icarus 173, 108).
+     The pure ``k f2`` terms (``j = 0``) are left out on purpose: tumbling
+     *modulates* the rotation signal, whereas an additive signal at a second
+     frequency alone (a slow brightness trend, activity, a blended star or a
+     companion) is not evidence of non-principal-axis rotation.
 
    Every Fourier coefficient has a zero-mean Gaussian prior whose width is
    ``kappa * sigma`` (``sigma`` shrinking with harmonic order), session
@@ -280,7 +284,7 @@ class FourierVariant:
         Coefficients of the ``f1`` harmonics drift linearly in time.
     combo_order : int
         ``m`` of the two-dimensional series (``0`` for PA): terms ``j f1 + k f2``,
-        ``k = 1..m``, ``j = -m..m``.
+        ``k = 1..m``, ``0 < |j| <= m``.
     """
 
     n_harmonics: int
@@ -347,7 +351,7 @@ class FourierBasis:
         for r in range(1, mmax + 1):
             for k in range(1, r + 1):
                 for j in range(-r, r + 1):
-                    if max(abs(j), k) == r:
+                    if max(abs(j), k) == r and j != 0:
                         combos.append((j, k))
         combo_start = col
         for j, k in combos:
