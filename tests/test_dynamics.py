@@ -621,6 +621,25 @@ def test_separatrix_is_refused():
     assert issubclass(SeparatrixError, TumbleError)
 
 
+def test_invalid_states_can_be_masked_per_state():
+    # For ensembles: one bad walker gives NaN for itself only (invalid="nan").
+    i1 = np.array([0.5, 0.5, 0.5, 0.9, 0.5])
+    i2 = np.array([0.8, 0.8, 0.8, 0.8, 0.8])
+    idd = np.array([0.9, 0.8 + 1e-8, 0.6, 0.85, 1.0])  # ok, separatrix, ok, I1 > I2, PA
+    t = EPOCH + np.linspace(0, 1, 7)
+    args = (i1, i2, idd, 5.0, 10.0, 20.0, 30.0, 40.0, EPOCH)
+    with pytest.raises(RotationStateError):
+        attitude_matrices(*args, t)
+    r = attitude_matrices(*args, t, invalid="nan")
+    bad = np.array([False, True, False, True, False])
+    assert np.all(np.isnan(r[bad])) and np.all(np.isfinite(r[~bad]))
+    good = attitude_matrices(i1[~bad], i2[~bad], idd[~bad], 5.0, 10.0, 20.0, 30.0, 40.0, EPOCH, t)
+    assert np.max(np.abs(r[~bad] - good)) == 0.0
+    v = np.ones((2, 1, 7, 3))
+    body = ecliptic_to_body(*args, t, v, invalid="nan")
+    assert np.all(np.isnan(body[:, bad])) and np.all(np.isfinite(body[:, ~bad]))
+
+
 @pytest.mark.parametrize(
     "kwargs",
     [

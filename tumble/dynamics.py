@@ -776,20 +776,46 @@ class _Batch:
     psi0: np.ndarray  # radians
     dt_h: np.ndarray  # (K, n) hours since epoch
     const: _Constants
+    invalid: np.ndarray  # (K,) bool, states replaced by placeholders (invalid="nan")
 
 
-def _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd):
+def _invalid_states(i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch):
+    """Boolean mask (K,) of states :func:`_check_inertia` and the period/direction checks would refuse."""
+    finite = np.isfinite(i1) & np.isfinite(i2) & np.isfinite(idd) & np.isfinite(p_psi)
+    finite &= np.isfinite(lon) & np.isfinite(lat) & np.isfinite(phi0) & np.isfinite(psi0) & np.isfinite(epoch)
+    with np.errstate(invalid="ignore"):
+        npa = idd < 1.0
+        bad = (i1 <= 0) | (i1 > i2) | (i2 > 1.0) | (i1 + i2 < 1.0 - 1e-12) | (idd > 1.0) | (npa & (idd <= i1))
+        bad |= npa & (np.abs(idd - i2) < SEPARATRIX_TOLERANCE)
+        bad |= npa & (((idd > i2) & (i2 >= 1.0)) | ((idd < i2) & (i1 >= i2)))
+        bad |= (p_psi <= 0) | (np.abs(lat) > 90.0)
+    return ~finite | bad
+
+
+def _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, invalid="raise"):
     params = np.broadcast_arrays(
         *[np.atleast_1d(np.asarray(v, dtype=float)) for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
     )
     if params[0].ndim != 1:
         raise RotationStateError("state parameters must be scalars or 1-D arrays over states")
     i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch = params
-    _check_inertia(i1, i2, idd)
-    if np.any(~np.isfinite(p_psi)) or np.any(p_psi <= 0):
-        raise RotationStateError("p_psi_h must be positive and finite")
-    if np.any(np.abs(lat) > 90.0) or not np.all(np.isfinite(lon)):
-        raise RotationStateError("angular-momentum direction: need finite longitude and |latitude| <= 90 deg")
+    if invalid == "nan":
+        bad = _invalid_states(*params)
+        if np.any(bad):
+            # Placeholder PA states; their outputs are overwritten with NaN.
+            i1, i2, idd, p_psi, lon, lat, phi0, psi0 = (
+                np.where(bad, fill, v) for v, fill in zip((i1, i2, idd, p_psi, lon, lat, phi0, psi0), (1, 1, 1, 1, 0, 0, 0, 0))
+            )
+            epoch = np.where(bad & ~np.isfinite(epoch), 0.0, epoch)
+    elif invalid == "raise":
+        bad = np.zeros(i1.shape, dtype=bool)
+        _check_inertia(i1, i2, idd)
+        if np.any(~np.isfinite(p_psi)) or np.any(p_psi <= 0):
+            raise RotationStateError("p_psi_h must be positive and finite")
+        if np.any(np.abs(lat) > 90.0) or not np.all(np.isfinite(lon)):
+            raise RotationStateError("angular-momentum direction: need finite longitude and |latitude| <= 90 deg")
+    else:
+        raise RotationStateError(f"invalid must be 'raise' or 'nan', got {invalid!r}")
     t = np.asarray(t_jd, dtype=float)
     if t.ndim == 0:
         t = t[None]
@@ -808,6 +834,7 @@ def _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_
         psi0=np.deg2rad(psi0),
         dt_h=dt_h,
         const=_constants(i1, i2, idd),
+        invalid=bad,
     )
 
 
@@ -859,7 +886,7 @@ def batch_arguments(states):
 
 
 def attitude_matrices(
-    i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, method="fourier"
+    i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, method="fourier", invalid="raise"
 ):
     """Body-to-ecliptic rotation matrices for a batch of K states at n times.
 
@@ -886,6 +913,10 @@ def attitude_matrices(
         Times (TDB Julian dates, days).
     method : {'fourier', 'direct'}
         Fast periodic-series route (default) or per-point special functions.
+    invalid : {'raise', 'nan'}
+        What to do with a state that is unphysical or too close to the
+        separatrix: raise (default), or return NaN for that state only (so
+        that one walker of an ensemble cannot spoil the whole batch).
 
     Returns
     -------
@@ -899,7 +930,7 @@ def attitude_matrices(
     RotationStateError
         For unphysical parameters.
     """
-    batch = _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd)
+    batch = _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, invalid)
     phi_mean, b = _attitude_parts(batch, method)
     k, npt = phi_mean.shape
     q = batch.q_ecl
@@ -914,6 +945,8 @@ def attitude_matrices(
             w = sph * b0 + cph * b1
             for i in range(3):
                 out[ks, ps, i, j] = qb[:, i, 0, None] * u + qb[:, i, 1, None] * w + qb[:, i, 2, None] * z
+    if np.any(batch.invalid):
+        out[batch.invalid] = np.nan
     return out
 
 
@@ -935,7 +968,8 @@ def _blocks(k, npt):
 
 
 def ecliptic_to_body(
-    i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, vectors, method="fourier"
+    i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, vectors, method="fourier",
+    invalid="raise",
 ):
     """Body-frame components ``R.T @ v`` of ecliptic vectors, without forming R.
 
@@ -945,9 +979,10 @@ def ecliptic_to_body(
     state, ``(S, 1, n, 3)`` or ``(S, K, n, 3)`` holds S sets (e.g. the Sun and
     the observer directions). The result has shape
     ``broadcast(leading, (K,)) + (n, 3)``. This is the cheap path for
-    brightness models: ``v_body = B^T Rz(-phi_mean) Q^T v``.
+    brightness models: ``v_body = B^T Rz(-phi_mean) Q^T v``. ``method`` and
+    ``invalid`` as in :func:`attitude_matrices` (NaN along the state axis).
     """
-    batch = _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd)
+    batch = _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, invalid)
     k, npt = batch.dt_h.shape
     v = np.asarray(vectors, dtype=float)
     if v.ndim < 2 or v.shape[-1] != 3 or v.shape[-2] != npt:
@@ -998,6 +1033,8 @@ def ecliptic_to_body(
                 np.multiply(bb[:, 2, j], x3, out=tmp)
                 acc += tmp
                 dst[..., j] = acc
+    if np.any(batch.invalid):
+        out[..., batch.invalid, :, :] = np.nan
     return out
 
 
