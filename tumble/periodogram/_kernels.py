@@ -153,9 +153,9 @@ class UniformNufftEngine(SumEngine):
             return np.zeros((c.shape[0], self.n), dtype=complex)
         x = TWO_PI * np.mod(self.df * tau, 1.0)
         x[x >= np.pi] -= TWO_PI
-        # exp(2 pi i f0 tau) exp(i (F//2) x) in one exponential
-        arg = x * (self.n // 2) + TWO_PI * np.mod(self.f0 * tau, 1.0)
-        strengths = np.ascontiguousarray(c * np.exp(1j * arg)[None, :], dtype=complex)
+        # exp(2 pi i f0 tau) exp(i (F//2) x) = exp(2 pi i (f0 + (F//2) df) tau): one exponential
+        shift = np.exp((1j * TWO_PI) * np.mod(tau * (self.f0 + (self.n // 2) * self.df), 1.0))
+        strengths = c * shift[None, :]
         n_trans = strengths.shape[0]
         plan = self._plans.get(n_trans)
         if plan is None:
@@ -312,6 +312,40 @@ def _times_strength(rows, base, phase):
     return base[None, :] * phase
 
 
+def _real_transforms(engine, jobs, target, rows, n_freq):
+    """Transforms whose results are known to be real, two per complex transform.
+
+    ``sum_j (c_j + i d_j) e^(2 pi i f tau_j) = C(f) + i D(f)`` when C and D are
+    real; two jobs with different times are packed by concatenating the times.
+    """
+    single = []
+    for tau, c, key in jobs:  # c: (rows, P)
+        n = c.shape[0]
+        if not np.any(tau):
+            target[key] = np.repeat(c.sum(axis=1).real[:, None], n_freq, axis=1).astype(complex)
+            continue
+        if n >= 2:
+            pairs = n // 2
+            packed = c[0:2 * pairs:2] + 1j * c[1:2 * pairs:2]
+            out = engine(tau, packed)
+            res = np.empty((n, n_freq), dtype=complex)
+            res[0:2 * pairs:2] = out.real
+            res[1:2 * pairs:2] = out.imag
+            if n % 2:
+                res[n - 1] = engine(tau, c[n - 1:n])[0].real
+            target[key] = res
+        else:
+            single.append((tau, c[0], key))
+    for i in range(0, len(single) - 1, 2):
+        (ta, ca, ka), (tb, cb, kb) = single[i], single[i + 1]
+        out = engine(np.concatenate([ta, tb]), np.concatenate([ca, 1j * cb])[None, :])[0]
+        target[ka] = out.real.astype(complex)[None, :]
+        target[kb] = out.imag.astype(complex)[None, :]
+    if len(single) % 2:
+        ta, ca, ka = single[-1]
+        target[ka] = engine(ta, ca[None, :]).real.astype(complex)
+
+
 def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=None, paired=None,
                     explicit=None):
     """Chi-square of nuisance + scanned-basis model at every frequency of ``engine``.
@@ -368,6 +402,7 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
     by_mult: dict = {}
     for a, b in ab:
         by_mult.setdefault((int(km[a]), int(km[b])), []).append((a, b))
+    real_jobs = []  # diagonal "minus" sums are real: pack two per complex transform
     for (ka, kb), combos in by_mult.items():
         for sign in (+1, -1):
             tau_direct = (ka + sign * kb) * t
@@ -380,14 +415,25 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
                     pa, pb = ph.get(int(jm[a]), pi), ph.get(int(sign * jm[b]), pj)
                     phase = pa if pb is None else (pb if pa is None else pa * pb)
                     strengths[r, :, t.size:] = _times_strength(rows, -0.5 * pk, phase)
-            flat = strengths.reshape(len(combos) * rows, tau.size)
+            target = s_plus if sign > 0 else s_minus
+            if sign < 0:
+                diag = [r for r, (a, b) in enumerate(combos) if a == b]
+                for r in diag:
+                    real_jobs.append((tau, strengths[r], combos[r]))
+                keep = [r for r in range(len(combos)) if r not in diag]
+            else:
+                keep = list(range(len(combos)))
+            if not keep:
+                continue
+            flat = strengths[keep].reshape(len(keep) * rows, tau.size)
             if not np.any(tau):
                 out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1)
             else:
                 out = engine(tau, flat)
-            out = out.reshape(len(combos), rows, n_freq)
-            for r, ab_pair in enumerate(combos):
-                (s_plus if sign > 0 else s_minus)[ab_pair] = out[r]
+            out = out.reshape(len(keep), rows, n_freq)
+            for r, q in enumerate(keep):
+                target[combos[q]] = out[r]
+    _real_transforms(engine, real_jobs, s_minus, rows, n_freq)
     if explicit:
         idx = np.concatenate([g.index for g in explicit])
         ncol = sum(g.v.shape[1] for g in explicit)

@@ -494,9 +494,13 @@ def fourier_chi2_reference(lc, frequencies_per_d, *, order: int = 4, sessions: b
                         method="reference")
 
 
+#: Highest Fourier order accepted (light-curve fits rarely need more than 6-8 harmonics).
+MAX_ORDER = 12
+
+
 def _check_order(order, data):
-    if int(order) != order or order < 1:
-        raise PeriodSearchError(f"Fourier order must be a positive integer, got {order}")
+    if int(order) != order or order < 1 or order > MAX_ORDER:
+        raise PeriodSearchError(f"Fourier order must be an integer from 1 to {MAX_ORDER}, got {order}")
     if data.n_points <= data.n_nuisance + 2 * order:
         raise PeriodSearchError(
             f"{data.n_points} points cannot constrain an order-{order} series with "
