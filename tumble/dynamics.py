@@ -978,7 +978,8 @@ def ecliptic_to_body(
     state axis (K,): ``(n, 3)`` is shared by all states, ``(K, n, 3)`` is per
     state, ``(S, 1, n, 3)`` or ``(S, K, n, 3)`` holds S sets (e.g. the Sun and
     the observer directions). The result has shape
-    ``broadcast(leading, (K,)) + (n, 3)``. This is the cheap path for
+    ``broadcast(leading, (K,)) + (n, 3)`` (a view of component-first storage,
+    so ``np.moveaxis(out, -1, 0)`` is contiguous). This is the cheap path for
     brightness models: ``v_body = B^T Rz(-phi_mean) Q^T v``. ``method`` and
     ``invalid`` as in :func:`attitude_matrices` (NaN along the state axis).
     """
@@ -990,7 +991,10 @@ def ecliptic_to_body(
     lead = np.broadcast_shapes(v.shape[:-2], (k,))
     phi_mean, b = _attitude_parts(batch, method)
     q = batch.q_ecl  # (K, 3, 3)
-    out = np.empty(lead + (npt, 3))
+    # Component-first storage (contiguous rows for the arithmetic and for
+    # consumers that go component-first, like the brightness kernels); the
+    # returned array is a (..., n, 3) view of it.
+    buf = np.empty((3,) + lead + (npt,))
     vlead = v.shape[:-2]
     shared = len(vlead) == 0 or vlead[-1] == 1
     if shared:
@@ -1000,7 +1004,7 @@ def ecliptic_to_body(
         n_sets = sets.shape[0]
         vt = np.ascontiguousarray(np.moveaxis(sets, 2, 0).reshape(3, n_sets * npt))
         lfr = np.matmul(np.swapaxes(q, 1, 2), vt).reshape(k, 3, n_sets, npt)
-        out_sets = out.reshape((n_sets, k, npt, 3))
+        buf_sets = buf.reshape((3, n_sets, k, npt))
     else:
         v = np.broadcast_to(v, lead + (npt, 3))
     for ks, ps in _blocks(k, npt):
@@ -1008,7 +1012,7 @@ def ecliptic_to_body(
         sph = np.sin(phi_mean[ks, ps])
         bb = b[ks, :, :, ps]  # (kb, 3, 3, p)
         if shared:
-            parts = [(lfr[ks, 0, si, ps], lfr[ks, 1, si, ps], lfr[ks, 2, si, ps], out_sets[si, ks, ps]) for si in range(n_sets)]
+            parts = [(lfr[ks, 0, si, ps], lfr[ks, 1, si, ps], lfr[ks, 2, si, ps], buf_sets[:, si, ks, ps]) for si in range(n_sets)]
         else:
             qb = q[ks]
             vv = v[..., ks, ps, :]
@@ -1017,22 +1021,22 @@ def ecliptic_to_body(
             l0 = qb[:, 0, 0, None] * v0 + qb[:, 1, 0, None] * v1 + qb[:, 2, 0, None] * v2
             l1 = qb[:, 0, 1, None] * v0 + qb[:, 1, 1, None] * v1 + qb[:, 2, 1, None] * v2
             x3 = qb[:, 0, 2, None] * v0 + qb[:, 1, 2, None] * v1 + qb[:, 2, 2, None] * v2
-            parts = [(l0, l1, x3, out[..., ks, ps, :])]
+            parts = [(l0, l1, x3, buf[..., ks, ps])]
         for l0, l1, x3, dst in parts:
             # Rotate by -phi_mean about the L axis, then apply B^T.
             x1 = cph * l0
             x1 += sph * l1
             x2 = cph * l1
             x2 -= sph * l0
-            acc = np.empty(x1.shape)
             tmp = np.empty(x1.shape)
             for j in range(3):
+                acc = dst[j]
                 np.multiply(bb[:, 0, j], x1, out=acc)
                 np.multiply(bb[:, 1, j], x2, out=tmp)
                 acc += tmp
                 np.multiply(bb[:, 2, j], x3, out=tmp)
                 acc += tmp
-                dst[..., j] = acc
+    out = np.moveaxis(buf, 0, -1)
     if np.any(batch.invalid):
         out[..., batch.invalid, :, :] = np.nan
     return out
