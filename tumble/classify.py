@@ -1061,15 +1061,24 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
             if not fit.converged:
                 cap = "tentative"
             if fit.candidate:
+                # periods from the physical fit (posterior median and 68 % interval when sampled); the
+                # truncated two-period Fourier series locates the lattice but can bias f2 by a few per cent.
+                # Without samples the interval is the Fourier frequency error propagated through the mapping.
                 _, fpsi, fphi, (ap, bp), (af, bf) = fit.candidate
                 s1 = evidence.f1_npa_sigma_per_d if np.isfinite(evidence.f1_npa_sigma_per_d) else 0.0
                 s2 = evidence.f2_sigma_per_d if np.isfinite(evidence.f2_sigma_per_d) else 0.0
-                spsi = math.hypot(ap * s1, bp * s2)
-                sphi = math.hypot(af * s1, bf * s2)
-                ppsi, eppsi = _period_from_frequency(fpsi, spsi)
-                pphi, epphi = _period_from_frequency(fphi, sphi)
-                v.update(p_psi_h=ppsi, p_psi_h_lo=ppsi - eppsi, p_psi_h_hi=ppsi + eppsi,
-                         p_phi_h=pphi, p_phi_h_lo=pphi - epphi, p_phi_h_hi=pphi + epphi)
+                if fit.posterior is not None:
+                    ppsi, ppsi_lo, ppsi_hi = (fit.derived["p_psi_h"][0], fit.derived["p_psi_h"][1],
+                                              fit.derived["p_psi_h"][2])
+                    pphi, pphi_lo, pphi_hi = (fit.derived["p_phi_h"][0], fit.derived["p_phi_h"][1],
+                                              fit.derived["p_phi_h"][2])
+                else:
+                    ppsi, pphi = fit.derived["p_psi_h"][0], fit.derived["p_phi_h"][0]
+                    eppsi = 24.0 * math.hypot(ap * s1, bp * s2) / (24.0 / ppsi) ** 2
+                    epphi = 24.0 * math.hypot(af * s1, bf * s2) / (24.0 / pphi) ** 2
+                    ppsi_lo, ppsi_hi, pphi_lo, pphi_hi = ppsi - eppsi, ppsi + eppsi, pphi - epphi, pphi + epphi
+                v.update(p_psi_h=ppsi, p_psi_h_lo=ppsi_lo, p_psi_h_hi=ppsi_hi,
+                         p_phi_h=pphi, p_phi_h_lo=pphi_lo, p_phi_h_hi=pphi_hi)
                 longest = max(longest, ppsi, pphi)
             ex = fit.derived["excitation"]
             v.update(excitation=ex[0], excitation_lo=ex[1], excitation_hi=ex[2])
