@@ -217,6 +217,7 @@ def test_near_symmetric_limits_are_continuous():
 
 @pytest.mark.parametrize("n, m", [(-3.0, 0.375), (-1 / 3, 1 / 6), (-17.0, 0.9), (0.0, 0.5), (-0.5, 0.0)])
 def test_carlson_pi_against_quadrature(n, m):
+    # scipy.integrate.quad of the defining integral (DLMF 19.2.7) as the reference.
     def integrand(t):
         return 1.0 / ((1 - n * math.sin(t) ** 2) * math.sqrt(1 - m * math.sin(t) ** 2))
 
@@ -295,6 +296,7 @@ def test_reference_detects_a_wrong_attitude():
 
 
 def test_fourier_route_matches_library_route(rng):
+    # scipy ellipj / elliprf / elliprj at every point (the direct route) as the reference.
     k = 40
     states = [_random_state(rng, "SAM" if i % 2 else "LAM", margin=1e-4) for i in range(k)]
     states.append(RotationState.principal_axis(5.0, 30, 40, 10, EPOCH))
@@ -407,7 +409,13 @@ def test_psi_sense():
         e = np.einsum("ji,njk,lk->nil", q, rl, perm)
         psi = np.unwrap(np.arctan2(e[:, 2, 0], e[:, 2, 1]))
         assert np.all(np.sign(np.diff(psi)) == sign)
-        assert abs(psi[-1] - psi[0]) == pytest.approx(2 * math.pi * (t[-1] - t[0]) * 24 / 10.0, rel=2e-2)
+        # One full circulation of psi per P_psi (t spans P_psi; a JD near 2.46e6 d
+        # carries ~5e-10 d of rounding, 1e-9 of this span).
+        assert abs(psi[-1] - psi[0]) == pytest.approx(2 * math.pi, rel=1e-8)
+        # theta (cos theta = e_zz) has period P_psi / 2.
+        e_half = np.einsum("ji,njk,lk->nil", q, state.attitude(t + 5.0 / 24), perm)
+        assert np.max(np.abs(e_half[:, 2, 2] - e[:, 2, 2])) < 1e-12
+        assert np.ptp(e[:, 2, 2]) > 1e-3
 
 
 def test_principal_axis_rotation():
@@ -428,6 +436,7 @@ def test_principal_axis_rotation():
 
 
 def test_batch_kernel_matches_single_states(rng):
+    # Internal consistency: a batch equals its states evaluated one by one.
     states = [_random_state(rng, "SAM"), _random_state(rng, "LAM"), RotationState.principal_axis(3.0, 10, 20)]
     t = EPOCH + np.linspace(-3, 3, 50)
     args = [np.array(v) for v in zip(*(s.kernel_arguments() for s in states))]
@@ -590,6 +599,7 @@ def test_vectorised_inverse_mapping(rng):
 
 
 def test_from_periods_roundtrip(rng):
+    # Internal consistency: periods -> I_d (Brent root) -> periods.
     for mode in ("SAM", "LAM", "SAM", "LAM"):
         s = _random_state(rng, mode)
         back = RotationState.from_periods(s.i1_i3, s.i2_i3, s.p_psi_h, s.p_phi_h, mode)
@@ -599,6 +609,7 @@ def test_from_periods_roundtrip(rng):
 
 
 def test_lightcurve_frequencies_per_mode():
+    # Combinations of Pravec et al. (2005): PA f, 2f; LAM f_phi, 2 f_phi, f_phi + f_psi, ...
     pa = RotationState.principal_axis(4.0, 0, 90)
     f = pa.lightcurve_frequencies()
     assert f.dominant_per_h == pytest.approx((0.25, 0.5))
@@ -614,6 +625,7 @@ def test_lightcurve_frequencies_per_mode():
 
 
 def test_separatrix_is_refused():
+    # The closed form degenerates at I_d = I2 (m -> 1, K -> infinity; Landau & Lifshitz section 37).
     with pytest.raises(SeparatrixError):
         RotationState.excited(0.5, 0.8, 0.8 + 5e-7, 5.0, 0, 0)
     with pytest.raises(SeparatrixError):
@@ -651,6 +663,7 @@ def test_invalid_states_can_be_masked_per_state():
     ],
 )
 def test_invalid_states(kwargs):
+    # Physical limits: I1 <= I2 <= I3, I1 + I2 >= I3, I1 < I_d <= I3 (common practice).
     with pytest.raises(RotationStateError):
         RotationState.excited(**kwargs, p_psi_h=5.0, l_lon_deg=0, l_lat_deg=0)
 
