@@ -103,7 +103,7 @@ def test_multimodal_period_posterior_is_not_confident(pa_evidence):
 
 def test_unconverged_state_posterior_caps_the_grade(pa_evidence):
     lc, ev = pa_evidence
-    npa = replace(ev, ln_bayes_factor=40.0, f1_npa_per_d=6.6, f2_per_d=0.6, f1_npa_sigma_per_d=1e-4,
+    npa = replace(ev, ln_bayes_factor=40.0, f1_npa_per_d=6.6, f2_per_d=1.6, f1_npa_sigma_per_d=1e-4,
                   f2_sigma_per_d=1e-4, npa_window_mass=1.0, window_disagreement=False)
     derived = {k: (1.0, 0.9, 1.1) for k in ("excitation", "a_over_b", "b_over_c", "l_lon_deg", "l_lat_deg")}
     derived.update(p_psi_h=(30.0, 29.9, 30.1), p_phi_h=(24 / 7.2, 3.3, 3.4))
