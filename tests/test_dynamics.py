@@ -412,9 +412,9 @@ def test_psi_sense():
         # One full circulation of psi per P_psi (t spans P_psi; a JD near 2.46e6 d
         # carries ~5e-10 d of rounding, 1e-9 of this span).
         assert abs(psi[-1] - psi[0]) == pytest.approx(2 * math.pi, rel=1e-8)
-        # theta (cos theta = e_zz) has period P_psi / 2.
+        # theta (cos theta = e_zz) has period P_psi / 2 (same JD rounding allowance).
         e_half = np.einsum("ji,njk,lk->nil", q, state.attitude(t + 5.0 / 24), perm)
-        assert np.max(np.abs(e_half[:, 2, 2] - e[:, 2, 2])) < 1e-12
+        assert np.max(np.abs(e_half[:, 2, 2] - e[:, 2, 2])) < 1e-8
         assert np.ptp(e[:, 2, 2]) > 1e-3
 
 
