@@ -312,6 +312,33 @@ def _times_strength(rows, base, phase):
     return base[None, :] * phase
 
 
+def _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq):
+    """Fill S+(a,b) = T(nu_a + nu_b)/2 and S-(a,b) = T(nu_a - nu_b)/2 from distinct sums T(J f1 + K f)."""
+    need = {}
+    for a, b in ab:
+        for sign in (+1, -1):
+            jj, kk = int(jm[a] + sign * jm[b]), int(km[a] + sign * km[b])
+            key = (jj, kk) if (kk > 0 or (kk == 0 and jj >= 0)) else (-jj, -kk)
+            need[key] = None
+    by_k: dict = {}
+    for jj, kk in need:
+        by_k.setdefault(kk, []).append(jj)
+    for kk, js in by_k.items():
+        strengths = np.stack([_times_strength(rows, 0.5 * w, ph.get(jj)) for jj in js])
+        flat = strengths.reshape(len(js) * rows, t.size)
+        out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1) if kk == 0 else engine(kk * t, flat)
+        out = out.reshape(len(js), rows, n_freq)
+        for r, jj in enumerate(js):
+            need[(jj, kk)] = out[r]
+    for a, b in ab:
+        for sign, target in ((+1, s_plus), (-1, s_minus)):
+            jj, kk = int(jm[a] + sign * jm[b]), int(km[a] + sign * km[b])
+            if kk > 0 or (kk == 0 and jj >= 0):
+                target[(a, b)] = need[(jj, kk)]
+            else:
+                target[(a, b)] = np.conj(need[(-jj, -kk)])
+
+
 def _real_transforms(engine, jobs, target, rows, n_freq):
     """Transforms whose results are known to be real, two per complex transform.
 
@@ -402,38 +429,43 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
     by_mult: dict = {}
     for a, b in ab:
         by_mult.setdefault((int(km[a]), int(km[b])), []).append((a, b))
-    real_jobs = []  # diagonal "minus" sums are real: pack two per complex transform
-    for (ka, kb), combos in by_mult.items():
-        for sign in (+1, -1):
-            tau_direct = (ka + sign * kb) * t
-            tau_pairs = ka * t[pi] + sign * kb * t[pj]
-            tau = np.concatenate([tau_direct, tau_pairs])
-            strengths = np.empty((len(combos), rows, tau.size), dtype=complex)
-            for r, (a, b) in enumerate(combos):
-                strengths[r, :, : t.size] = _times_strength(rows, 0.5 * w, ph.get(int(jm[a] + sign * jm[b])))
-                if pi.size:
-                    pa, pb = ph.get(int(jm[a]), pi), ph.get(int(sign * jm[b]), pj)
-                    phase = pa if pb is None else (pb if pa is None else pa * pb)
-                    strengths[r, :, t.size:] = _times_strength(rows, -0.5 * pk, phase)
-            target = s_plus if sign > 0 else s_minus
-            if sign < 0:
-                diag = [r for r, (a, b) in enumerate(combos) if a == b]
-                for r in diag:
-                    real_jobs.append((tau, strengths[r], combos[r]))
-                keep = [r for r in range(len(combos)) if r not in diag]
-            else:
-                keep = list(range(len(combos)))
-            if not keep:
-                continue
-            flat = strengths[keep].reshape(len(keep) * rows, tau.size)
-            if not np.any(tau):
-                out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1)
-            else:
-                out = engine(tau, flat)
-            out = out.reshape(len(keep), rows, n_freq)
-            for r, q in enumerate(keep):
-                target[combos[q]] = out[r]
-    _real_transforms(engine, real_jobs, s_minus, rows, n_freq)
+    if pi.size == 0:
+        # no pair sums: S+-(a, b) = T(nu_a +- nu_b) / 2 depends only on (j_a +- j_b, k_a +- k_b);
+        # compute each distinct sum once (T(-nu) = conj T(nu)), batched by the multiplier of f
+        _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq)
+    else:
+        real_jobs = []  # diagonal "minus" sums are real: pack two per complex transform
+        for (ka, kb), combos in by_mult.items():
+            for sign in (+1, -1):
+                tau_direct = (ka + sign * kb) * t
+                tau_pairs = ka * t[pi] + sign * kb * t[pj]
+                tau = np.concatenate([tau_direct, tau_pairs])
+                strengths = np.empty((len(combos), rows, tau.size), dtype=complex)
+                for r, (a, b) in enumerate(combos):
+                    strengths[r, :, : t.size] = _times_strength(rows, 0.5 * w, ph.get(int(jm[a] + sign * jm[b])))
+                    if pi.size:
+                        pa, pb = ph.get(int(jm[a]), pi), ph.get(int(sign * jm[b]), pj)
+                        phase = pa if pb is None else (pb if pa is None else pa * pb)
+                        strengths[r, :, t.size:] = _times_strength(rows, -0.5 * pk, phase)
+                target = s_plus if sign > 0 else s_minus
+                if sign < 0:
+                    diag = [r for r, (a, b) in enumerate(combos) if a == b]
+                    for r in diag:
+                        real_jobs.append((tau, strengths[r], combos[r]))
+                    keep = [r for r in range(len(combos)) if r not in diag]
+                else:
+                    keep = list(range(len(combos)))
+                if not keep:
+                    continue
+                flat = strengths[keep].reshape(len(keep) * rows, tau.size)
+                if not np.any(tau):
+                    out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1)
+                else:
+                    out = engine(tau, flat)
+                out = out.reshape(len(keep), rows, n_freq)
+                for r, q in enumerate(keep):
+                    target[combos[q]] = out[r]
+        _real_transforms(engine, real_jobs, s_minus, rows, n_freq)
     if explicit:
         idx = np.concatenate([g.index for g in explicit])
         ncol = sum(g.v.shape[1] for g in explicit)

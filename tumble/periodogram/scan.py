@@ -54,8 +54,11 @@ WALD_ALPHA = 1e-3
 CHUNK = 1 << 17
 #: Largest automatic grid accepted.
 MAX_GRID = 20_000_000
-#: A frequency is recomputed exactly (QR) when EXACT_COND_FACTOR * (chi2_0/chi2) / sqrt(pivot) > 1.
-EXACT_COND_FACTOR = 1.0 / 50.0
+#: A frequency is recomputed exactly (QR) when
+#: EXACT_COND_FACTOR * (chi2_0 / n) * (chi2_0 / chi2(f)) / pivot > 1: the error of the
+#: normal-equation chi-square measured against the lstsq reference is ~4e-13 times that
+#: product (signal-to-noise squared over the inverse condition), so this keeps it near 1e-9.
+EXACT_COND_FACTOR = 3e-4
 
 
 # ---------------------------------------------------------------------------
@@ -450,7 +453,7 @@ def _scan_chi2(data: ScanData, order: int, freqs: np.ndarray, *, method: str = "
         c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine)
         c, piv = c[0], piv[0]
         with np.errstate(divide="ignore", invalid="ignore"):
-            risk = EXACT_COND_FACTOR * engine.risk_scale * (chi2_0 / c) / np.sqrt(piv)
+            risk = EXACT_COND_FACTOR * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
         flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
         if np.any(flag):
             idx = np.flatnonzero(flag)

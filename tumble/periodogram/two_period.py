@@ -37,7 +37,7 @@ from tumble.periodogram.scan import (
 
 #: Ill-conditioning test of the 2-D map (cf. scan.EXACT_COND_FACTOR): the map is kept to ~1e-8
 #: relative accuracy, the refined best pair is always exact (least squares).
-MAP_COND_FACTOR = 1.0 / 1500.0
+MAP_COND_FACTOR = 1e-5
 
 __all__ = ["TwoPeriodResult", "two_period_scan", "commensurate_mask", "two_period_basis", "two_period_chi2",
            "two_period_chi2_reference"]
@@ -242,7 +242,7 @@ def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="
         c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine, f1=fb,
                                    paired=paired, explicit=explicit)
         with np.errstate(divide="ignore", invalid="ignore"):
-            risk = MAP_COND_FACTOR * engine.risk_scale * (chi2_0 / c) / np.sqrt(piv)
+            risk = MAP_COND_FACTOR * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
         flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
         for r in np.flatnonzero(np.any(flag, axis=1)):
             idx = np.flatnonzero(flag[r])
