@@ -424,6 +424,12 @@ def test_two_period_not_needed_for_principal_axis_rotator(rng):
     res = two_period_scan(lc, order=2, sessions=False, min_period_h=2.0, max_period_h=60.0)
     assert res.delta_bic < 0
     assert res.f_test_p_value > 1e-3
+    # the same in the full-grid mode
+    grid = two_period_scan(lc, order=2, sessions=False, p1_grid=np.linspace(8.6, 9.6, 15),
+                           p2_grid=np.linspace(2.0, 40.0, 150))
+    assert grid.mode == "grid" and grid.delta_chi2_map.shape == (15, 150)
+    assert np.nanmin(grid.delta_chi2_map) == 0.0
+    assert grid.delta_bic < 0
 
 
 # ---------------------------------------------------------------------------

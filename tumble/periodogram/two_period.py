@@ -30,6 +30,7 @@ from tumble.periodogram.scan import (
     OVERSAMPLE,
     ScanResult,
     _check_order,
+    _scan_chi2,
     default_period_range_h,
     fourier_scan,
     frequency_grid,
@@ -332,7 +333,8 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
         Order of the 1-D comparison model, whose f1 harmonics are also kept in
         the 2-D model (so that the models are nested and the f2 terms are not
         credited with higher harmonics of f1). None: chosen by BIC between 1 and
-        ``max(4, 2 m)`` at P1 ('refine' mode), ``m`` in 'grid' mode.
+        ``max(4, 2 m)`` at P1 ('refine' mode; in 'grid' mode at the P1 of the grid
+        with the best 1-D fit).
     min_period_h, max_period_h : float or None
         Period range of the automatic grids, hours.
     sessions, phase_term, oversample, method : see :func:`fourier_scan`.
@@ -374,10 +376,15 @@ def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, ma
     try:
         if p1_grid is not None:
             mode = "grid"
-            m1 = int(order_1d or order)
+            f1_grid = np.sort(HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_grid, float)))
+            if order_1d:
+                m1 = int(order_1d)
+            else:
+                # the 1-D comparison order by BIC at the best 1-D P1 of the grid
+                c1, _, _ = _scan_chi2(data, order, f1_grid, method=method)
+                m1 = _choose_order_1d(data, float(f1_grid[int(np.nanargmin(c1))]), order, max(4, 2 * order))
             basis = two_period_basis(order, m1)
             _check_size(data, basis, order)
-            f1_grid = np.sort(HOURS_PER_DAY / np.atleast_1d(np.asarray(p1_grid, float)))
             chi2_map = _map_chi2(data, basis, f1_grid, f2, method=method, progress=cb)
             chi2_map[commensurate_mask(order, f1_grid, f2, span)] = np.nan
             if not np.any(np.isfinite(chi2_map)):
