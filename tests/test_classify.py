@@ -183,7 +183,7 @@ def test_clear_sam_recovers_mode_and_periods(rng):
 
 @pytest.mark.slow
 def test_clear_lam_recovers_mode_and_periods(rng):
-    st, lc = _npa_lc(rng, "LAM", 20.0, 12.0, n_nights=10, cadence=10.0)
+    st, lc = _npa_lc(rng, "LAM", 20.0, 13.1, n_nights=10, cadence=10.0)
     v, ev, fit = classify(lc, rng=2, max_steps=0)
     assert v.rotation == "NPA" and v.mode == "LAM"
     assert v.p_psi_h == pytest.approx(st.p_psi_h, rel=0.02)

@@ -87,8 +87,8 @@ DEFAULT_PRIOR_NPA = 0.1
 MIN_CYCLES = 1.5
 #: Grade names for Kass & Raftery (1995) levels 0..3 of 2|ln B| (our own words).
 GRADE_NAMES = ("none", "tentative", "sound", "firm")
-#: The PA family: (harmonics, drift) pairs, equal prior weight.
-PA_VARIANTS = tuple(FourierVariant(h, d) for h in (1, 2, 4, 6) for d in (False, True))
+#: The PA family: (harmonics, drift degree) pairs, equal prior weight.
+PA_VARIANTS = tuple(FourierVariant(h, d) for h in (1, 2, 4, 6) for d in (0, 1, 3))
 #: Orders m of the two-dimensional combination terms in the NPA family.
 NPA_COMBO_ORDERS = (1, 2, 3)
 #: The NPA family: each PA base with at most this many harmonics, plus each combination order.
@@ -296,6 +296,28 @@ def _log_uniform_logpdf(f, lo, hi):
     return -np.log(f) - np.log(np.log(np.asarray(hi, float) / lo))
 
 
+#: Second frequencies within this many 1/span of p/q f1 (q <= 4) are excluded from the NPA prior
+#: (the period ratio is not resolved by the data, and slow geometry changes shift odd and even
+#: harmonics of a PA rotator by about that much).
+COMMENSURATE_WIDTH = 1.0
+
+
+def _commensurate_penalty(f1, f2, span):
+    """0, or -inf where f2 is commensurate with f1 (f2 = p/q f1, q <= 4) within COMMENSURATE_WIDTH/span.
+
+    A two-period series whose periods are in a small-integer ratio is a one-period series
+    of the common period: it is not two-periodic and must not count as NPA evidence
+    (it would stand in for a PA model at a sub-harmonic).
+    """
+    f1 = np.asarray(f1, float)
+    f2 = np.asarray(f2, float)
+    bad = np.zeros(np.broadcast(f1, f2).shape, bool)
+    for q in (2, 3, 4):
+        for p in range(1, q):
+            bad |= np.abs(f2 - f1 * p / q) < COMMENSURATE_WIDTH / span
+    return np.where(bad, -np.inf, 0.0)
+
+
 def _frequency_limits(lc, p_min_h, p_max_h):
     span = lc.span_d
     f_lo = max(MIN_CYCLES / span, 24.0 / p_max_h)
@@ -372,12 +394,11 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     # NPA windows: scan f2 at each window's best f1
     f2_lo = MIN_CYCLES / span
     npa_results = {}
-    for i in keep:
-        f1c = pa_windows[i].best
+
+    def npa_window(f1c):
         f2_hi = 0.5 * f1c
         if not f2_hi > f2_lo * 1.01:
-            npa_results[i] = dict(ln=-np.inf, ln_alt=-np.inf, f1=f1c, f2=np.nan, s1=np.nan, s2=np.nan, mass=1.0)
-            continue
+            return dict(ln=-np.inf, ln_alt=-np.inf, f1=f1c, f2=np.nan, s1=np.nan, s2=np.nan, mass=1.0), 0
         step2 = 1.0 / (oversample * span * max(NPA_COMBO_ORDERS))
         n2 = int((f2_hi - f2_lo) / step2) + 1
         if n2 > max_coarse // 4:
@@ -388,15 +409,16 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
 
         def f2_fun(f2, f1=f1c, hi=f2_hi):
             return (_mixture(linear_log_evidence(data, npa_basis, np.full(len(f2), f1), f2))
-                    + _log_uniform_logpdf(f2, f2_lo, hi))
+                    + _log_uniform_logpdf(f2, f2_lo, hi) + _commensurate_penalty(f1, f2, span))
 
         # peak finding with one light two-period variant on the full grid, the mixture on a
         # three-times thinner grid for the continuum, and the mixture in the peak windows
         lz1 = linear_log_evidence(data, pa_basis, [f1c])[0]
         base = pa_basis.variants[int(np.argmax(lz1))]
         light = FourierBasis.build([FourierVariant(min(base.n_harmonics, NPA_MAX_BASE_HARMONICS), base.drift, 2)])
-        v_light = linear_log_evidence(data, light, np.full(len(grid2), f1c), grid2)[:, 0]
-        n_eval += len(grid2)
+        v_light = (linear_log_evidence(data, light, np.full(len(grid2), f1c), grid2)[:, 0]
+                   + _commensurate_penalty(f1c, grid2, span))
+        n_eval = len(grid2)
         pk2 = _peak_indices(v_light, 2, 3)
         f2_windows = [_integrate_peak(f2_fun, grid2[j], 2 * step2, f2_lo, f2_hi) for j in pk2]
         n_eval += sum(w.n_evaluations for w in f2_windows)
@@ -420,7 +442,8 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         def f1_fun(f1, f2=f2b):
             hi = 0.5 * f1
             val = _mixture(linear_log_evidence(data, npa_basis, f1, np.full(len(f1), f2)))
-            return val + _log_uniform_logpdf(f1, f_lo, f_hi) + _log_uniform_logpdf(f2, f2_lo, hi)
+            return (val + _log_uniform_logpdf(f1, f_lo, f_hi) + _log_uniform_logpdf(f2, f2_lo, hi)
+                    + _commensurate_penalty(f1, f2, span))
 
         pk1 = _integrate_peak(f1_fun, f1c, 2 * step, f_lo, f_hi)
         n_eval += pk1.n_evaluations
@@ -429,7 +452,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
 
         def f2_fun_n(f2, f1=f1n):
             return (_mixture(linear_log_evidence(data, npa_basis, np.full(len(f2), f1), f2))
-                    + _log_uniform_logpdf(f2, f2_lo, 0.5 * f1))
+                    + _log_uniform_logpdf(f2, f2_lo, 0.5 * f1) + _commensurate_penalty(f1, f2, span))
 
         w2n = _integrate_peak(f2_fun_n, f2b, 2 * step2, f2_lo, min(0.5 * f1n, f2_hi))
         n_eval += w2n.n_evaluations
@@ -439,8 +462,33 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         rest = [p for k, p in enumerate(ln_f2_parts) if k != jbest]
         ln_npa_alt = pk1.ln_integral_alt + _logsumexp([w2n.ln_integral_alt] + rest) - w2n.best_value
         mass = float(np.exp(w2n.ln_integral - ln_f2_n)) if np.isfinite(ln_f2_n) else 1.0
-        npa_results[i] = dict(ln=ln_npa, ln_alt=ln_npa_alt, f1=f1n, f2=w2n.best, s1=pk1.sigma, s2=w2n.sigma,
-                              mass=mass)
+        return dict(ln=ln_npa, ln_alt=ln_npa_alt, f1=f1n, f2=w2n.best, s1=pk1.sigma, s2=w2n.sigma,
+                    mass=mass), n_eval
+
+    for i in keep:
+        npa_results[i], k = npa_window(pa_windows[i].best)
+        n_eval += k
+    # coordinate ascent: with the best second frequency fixed, scan f1 over its whole range with a light
+    # two-period basis; a better f1 outside the windows (a lattice vector the one-period scan missed)
+    # becomes a new window of both families
+    ibest = max(keep, key=lambda i: npa_results[i]["ln"])
+    f2b = npa_results[ibest]["f2"]
+    if np.isfinite(f2b) and len(grid) <= 40_000:
+        light = FourierBasis.build([FourierVariant(2, True, 2)])
+        g1 = grid[grid >= 2.0 * f2b]
+        if len(g1) > 3:
+            v1 = linear_log_evidence(data, light, g1, np.full(len(g1), f2b))[:, 0]
+            n_eval += len(g1)
+            for j in _peak_indices(v1, 2, 3):
+                fc = g1[j]
+                if all(abs(fc - pa_windows[i].best) > 3 * step for i in keep):
+                    pk = _integrate_peak(pa_fun, fc, 2 * step, f_lo, f_hi)
+                    n_eval += pk.n_evaluations
+                    pa_windows.append(pk)
+                    idx = len(pa_windows) - 1
+                    npa_results[idx], k = npa_window(pk.best)
+                    n_eval += k
+                    keep.append(idx)
 
     ln_pa_k = np.array([pa_windows[i].ln_integral for i in keep])
     ln_npa_k = np.array([npa_results[i]["ln"] for i in keep])
@@ -474,7 +522,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     cols = pa_basis.columns[vpa]
     coef = fit_pa.coefficients
     # coefficient layout of the variant: per harmonic cos, sin (+ drift cos, sin)
-    per = 4 if pa_basis.variants[vpa].drift else 2
+    per = 2 * (1 + pa_basis.variants[vpa].drift)
     p1 = float(np.sum(coef[0:2] ** 2))
     p2 = float(np.sum(coef[per:per + 2] ** 2)) if len(coef) >= per + 2 else 0.0
     amp = float(np.ptp(fit_pa.fourier_mag))
@@ -801,8 +849,23 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
             if not lst:
                 continue
             lst.sort(key=lambda e: -e[0])
+            # short refinement of the best start of each of the 6 most promising mappings, then a
+            # full one of the best 2 (different mappings have different basins)
+            firsts, seen_c = [], set()
+            for v0, x0, cand in lst:
+                key = (round(cand[1], 9), round(cand[2], 9))
+                if key not in seen_c:
+                    seen_c.add(key)
+                    firsts.append((x0, cand))
+                if len(firsts) >= 6:
+                    break
+            short = []
+            for x0, cand in firsts:
+                x, v = _optimise(models[mode], x0, n_iter=12)
+                short.append((v, x, cand))
+            short.sort(key=lambda e: -e[0])
             best_x, best_ll, best_c = None, -np.inf, ()
-            for v0, x0, cand in lst[:4]:
+            for v0, x0, cand in short[:2]:
                 x, v = _optimise(models[mode], x0)
                 if v > best_ll:
                     best_x, best_ll, best_c = x, v, cand

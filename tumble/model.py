@@ -10,7 +10,9 @@ Two families live here (the decision logic is in :mod:`tumble.classify`):
    (Kaasalainen 2001, A&A 376, 302). So
 
    - ``PA(H, d)``: harmonics ``j = 1..H`` of ``f1``; with ``d = 1`` every
-     coefficient may drift linearly in time across the data span;
+     coefficient may drift across the data span as a polynomial of degree
+     ``d`` in time (Legendre polynomials of the scaled time), to absorb the
+     slow change of viewing and illumination geometry over a long campaign;
    - ``NPA(H, d, m)``: ``PA(H, d)`` plus the combination terms
      ``j f1 + k f2`` with ``k = 1..m`` and ``j = -m..-1, 1..m`` of the
      two-dimensional Fourier series of Pravec et al. (2005, Icarus 173, 108).
@@ -160,7 +162,10 @@ def nuisance_design(lc, *, phase_slope: bool | None = None) -> tuple[np.ndarray,
     - with ``phase_slope`` (default: automatic), a linear phase-angle term
       (mag/deg, centred) per band for sparse points spanning at least
       :data:`PHASE_SLOPE_MIN_RANGE_DEG`, the linear part of the magnitude-phase
-      relation (Bowell et al. 1989, Asteroids II, 524).
+      relation (Bowell et al. 1989, Asteroids II, 524), and a curvature term
+      (the part of ``-2.5 log10 Phi1(alpha)`` of the H,G system not linear in
+      alpha), so that the non-linear phase curve of wide phase ranges is not
+      left to the rotation models.
 
     Returns
     -------
@@ -184,6 +189,18 @@ def nuisance_design(lc, *, phase_slope: bool | None = None) -> tuple[np.ndarray,
                 c[m] = ph - ph.mean()
                 cols.append(c)
                 names.append(f"phase:band={b}")
+                # curvature of the phase curve: the magnitude of the H,G basis function Phi1
+                # (Bowell et al. 1989); with the slope it spans the usual non-linear phase curves
+                from tumble.phase_function import hg_basis
+
+                c2 = np.zeros(n)
+                g1 = -2.5 * np.log10(hg_basis(ph)[0])
+                g1 = g1 - g1.mean()
+                resid = g1 - np.polyval(np.polyfit(ph - ph.mean(), g1, 1), ph - ph.mean())
+                if np.ptp(resid) > 1e-3:
+                    c2[m] = resid
+                    cols.append(c2)
+                    names.append(f"phase-curvature:band={b}")
     if not cols:
         raise ModelError(f"{lc.object_id}: no points to model")
     return np.stack(cols, axis=1), tuple(names)
@@ -280,20 +297,25 @@ class FourierVariant:
     ----------
     n_harmonics : int
         Harmonics ``j = 1..H`` of ``f1``.
-    drift : bool
-        Coefficients of the ``f1`` harmonics drift linearly in time.
+    drift : int
+        Degree of the polynomial drift (in the scaled time ``tau``, Legendre
+        polynomials ``P_1..P_d``) of every ``f1`` harmonic coefficient; 0 = none.
+        ``True``/``False`` mean 1/0.
     combo_order : int
         ``m`` of the two-dimensional series (``0`` for PA): terms ``j f1 + k f2``,
         ``k = 1..m``, ``0 < |j| <= m``.
     """
 
     n_harmonics: int
-    drift: bool
+    drift: int
     combo_order: int = 0
+
+    def __post_init__(self):
+        object.__setattr__(self, "drift", int(self.drift))
 
     @property
     def label(self) -> str:
-        base = f"H={self.n_harmonics}{'+drift' if self.drift else ''}"
+        base = f"H={self.n_harmonics}{f'+drift{self.drift}' if self.drift else ''}"
         return base if self.combo_order == 0 else f"{base}, 2-D order {self.combo_order}"
 
 
@@ -303,13 +325,14 @@ class FourierBasis:
 
     Columns (all of unit-free trigonometric functions, coefficients in mag):
     for ``j = 1..H_max``: ``cos, sin`` of ``2 pi j f1 t``, then (if any variant
-    drifts) ``tau cos, tau sin``; then the combination terms ordered by
+    drifts) ``P_d(tau) cos, P_d(tau) sin`` for ``d = 1..max drift``; then the combination terms ordered by
     ``r = max(|j|, k)`` so that a combination order ``m`` selects a prefix.
 
     Attributes
     ----------
     max_harmonics : int
-    drift : bool
+    drift : int
+        Largest drift degree of the variants.
     max_combo : int
     variants : tuple of FourierVariant
     combos : numpy.ndarray of int, shape (n_combo, 2)
@@ -321,7 +344,7 @@ class FourierBasis:
     """
 
     max_harmonics: int
-    drift: bool
+    drift: int
     max_combo: int
     variants: tuple
     combos: np.ndarray
@@ -332,7 +355,7 @@ class FourierBasis:
     def build(cls, variants, sigma_mag: float = COEFFICIENT_SIGMA_MAG) -> "FourierBasis":
         variants = tuple(variants)
         hmax = max(v.n_harmonics for v in variants)
-        drift = any(v.drift for v in variants)
+        drift = max(v.drift for v in variants)
         mmax = max(v.combo_order for v in variants)
         sig = []
         harm_cols = {}
@@ -342,8 +365,8 @@ class FourierBasis:
             sig += [sigma_mag / j] * 2
             col += 2
             didx = []
-            if drift:
-                didx = [col, col + 1]
+            for _d in range(drift):
+                didx.append([col, col + 1])
                 sig += [0.5 * sigma_mag / j] * 2
                 col += 2
             harm_cols[j] = (idx, didx)
@@ -361,8 +384,8 @@ class FourierBasis:
             idx = []
             for j in range(1, v.n_harmonics + 1):
                 idx += harm_cols[j][0]
-                if v.drift:
-                    idx += harm_cols[j][1]
+                for dcols in harm_cols[j][1][:v.drift]:
+                    idx += dcols
             n_c = sum(1 for j, k in combos if max(abs(j), k) <= v.combo_order)
             idx += list(range(combo_start, combo_start + 2 * n_c))
             columns.append(np.array(idx, dtype=np.intp))
@@ -391,15 +414,19 @@ class FourierBasis:
         col = 0
         c1, s1 = np.cos(ph1), np.sin(ph1)
         cj, sj = c1.copy(), s1.copy()
+        tau = data.tau
+        legendre = [tau, 1.5 * tau**2 - 0.5, 2.5 * tau**3 - 1.5 * tau][: self.drift]
+        if self.drift > 3:
+            raise ModelError("drift degree above 3 is not supported")
         for j in range(1, self.max_harmonics + 1):
             if j > 1:  # angle-addition recurrence for cos(j x), sin(j x)
                 cj, sj = cj * c1 - sj * s1, sj * c1 + cj * s1
             out[:, :, col] = cj
             out[:, :, col + 1] = sj
             col += 2
-            if self.drift:
-                out[:, :, col] = cj * data.tau
-                out[:, :, col + 1] = sj * data.tau
+            for poly in legendre:
+                out[:, :, col] = cj * poly
+                out[:, :, col + 1] = sj * poly
                 col += 2
         for j, k in self.combos:
             ph = 2 * np.pi * (j * f1 + k * f2)[:, None] * t[None, :]
