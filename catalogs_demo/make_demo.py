@@ -78,6 +78,16 @@ def _diameter_km(h_mag, albedo):
     return 1329.0 / math.sqrt(albedo) * 10 ** (-h_mag / 5)
 
 
+def _truth_row(name, sample, state, h_mag, albedo, n_nights):
+    pa = state.mode == "PA"
+    return dict(
+        object=name, sample=sample, rotation="PA" if pa else "NPA", mode="none" if pa else state.mode,
+        period_h=state.p_psi_h if pa else np.nan, p_psi_h=np.nan if pa else state.p_psi_h,
+        p_phi_h=np.nan if pa else state.p_phi_h, h_mag=h_mag, albedo=albedo,
+        diameter_km=_diameter_km(h_mag, albedo), n_nights=n_nights,
+    )
+
+
 def make_campaign(rng, truth_rows):
     out = HERE / "campaign"
     shutil.rmtree(out, ignore_errors=True)
@@ -107,14 +117,7 @@ def make_campaign(rng, truth_rows):
             write_simulation(sim, path, sidecar=False if fmt == "ecsv" else True)
             side = path.with_name(path.name + ".truth.json")
             side.unlink(missing_ok=True)  # the truth lives in truth.ecsv, not beside the data
-        truth_rows.append(dict(
-            object=name, sample="campaign", rotation="PA" if rotation == "PA" else "NPA",
-            mode="none" if rotation == "PA" else rotation,
-            period_h=state.p_psi_h if rotation == "PA" else np.nan,
-            p_psi_h=np.nan if rotation == "PA" else state.p_psi_h,
-            p_phi_h=np.nan if rotation == "PA" else state.p_phi_h,
-            h_mag=h_mag, albedo=albedo, diameter_km=_diameter_km(h_mag, albedo), n_nights=n_nights_total,
-        ))
+        truth_rows.append(_truth_row(name, "campaign", state, h_mag, albedo, n_nights_total))
     # two files broken on purpose
     bad = out / "KRN-011__lanternbay.ecsv"
     lines = bad.read_text().splitlines()
@@ -166,14 +169,7 @@ def make_sparse(rng, truth_rows, n_objects=240):
             "filter": np.asarray(lc.band), "rh": np.round(np.asarray(lc.r_au), 5),
             "delta": np.round(np.asarray(lc.delta_au), 5), "alpha": np.round(np.asarray(lc.phase_deg), 3),
         }))
-        truth_rows.append(dict(
-            object=name, sample="sparse", rotation="PA" if rotation == "PA" else "NPA",
-            mode="none" if rotation == "PA" else rotation,
-            period_h=state.p_psi_h if rotation == "PA" else np.nan,
-            p_psi_h=np.nan if rotation == "PA" else state.p_psi_h,
-            p_phi_h=np.nan if rotation == "PA" else state.p_phi_h,
-            h_mag=h_mag, albedo=albedo, diameter_km=_diameter_km(h_mag, albedo), n_nights=plan.n_nights,
-        ))
+        truth_rows.append(_truth_row(name, "sparse", state, h_mag, albedo, plan.n_nights))
     table = vstack(tables)
     text = "\n".join(["# Sparrowhawk Valley Survey (invented): sparse r-band photometry, apparent magnitudes",
                       "# columns: object, mjd (UTC), mag, mag_err, filter, rh (au), delta (au), alpha (deg)"])
