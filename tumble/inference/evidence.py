@@ -269,47 +269,7 @@ def _single_ladder(
     progress: bool = False,
     warn: bool = True,
 ) -> EvidenceEstimate:
-    """Estimate ``ln Z`` by stepping-stone sampling over a temperature ladder run with emcee.
-
-    Parameters
-    ----------
-    log_likelihood : callable
-        Vectorised ``(K, ndim) -> (K,)`` log-likelihood.
-    space : ParameterSpace
-        Priors (must be proper; they are).
-    betas : sequence of float, optional
-        A fixed ladder from 0 to 1 (0 is prepended if missing). Default: adaptive (see module notes).
-    ess_fraction : float
-        Adaptive-ladder target effective sample fraction of the incremental weights.
-    n_walkers : int, optional
-        Walkers per rung (default :func:`~tumble.inference.sampling.default_n_walkers`).
-    steps_per_rung : int
-        emcee steps per tempered rung (the first ``burn_fraction`` are discarded).
-    burn_fraction : float
-        Fraction of each rung discarded as burn-in.
-    n_prior_samples : int, optional
-        Independent prior draws for the ``β = 0`` rung (default: as many as a rung keeps).
-    max_rungs : int
-        Safety cap on the number of adaptive rungs.
-    min_tau_multiple : float
-        A rung is flagged when its kept chain is shorter than this many autocorrelation times of ``ln L``.
-    acceptance_range : (float, float)
-        A rung is flagged when its mean acceptance falls outside.
-    ti_tolerance : float
-        The estimate is flagged when the thermodynamic integral over the same
-        rungs differs from the stepping-stone value by more than this (nats).
-    moves, pool :
-        As in :func:`~tumble.inference.sampling.sample_posterior`.
-    rng : numpy.random.Generator, int or None
-    progress : bool
-        tqdm progress bar over rungs.
-    warn : bool
-        Issue :class:`~tumble.exceptions.ConvergenceWarning` when a rung fails its checks.
-
-    Returns
-    -------
-    EvidenceEstimate
-    """
+    """One adaptive (or fixed) ladder: the body of :func:`log_evidence` for a single replica."""
     ndim = space.ndim
     steps_per_rung = int(steps_per_rung)
     n_burn = int(burn_fraction * steps_per_rung)
@@ -328,7 +288,7 @@ def _single_ladder(
     log_post = LogPosterior(log_likelihood, space, 1.0)
 
     # rung 0: the prior, sampled exactly
-    x = log_post.extend_periodic(space.sample_prior(n0, rng), rng)
+    x = space.sample_prior(n0, rng)  # inside the default periodic windows [low, low + period)
     _, ll = log_post.log_prior_and_likelihood(x)
     if not np.all(np.isfinite(ll)):
         raise TumbleError("log-likelihood is -inf on part of the prior support; stepping-stone needs it finite")

@@ -31,8 +31,9 @@ class LogPosterior:
     space : ParameterSpace
     beta : float
         Inverse temperature in ``[0, 1]``; with ``beta = 0`` the likelihood is not evaluated.
-    periodic_copies : int
-        Odd number of periods over which periodic coordinates are sampled (default 3).
+    periodic_centre : array_like, shape (ndim,), optional
+        Centre of the one-period window in which each periodic coordinate is
+        sampled (default: the prior's own support ``[low, low + period)``).
 
     Notes
     -----
@@ -41,12 +42,11 @@ class LogPosterior:
     a period, so sampling a periodic density on the whole real line (wrapping
     on evaluation only) is not a valid MCMC for the wrapped target and biases
     broad (tempered) angle distributions. The sampled target is therefore the
-    proper density made of ``periodic_copies`` copies of the period side by
-    side (``[low - P, low + 2P)`` for 3 copies), each carrying
-    ``1 / periodic_copies`` of the prior mass; it is ``-inf`` beyond. Its
-    wrapped marginal is exactly the periodic posterior and its normalising
-    constant equals the evidence, while walkers still cross the wrap point
-    freely.
+    periodic density restricted to one period, ``[c - P/2, c + P/2)``: a proper
+    density whose integral equals the evidence and whose values are exactly
+    the wrapped posterior. Centring the window on the mode (as
+    :func:`~tumble.inference.sampling.sample_posterior` does, on the starting
+    point) puts the cut where the density is lowest.
 
     Calling with ``(K, ndim)`` returns ``(K,)``; with one ``(ndim,)`` vector it
     returns a float (convenient for optimisers). Points outside the prior get
@@ -60,46 +60,52 @@ class LogPosterior:
         log_likelihood: Callable[[np.ndarray], np.ndarray],
         space: ParameterSpace,
         beta: float = 1.0,
-        periodic_copies: int = 3,
+        periodic_centre=None,
     ):
         beta = float(beta)
         if not 0.0 <= beta <= 1.0:
             raise TumbleError(f"inverse temperature beta must lie in [0, 1], got {beta}")
-        if periodic_copies < 1 or periodic_copies % 2 == 0:
-            raise TumbleError("periodic_copies must be a positive odd number")
         self.log_likelihood = log_likelihood
         self.space = space
         self.beta = beta
-        self.periodic_copies = int(periodic_copies)
         periods = space.periods
         self._periodic = np.flatnonzero(np.isfinite(periods))
-        half = (self.periodic_copies - 1) / 2
-        self._ext_low = space.lows[self._periodic] - half * periods[self._periodic]
-        self._ext_high = space.lows[self._periodic] + (half + 1) * periods[self._periodic]
-        self._ext_log_norm = -len(self._periodic) * np.log(self.periodic_copies)
+        p = periods[self._periodic]
+        if periodic_centre is None:
+            self._window_low = space.lows[self._periodic]
+        else:
+            c = np.asarray(periodic_centre, dtype=float).reshape(space.ndim)[self._periodic]
+            self._window_low = c - p / 2
+        self._window_high = self._window_low + p
         self.n_evaluations = 0  # walker-evaluations of the likelihood in this process
 
-    def tempered(self, beta: float) -> "LogPosterior":
-        """The same posterior at another inverse temperature."""
-        return LogPosterior(self.log_likelihood, self.space, beta, self.periodic_copies)
+    @property
+    def periodic_centre(self) -> np.ndarray:
+        """Centre of the sampled window of every coordinate (``nan`` for non-periodic ones)."""
+        out = np.full(self.space.ndim, np.nan)
+        out[self._periodic] = (self._window_low + self._window_high) / 2
+        return out
 
-    def extend_periodic(self, x: np.ndarray, rng: np.random.Generator) -> np.ndarray:
-        """Move periodic coordinates of ``(K, ndim)`` points to uniformly chosen copies of their period."""
+    def tempered(self, beta: float) -> "LogPosterior":
+        """The same posterior at another inverse temperature (same periodic windows)."""
+        return LogPosterior(self.log_likelihood, self.space, beta, self.periodic_centre if self._periodic.size else None)
+
+    def into_window(self, x) -> np.ndarray:
+        """Fold periodic coordinates of ``(..., ndim)`` points into the sampled windows."""
         x = np.array(x, dtype=float, copy=True)
         if self._periodic.size:
-            half = (self.periodic_copies - 1) // 2
-            shift = rng.integers(-half, half + 1, size=(len(x), self._periodic.size))
-            x[:, self._periodic] += shift * self.space.periods[self._periodic]
+            p = self._window_high - self._window_low
+            x[..., self._periodic] = self._window_low + np.mod(x[..., self._periodic] - self._window_low, p)
         return x
 
     def log_prior(self, x) -> np.ndarray:
-        """Log-prior of the sampled (extended) target, shape ``(K,)``; see the class notes."""
+        """Log-prior of the sampled target (``-inf`` outside the periodic windows), shape ``(K,)``."""
         x = np.atleast_2d(np.asarray(x, dtype=float))
         lp = self.space.log_prior(self.space.wrap(x))
         if self._periodic.size:
             xp = x[:, self._periodic]
-            inside = np.all((xp >= self._ext_low) & (xp < self._ext_high), axis=-1)
-            lp = np.where(inside, lp + self._ext_log_norm, -np.inf)
+            inside = np.all((xp >= self._window_low) & (xp < self._window_high), axis=-1)
+            lp = np.where(inside, lp, -np.inf)
         return lp
 
     def log_prior_and_likelihood(self, x) -> tuple[np.ndarray, np.ndarray]:

@@ -591,26 +591,34 @@ def sample_posterior(
     n_ensembles = max(int(n_ensembles), 1 if starts is None else len(starts))
     max_steps = int(max_steps)
     first_block = max(2, min(int(first_block), max_steps))
-    log_post = LogPosterior(log_likelihood, space, beta)
-    fn = PooledLogPosterior(log_post, pool) if pool is not None else log_post
+    # each ensemble samples periodic coordinates in a one-period window centred on its start
+    log_posts = [
+        LogPosterior(log_likelihood, space, beta, None if starts is None else space.wrap(starts[e % len(starts)]))
+        for e in range(n_ensembles)
+    ]
+    fns = [PooledLogPosterior(lp, pool) if pool is not None else lp for lp in log_posts]
 
     backends: list[NpzBackend]
     n_eval_before = 0
     if checkpoint is not None and resume and Path(checkpoint).exists():
         backends, n_eval_before = _load_checkpoint(checkpoint, space, beta, n_ensembles, n_walkers)
-        samplers = [emcee.EnsembleSampler(n_walkers, ndim, fn, moves=moves, backend=b, vectorize=True) for b in backends]
+        samplers = [emcee.EnsembleSampler(n_walkers, ndim, f, moves=moves, backend=b, vectorize=True)
+                    for f, b in zip(fns, backends)]
         states = [None] * n_ensembles
     else:
         backends = [NpzBackend() for _ in range(n_ensembles)]
-        samplers = [emcee.EnsembleSampler(n_walkers, ndim, fn, moves=moves, backend=b, vectorize=True) for b in backends]
+        samplers = [emcee.EnsembleSampler(n_walkers, ndim, f, moves=moves, backend=b, vectorize=True)
+                    for f, b in zip(fns, backends)]
         seeds = rng.integers(0, 2**32, size=n_ensembles)
         states = []
         for e in range(n_ensembles):
             if starts is None:
-                x0 = space.sample_prior(n_walkers, rng)
+                def draw(n):
+                    return space.sample_prior(n, rng)
             else:
-                x0 = initial_ball(space, starts[e % len(starts)], n_walkers, start_scale, rng)
-            x0 = _finite_start(fn, space, x0, starts, e, start_scale, rng)
+                def draw(n, centre=starts[e % len(starts)], lp=log_posts[e]):
+                    return lp.into_window(initial_ball(space, centre, n, start_scale, rng))
+            x0 = _finite_start(fns[e], draw, n_walkers, e)
             states.append(emcee.State(x0, random_state=np.random.RandomState(int(seeds[e])).get_state()))
 
     done = backends[0].iteration
@@ -627,7 +635,8 @@ def sample_posterior(
                     states[e] = None
                 done = target
                 if checkpoint is not None:
-                    _save_checkpoint(checkpoint, backends, space, beta, n_eval_before + log_post.n_evaluations)
+                    _save_checkpoint(checkpoint, backends, space, beta,
+                                     n_eval_before + sum(lp.n_evaluations for lp in log_posts))
             chains = [b.get_chain() for b in backends]
             a = _assess(chains, space, tau_multiple, acceptance_range, rhat_max, burn_factor, cluster_threshold)
             if not a.reasons or done >= max_steps:
@@ -644,7 +653,8 @@ def sample_posterior(
             bar.total = target * n_ensembles
             bar.refresh()
 
-    post = _posterior_from(backends, space, a, log_post, beta, n_eval_before, tau_multiple, acceptance_range, rhat_max)
+    n_eval = n_eval_before + sum(lp.n_evaluations for lp in log_posts)
+    post = _posterior_from(backends, space, a, beta, n_eval, tau_multiple, acceptance_range, rhat_max)
     if warn and not post.diagnostics.converged:
         warnings.warn(
             "posterior sampling did not converge: " + "; ".join(post.diagnostics.reasons), ConvergenceWarning, stacklevel=2
@@ -652,21 +662,18 @@ def sample_posterior(
     return post
 
 
-def _finite_start(fn, space, x0, starts, e, start_scale, rng):
-    """Redraw starting walkers whose log-posterior is -inf (up to 100 times)."""
+def _finite_start(fn, draw, n_walkers, e):
+    """Draw starting walkers, redrawing those whose log-posterior is -inf (up to 100 times)."""
+    x0 = draw(n_walkers)
     for _ in range(100):
-        lp = np.asarray(fn(x0))
-        bad = ~np.isfinite(lp)
+        bad = ~np.isfinite(np.asarray(fn(x0)))
         if not bad.any():
             return x0
-        if starts is None:
-            x0[bad] = space.sample_prior(int(bad.sum()), rng)
-        else:
-            x0[bad] = initial_ball(space, starts[e % len(starts)], int(bad.sum()), start_scale, rng)
+        x0[bad] = draw(int(bad.sum()))
     raise TumbleError(f"could not find starting positions with finite log-posterior for ensemble {e}")
 
 
-def _posterior_from(backends, space, a, log_post, beta, n_eval_before, tau_multiple, acceptance_range, rhat_max):
+def _posterior_from(backends, space, a, beta, n_evaluations, tau_multiple, acceptance_range, rhat_max):
     periods = space.periods
     chains = np.stack([b.get_chain() for b in backends])  # (E, n, K, d)
     logp = np.stack([b.get_log_prob() for b in backends])  # (E, n, K)
@@ -675,7 +682,7 @@ def _posterior_from(backends, space, a, log_post, beta, n_eval_before, tau_multi
     samples = space.wrap(chains[:, sel].reshape(-1, ndim))
     log_prob = logp[:, sel].reshape(-1)
     if beta > 0:
-        log_like = (log_prob - log_post.log_prior(chains[:, sel].reshape(-1, ndim))) / beta
+        log_like = (log_prob - space.log_prior(samples)) / beta
     else:
         log_like = np.full(log_prob.shape, np.nan)
 
@@ -701,7 +708,7 @@ def _posterior_from(backends, space, a, log_post, beta, n_eval_before, tau_multi
         mode_centres=centres,
         mode_fractions=fractions,
         mode_ensembles=mode_ens,
-        n_evaluations=int(n_eval_before + log_post.n_evaluations),
+        n_evaluations=int(n_evaluations),
         beta=float(beta),
         tau_multiple=float(tau_multiple),
         acceptance_range=tuple(float(v) for v in acceptance_range),
