@@ -507,18 +507,22 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
             y_sum[a] = out[r]
 
     p = 2 * n_b
+    # lower triangle only (the factorisation reads nothing else)
     m = np.empty((p + 1, p + 1, rows * n_freq))
     for a, b in ab:
-        sp, sm = s_plus[(a, b)].ravel(), s_minus[(a, b)].ravel()
+        sp, sm = s_plus[(a, b)].reshape(-1), s_minus[(a, b)].reshape(-1)
         ra, ia, rb, ib = 2 * a, 2 * a + 1, 2 * b, 2 * b + 1
-        m[ra, rb] = m[rb, ra] = sm.real + sp.real
-        m[ia, ib] = m[ib, ia] = sm.real - sp.real
-        m[ra, ib] = m[ib, ra] = sp.imag - sm.imag
-        m[ia, rb] = m[rb, ia] = sp.imag + sm.imag
+        np.add(sm.real, sp.real, out=m[rb, ra])
+        np.subtract(sm.real, sp.real, out=m[ib, ia])
+        if a == b:
+            np.add(sp.imag, sm.imag, out=m[ia, ra])
+        else:
+            np.subtract(sp.imag, sm.imag, out=m[ib, ra])
+            np.add(sp.imag, sm.imag, out=m[rb, ia])
     for a in range(n_b):
-        ys = y_sum[a].ravel()
-        m[2 * a, p] = m[p, 2 * a] = ys.real
-        m[2 * a + 1, p] = m[p, 2 * a + 1] = ys.imag
+        ys = y_sum[a].reshape(-1)
+        m[p, 2 * a] = ys.real
+        m[p, 2 * a + 1] = ys.imag
     m[p, p] = chi2_0
     chi2, min_pivot = augmented_cholesky_chi2(m)
     return chi2.reshape(rows, n_freq), min_pivot.reshape(rows, n_freq)
@@ -530,7 +534,8 @@ def augmented_cholesky_chi2(m: np.ndarray):
     Parameters
     ----------
     m : numpy.ndarray, shape (p + 1, p + 1, B)
-        ``[[A, b], [b', chi2_0]]`` for each of B systems (symmetric; overwritten).
+        ``[[A, b], [b', chi2_0]]`` for each of B systems; only the lower
+        triangle is read (it is overwritten).
 
     Returns
     -------
@@ -551,6 +556,7 @@ def augmented_cholesky_chi2(m: np.ndarray):
     diag = np.einsum("iib->ib", m[:p, :p]).copy()
     bad = np.any(~(diag > 0), axis=0)
     min_pivot = np.full(m.shape[2], np.inf)
+    tmp = np.empty((p, m.shape[2]))
     with np.errstate(invalid="ignore", divide="ignore"):
         for j in range(p):
             d = m[j, j]
@@ -561,8 +567,10 @@ def augmented_cholesky_chi2(m: np.ndarray):
             col = m[j + 1:, j]
             col /= np.sqrt(d)
             for i in range(j + 1, p + 1):
-                # lower triangle only: row i, columns j+1..i
-                m[i, j + 1:i + 1] -= col[i - j - 1] * col[: i - j]
+                # lower triangle only: row i, columns j+1..i (no temporaries)
+                t = tmp[: i - j]
+                np.multiply(col[: i - j], col[i - j - 1], out=t)
+                np.subtract(m[i, j + 1:i + 1], t, out=m[i, j + 1:i + 1])
     chi2 = m[p, p].copy()
     chi2[bad] = np.nan
     min_pivot[bad] = 0.0
@@ -628,6 +636,16 @@ def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, bl
     out = np.empty(freqs.size)
     nu_j = np.asarray(jmult, float) * float(f1)
     km = np.asarray(kmult, float)
+    # all nuisance columns as one dense orthonormal matrix (weighted space)
+    ncol = sum(g.v.shape[1] for g in groups)
+    qdense = None
+    if ncol:
+        qdense = np.zeros((t.size, ncol))
+        c0 = 0
+        for g in groups:
+            q_g = g.v.shape[1]
+            qdense[g.index, c0:c0 + q_g] = g.v / sw[g.index, None]
+            c0 += q_g
     for lo in range(0, freqs.size, block):
         f = freqs[lo:lo + block]
         nu = nu_j[None, :] + km[None, :] * f[:, None]  # (B, n_b)
@@ -636,10 +654,10 @@ def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, bl
         x[:, :, 0::2] = np.cos(ph)
         x[:, :, 1::2] = np.sin(ph)
         x *= sw[None, :, None]
-        for g in groups:
-            q = g.v / sw[g.index, None]
-            xg = x[:, g.index, :]
-            x[:, g.index, :] = xg - np.einsum("ic,bcp->bip", q, np.einsum("ic,bip->bcp", q, xg))
+        if qdense is not None:
+            # the groups' columns are mutually orthonormal: one projection removes them all
+            x -= np.einsum("ic,bcp->bip", qdense, np.einsum("ic,bip->bcp", qdense, x, optimize=True),
+                           optimize=True)
         qx, rx = np.linalg.qr(x)
         proj = np.einsum("bip,i->bp", qx, yw)
         r = yw[None, :] - np.einsum("bip,bp->bi", qx, proj)

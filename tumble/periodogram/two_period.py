@@ -232,10 +232,10 @@ def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="
     engine = K.make_engine(f2, "direct" if method == "direct" else "nufft")
     paired, explicit = K.split_groups(data.groups, f2.size, n_b)
     n_pairs = sum(g.index.size ** 2 for g in paired)
-    # rows per batch: keep the per-call strengths and the (p+1)^2 matrices near 200 MB
+    # rows per batch: keep the per-call strengths and the (p+1)^2 matrices near 50 MB
     per_row = 25 * (data.n_points + n_pairs) * 16 + (2 * n_b + 1) ** 2 * f2.size * 8 * 2 \
         + 2 * n_b * (n_b + 1) * f2.size * 16
-    rows = int(max(1, min(64, 2e8 // per_row)))
+    rows = int(max(1, min(64, 5e7 // per_row)))
     chi2 = np.empty((f1.size, f2.size))
     chi2_0 = data.chi2_nuisance
     for lo in range(0, f1.size, rows):
