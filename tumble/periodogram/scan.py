@@ -442,6 +442,8 @@ def _scan_chi2(data: ScanData, order: int, freqs: np.ndarray, *, method: str = "
         return chi2, 0, "reference"
     uniform = K.is_uniform(freqs)
     chunk = CHUNK if uniform else CHUNK // 2
+    if progress is not None:
+        chunk = min(chunk, 1 << 15)  # smaller chunks so that a progress bar moves
     chi2 = np.empty(freqs.size)
     n_exact = 0
     chi2_0 = data.chi2_nuisance
