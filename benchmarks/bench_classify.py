@@ -76,7 +76,7 @@ def bumpy_shape(axes, rng, amplitude=0.08):
 def make_plan(plan, start):
     if plan == "dense":
         return DenseCampaign(start, n_nights=10, hours_per_night=7.0, cadence_min=10.0, zero_point_sigma_mag=0.03)
-    return SparseSurvey(start, span_d=180.0, n_nights=80, points_per_night=3, visit_spacing_min=40.0)
+    return SparseSurvey(start, span_d=120.0, n_nights=70, points_per_night=3, visit_spacing_min=40.0)
 
 
 def simulate(kind, plan, noise, variant, rng):

@@ -106,8 +106,10 @@ def test_fit_linear_recovers_offsets_and_signal(rng):
 def test_nuisance_design_columns(rng):
     lc = _lc(rng, sparse=True, phase=True)
     z, names = nuisance_design(lc)
-    assert names == ("zp:band=V", "phase:band=V") or names[0].startswith("zp:band=")
-    assert z.shape == (lc.n_points, 2)
+    assert [n.split(":")[0] for n in names] == ["zp", "phase", "phase-curvature"]
+    assert z.shape == (lc.n_points, 3)
+    # the curvature column is orthogonal to the constant and the slope (its linear part removed)
+    assert abs(np.polyfit(lc.phase_deg, z[:, 2], 1)[0]) < 1e-10
     lc2 = _lc(rng, sparse=False)
     z2, names2 = nuisance_design(lc2)
     np.testing.assert_array_equal(z2.sum(axis=1), 1.0)  # each point in exactly one session

@@ -93,6 +93,8 @@ PA_VARIANTS = tuple(FourierVariant(h, d) for h in (1, 2, 4, 6) for d in (0, 1, 3
 NPA_COMBO_ORDERS = (1, 2, 3)
 #: The NPA family: each PA base with at most this many harmonics, plus each combination order.
 NPA_MAX_BASE_HARMONICS = 4
+#: Largest f2 grid per window (the step is widened beyond it; the peaks are refined anyway).
+MAX_F2_GRID = 3000
 #: Candidate f1 windows (after the best) that get the two-period integration.
 NPA_MAX_WINDOWS = 4
 #: Alias tolerance (cycles/day) around k/day for sparse data, whose daily window aliases slow variations.
@@ -172,6 +174,8 @@ def _integrate_peak(fun, centre, half_width, lo, hi, n_grid: int = 13, max_refin
         xs += list(pts)
         vs += list(pv)
         vm, vp = pv
+        if not (np.isfinite(vm) and np.isfinite(vp) and np.isfinite(vbest)):
+            break
         curv = (vp - 2 * vbest + vm) / h**2
         if not (curv < 0 and np.isfinite(curv)):
             break
@@ -302,8 +306,13 @@ def _log_uniform_logpdf(f, lo, hi):
 COMMENSURATE_WIDTH = 1.0
 
 
+#: Log-weight given to excluded (commensurate) second frequencies: finite, so that quadrature
+#: arithmetic stays finite, and negligible (exp(-1e4) = 0 in double precision).
+COMMENSURATE_PENALTY = -1.0e4
+
+
 def _commensurate_penalty(f1, f2, span):
-    """0, or -inf where f2 is commensurate with f1 (f2 = p/q f1, q <= 4) within COMMENSURATE_WIDTH/span.
+    """0, or a negligible log-weight where f2 is commensurate with f1 (f2 = p/q f1, q <= 4) within COMMENSURATE_WIDTH/span.
 
     A two-period series whose periods are in a small-integer ratio is a one-period series
     of the common period: it is not two-periodic and must not count as NPA evidence
@@ -315,7 +324,7 @@ def _commensurate_penalty(f1, f2, span):
     for q in (2, 3, 4):
         for p in range(1, q):
             bad |= np.abs(f2 - f1 * p / q) < COMMENSURATE_WIDTH / span
-    return np.where(bad, -np.inf, 0.0)
+    return np.where(bad, COMMENSURATE_PENALTY, 0.0)
 
 
 def _frequency_limits(lc, p_min_h, p_max_h):
@@ -330,7 +339,7 @@ def _frequency_limits(lc, p_min_h, p_max_h):
 
 
 def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_windows: int = 5,
-                     oversample: float = 3.0, weights=None, max_coarse: int = 400_000) -> EvidenceResult:
+                     oversample: float = 3.0, weights=None, max_coarse: int = 100_000) -> EvidenceResult:
     """Bayes factor NPA:PA of the shape-free Fourier families (see the module notes).
 
     Parameters
@@ -401,9 +410,9 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
             return dict(ln=-np.inf, ln_alt=-np.inf, f1=f1c, f2=np.nan, s1=np.nan, s2=np.nan, mass=1.0), 0
         step2 = 1.0 / (oversample * span * max(NPA_COMBO_ORDERS))
         n2 = int((f2_hi - f2_lo) / step2) + 1
-        if n2 > max_coarse // 4:
-            step2 = (f2_hi - f2_lo) / (max_coarse // 4)
-            n2 = max_coarse // 4 + 1
+        if n2 > MAX_F2_GRID:
+            step2 = (f2_hi - f2_lo) / MAX_F2_GRID
+            n2 = MAX_F2_GRID + 1
         grid2 = f2_lo + step2 * np.arange(n2)
         grid2 = grid2[grid2 <= f2_hi]
 
