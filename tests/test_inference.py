@@ -279,6 +279,30 @@ def test_same_seed_gives_identical_samples():
     assert a.samples.tobytes() != c.samples.tobytes()
 
 
+class _SerialPool:
+    """Minimal stand-in for a process pool (anything with ``map``)."""
+
+    def __init__(self):
+        self.calls = 0
+
+    def map(self, fn, chunks):
+        self.calls += 1
+        return [fn(c) for c in chunks]
+
+
+def test_pool_and_moves_are_passed_through():
+    import emcee
+
+    kw = dict(start=[1.0, 1.0, 1.0], n_walkers=16, max_steps=100, first_block=100, warn=False)
+    plain = sample_posterior(_corr_loglike, _box_space(), rng=2, **kw)
+    pool = _SerialPool()
+    pooled = sample_posterior(_corr_loglike, _box_space(), rng=2, pool=pool, **kw)
+    assert pool.calls > 0
+    assert pooled.samples.tobytes() == plain.samples.tobytes()  # chunked evaluation changes nothing
+    de = sample_posterior(_corr_loglike, _box_space(), rng=2, moves=emcee.moves.DEMove(), **kw)
+    assert de.samples.shape[1] == 3 and de.samples.tobytes() != plain.samples.tobytes()
+
+
 def test_too_short_budget_is_reported_unconverged():
     with pytest.warns(ConvergenceWarning, match="autocorrelation"):
         post = sample_posterior(_corr_loglike, _box_space(), start=[1.0, 1.0, 1.0], rng=1, n_walkers=16, max_steps=120)
