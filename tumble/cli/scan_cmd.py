@@ -153,8 +153,8 @@ def _plot(scan, two, path) -> None:
     for p in scan.peaks[1:]:
         if p.alias not in ("best", "independent"):
             ax.axvline(p.period_h, color="C1", lw=0.8, ls=":")
-            ax.annotate(p.alias, (p.period_h, 0), xytext=(2, 4), textcoords="offset points", fontsize=7,
-                        color="C1", rotation=90)
+            ax.annotate(p.alias, (p.period_h, 0.03), xycoords=("data", "axes fraction"), xytext=(2, 0),
+                        textcoords="offset points", fontsize=7, color="C1", rotation=90, va="bottom")
     ax.invert_yaxis()
     ax.legend(fontsize=8, loc="lower right")
     ax.set_title(f"{scan.object_id}: order-{scan.order} Fourier scan ({scan.n_points} points)")
