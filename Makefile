@@ -19,13 +19,15 @@ install-test: $(BIN)/python
 demo: install
 	$(BIN)/python catalogs_demo/run_demo.py
 
+# one BLAS thread per process: the suite's small solves slow down badly with two threads on two shared cores
 test: install-test
-	$(BIN)/python -m pytest
+	OPENBLAS_NUM_THREADS=1 $(BIN)/python -m pytest
 
 test-slow: install-test
-	$(BIN)/python -m pytest -m slow
+	OPENBLAS_NUM_THREADS=1 $(BIN)/python -m pytest -m slow
 
 bench: install-test
+	$(BIN)/python -m pip install --quiet -e ".[test,bench]"
 	for b in benchmarks/bench_*.py; do OPENBLAS_NUM_THREADS=1 $(BIN)/python $$b || exit 1; done
 
 clean:
