@@ -127,7 +127,7 @@ def npa_signature(lc, model_mag):
     return best
 
 
-def run_calibration(n_seeds, quick):
+def run_calibration(n_seeds, quick, workers=1):
     kinds = ("PA", "SAM", "LAM")
     plans = ("dense", "sparse")
     noises = (0.005, 0.02, 0.05)
@@ -138,8 +138,25 @@ def run_calibration(n_seeds, quick):
             for v in variants]
     if quick:
         jobs = jobs[::6]
+    # every object gets its own seed drawn up front, so the result does not depend on the worker count
+    seeds = rng.integers(0, 2**32, size=len(jobs))
     t_all = time.perf_counter()
-    for j, (kind, plan, noise, variant, seed) in enumerate(jobs):
+    args = [(j, len(jobs), job, int(sd)) for j, (job, sd) in enumerate(zip(jobs, seeds))]
+    if workers > 1:
+        import multiprocessing as mp
+
+        with mp.get_context("fork").Pool(workers) as pool:
+            rows = list(pool.imap(_one, args))
+    else:
+        rows = [_one(a) for a in args]
+    print(f"calibration wall time {time.perf_counter() - t_all:.0f} s ({workers} worker processes)")
+    return rows
+
+
+def _one(arg):
+    j, n_jobs, (kind, plan, noise, variant, seed), obj_seed = arg
+    rng = np.random.default_rng(obj_seed)
+    if True:
         st, lc, model = simulate(kind, plan, noise, variant, rng)
         sig = npa_signature(lc, model) if kind != "PA" else 0.0
         t0 = time.perf_counter()
@@ -155,14 +172,13 @@ def run_calibration(n_seeds, quick):
         except Exception as exc:
             srot, sp = f"error:{type(exc).__name__}", math.nan
         t2 = time.perf_counter()
-        rows.append(dict(kind=kind, plan=plan, noise=noise, variant=variant, signature=sig, rotation=rot,
-                         mode=mode, p_npa=p_npa, p_psi=ppsi, p_phi=pphi, true_psi=st.p_psi_h, true_phi=st.p_phi_h,
-                         screen=srot, screen_p=sp, t_classify=t1 - t0, t_screen=t2 - t1, n=lc.n_points))
-        print(f"[{j + 1}/{len(jobs)}] {kind:3s} {plan:6s} {noise:.3f} {variant:10s} n={lc.n_points:4d} "
+        row = dict(kind=kind, plan=plan, noise=noise, variant=variant, signature=sig, rotation=rot,
+                   mode=mode, p_npa=p_npa, p_psi=ppsi, p_phi=pphi, true_psi=st.p_psi_h, true_phi=st.p_phi_h,
+                   screen=srot, screen_p=sp, t_classify=t1 - t0, t_screen=t2 - t1, n=lc.n_points)
+        print(f"[{j + 1}/{n_jobs}] {kind:3s} {plan:6s} {noise:.3f} {variant:10s} n={lc.n_points:4d} "
               f"sig={sig:.3f} -> {rot:9s} {mode:4s} p={p_npa:.3g} Ppsi={ppsi:.4g}/{st.p_psi_h:.4g} "
               f"Pphi={pphi:.4g}/{st.p_phi_h:.4g} | screen {srot} | {t1 - t0:.1f}s {t2 - t1:.1f}s", flush=True)
-    print(f"calibration wall time {time.perf_counter() - t_all:.0f} s")
-    return rows
+        return row
 
 
 def report(rows, key="rotation", pkey="p_npa", title="default classify"):
@@ -264,9 +280,10 @@ def main(argv=None):
     ap.add_argument("--n-seeds", type=int, default=2)
     ap.add_argument("--quick", action="store_true")
     ap.add_argument("--timing-only", action="store_true")
+    ap.add_argument("--workers", type=int, default=1, help="worker processes for the calibration (timing: one)")
     args = ap.parse_args(argv)
     if not args.timing_only:
-        rows = run_calibration(args.n_seeds, args.quick)
+        rows = run_calibration(args.n_seeds, args.quick, args.workers)
         report(rows)
         report(rows, key="screen", pkey="screen_p", title="--screen")
     run_timing()

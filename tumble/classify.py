@@ -81,6 +81,8 @@ __all__ = [
     "NPA_COMBO_ORDERS",
 ]
 
+#: Model-error floor (mag) added in quadrature to the errors for the evidence.
+MODEL_ERROR_FLOOR_MAG = 0.01
 #: Default prior probability that an object is an NPA rotator (``--prior-npa``).
 DEFAULT_PRIOR_NPA = 0.1
 #: A claimed period must be covered by at least this many cycles of the data span.
@@ -256,6 +258,9 @@ class EvidenceResult:
         Per candidate ``f1`` window: ``f1_per_d``, ``ln_pa``, ``ln_npa``, ``f2_per_d``.
     window_disagreement : bool
         Windows holding at least 10 % of the combined posterior mass favour different hypotheses.
+    npa_pairs : tuple of (float, float)
+        Frequency pairs (f1, f2), cycles/day, of the strongest two-period peaks, best first
+        (starting points of the physical fit).
     kappa_pa, kappa_npa : float
         Fitted error scales of the best PA and NPA fits (1 = errors as quoted).
     delta_bic : float
@@ -284,6 +289,7 @@ class EvidenceResult:
     amplitude_mag: float
     windows: tuple
     window_disagreement: bool
+    npa_pairs: tuple
     kappa_pa: float
     kappa_npa: float
     delta_bic: float
@@ -339,7 +345,8 @@ def _frequency_limits(lc, p_min_h, p_max_h):
 
 
 def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_windows: int = 5,
-                     oversample: float = 3.0, weights=None, max_coarse: int = 100_000) -> EvidenceResult:
+                     oversample: float = 3.0, weights=None, max_coarse: int = 100_000,
+                     error_floor_mag: float = None) -> EvidenceResult:
     """Bayes factor NPA:PA of the shape-free Fourier families (see the module notes).
 
     Parameters
@@ -355,12 +362,19 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         Extra weights (robust re-weighting).
     max_coarse : int
         Largest number of coarse frequencies (the step is widened beyond it).
+    error_floor_mag : float, optional
+        Model-error floor added in quadrature to the quoted errors (default
+        :data:`MODEL_ERROR_FLOOR_MAG`): neither shape-free family describes a real body under
+        changing geometry better than about this, and without the floor very precise data
+        turn tiny model inadequacies of the one-period family into "evidence" for the richer one.
 
     Returns
     -------
     EvidenceResult
     """
-    data = prepare_linear(lc, weights=weights)
+    if error_floor_mag is None:
+        error_floor_mag = MODEL_ERROR_FLOOR_MAG
+    data = prepare_linear(lc, weights=weights, error_floor_mag=error_floor_mag)
     span = data.span_d
     f_lo, f_hi = _frequency_limits(lc, p_min_h, p_max_h)
     n_eval = 0
@@ -404,7 +418,18 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     f2_lo = MIN_CYCLES / span
     npa_results = {}
 
-    def npa_window(f1c):
+    def npa_window(f1c, passes=2):
+        """Two-period integral of the window at f1c; re-run once at the NPA's own f1 if it moved
+        (a drifting one-period fit can prefer a slightly different f1 than the lattice basis)."""
+        r, k = _npa_window_once(f1c)
+        if passes > 1 and np.isfinite(r["f1"]) and abs(r["f1"] - f1c) > 0.25 * step:
+            r2, k2 = _npa_window_once(r["f1"])
+            k += k2
+            if r2["ln"] >= r["ln"]:
+                r = r2
+        return r, k
+
+    def _npa_window_once(f1c):
         f2_hi = 0.5 * f1c
         if not f2_hi > f2_lo * 1.01:
             return dict(ln=-np.inf, ln_alt=-np.inf, f1=f1c, f2=np.nan, s1=np.nan, s2=np.nan, mass=1.0), 0
@@ -428,7 +453,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         v_light = (linear_log_evidence(data, light, np.full(len(grid2), f1c), grid2)[:, 0]
                    + _commensurate_penalty(f1c, grid2, span))
         n_eval = len(grid2)
-        pk2 = _peak_indices(v_light, 2, 3)
+        pk2 = _peak_indices(v_light, 4, 3)
         f2_windows = [_integrate_peak(f2_fun, grid2[j], 2 * step2, f2_lo, f2_hi) for j in pk2]
         n_eval += sum(w.n_evaluations for w in f2_windows)
         thin = grid2[::3]
@@ -471,8 +496,9 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         rest = [p for k, p in enumerate(ln_f2_parts) if k != jbest]
         ln_npa_alt = pk1.ln_integral_alt + _logsumexp([w2n.ln_integral_alt] + rest) - w2n.best_value
         mass = float(np.exp(w2n.ln_integral - ln_f2_n)) if np.isfinite(ln_f2_n) else 1.0
+        peaks = [(float(f1c), float(w.best), float(w.ln_integral)) for w in f2_windows]
         return dict(ln=ln_npa, ln_alt=ln_npa_alt, f1=f1n, f2=w2n.best, s1=pk1.sigma, s2=w2n.sigma,
-                    mass=mass), n_eval
+                    mass=mass, peaks=peaks), n_eval
 
     for i in keep:
         npa_results[i], k = npa_window(pa_windows[i].best)
@@ -553,6 +579,15 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         dbic = (n * math.log(chi_npa / n) + big_npa * math.log(n)) - (n * math.log(chi_pa / n) + big_pa * math.log(n))
     else:
         npa_label, kappa_npa, dbic = "", float("nan"), float("inf")
+    allpk = [(r["f1"], r["f2"], r["ln"]) for r in npa_results.values() if np.isfinite(r["f2"])]
+    for r in npa_results.values():
+        allpk += r.get("peaks", [])
+    allpk.sort(key=lambda e: -e[2])
+    npa_pairs = []
+    for f1p, f2p, _ in allpk:
+        if all(abs(f1p - a) > 1e-6 or abs(f2p - b) > 0.3 / span for a, b in npa_pairs):
+            npa_pairs.append((float(f1p), float(f2p)))
+    npa_pairs = tuple(npa_pairs[:4])
     windows = tuple(dict(f1_per_d=float(pa_windows[i].best), ln_pa=float(pa_windows[i].ln_integral),
                          ln_npa=float(npa_results[i]["ln"]), f2_per_d=float(npa_results[i]["f2"])) for i in keep)
     route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
@@ -565,7 +600,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         f1_npa_sigma_per_d=float(r["s1"]), f2_per_d=float(r["f2"]), f2_sigma_per_d=float(r["s2"]),
         pa_window_mass=pa_mass, npa_window_mass=float(npa_mass), pa_variant=pa_basis.variants[vpa].label,
         npa_variant=npa_label, second_harmonic_dominates=bool(p2 >= p1), amplitude_mag=amp, windows=windows,
-        window_disagreement=disagree, kappa_pa=float(fit_pa.kappa), kappa_npa=float(kappa_npa),
+        window_disagreement=disagree, npa_pairs=npa_pairs, kappa_pa=float(fit_pa.kappa), kappa_npa=float(kappa_npa),
         delta_bic=float(dbic), n_evaluations=int(n_eval), route=route)
 
 
@@ -836,7 +871,14 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
         chosen = "PA"
     else:
         f1, f2 = evidence.f1_npa_per_d, evidence.f2_per_d
-        cands = npa_candidates(f1, f2)
+        pairs = [(f1, f2)] + [p for p in evidence.npa_pairs if p != (f1, f2)]
+        cands, seen_c = [], set()
+        for pf1, pf2 in pairs[:3]:
+            for c in npa_candidates(pf1, pf2):
+                key = (c[0], round(c[1], 6), round(c[2], 6))
+                if key not in seen_c:
+                    seen_c.add(key)
+                    cands.append(c)
         per_mode = {"SAM": [], "LAM": []}
         models = {}
         for cand in cands:
@@ -1289,7 +1331,8 @@ def screen(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, order: int = 2) -> Verdi
         f1_sigma_per_d=float(sf1), f1_npa_per_d=float(f1), f1_npa_sigma_per_d=float(sf1), f2_per_d=float(f2),
         f2_sigma_per_d=float(sf2), pa_window_mass=1.0, npa_window_mass=1.0, pa_variant=f"order {order}",
         npa_variant=f"2-D order {order}", second_harmonic_dominates=True, amplitude_mag=float(res.amplitude_mag),
-        windows=(), window_disagreement=False, kappa_pa=math.nan, kappa_npa=math.nan,
+        windows=(), window_disagreement=False, npa_pairs=((float(f1), float(f2)),), kappa_pa=math.nan,
+        kappa_npa=math.nan,
         delta_bic=float(dbic), n_evaluations=0,
         route=f"screen: -Delta BIC / 2 between the best order-{order} two-period and one-period Fourier fits "
               f"(F-test p = {res.f_test_p_value:.3g})")

@@ -257,7 +257,7 @@ class LinearData:
         return self.n_points - self.n_nuisance
 
 
-def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None) -> LinearData:
+def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None, error_floor_mag: float = 0.0) -> LinearData:
     """Whiten a light curve and project out its nuisance model (see :func:`nuisance_design`).
 
     Parameters
@@ -265,10 +265,13 @@ def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None) -> Line
     lc : LightCurve
     weights : array_like (n,), optional
         Extra multiplicative weights on ``1/err^2`` (e.g. robust weights), in (0, 1].
+    error_floor_mag : float
+        Model-error floor added in quadrature to the errors, mag (the shape-free models
+        describe a real light curve only to about this level).
     """
     y = np.asarray(lc.reduced_mag, float)
     z, names = nuisance_design(lc, phase_slope=phase_slope)
-    sw = 1.0 / np.asarray(lc.err, float)
+    sw = 1.0 / np.sqrt(np.asarray(lc.err, float) ** 2 + float(error_floor_mag) ** 2)
     if weights is not None:
         sw = sw * np.sqrt(np.asarray(weights, float))
     zw = z * sw[:, None]
