@@ -139,6 +139,19 @@ def test_fast_log_prior_equals_reference(values):
         assert fast[0] == -np.inf
 
 
+def test_log_prior_accepts_any_leading_shape(rng):
+    # one vector, a batch and a (chains, walkers) block all agree with the reference sum
+    space = _space()
+    x = space.sample_prior(12, rng).reshape(3, 4, 6)
+    ref = space.log_prior_reference(x)
+    np.testing.assert_allclose(space.log_prior(x), ref, rtol=1e-12)
+    assert np.ndim(space.log_prior(x[0, 0])) == 0
+    assert float(space.log_prior(x[0, 0])) == pytest.approx(float(ref[0, 0]))
+    outside = x[0, 0].copy()
+    outside[4] = 2.0  # b_over_a beyond its uniform prior
+    assert float(space.log_prior(outside)) == -np.inf
+
+
 def test_wrap_folds_periodic_only():
     space = _space()
     x = np.array([[3.0, 7.0, 0.1, 0.02, 0.5, -4.0]])

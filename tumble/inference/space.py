@@ -480,17 +480,18 @@ class _LogPriorPlan:
 
     def __call__(self, x: np.ndarray) -> np.ndarray:
         total = np.full(x.shape[:-1], self.const)
+        inside = None
         if self.bounded.size:
             xb = x[..., self.bounded]
             inside = np.all((xb >= self.lows) & (xb <= self.highs), axis=-1)
-            total[~inside] = -np.inf
             if self.logu.size:
                 with np.errstate(divide="ignore", invalid="ignore"):
                     total = total - np.sum(np.log(np.abs(x[..., self.logu])), axis=-1)
-                total[~inside] = -np.inf
         if self.norm_i.size:
             z = (x[..., self.norm_i] - self.norm_mu) / self.norm_sd
             total = total - 0.5 * np.sum(z * z, axis=-1)
         for i, pr in self.other:
             total = total + pr.log_pdf(x[..., i])
-        return total
+        if inside is not None:
+            total = np.where(inside, total, -np.inf)
+        return np.asarray(total, dtype=float)
