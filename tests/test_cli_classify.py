@@ -15,7 +15,7 @@ from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve, writ
 @pytest.fixture
 def pa_file(tmp_path, rng):
     st = RotationState.principal_axis(7.3, 40.0, 50.0)
-    plan = DenseCampaign(2460000.5, n_nights=3, hours_per_night=5.0, cadence_min=8.0, zero_point_sigma_mag=0.05)
+    plan = DenseCampaign(2460000.5, n_nights=2, hours_per_night=6.0, cadence_min=8.0, zero_point_sigma_mag=0.05)
     sim = simulate_lightcurve(st, (1.6, 1.2, 1.0), plan, noise=NoiseModel(0.01), rng=rng, object_id="2031 QX")
     path = tmp_path / "pa.csv"
     write_simulation(sim, path)
@@ -29,7 +29,7 @@ REQUIRED = ("rotation", "mode", "p_npa", "ln_bayes_factor", "grade", "period_h",
 
 def test_classify_writes_verdict_results_and_samples(pa_file, tmp_path, capsys):
     out = tmp_path / "out"
-    code = main(["classify", str(pa_file), "--out", str(out), "--max-steps", "60", "--quiet",
+    code = main(["classify", str(pa_file), "--out", str(out), "--max-steps", "30", "--quiet",
                  "--diameter-km", "1.5"])
     assert code == 0
     text = capsys.readouterr().out
@@ -52,7 +52,7 @@ def test_classify_writes_verdict_results_and_samples(pa_file, tmp_path, capsys):
 def test_same_seed_gives_byte_identical_verdict(pa_file, tmp_path):
     a, b = tmp_path / "a", tmp_path / "b"
     for d in (a, b):
-        assert main(["classify", str(pa_file), "--out", str(d), "--seed", "5", "--max-steps", "60", "--quiet"]) == 0
+        assert main(["classify", str(pa_file), "--out", str(d), "--seed", "5", "--max-steps", "30", "--quiet"]) == 0
     assert (a / "verdict.json").read_bytes() == (b / "verdict.json").read_bytes()
 
 
