@@ -1288,3 +1288,28 @@ def fit_rigidity(sample: RelaxSample, *, age_gyr: float = DEFAULT_AGE_GYR,
         acceptance_fraction=float(np.mean(sampler.acceptance_fraction)),
         autocorr_steps=acor, assumptions=assumptions, samples=chain,
     )
+
+
+def damping_for_classification(verdict, *, diameter_km=None, h_mag=None, albedo=None,
+                               rng: np.random.Generator | int | None = None, n_samples: int = 4000):
+    """Damping estimate for a :class:`tumble.classify.Verdict`, or None when it has no usable period or size.
+
+    The period is the verdict's PA rotation period, or for a tumbler its precession
+    period P_phi (the period closest to the spin rate that the damping formulas
+    use), else the strongest light-curve period; its uncertainty is drawn as a
+    normal with the verdict's 1-sigma error (half the 68% interval for P_phi).
+    """
+    if diameter_km is None and h_mag is None:
+        return None
+    if verdict.rotation == "PA":
+        p, e = verdict.period_h, verdict.period_h_err
+    elif verdict.rotation == "NPA" and math.isfinite(verdict.p_phi_h):
+        p, e = verdict.p_phi_h, 0.5 * (verdict.p_phi_h_hi - verdict.p_phi_h_lo)
+    else:
+        p, e = verdict.p1_h, math.nan
+    if not (isinstance(p, float) and math.isfinite(p) and p > 0):
+        return None
+    e = e if math.isfinite(e) and e > 0 else 1e-3 * p
+    g = np.random.default_rng(rng)
+    samples = np.abs(p + e * g.standard_normal(n_samples))
+    return damping_for_verdict(samples, diameter_km=diameter_km, h_mag=h_mag, albedo=albedo, rng=g)

@@ -1,0 +1,134 @@
+"""``tumble survey INPUT...``: classify every object of a survey, in parallel, resumably."""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+
+from tumble.cli._common import add_input_options, print_json, read_options
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser(
+        "survey",
+        help="classify many objects (files, directories, globs or one table with an object column)",
+        description="Classify every object of a survey and write one results row per object. Inputs are "
+                    "directories, glob patterns or files; files are grouped by object (the name before '__', "
+                    "else the file name without extension), and a table with an object column holds many "
+                    "objects. A bad object becomes an error row and the run goes on; every finished object is "
+                    "journalled beside the output, so a killed run is finished with --resume.",
+    )
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="directories, glob patterns or photometry files")
+    p.add_argument("--out", required=True, metavar="RESULTS",
+                   help="results catalogue; format from the extension (.ecsv default, .fits, .csv)")
+    p.add_argument("--screen", action="store_true",
+                   help="fast triage from the 1-D and 2-D period scans only (no physical fit)")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="local worker processes (default: the number of cores)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run on an existing dask.distributed scheduler")
+    p.add_argument("--dask-local", type=int, metavar="N",
+                   help="start a Dask LocalCluster with N workers (needs the 'cluster' extra)")
+    p.add_argument("--resume", action="store_true", help="finish an interrupted run from its journal")
+    p.add_argument("--object-timeout", type=float, default=900.0, metavar="S",
+                   help="per-object time limit in seconds; past it the object becomes an error row (default: 900)")
+    p.add_argument("--keep-objects", metavar="DIR", help="also write each object's verdict JSON into DIR/OBJECT/")
+    p.add_argument("--sizes", metavar="TABLE",
+                   help="table with object and diameter_km, or h_mag (and albedo), for damping times")
+    p.add_argument("--seed", type=int, default=0, help="base random seed (each object's seed follows from it)")
+    p.add_argument("--prior-npa", type=float, default=0.1, metavar="P", help="prior probability of NPA (default 0.1)")
+    p.add_argument("--max-steps", type=int, default=1500, metavar="S", help="sampler steps of the full route")
+    p.add_argument("--walkers", type=int, metavar="W", help="sampler walkers of the full route")
+    p.add_argument("--shortlist", type=int, default=15, metavar="N", help="NPA candidates to print (default 15)")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    add_input_options(p)
+    p.set_defaults(run=run)
+
+
+def _read_sizes(path):
+    import numpy as np
+    from astropy.table import Table
+
+    from tumble.survey import SurveyError
+
+    try:
+        table = Table.read(path) if not str(path).endswith((".csv", ".txt")) else Table.read(path, format="ascii")
+    except FileNotFoundError:
+        raise SurveyError(f"{path}: no such file") from None
+    except Exception as exc:
+        raise SurveyError(f"{path}: unreadable size table ({str(exc).splitlines()[0][:150]})") from None
+    cols = {c.lower(): c for c in table.colnames}
+    if "object" not in cols or not ({"diameter_km", "h_mag"} & set(cols)):
+        raise SurveyError(f"{path}: a size table needs columns object and diameter_km or h_mag (albedo optional)")
+
+    def get(row, name):
+        if name not in cols:
+            return None
+        v = row[cols[name]]
+        try:
+            v = float(v)
+        except (TypeError, ValueError):
+            return None
+        return v if np.isfinite(v) else None
+
+    out = {}
+    for row in table:
+        d, h, a = get(row, "diameter_km"), get(row, "h_mag"), get(row, "albedo")
+        out[str(row[cols["object"]]).strip()] = (d, None if d is not None else h, None if d is not None else a)
+    return out
+
+
+def run(args: argparse.Namespace) -> int:
+    from tumble.survey import SurveyConfig, SurveyError, run_survey
+
+    if args.workers is not None and args.workers < 1:
+        raise SurveyError(f"--workers must be at least 1, got {args.workers}")
+    if args.scheduler and args.dask_local:
+        raise SurveyError("give --scheduler or --dask-local, not both")
+    config = SurveyConfig(
+        route="screen" if args.screen else "full", seed=args.seed, prior_npa=args.prior_npa,
+        read_options=read_options(args), max_steps=args.max_steps, n_walkers=args.walkers,
+        object_timeout_s=args.object_timeout, sizes=_read_sizes(args.sizes) if args.sizes else {},
+        keep_objects_dir=args.keep_objects,
+    )
+    summary = run_survey(args.inputs, args.out, config, workers=args.workers, scheduler=args.scheduler,
+                         dask_local=args.dask_local, resume=args.resume, progress=not args.quiet)
+    if args.json:
+        print_json(summary.to_dict())
+    else:
+        print_summary(summary, args.shortlist)
+    return 0
+
+
+def _f(x, nd=3):
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return "-"
+    return "-" if not math.isfinite(x) else f"{x:.{nd}g}"
+
+
+def print_summary(s, n_short: int = 15, file=None) -> None:
+    """The end-of-run summary: counts, errors, times and the NPA shortlist."""
+    file = file or sys.stdout
+    p = lambda *a: print(*a, file=file)  # noqa: E731
+    p(f"objects       {s.n_objects} ({s.n_done_before} from an earlier run, {s.n_processed} processed now)")
+    p("status        " + ", ".join(f"{k} {v}" for k, v in sorted(s.status_counts.items())))
+    p("rotation      " + (", ".join(f"{k} {v}" for k, v in sorted(s.rotation_counts.items())) or "-"))
+    p("grades        " + (", ".join(f"{k} {v}" for k, v in sorted(s.grade_counts.items())) or "-"))
+    if s.error_kinds:
+        p("errors        " + "; ".join(f"{k}: {v}" for k, v in sorted(s.error_kinds.items(), key=lambda kv: -kv[1])))
+    p(f"time          {s.wall_s:.1f} s wall for this run; {_f(s.cpu_per_object_s)} s per object on average")
+    if s.results_path:
+        p(f"results       {s.results_path}")
+    else:
+        p(f"results       not written yet (run stopped early); finish with --resume (journal {s.journal_path})")
+    if s.shortlist:
+        p(f"\nNPA candidates ({len(s.shortlist)}; highest p_npa first)")
+        p(f"{'object':14s} {'p_npa':>6s} {'grade':>9s} {'mode':>5s} {'P_psi (h)':>10s} {'P_phi (h)':>10s} "
+          f"{'P1 (h)':>9s} {'P2 (h)':>9s}")
+        for r in s.shortlist[:n_short]:
+            p(f"{str(r['object']):14s} {_f(r['p_npa']):>6s} {str(r['grade']):>9s} {str(r['mode']):>5s} "
+              f"{_f(r['p_psi_h'], 5):>10s} {_f(r['p_phi_h'], 5):>10s} {_f(r['p1_h'], 5):>9s} {_f(r['p2_h'], 5):>9s}")
+    p("Verdicts are scientific estimates for research use; damping times rest on an assumed rigidity.")
