@@ -173,3 +173,40 @@ def test_fifty_objects_identical_across_executors(tmp_path):
         run_survey([folder], out, SurveyConfig(route="screen", seed=5), progress=False, **kw)
         results.append(_rows(out))
     assert results[0] == results[1] == results[2]
+
+
+def test_dask_worker_killed_mid_run(sample, serial_rows, tmp_path):
+    # A worker process killed with SIGKILL part-way: Dask reschedules its task and
+    # the run completes with every object present, the same rows as a clean run.
+    distributed = pytest.importorskip("distributed")
+    import threading
+
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+                                       silence_logs=50)
+    client = distributed.Client(cluster)
+    try:
+        pids = sorted(client.run(os.getpid).values())
+        out = tmp_path / "results.ecsv"
+        jpath = journal_path(out)
+        killed = []
+
+        def killer():
+            deadline = time.time() + 300
+            while time.time() < deadline:
+                if jpath.exists() and len(jpath.read_text().splitlines()) >= 1:
+                    os.kill(pids[0], signal.SIGKILL)
+                    killed.append(pids[0])
+                    return
+                time.sleep(0.02)
+
+        thread = threading.Thread(target=killer, daemon=True)
+        thread.start()
+        summary = run_survey([sample], out, SurveyConfig(route="screen", seed=3),
+                             scheduler=cluster.scheduler_address, progress=False)
+        thread.join(timeout=5)
+        assert killed, "the worker was not killed during the run"
+        assert summary.n_objects == 6 and summary.results_path
+        assert _rows(out) == _rows(serial_rows)
+    finally:
+        client.close()
+        cluster.close()
