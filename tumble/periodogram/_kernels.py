@@ -283,6 +283,14 @@ def split_groups(groups, n_freq: int, n_basis: int):
     return paired, explicit
 
 
+def _is_constant_group(g: NuisanceGroup, w: np.ndarray) -> bool:
+    """True for a single zero-point column over every point (``v`` proportional to the weights)."""
+    if g.v.shape[1] != 1 or g.index.size != w.size:
+        return False
+    ratio = g.v[:, 0] / w[g.index]
+    return bool(np.all(np.abs(ratio - ratio[0]) <= 1e-12 * np.abs(ratio[0])))
+
+
 class _Phases:
     """``exp(2 pi i j f1 t)`` for integers j and each row's f1, computed once."""
 
@@ -312,9 +320,20 @@ def _times_strength(rows, base, phase):
     return base[None, :] * phase
 
 
-def _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq):
-    """Fill S+(a,b) = T(nu_a + nu_b)/2 and S-(a,b) = T(nu_a - nu_b)/2 from distinct sums T(J f1 + K f)."""
+def _canonical(jj: int, kk: int):
+    """Key of T(jj f1 + kk f) in the table of distinct sums, and whether it is the conjugate."""
+    return ((jj, kk), False) if (kk > 0 or (kk == 0 and jj >= 0)) else ((-jj, -kk), True)
+
+
+def _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq, extra=()):
+    """Fill S+(a,b) = T(nu_a + nu_b)/2 and S-(a,b) = T(nu_a - nu_b)/2 from distinct sums T(J f1 + K f).
+
+    ``extra`` lists further (J, K) whose half-sums are wanted; the table of
+    distinct half-sums ``{(J, K): T/2}`` is returned.
+    """
     need = {}
+    for jj, kk in extra:
+        need[_canonical(int(jj), int(kk))[0]] = None
     for a, b in ab:
         for sign in (+1, -1):
             jj, kk = int(jm[a] + sign * jm[b]), int(km[a] + sign * km[b])
@@ -337,6 +356,7 @@ def _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq):
                 target[(a, b)] = need[(jj, kk)]
             else:
                 target[(a, b)] = np.conj(need[(-jj, -kk)])
+    return need
 
 
 def _real_transforms(engine, jobs, target, rows, n_freq):
@@ -418,6 +438,13 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
     n_freq = engine.frequencies.size
     if paired is None or explicit is None:
         paired, explicit = split_groups(groups, n_freq, n_b)
+    # a lone zero-point over all points (no pair sums) joins the basis as a real column: its
+    # Gram entries T(nu_a) are among the distinct sums, so no per-group transforms or products
+    const_group = None
+    if not paired:
+        const_group = next((g for g in explicit if _is_constant_group(g, w)), None)
+        if const_group is not None:
+            explicit = [g for g in explicit if g is not const_group]
     ph = _Phases(f1, t, 2 * int(np.max(np.abs(jm))) if n_b else 0)
     rows = ph.rows
     chi2_0 = float(np.sum(w * y_res**2))
@@ -432,7 +459,8 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
     if pi.size == 0:
         # no pair sums: S+-(a, b) = T(nu_a +- nu_b) / 2 depends only on (j_a +- j_b, k_a +- k_b);
         # compute each distinct sum once (T(-nu) = conj T(nu)), batched by the multiplier of f
-        _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq)
+        extra = [(int(jm[a]), int(km[a])) for a in range(n_b)] if const_group is not None else ()
+        need = _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq, extra)
     else:
         real_jobs = []  # diagonal "minus" sums are real: pack two per complex transform
         for (ka, kb), combos in by_mult.items():
@@ -506,12 +534,22 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
         for r, a in enumerate(sel):
             y_sum[a] = out[r]
 
-    p = 2 * n_b
+    o = 0 if const_group is None else 1  # the constant column, if folded in, comes first
+    p = 2 * n_b + o
     # lower triangle only (the factorisation reads nothing else)
     m = np.empty((p + 1, p + 1, rows * n_freq))
+    if o:
+        # <1, 1>, <cos nu_a, 1>, <sin nu_a, 1> (= Re, Im T(nu_a)) and <y_res, 1>
+        m[0, 0] = float(np.sum(w))
+        for a in range(n_b):
+            key, conj = _canonical(int(jm[a]), int(km[a]))
+            half = need[key].reshape(-1)
+            np.multiply(half.real, 2.0, out=m[o + 2 * a, 0])
+            np.multiply(half.imag, -2.0 if conj else 2.0, out=m[o + 2 * a + 1, 0])
+        m[p, 0] = float(np.sum(w * y_res))
     for a, b in ab:
         sp, sm = s_plus[(a, b)].reshape(-1), s_minus[(a, b)].reshape(-1)
-        ra, ia, rb, ib = 2 * a, 2 * a + 1, 2 * b, 2 * b + 1
+        ra, ia, rb, ib = o + 2 * a, o + 2 * a + 1, o + 2 * b, o + 2 * b + 1
         np.add(sm.real, sp.real, out=m[rb, ra])
         np.subtract(sm.real, sp.real, out=m[ib, ia])
         if a == b:
@@ -521,14 +559,14 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
             np.add(sp.imag, sm.imag, out=m[rb, ia])
     for a in range(n_b):
         ys = y_sum[a].reshape(-1)
-        m[p, 2 * a] = ys.real
-        m[p, 2 * a + 1] = ys.imag
+        m[p, o + 2 * a] = ys.real
+        m[p, o + 2 * a + 1] = ys.imag
     m[p, p] = chi2_0
-    chi2, min_pivot = augmented_cholesky_chi2(m)
+    chi2, min_pivot = augmented_cholesky_chi2(m, skip=o)
     return chi2.reshape(rows, n_freq), min_pivot.reshape(rows, n_freq)
 
 
-def augmented_cholesky_chi2(m: np.ndarray):
+def augmented_cholesky_chi2(m: np.ndarray, skip: int = 0):
     """Last pivot and smallest scaled pivot of a batch of augmented normal matrices.
 
     Parameters
@@ -536,6 +574,10 @@ def augmented_cholesky_chi2(m: np.ndarray):
     m : numpy.ndarray, shape (p + 1, p + 1, B)
         ``[[A, b], [b', chi2_0]]`` for each of B systems; only the lower
         triangle is read (it is overwritten).
+    skip : int
+        The first ``skip`` unknowns (e.g. a folded-in zero-point) are eliminated
+        first and left out of ``min_pivot``, which then describes their Schur
+        complement, as if they had been projected out beforehand.
 
     Returns
     -------
@@ -553,15 +595,18 @@ def augmented_cholesky_chi2(m: np.ndarray):
     ``chi2_0 - b' A^-1 b`` (e.g. Golub & Van Loan 2013, sec. 4.2).
     """
     p = m.shape[0] - 1
-    diag = np.einsum("iib->ib", m[:p, :p]).copy()
-    bad = np.any(~(diag > 0), axis=0)
+    bad = np.any(~(np.einsum("iib->ib", m[:p, :p]) > 0), axis=0)
     min_pivot = np.full(m.shape[2], np.inf)
     tmp = np.empty((p, m.shape[2]))
+    diag = None
     with np.errstate(invalid="ignore", divide="ignore"):
         for j in range(p):
+            if j == skip:
+                diag = np.einsum("iib->ib", m[skip:p, skip:p]).copy()
             d = m[j, j]
             # the pivot of the Jacobi-scaled matrix is d / A_jj (Cholesky commutes with diagonal scaling)
-            np.minimum(min_pivot, d / diag[j], out=min_pivot)
+            if j >= skip:
+                np.minimum(min_pivot, d / diag[j - skip], out=min_pivot)
             bad |= ~(d > 0)
             d[~(d > 0)] = np.nan
             col = m[j + 1:, j]
@@ -624,6 +669,8 @@ def reference_basis_chi2(t, y, w, z, jmult, kmult, frequencies, f1=0.0) -> np.nd
 def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, block: int = 256):
     """Exact chi-square by Householder QR after projecting out the nuisance columns.
 
+    ``f1`` is one fixed frequency for all ``frequencies`` or one per frequency.
+
     Used for the frequencies the fast kernel flags as ill-conditioned: the
     weighted design ``W^1/2 X(f)`` minus its projection on the (orthonormal)
     nuisance columns is factorised by QR (numerically stable; no normal
@@ -634,7 +681,8 @@ def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, bl
     yw = sw * np.asarray(y_res, float)
     freqs = np.atleast_1d(np.asarray(frequencies, float))
     out = np.empty(freqs.size)
-    nu_j = np.asarray(jmult, float) * float(f1)
+    f1s = np.broadcast_to(np.asarray(f1, float), freqs.shape)  # one f1 for all, or one per frequency
+    jmf = np.asarray(jmult, float)
     km = np.asarray(kmult, float)
     # all nuisance columns as one dense orthonormal matrix (weighted space)
     ncol = sum(g.v.shape[1] for g in groups)
@@ -648,7 +696,7 @@ def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, bl
             c0 += q_g
     for lo in range(0, freqs.size, block):
         f = freqs[lo:lo + block]
-        nu = nu_j[None, :] + km[None, :] * f[:, None]  # (B, n_b)
+        nu = jmf[None, :] * f1s[lo:lo + block, None] + km[None, :] * f[:, None]  # (B, n_b)
         ph = TWO_PI * np.mod(t[None, :, None] * nu[:, None, :], 1.0)  # (B, n, n_b)
         x = np.empty((f.size, t.size, 2 * km.size))
         x[:, :, 0::2] = np.cos(ph)
@@ -656,8 +704,7 @@ def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, bl
         x *= sw[None, :, None]
         if qdense is not None:
             # the groups' columns are mutually orthonormal: one projection removes them all
-            x -= np.einsum("ic,bcp->bip", qdense, np.einsum("ic,bip->bcp", qdense, x, optimize=True),
-                           optimize=True)
+            x -= np.matmul(qdense, np.matmul(qdense.T, x))
         qx, rx = np.linalg.qr(x)
         proj = np.einsum("bip,i->bp", qx, yw)
         r = yw[None, :] - np.einsum("bip,bp->bi", qx, proj)

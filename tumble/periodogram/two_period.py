@@ -245,10 +245,11 @@ def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="
         with np.errstate(divide="ignore", invalid="ignore"):
             risk = MAP_COND_FACTOR * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
         flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
-        for r in np.flatnonzero(np.any(flag, axis=1)):
-            idx = np.flatnonzero(flag[r])
-            c[r, idx] = K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, f2[idx],
-                                            f1=float(fb[r]))
+        if np.any(flag):
+            # all flagged pairs of the batch in one batched QR call
+            r_idx, c_idx = np.nonzero(flag)
+            c[r_idx, c_idx] = K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, f2[c_idx],
+                                                  f1=fb[r_idx])
         chi2[lo:lo + rows] = c
         if progress is not None:
             progress(fb.size)
