@@ -666,7 +666,7 @@ def reference_basis_chi2(t, y, w, z, jmult, kmult, frequencies, f1=0.0) -> np.nd
     return out
 
 
-def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, block: int = 256):
+def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, block: int = 64):
     """Exact chi-square by Householder QR after projecting out the nuisance columns.
 
     ``f1`` is one fixed frequency for all ``frequencies`` or one per frequency.
@@ -694,23 +694,51 @@ def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, bl
             q_g = g.v.shape[1]
             qdense[g.index, c0:c0 + q_g] = g.v / sw[g.index, None]
             c0 += q_g
+    jmi = np.asarray(jmult, int)
+    kmi = np.asarray(kmult, int)
+    jmax = int(np.max(np.abs(jmi))) if jmi.size else 0
+    kmax = int(np.max(kmi)) if kmi.size else 0
+    p = 2 * kmi.size
     for lo in range(0, freqs.size, block):
         f = freqs[lo:lo + block]
-        nu = jmf[None, :] * f1s[lo:lo + block, None] + km[None, :] * f[:, None]  # (B, n_b)
-        ph = TWO_PI * np.mod(t[None, :, None] * nu[:, None, :], 1.0)  # (B, n, n_b)
-        x = np.empty((f.size, t.size, 2 * km.size))
-        x[:, :, 0::2] = np.cos(ph)
-        x[:, :, 1::2] = np.sin(ph)
-        x *= sw[None, :, None]
+        # exp(2 pi i (j f1 + k f) t) = e1^j e2^k: two exponentials per point, the rest products
+        e1 = np.exp((1j * TWO_PI) * np.mod(f1s[lo:lo + block, None] * t[None, :], 1.0))  # (B, n)
+        e2 = np.exp((1j * TWO_PI) * np.mod(f[:, None] * t[None, :], 1.0))
+        pow1 = {0: None, 1: e1}
+        for j in range(2, jmax + 1):
+            pow1[j] = pow1[j - 1] * e1
+        pow2 = {0: None, 1: e2}
+        for k in range(2, kmax + 1):
+            pow2[k] = pow2[k - 1] * e2
+        # the weighted design and the data, one row per column ([X | y]'; each matrix Fortran-ordered)
+        xt = np.empty((f.size, p + 1, t.size))
+        for a, (j, k) in enumerate(zip(jmi, kmi)):
+            z1 = pow1[abs(int(j))]
+            if z1 is not None and j < 0:
+                z1 = np.conj(z1)
+            z2 = pow2[int(k)]
+            z = z1 if z2 is None else (z2 if z1 is None else z1 * z2)
+            if z is None:  # j = k = 0: the column cos 0 = 1 (its sine is identically zero)
+                xt[:, 2 * a] = sw
+                xt[:, 2 * a + 1] = 0.0
+                continue
+            np.multiply(z.real, sw, out=xt[:, 2 * a])
+            np.multiply(z.imag, sw, out=xt[:, 2 * a + 1])
+        xt[:, p] = yw
         if qdense is not None:
             # the groups' columns are mutually orthonormal: one projection removes them all
-            x -= np.matmul(qdense, np.matmul(qdense.T, x))
-        qx, rx = np.linalg.qr(x)
-        proj = np.einsum("bip,i->bp", qx, yw)
-        r = yw[None, :] - np.einsum("bip,bp->bi", qx, proj)
-        out[lo:lo + block] = np.sum(r**2, axis=1)
+            # (y_res is already orthogonal to them: its row is left as it is)
+            coef = np.matmul(xt, qdense)
+            coef[:, p] = 0.0
+            xt -= np.matmul(coef, qdense.T)
+        x = xt[:, :p]
+        # for [X | y] = QR the residual norm of the fit of y on X is |R[p, p]|
+        # (e.g. Golub & Van Loan 2013, sec. 5.3)
+        rx = np.linalg.qr(xt.transpose(0, 2, 1), mode="r")
+        out[lo:lo + block] = rx[:, p, p] ** 2
+        x = x.transpose(0, 2, 1)
         # rank-deficient designs (coinciding frequencies): QR is not safe, use SVD least squares
-        rd = np.abs(np.einsum("bii->bi", rx))
+        rd = np.abs(np.einsum("bii->bi", rx[:, :p, :p]))
         deficient = np.flatnonzero(np.min(rd, axis=1) <= 1e-9 * np.max(rd, axis=1))
         for b in deficient:
             coef, *_ = np.linalg.lstsq(x[b], yw, rcond=1e-10)
