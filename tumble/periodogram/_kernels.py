@@ -40,6 +40,7 @@ from trigonometric sums, never from a per-frequency design matrix.
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -125,6 +126,28 @@ def _phase(freq: float, tau: np.ndarray) -> np.ndarray:
     return np.exp(1j * TWO_PI * cycles)
 
 
+_PLANS = threading.local()
+
+
+def _plan(n_modes: int, n_trans: int, eps: float, upsampfac: float):
+    """A FINUFFT type-1 plan, cached per thread: a plan's set-up (kernel transform, fine-grid
+    allocation) costs about as much as one execution, and a scan reuses a few shapes."""
+    import finufft
+
+    cache = getattr(_PLANS, "plans", None)
+    if cache is None:
+        cache = _PLANS.plans = {}
+    key = (n_modes, n_trans, eps, upsampfac)
+    plan = cache.get(key)
+    if plan is None:
+        if len(cache) >= 16:  # bounded: each plan holds its fine grid
+            cache.clear()
+        plan = finufft.Plan(1, (n_modes,), n_trans=n_trans, eps=eps, isign=1, nthreads=1,
+                            upsampfac=upsampfac, modeord=0, fftw=_FFTW_ESTIMATE)
+        cache[key] = plan
+    return plan
+
+
 class UniformNufftEngine(SumEngine):
     """Type-1 NUFFT onto the uniform grid ``f_n = f0 + n df``, n = 0..F-1 (FINUFFT).
 
@@ -142,26 +165,36 @@ class UniformNufftEngine(SumEngine):
         self.n = int(n)
         self.eps = float(eps)
         self.frequencies = self.f0 + self.df * np.arange(self.n)
-        self._plans: dict = {}
 
-    def __call__(self, tau, c):
+    @property
+    def centre_frequency(self) -> float:
+        """``f0 + (F//2) df``: the strengths are multiplied by ``exp(2 pi i centre tau)``."""
+        return self.f0 + (self.n // 2) * self.df
+
+    def shift_table(self, t: np.ndarray, kmax: int) -> dict:
+        """``{k: exp(2 pi i k centre t)}`` for |k| <= kmax, so that shifts of ``tau = k t`` or
+        ``tau = k t_i + k' t_i'`` are products instead of exponentials."""
+        fc = self.centre_frequency
+        return {k: np.exp((1j * TWO_PI) * np.mod(k * fc * t, 1.0)) for k in range(-kmax, kmax + 1)}
+
+    def __call__(self, tau, c, shift=None):
         import finufft
 
         tau = np.ascontiguousarray(tau, dtype=float)
         c = np.atleast_2d(c)
         if tau.size == 0:
             return np.zeros((c.shape[0], self.n), dtype=complex)
-        x = TWO_PI * np.mod(self.df * tau, 1.0)
-        x[x >= np.pi] -= TWO_PI
+        x = self.df * tau
+        if np.max(np.abs(x)) >= 0.5:  # reduce to [-pi, pi) (not needed for short spans)
+            x = np.mod(x, 1.0)
+            x[x >= 0.5] -= 1.0
+        x *= TWO_PI
         # exp(2 pi i f0 tau) exp(i (F//2) x) = exp(2 pi i (f0 + (F//2) df) tau): one exponential
-        shift = np.exp((1j * TWO_PI) * np.mod(tau * (self.f0 + (self.n // 2) * self.df), 1.0))
+        if shift is None:
+            shift = np.exp((1j * TWO_PI) * np.mod(tau * self.centre_frequency, 1.0))
         strengths = c * shift[None, :]
         n_trans = strengths.shape[0]
-        plan = self._plans.get(n_trans)
-        if plan is None:
-            plan = finufft.Plan(1, (self.n,), n_trans=n_trans, eps=self.eps, isign=1, nthreads=1,
-                                upsampfac=self.upsampfac, modeord=0, fftw=_FFTW_ESTIMATE)
-            self._plans[n_trans] = plan
+        plan = _plan(self.n, n_trans, self.eps, self.upsampfac)
         plan.setpts(x)
         if n_trans == 1:
             strengths = strengths[0]
@@ -366,7 +399,7 @@ def _real_transforms(engine, jobs, target, rows, n_freq):
     real; two jobs with different times are packed by concatenating the times.
     """
     single = []
-    for tau, c, key in jobs:  # c: (rows, P)
+    for tau, c, key, _shift in jobs:  # c: (rows, P)
         n = c.shape[0]
         if not np.any(tau):
             target[key] = np.repeat(c.sum(axis=1).real[:, None], n_freq, axis=1).astype(complex)
@@ -382,14 +415,16 @@ def _real_transforms(engine, jobs, target, rows, n_freq):
                 res[n - 1] = engine(tau, c[n - 1:n])[0].real
             target[key] = res
         else:
-            single.append((tau, c[0], key))
+            single.append((tau, c[0], key, _shift))
     for i in range(0, len(single) - 1, 2):
-        (ta, ca, ka), (tb, cb, kb) = single[i], single[i + 1]
-        out = engine(np.concatenate([ta, tb]), np.concatenate([ca, 1j * cb])[None, :])[0]
+        (ta, ca, ka, sa), (tb, cb, kb, sb) = single[i], single[i + 1]
+        tab, cab = np.concatenate([ta, tb]), np.concatenate([ca, 1j * cb])[None, :]
+        out = (engine(tab, cab) if sa is None or sb is None
+               else engine(tab, cab, shift=np.concatenate([sa, sb])))[0]
         target[ka] = out.real.astype(complex)[None, :]
         target[kb] = out.imag.astype(complex)[None, :]
     if len(single) % 2:
-        ta, ca, ka = single[-1]
+        ta, ca, ka, _sa = single[-1]
         target[ka] = engine(ta, ca[None, :]).real.astype(complex)
 
 
@@ -463,11 +498,15 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
         need = _direct_sums(engine, t, w, ph, jm, km, ab, s_plus, s_minus, rows, n_freq, extra)
     else:
         real_jobs = []  # diagonal "minus" sums are real: pack two per complex transform
+        kmax_all = 2 * int(np.max(km)) if n_b else 0
+        table = engine.shift_table(t, kmax_all) if hasattr(engine, "shift_table") else None
         for (ka, kb), combos in by_mult.items():
             for sign in (+1, -1):
                 tau_direct = (ka + sign * kb) * t
                 tau_pairs = ka * t[pi] + sign * kb * t[pj]
                 tau = np.concatenate([tau_direct, tau_pairs])
+                shift = None if table is None else np.concatenate(
+                    [table[ka + sign * kb], table[ka][pi] * table[sign * kb][pj]])
                 strengths = np.empty((len(combos), rows, tau.size), dtype=complex)
                 for r, (a, b) in enumerate(combos):
                     strengths[r, :, : t.size] = _times_strength(rows, 0.5 * w, ph.get(int(jm[a] + sign * jm[b])))
@@ -479,7 +518,7 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
                 if sign < 0:
                     diag = [r for r, (a, b) in enumerate(combos) if a == b]
                     for r in diag:
-                        real_jobs.append((tau, strengths[r], combos[r]))
+                        real_jobs.append((tau, strengths[r], combos[r], shift))
                     keep = [r for r in range(len(combos)) if r not in diag]
                 else:
                     keep = list(range(len(combos)))
@@ -489,7 +528,7 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
                 if not np.any(tau):
                     out = np.repeat(flat.sum(axis=1)[:, None], n_freq, axis=1)
                 else:
-                    out = engine(tau, flat)
+                    out = engine(tau, flat) if shift is None else engine(tau, flat, shift=shift)
                 out = out.reshape(len(keep), rows, n_freq)
                 for r, q in enumerate(keep):
                     target[combos[q]] = out[r]
