@@ -575,33 +575,48 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
 
     o = 0 if const_group is None else 1  # the constant column, if folded in, comes first
     p = 2 * n_b + o
-    # lower triangle only (the factorisation reads nothing else)
-    m = np.empty((p + 1, p + 1, rows * n_freq))
+    n_sys = rows * n_freq
+    sum_w, sum_wy = float(np.sum(w)), float(np.sum(w * y_res))
+    const_sums = []
     if o:
-        # <1, 1>, <cos nu_a, 1>, <sin nu_a, 1> (= Re, Im T(nu_a)) and <y_res, 1>
-        m[0, 0] = float(np.sum(w))
         for a in range(n_b):
             key, conj = _canonical(int(jm[a]), int(km[a]))
-            half = need[key].reshape(-1)
-            np.multiply(half.real, 2.0, out=m[o + 2 * a, 0])
-            np.multiply(half.imag, -2.0 if conj else 2.0, out=m[o + 2 * a + 1, 0])
-        m[p, 0] = float(np.sum(w * y_res))
-    for a, b in ab:
-        sp, sm = s_plus[(a, b)].reshape(-1), s_minus[(a, b)].reshape(-1)
-        ra, ia, rb, ib = o + 2 * a, o + 2 * a + 1, o + 2 * b, o + 2 * b + 1
-        np.add(sm.real, sp.real, out=m[rb, ra])
-        np.subtract(sm.real, sp.real, out=m[ib, ia])
-        if a == b:
-            np.add(sp.imag, sm.imag, out=m[ia, ra])
-        else:
-            np.subtract(sp.imag, sm.imag, out=m[ib, ra])
-            np.add(sp.imag, sm.imag, out=m[rb, ia])
-    for a in range(n_b):
-        ys = y_sum[a].reshape(-1)
-        m[p, o + 2 * a] = ys.real
-        m[p, o + 2 * a + 1] = ys.imag
-    m[p, p] = chi2_0
-    chi2, min_pivot = augmented_cholesky_chi2(m, skip=o)
+            const_sums.append((need[key].reshape(-1), -2.0 if conj else 2.0))
+    flat_plus = {ab_: s_plus[ab_].reshape(-1) for ab_ in ab}
+    flat_minus = {ab_: s_minus[ab_].reshape(-1) for ab_ in ab}
+    flat_y = [y_sum[a].reshape(-1) for a in range(n_b)]
+    chi2 = np.empty(n_sys)
+    min_pivot = np.empty(n_sys)
+    # assemble and factorise in cache-sized blocks of systems (one buffer, reused)
+    block = min(n_sys, max(4096, int(6e6 // (8 * (p + 1) ** 2))))
+    buf = np.empty((p + 1, p + 1, block))
+    for lo in range(0, n_sys, block):
+        hi = min(lo + block, n_sys)
+        m = buf[:, :, : hi - lo]
+        # lower triangle only (the factorisation reads nothing else)
+        if o:
+            # <1, 1>, <cos nu_a, 1>, <sin nu_a, 1> (= Re, Im T(nu_a)) and <y_res, 1>
+            m[0, 0] = sum_w
+            for a, (half, two) in enumerate(const_sums):
+                np.multiply(half[lo:hi].real, 2.0, out=m[o + 2 * a, 0])
+                np.multiply(half[lo:hi].imag, two, out=m[o + 2 * a + 1, 0])
+            m[p, 0] = sum_wy
+        for a, b in ab:
+            sp, sm = flat_plus[(a, b)][lo:hi], flat_minus[(a, b)][lo:hi]
+            ra, ia, rb, ib = o + 2 * a, o + 2 * a + 1, o + 2 * b, o + 2 * b + 1
+            np.add(sm.real, sp.real, out=m[rb, ra])
+            np.subtract(sm.real, sp.real, out=m[ib, ia])
+            if a == b:
+                np.add(sp.imag, sm.imag, out=m[ia, ra])
+            else:
+                np.subtract(sp.imag, sm.imag, out=m[ib, ra])
+                np.add(sp.imag, sm.imag, out=m[rb, ia])
+        for a in range(n_b):
+            ys = flat_y[a][lo:hi]
+            m[p, o + 2 * a] = ys.real
+            m[p, o + 2 * a + 1] = ys.imag
+        m[p, p] = chi2_0
+        chi2[lo:hi], min_pivot[lo:hi] = augmented_cholesky_chi2(m, skip=o)
     return chi2.reshape(rows, n_freq), min_pivot.reshape(rows, n_freq)
 
 
@@ -634,6 +649,14 @@ def augmented_cholesky_chi2(m: np.ndarray, skip: int = 0):
     ``chi2_0 - b' A^-1 b`` (e.g. Golub & Van Loan 2013, sec. 4.2).
     """
     p = m.shape[0] - 1
+    # cache-sized blocks of systems (about 6 MB each; measured ~1.6x faster for 10^5 9x9 systems)
+    block = max(4096, int(6e6 // (8 * (p + 1) ** 2)))
+    if m.shape[2] > block:
+        chi2 = np.empty(m.shape[2])
+        min_pivot = np.empty(m.shape[2])
+        for lo in range(0, m.shape[2], block):
+            chi2[lo:lo + block], min_pivot[lo:lo + block] = augmented_cholesky_chi2(m[:, :, lo:lo + block], skip)
+        return chi2, min_pivot
     bad = np.any(~(np.einsum("iib->ib", m[:p, :p]) > 0), axis=0)
     min_pivot = np.full(m.shape[2], np.inf)
     tmp = np.empty((p, m.shape[2]))
