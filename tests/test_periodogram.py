@@ -23,6 +23,7 @@ from tumble.periodogram import (
     frequency_grid,
     prepare,
     two_period_chi2,
+    two_period_basis,
     two_period_chi2_reference,
     two_period_scan,
 )
@@ -144,6 +145,63 @@ def test_batched_cholesky_last_pivot_is_chi2(rng):
     expect = c0 - np.einsum("bi,bi->b", b, np.linalg.solve(a, b[..., None])[..., 0])
     np.testing.assert_allclose(chi2, expect, rtol=1e-11)
     assert np.all((piv > 0) & (piv <= 1))
+
+
+def test_batched_cholesky_in_blocks_and_with_a_first_unknown_eliminated(rng):
+    # More systems than one cache block (the factorisation works block by block), and skip=1:
+    # chi2 is unchanged and the condition indicator is that of the Schur complement of the
+    # first unknown (Golub & Van Loan 2013, sec. 4.2), against numpy.linalg.solve.
+    n_sys = 20_000
+    x = rng.normal(size=(n_sys, 12, 6))
+    x[:, :, 0] = 1.0  # a constant column, as a folded-in zero-point
+    y = rng.normal(size=(n_sys, 12))
+    a = np.einsum("bni,bnj->bij", x, x)
+    b = np.einsum("bni,bn->bi", x, y)
+    c0 = np.einsum("bn,bn->b", y, y)
+    m = np.zeros((7, 7, n_sys))
+    m[:6, :6] = np.moveaxis(a, 0, -1)
+    m[:6, 6] = m[6, :6] = b.T
+    m[6, 6] = c0
+    # the same systems with the constant projected out beforehand
+    xp = x[:, :, 1:] - x[:, :, 1:].mean(axis=1, keepdims=True)
+    yp = y - y.mean(axis=1, keepdims=True)
+    mp = np.zeros((6, 6, n_sys))
+    mp[:5, :5] = np.moveaxis(np.einsum("bni,bnj->bij", xp, xp), 0, -1)
+    mp[:5, 5] = mp[5, :5] = np.einsum("bni,bn->bi", xp, yp).T
+    mp[5, 5] = np.einsum("bn,bn->b", yp, yp)
+    chi2, piv = K.augmented_cholesky_chi2(m, skip=1)
+    chi2_p, piv_p = K.augmented_cholesky_chi2(mp)
+    expect = c0 - np.einsum("bi,bi->b", b, np.linalg.solve(a, b[..., None])[..., 0])
+    np.testing.assert_allclose(chi2, expect, rtol=1e-10)
+    np.testing.assert_allclose(chi2_p, expect, rtol=1e-10)
+    np.testing.assert_allclose(piv, piv_p, rtol=1e-10)
+
+
+def test_exact_qr_path_equals_lstsq_with_one_f1_per_frequency(rng):
+    # The exact fallback (QR of [X | y] after projecting out nightly zero-points, one f1 per
+    # frequency, SVD where rank-deficient) against the slow reference, one numpy.linalg.lstsq of
+    # the full design per pair; f2 = f1 makes two columns coincide (rank-deficient design).
+    t, sess = _nights(rng, 8, 20, spread_d=16)
+    y = 15 + 0.2 * np.cos(2 * np.pi * (t - JD0) * 3.1) + rng.normal(0, 0.02, t.size) \
+        + rng.normal(0, 0.05, 8)[sess]
+    lc = LightCurve.from_arrays(t, y, np.full(t.size, 0.02), session=sess)
+    data = prepare(lc, sessions=True)
+    jm, km = two_period_basis(2)
+    f1 = np.array([3.1, 3.1, 2.7, 4.2, 2.05])
+    f2 = np.array([0.4, 3.1, 1.3, 0.9, 0.61])
+    fast = K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, f2, f1=f1, block=2)
+    slow = [K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm, km, [b], f1=a)[0] for a, b in zip(f1, f2)]
+    np.testing.assert_allclose(fast, slow, rtol=1e-9)
+
+
+def test_long_uniform_grid_equals_reference_on_a_subset(dense_lc, rng):
+    # A grid longer than one assembly/factorisation block: the fast scan on 30 000 frequencies,
+    # checked against the slow reference (one lstsq per frequency) on 150 of them.
+    freqs = 0.05 + 0.0011 * np.arange(30_000)
+    fast = fourier_chi2(dense_lc, freqs, order=4)
+    sub = np.sort(rng.choice(freqs.size, 150, replace=False))
+    slow = fourier_chi2_reference(dense_lc, freqs[sub], order=4)
+    np.testing.assert_allclose(fast[sub], slow, rtol=1e-9, atol=0)
 
 
 # ---------------------------------------------------------------------------
