@@ -127,11 +127,14 @@ def _phase(freq: float, tau: np.ndarray) -> np.ndarray:
 
 
 _PLANS = threading.local()
+#: Largest total size of the fine grids held by cached FINUFFT plans (per thread).
+_PLAN_CACHE_BYTES = 128e6
 
 
 def _plan(n_modes: int, n_trans: int, eps: float, upsampfac: float):
     """A FINUFFT type-1 plan, cached per thread: a plan's set-up (kernel transform, fine-grid
-    allocation) costs about as much as one execution, and a scan reuses a few shapes."""
+    allocation) costs about as much as one execution, and a scan reuses a few shapes. At most
+    16 plans and ``_PLAN_CACHE_BYTES`` of fine grids are kept."""
     import finufft
 
     cache = getattr(_PLANS, "plans", None)
@@ -140,7 +143,9 @@ def _plan(n_modes: int, n_trans: int, eps: float, upsampfac: float):
     key = (n_modes, n_trans, eps, upsampfac)
     plan = cache.get(key)
     if plan is None:
-        if len(cache) >= 16:  # bounded: each plan holds its fine grid
+        # bounded: each plan holds its fine grid (~ upsampfac n_modes n_trans complex numbers)
+        held = sum(16.0 * k[0] * k[1] * k[3] for k in cache)
+        if len(cache) >= 16 or held + 16.0 * n_modes * n_trans * upsampfac > _PLAN_CACHE_BYTES:
             cache.clear()
         plan = finufft.Plan(1, (n_modes,), n_trans=n_trans, eps=eps, isign=1, nthreads=1,
                             upsampfac=upsampfac, modeord=0, fftw=_FFTW_ESTIMATE)
