@@ -387,7 +387,21 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         step = (f_hi - f_lo) / max_coarse
         n_coarse = max_coarse + 1
     grid = f_lo + step * np.arange(n_coarse)
-    coarse = linear_log_evidence(data, scan_basis, grid)[:, 0]
+    nightly = bool(np.mean(lc.session >= 0) > 0.5 and lc.n_sessions >= 2)
+
+    def daily(f):
+        # with a free zero-point per night, a "light curve" at k cycles/day (k = 1, 2, 3) is degenerate
+        # with the nightly offsets and drifts: such f1 get a negligible prior weight in both families
+        if not nightly:
+            return 0.0
+        f = np.asarray(f, float)
+        bad = np.zeros(f.shape, bool)
+        for k in (1, 2, 3):
+            for day in (1.0, 1.0 / SIDEREAL_DAY_D):
+                bad |= np.abs(f - k * day) < 0.5 / span
+        return np.where(bad, COMMENSURATE_PENALTY, 0.0)
+
+    coarse = linear_log_evidence(data, scan_basis, grid)[:, 0] + daily(grid)
     n_eval += len(grid)
     peaks = _peak_indices(coarse, n_windows, 3)
     centres = [grid[i] for i in peaks]
@@ -402,7 +416,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     npa_basis = FourierBasis.build(npa_variants)
 
     def pa_fun(f):
-        return _mixture(linear_log_evidence(data, pa_basis, f)) + _log_uniform_logpdf(f, f_lo, f_hi)
+        return _mixture(linear_log_evidence(data, pa_basis, f)) + _log_uniform_logpdf(f, f_lo, f_hi) + daily(f)
 
     # PA windows
     pa_windows = []
@@ -477,7 +491,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
             hi = 0.5 * f1
             val = _mixture(linear_log_evidence(data, npa_basis, f1, np.full(len(f1), f2)))
             return (val + _log_uniform_logpdf(f1, f_lo, f_hi) + _log_uniform_logpdf(f2, f2_lo, hi)
-                    + _commensurate_penalty(f1, f2, span))
+                    + _commensurate_penalty(f1, f2, span) + daily(f1))
 
         pk1 = _integrate_peak(f1_fun, f1c, 2 * step, f_lo, f_hi)
         n_eval += pk1.n_evaluations
@@ -512,7 +526,7 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         light = FourierBasis.build([FourierVariant(2, True, 2)])
         g1 = grid[grid >= 2.0 * f2b]
         if len(g1) > 3:
-            v1 = linear_log_evidence(data, light, g1, np.full(len(g1), f2b))[:, 0]
+            v1 = linear_log_evidence(data, light, g1, np.full(len(g1), f2b))[:, 0] + daily(g1)
             n_eval += len(g1)
             for j in _peak_indices(v1, 2, 3):
                 fc = g1[j]
