@@ -67,24 +67,10 @@ def _clean(v):
 
 
 def _damping(verdict, args, rng):
-    import numpy as np
+    from tumble.damping import damping_for_classification
 
-    from tumble.damping import damping_for_verdict
-
-    if args.diameter_km is None and args.h_mag is None:
-        return None
-    if verdict.rotation == "PA":
-        p, e = verdict.period_h, verdict.period_h_err
-    elif verdict.rotation == "NPA" and math.isfinite(verdict.p_phi_h):
-        p, e = verdict.p_phi_h, 0.5 * (verdict.p_phi_h_hi - verdict.p_phi_h_lo)
-    else:
-        p, e = verdict.p1_h, math.nan
-    if not math.isfinite(p):
-        return None
-    e = e if math.isfinite(e) and e > 0 else 1e-3 * p
-    samples = np.abs(p + e * rng.standard_normal(4000))
-    return damping_for_verdict(samples, diameter_km=args.diameter_km, h_mag=args.h_mag, albedo=args.albedo,
-                               rng=rng)
+    return damping_for_classification(verdict, diameter_km=args.diameter_km, h_mag=args.h_mag, albedo=args.albedo,
+                                      rng=rng)
 
 
 def run(args: argparse.Namespace) -> int:
