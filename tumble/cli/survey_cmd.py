@@ -19,9 +19,10 @@ def add_parser(sub) -> None:
                     "objects. A bad object becomes an error row and the run goes on; every finished object is "
                     "journalled beside the output, so a killed run is finished with --resume.",
     )
-    p.add_argument("inputs", nargs="+", metavar="INPUT", help="directories, glob patterns or photometry files")
-    p.add_argument("--out", required=True, metavar="RESULTS",
-                   help="results catalogue; format from the extension (.ecsv default, .fits, .csv)")
+    p.add_argument("inputs", nargs="*", metavar="INPUT", help="directories, glob patterns or photometry files")
+    p.add_argument("--out", metavar="RESULTS",
+                   help="results catalogue; format from the extension (.ecsv default, .fits, .parquet, .csv); "
+                        "with --inject the completeness table (.ecsv, default completeness.ecsv)")
     p.add_argument("--screen", action="store_true",
                    help="fast triage from the 1-D and 2-D period scans only (no physical fit)")
     p.add_argument("--workers", type=int, metavar="N",
@@ -41,6 +42,18 @@ def add_parser(sub) -> None:
     p.add_argument("--walkers", type=int, metavar="W", help="sampler walkers of the full route")
     p.add_argument("--shortlist", type=int, default=15, metavar="N", help="NPA candidates to print (default 15)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    g = p.add_argument_group("completeness (injection-recovery on the survey's own cadences)")
+    g.add_argument("--inject", type=int, metavar="N",
+                   help="inject N simulated PA and NPA rotators onto the cadences of --plan-from and write the "
+                        "completeness table, the per-injection table and a plot")
+    g.add_argument("--plan-from", nargs="+", metavar="INPUT",
+                   help="survey objects whose times, sessions, errors and geometry are the injection cadences")
+    g.add_argument("--period-bins", metavar="EDGES", default="2,4,8,16,32,64",
+                   help="period bin edges in hours; periods drawn log-uniform over the range (default 2,4,8,16,32,64)")
+    g.add_argument("--amplitude-bins", metavar="EDGES", default="0.05,0.15,0.3,0.5,0.8",
+                   help="amplitude bin edges in mag (A = 2.5 log10(a/b), drawn uniform; default 0.05,0.15,0.3,0.5,0.8)")
+    g.add_argument("--npa-fraction", type=float, default=0.5, metavar="F",
+                   help="fraction of injections that are NPA (default 0.5; half of them LAM)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     add_input_options(p)
     p.set_defaults(run=run)
@@ -79,9 +92,29 @@ def _read_sizes(path):
     return out
 
 
+def _edges(text, option):
+    from tumble.survey import SurveyError
+
+    try:
+        return tuple(float(v) for v in str(text).split(",") if v.strip())
+    except ValueError:
+        raise SurveyError(f"{option}: give comma-separated numbers, not '{text}'") from None
+
+
 def run(args: argparse.Namespace) -> int:
     from tumble.survey import SurveyConfig, SurveyError, run_survey
 
+    if args.inject is None and args.plan_from:
+        raise SurveyError("--plan-from needs --inject N")
+    if args.inject is not None:
+        if not args.plan_from:
+            raise SurveyError("--inject needs --plan-from INPUT (the survey objects whose cadences to use)")
+        if args.inputs:
+            raise SurveyError("with --inject give the cadence objects with --plan-from, not as INPUT")
+    elif not args.inputs:
+        raise SurveyError("give at least one INPUT (directory, glob pattern or file)")
+    elif not args.out:
+        raise SurveyError("--out RESULTS is required")
     if args.workers is not None and args.workers < 1:
         raise SurveyError(f"--workers must be at least 1, got {args.workers}")
     if args.scheduler and args.dask_local:
@@ -92,6 +125,8 @@ def run(args: argparse.Namespace) -> int:
         object_timeout_s=args.object_timeout, sizes=_read_sizes(args.sizes) if args.sizes else {},
         keep_objects_dir=args.keep_objects,
     )
+    if args.inject is not None:
+        return _run_inject(args, config)
     summary = run_survey(args.inputs, args.out, config, workers=args.workers, scheduler=args.scheduler,
                          dask_local=args.dask_local, resume=args.resume, progress=not args.quiet)
     if args.json:
@@ -99,6 +134,56 @@ def run(args: argparse.Namespace) -> int:
     else:
         print_summary(summary, args.shortlist)
     return 0
+
+
+def _run_inject(args, config) -> int:
+    from tumble.completeness import InjectionDistributions, run_completeness
+
+    dist = InjectionDistributions(period_bins_h=_edges(args.period_bins, "--period-bins"),
+                                  amplitude_bins_mag=_edges(args.amplitude_bins, "--amplitude-bins"),
+                                  npa_fraction=args.npa_fraction)
+    res = run_completeness(args.plan_from, args.inject, args.out or "completeness.ecsv", config, dist=dist,
+                           workers=args.workers, scheduler=args.scheduler, dask_local=args.dask_local,
+                           resume=args.resume, progress=not args.quiet)
+    if args.json:
+        print_json({"table": res.table_path, "injections": res.injections_path, "plot": res.plot_path,
+                    "n_plan_objects": res.n_plans, "plan_problems": res.plan_problems,
+                    "rows": [dict(zip(res.table.colnames, r)) for r in res.table.as_array().tolist()]})
+    else:
+        print_completeness(res)
+    return 0
+
+
+def print_completeness(res, file=None) -> None:
+    """Short summary of a completeness run: overall rates, then the NPA detection probability per bin."""
+    file = file or sys.stdout
+    p = lambda *a: print(*a, file=file)  # noqa: E731
+    t = res.table
+    s = res.survey
+    p(f"injections    {int(sum(t['n_injected'][t['scope'] == 'all']))} on the cadences of {res.n_plans} objects"
+      + (f" ({len(res.plan_problems)} unusable: {res.plan_problems[0]})" if res.plan_problems else ""))
+    p("status        " + ", ".join(f"{k} {v}" for k, v in sorted(s.status_counts.items())))
+    for r in t[t["scope"] == "all"]:
+        what = "NPA detected " if r["truth"] == "NPA" else "false NPA    "
+        p(f"{what} {_f(r['frac_npa'], 3)} [{_f(r['frac_npa_lo'], 3)}, {_f(r['frac_npa_hi'], 3)}] (95%, "
+          f"{r['n_npa']}/{r['n_classified']}; {r['n_undecided']} undecided, {r['n_error']} errors) of injected "
+          f"{r['truth']}")
+    bins = t[(t["scope"] == "bin") & (t["truth"] == "NPA")]
+    pe = sorted(set(float(v) for v in bins["period_h_lo"]) | set(float(v) for v in bins["period_h_hi"]))
+    ae = sorted(set(float(v) for v in bins["amplitude_mag_lo"]) | set(float(v) for v in bins["amplitude_mag_hi"]))
+    p("\nNPA detection probability (NPA/classified) by period [h] (columns) and amplitude [mag] (rows)")
+    head = f"{'A (mag)':>11s} " + " ".join(f"{f'{lo:g}-{hi:g}':>12s}" for lo, hi in zip(pe[:-1], pe[1:]))
+    p(head)
+    for alo, ahi in zip(ae[:-1], ae[1:]):
+        cells = []
+        for plo in pe[:-1]:
+            r = bins[(bins["period_h_lo"] == plo) & (bins["amplitude_mag_lo"] == alo)][0]
+            cells.append(f"{_f(r['frac_npa'], 2)} ({r['n_npa']}/{r['n_classified']})" if r["n_classified"] else "-")
+        p(f"{f'{alo:g}-{ahi:g}':>11s} " + " ".join(f"{c:>12s}" for c in cells))
+    p(f"\ntable         {res.table_path}\ninjections    {res.injections_path}"
+      + (f"\nplot          {res.plot_path}" if res.plot_path else ""))
+    p("Completeness is a scientific estimate for these cadences and the stated injected distributions, "
+      "not a population estimate.")
 
 
 def _f(x, nd=3):
