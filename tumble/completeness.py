@@ -486,8 +486,7 @@ def plot_completeness(table, path) -> Path:
     pe = np.unique(np.concatenate([bins["period_h_lo"], bins["period_h_hi"]]))
     ae = np.unique(np.concatenate([bins["amplitude_mag_lo"], bins["amplitude_mag_hi"]]))
     fig, axes = plt.subplots(1, 2, figsize=(12, 5), constrained_layout=True, sharey=True)
-    cmap = matplotlib.colormaps["cividis"].copy()
-    cmap.set_bad("0.85")
+    cmap = matplotlib.colormaps["cividis"].with_extremes(bad="0.85")
     norm = Normalize(0.0, 1.0)
     mesh = None
     for ax, truth, title in ((axes[0], "NPA", "injected NPA: detection probability"),
