@@ -137,6 +137,32 @@ def write_results(rows: Iterable[Mapping], path: str | os.PathLike, extra_column
     return path
 
 
+def _read_parquet_with_pyarrow(path: Path):
+    """Read a Parquet table written by astropy with pyarrow alone, units and descriptions from
+    astropy's own header (the ``table_meta_yaml`` schema metadata)."""
+    from astropy.table import Column as TableColumn
+    from astropy.table import Table
+    from astropy.table import meta as table_meta
+
+    try:
+        import pyarrow.parquet as pq
+
+        pt = pq.read_table(path)
+    except Exception as exc:
+        raise TumbleError(f"{path}: unreadable Parquet table ({str(exc).splitlines()[0][:200]})") from None
+    md = {k.decode("utf-8"): v.decode("utf-8") for k, v in (pt.schema.metadata or {}).items()}
+    header = table_meta.get_header_from_yaml(md["table_meta_yaml"].split("\n")) if "table_meta_yaml" in md else {}
+    info = {c["name"]: c for c in header.get("datatype", [])}
+    table = Table(meta=header.get("meta", {}))
+    for name in pt.column_names:
+        data = pt.column(name).to_numpy(zero_copy_only=False)
+        if data.dtype == object:
+            data = data.astype(str)
+        c = info.get(name, {})
+        table[name] = TableColumn(data, unit=c.get("unit"), description=c.get("description"))
+    return table
+
+
 def read_results(path: str | os.PathLike):
     """Read a results catalogue written by :func:`write_results` (checks the required columns)."""
     from astropy.table import Table
@@ -144,10 +170,15 @@ def read_results(path: str | os.PathLike):
     path = Path(path)
     if not path.exists():
         raise TumbleError(f"{path}: no such file")
+    fmt = _table_format(path)
     try:
-        table = Table.read(path, format=_table_format(path))
+        table = Table.read(path, format=fmt)
     except TumbleError:
         raise
+    except ModuleNotFoundError as exc:
+        if fmt != "parquet" or "pandas" not in str(exc):
+            raise
+        table = _read_parquet_with_pyarrow(path)  # astropy's Parquet reader wants pandas; pyarrow suffices
     except Exception as exc:
         raise TumbleError(f"{path}: unreadable results table ({str(exc).splitlines()[0][:200]})") from None
     missing = [c for c in ("object", "status", "rotation") if c not in table.colnames]
