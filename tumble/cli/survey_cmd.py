@@ -42,6 +42,8 @@ def add_parser(sub) -> None:
     p.add_argument("--walkers", type=int, metavar="W", help="sampler walkers of the full route")
     p.add_argument("--shortlist", type=int, default=15, metavar="N", help="NPA candidates to print (default 15)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    p.add_argument("--report", metavar="DIR",
+                   help="when the results are complete, also write the HTML report of the survey into DIR")
     g = p.add_argument_group("completeness (injection-recovery on the survey's own cadences)")
     g.add_argument("--inject", type=int, metavar="N",
                    help="inject N simulated PA and NPA rotators onto the cadences of --plan-from and write the "
@@ -133,7 +135,33 @@ def run(args: argparse.Namespace) -> int:
         print_json(summary.to_dict())
     else:
         print_summary(summary, args.shortlist)
+    if args.report:
+        if not summary.results_path:
+            raise SurveyError("--report: the results are not complete yet; finish the run with --resume first")
+        index = _write_report(args, summary.results_path)
+        if not args.json:
+            print(f"report        {index}")
     return 0
+
+
+def _write_report(args, results_path):
+    """The survey's HTML report through tumble.report (imported here, at call time)."""
+    import inspect
+
+    from tumble.survey import SurveyError
+
+    try:
+        from tumble.report import write_survey_report
+    except ImportError as exc:
+        raise SurveyError(f"--report: the report writer is not available ({exc})") from None
+    optional = {"data": list(args.inputs), "read_options": read_options(args), "sizes": args.sizes,
+                "progress": not args.quiet}
+    try:
+        accepted = inspect.signature(write_survey_report).parameters
+    except (TypeError, ValueError):
+        accepted = {}
+    kwargs = {k: v for k, v in optional.items() if k in accepted and v is not None}
+    return write_survey_report(results_path, args.report, objects_dir=args.keep_objects, **kwargs)
 
 
 def _run_inject(args, config) -> int:
