@@ -302,7 +302,12 @@ def two_period_zoom(lc, p1_h: float, p2_h: float, *, n: int = 41, half_width_cyc
         fs = np.linspace(max(f - df, 0.5 * f), f + df, n)
         return HOURS_PER_DAY / fs
 
-    return two_period_scan(lc, order=order, p1_grid=grid(p1_h), p2_grid=grid(p2_h))
+    import warnings
+
+    with warnings.catch_warnings():
+        # the error ellipse of a poorly constrained pair may be degenerate; the map is all we draw
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return two_period_scan(lc, order=order, p1_grid=grid(p1_h), p2_grid=grid(p2_h))
 
 
 def plot_two_period_map(result, *, path=None, max_delta_chi2: float | None = None):

@@ -48,6 +48,8 @@ def add_parser(sub) -> None:
     size.add_argument("--diameter-km", type=float, metavar="D", help="diameter, km (for the damping time)")
     size.add_argument("--h-mag", type=float, metavar="H", help="absolute magnitude H (for the damping time)")
     p.add_argument("--albedo", type=float, metavar="A", help="geometric albedo with --h-mag")
+    p.add_argument("--report", metavar="DIR",
+                   help="also write the object's static HTML report (page and figures) into DIR")
     add_input_options(p)
     add_output_options(p)
     p.set_defaults(run=run)
@@ -122,11 +124,18 @@ def run(args: argparse.Namespace) -> int:
     with atomic_path(out_dir / "posterior.npz") as tmp:
         with open(tmp, "wb") as fh:
             np.savez(fh, **arrays)
+    index = None
+    if args.report:
+        from tumble.report import write_object_report
+
+        index = write_object_report(args.report, out, lc=lc, posterior=arrays or None)
     if args.json:
         print_json(out)
         return 0
     _print_verdict(out, damp)
     print(f"wrote {out_dir / 'verdict.json'}, {out_dir / 'results.ecsv'}, {out_dir / 'posterior.npz'}")
+    if index is not None:
+        print(f"report written: {index}")
     return 0
 
 

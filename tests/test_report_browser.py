@@ -1,0 +1,185 @@
+"""The HTML reports in a real browser: headless Debian Chromium driven by selenium.
+
+Opens the survey report and one object report, takes screenshots, and checks
+that the pages load without console errors, that every image loaded
+(``naturalWidth > 0``), and that the survey table sorts on a header click and
+filters with its text box. The expected orders are computed here from the
+results catalogue (astropy), independently of the page's JavaScript.
+Skips only when chromium or chromedriver is missing (``.ci/run`` installs
+Debian's ``chromium chromium-driver`` when it can).
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+from pathlib import Path
+
+import pytest
+
+from tumble.cli import main
+
+ROOT = Path(__file__).resolve().parents[1]
+CAMPAIGN = ROOT / "catalogs_demo" / "campaign"
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMEDRIVER = Path("/usr/bin/chromedriver")
+
+
+def _browser_paths():
+    chromium = CHROMIUM if CHROMIUM.exists() else (shutil.which("chromium") and Path(shutil.which("chromium")))
+    driver = CHROMEDRIVER if CHROMEDRIVER.exists() else (
+        shutil.which("chromedriver") and Path(shutil.which("chromedriver")))
+    return chromium, driver
+
+
+@pytest.fixture(scope="module")
+def browser():
+    chromium, driver_path = _browser_paths()
+    if not chromium or not driver_path:
+        pytest.skip("headless Chromium check skipped: /usr/bin/chromium or /usr/bin/chromedriver not found "
+                    "(install Debian's 'chromium chromium-driver'; .ci/run does when it can)")
+    webdriver = pytest.importorskip("selenium.webdriver")
+    from selenium.webdriver.chrome.service import Service
+
+    opts = webdriver.ChromeOptions()
+    opts.binary_location = str(chromium)
+    for flag in ("--headless=new", "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
+                 "--disable-background-networking", "--window-size=1400,1000"):
+        opts.add_argument(flag)
+    opts.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    # an explicit Service: selenium must not download a driver
+    drv = webdriver.Chrome(service=Service(str(driver_path)), options=opts)
+    drv.set_page_load_timeout(60)
+    yield drv
+    drv.quit()
+
+
+@pytest.fixture(scope="module")
+def reports(tmp_path_factory):
+    """A survey report (screen route, two good demo objects and one broken file) and one object report."""
+    tmp = tmp_path_factory.mktemp("reports")
+    files = [CAMPAIGN / "KRN-001__kestrel.csv", CAMPAIGN / "KRN-003__kestrel.csv",
+             CAMPAIGN / "KRN-003__lanternbay.ecsv", CAMPAIGN / "KRN-006__kestrel.csv",
+             CAMPAIGN / "KRN-011__lanternbay.ecsv"]
+    results = tmp / "results.ecsv"
+    assert main(["survey", *map(str, files), "--out", str(results), "--screen", "--workers", "1", "--quiet",
+                 "--keep-objects", str(tmp / "objects")]) == 0
+    assert main(["report", str(results), "--out", str(tmp / "survey_report"), "--objects", str(tmp / "objects"),
+                 "--data", *map(str, files), "--sizes", str(ROOT / "catalogs_demo" / "truth.ecsv"),
+                 "--quiet"]) == 0
+    assert main(["classify", str(files[0]), "--out", str(tmp / "c"), "--max-steps", "40", "--quiet",
+                 "--report", str(tmp / "object_report")]) == 0
+    return tmp
+
+
+def _log_errors(browser):
+    return [e for e in browser.get_log("browser") if e.get("level") == "SEVERE"]
+
+
+def _images(browser):
+    return browser.execute_script(
+        "return Array.from(document.images).map(function(i){return [i.getAttribute('src'), i.complete, "
+        "i.naturalWidth];});")
+
+
+def _object_column(browser):
+    return browser.execute_script(
+        "return Array.from(document.querySelectorAll('#objects tbody tr'))"
+        ".filter(function(r){return r.style.display !== 'none';})"
+        ".map(function(r){return r.cells[0].textContent.trim();});")
+
+
+def test_survey_report_loads_sorts_and_filters(browser, reports, tmp_path):
+    from selenium.webdriver.common.by import By
+
+    from tumble.results import read_results
+
+    index = reports / "survey_report" / "index.html"
+    browser.get(index.as_uri())
+    browser.save_screenshot(str(tmp_path / "survey.png"))
+    assert (tmp_path / "survey.png").stat().st_size > 0
+    assert _log_errors(browser) == []
+    imgs = _images(browser)
+    assert imgs, "the survey page shows its sample figure"
+    assert all(ok and width > 0 for _, ok, width in imgs), imgs
+
+    table = read_results(reports / "results.ecsv")
+    names = [str(x) for x in table["object"]]
+    assert _object_column(browser) == names  # input order before any click
+
+    # numeric sort on the points column: expected order from the catalogue, ties kept in input order
+    heads = browser.find_elements(By.CSS_SELECTOR, "#objects thead th")
+    points = next(h for h in heads if h.get_attribute("data-col") == "n_points")
+    points.click()
+    assert points.get_attribute("aria-sort") == "ascending"
+    got = _object_column(browser)
+    assert [int(table["n_points"][names.index(n)]) for n in got] == sorted(int(v) for v in table["n_points"])
+    assert set(got) == set(names)
+    points.click()
+    assert points.get_attribute("aria-sort") == "descending"
+    got_desc = _object_column(browser)
+    assert [int(table["n_points"][names.index(n)]) for n in got_desc] == sorted(
+        (int(v) for v in table["n_points"]), reverse=True)
+    if len(set(int(v) for v in table["n_points"])) == len(names):  # no ties: the exact reverse
+        assert got_desc == got[::-1]
+
+    # text sort on the object column, descending on the second click
+    obj = next(h for h in heads if h.get_attribute("data-col") == "object")
+    obj.click()
+    assert _object_column(browser) == sorted(names, key=str.lower)
+    obj.click()
+    assert _object_column(browser) == sorted(names, key=str.lower, reverse=True)
+    browser.save_screenshot(str(tmp_path / "survey_sorted.png"))
+
+    # filter box: only the rows whose text holds the query stay visible
+    box = browser.find_element(By.ID, "filter")
+    box.send_keys("error")
+    expected = [n for n, s in zip(names, table["status"]) if "error" in str(s)]
+    assert sorted(_object_column(browser)) == sorted(expected) and expected
+    box.clear()
+    box.send_keys("x")  # clear() does not fire 'input'; type and delete to refresh
+    from selenium.webdriver.common.keys import Keys
+
+    box.send_keys(Keys.BACKSPACE)
+    assert len(_object_column(browser)) == len(names)
+    assert _log_errors(browser) == []
+
+    # every object page linked from the table loads, with its images
+    links = {a.text: a.get_attribute("href") for a in browser.find_elements(By.CSS_SELECTOR, "#objects tbody a")}
+    assert sorted(links) == sorted(names)
+    for href in links.values():
+        browser.get(href)
+        assert _log_errors(browser) == [], href
+        assert all(ok and width > 0 for _, ok, width in _images(browser)), href
+    ok_name = next(n for n, s in zip(names, table["status"]) if s == "ok")
+    browser.get(links[ok_name])
+    assert len(_images(browser)) >= 4  # scan, light curve, folded, residuals
+    assert ok_name in browser.title
+    browser.save_screenshot(str(tmp_path / "survey_object.png"))
+
+
+def test_object_report_loads_with_all_figures(browser, reports, tmp_path):
+    import json
+
+    from selenium.webdriver.common.by import By
+
+    page = reports / "object_report" / "index.html"
+    browser.get(page.as_uri())
+    browser.save_screenshot(str(tmp_path / "object.png"))
+    assert (tmp_path / "object.png").stat().st_size > 0
+    assert _log_errors(browser) == []
+    imgs = _images(browser)
+    srcs = {Path(s).stem for s, _, _ in imgs}
+    assert {"scan", "lightcurve", "folded", "residuals", "posterior"} <= srcs, srcs
+    assert all(ok and width > 0 for _, ok, width in imgs), imgs
+    verdict = json.loads((reports / "c" / "verdict.json").read_text())
+    box = browser.find_element(By.ID, "verdict").text
+    assert verdict["rotation"] in box and verdict["grade"] in box
+    rows = browser.find_elements(By.CSS_SELECTOR, "#periods tbody tr")
+    assert rows, "a periods table"
+    if verdict["period_h"] is not None and math.isfinite(verdict["period_h"]):
+        first = rows[0].find_elements(By.TAG_NAME, "td")
+        assert abs(float(first[1].text) - verdict["period_h"]) <= 1e-6 * verdict["period_h"]
+        assert first[3].text == "h"
+    assert "not operational decisions" in browser.find_element(By.ID, "cautions").find_element(
+        By.XPATH, "following-sibling::div").text

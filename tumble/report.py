@@ -1,0 +1,734 @@
+"""Static HTML reports: one page per object, and a survey index with a sortable, filterable table.
+
+The pages need no server, no network and no external fonts or scripts: the
+CSS and the few lines of plain JavaScript (table sorting and filtering) are
+inline, figures are PNG files beside the pages (:mod:`tumble.plots`), and every
+text taken from the data is escaped (:func:`html.escape`).
+
+Public functions
+----------------
+- :func:`write_object_report` - one object's page from its verdict (and, when
+  given, its light curve and posterior samples for the figures).
+- :func:`write_survey_report` - the survey index and a page per object from a
+  results catalogue (``tumble survey --out``), the per-object verdicts of
+  ``--keep-objects`` and, optionally, the photometry for the figures.
+- :func:`write_report` - what ``tumble report`` calls: a classify output folder
+  or a results catalogue.
+
+The verdicts are scientific estimates for research use, not operational
+decisions; every page says so.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import re
+from collections import Counter
+from pathlib import Path
+from typing import Iterable, Mapping
+
+import numpy as np
+
+from tumble._io import atomic_write_text
+from tumble.exceptions import TumbleError
+
+__all__ = ["ReportError", "CAUTIONS", "GRADE_WORDS", "grade_in_words", "object_figures", "write_object_report",
+           "write_survey_report", "write_report", "page_name"]
+
+
+class ReportError(TumbleError, ValueError):
+    """A report cannot be made from these inputs."""
+
+
+#: The assumptions and cautions printed on every page.
+CAUTIONS = (
+    "These results are scientific estimates for research use, not operational decisions. They are "
+    "probabilities and intervals under stated models and priors, and can be wrong.",
+    "The PA/NPA probability p(NPA) depends on the prior probability of tumbling given to the "
+    "classifier; the Bayes factor does not.",
+    "The evidence compares shape-free Fourier models (one period with slowly drifting coefficients "
+    "against the two-period series); the rotation state (P_psi, P_phi, axis ratios, angular-momentum "
+    "direction) comes from a physical triaxial-ellipsoid model with Lommel-Seeliger scattering, a "
+    "simplification of real shapes and surfaces.",
+    "Each session (night, observer, instrument) has its own free zero-point, so absolute calibration "
+    "between nights carries no information here; periods near 24 h and its fractions are prone to "
+    "daily aliasing.",
+    "Damping timescales are order-of-magnitude estimates that rest on an assumed rigidity times "
+    "quality factor (mu Q), density and shape factor; a diameter from H assumes an albedo.",
+    "Figures show a linear Fourier model at the reported light-curve periods, not the physical model.",
+)
+
+#: What each grade means, in words (Kass & Raftery 1995, section 3.2, on 2|ln B|; our grade names).
+GRADE_WORDS = {
+    "none": "2|ln B| is below 2: the data do not favour either rotation state by more than a bare mention.",
+    "tentative": "2|ln B| lies between 2 and 6: positive but weak evidence; more data could overturn it.",
+    "sound": "2|ln B| lies between 6 and 10: strong evidence.",
+    "firm": "2|ln B| is 10 or more: very strong evidence.",
+}
+
+
+def _f(v) -> float:
+    if isinstance(v, (list, tuple)):
+        return math.nan
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return math.nan
+    return v
+
+
+def _fin(v) -> bool:
+    return math.isfinite(_f(v))
+
+
+def _fmt(v, digits: int = 5) -> str:
+    x = _f(v)
+    return f"{x:.{digits}g}" if math.isfinite(x) else "-"
+
+
+def _e(text) -> str:
+    return html.escape("" if text is None else str(text), quote=True)
+
+
+def grade_in_words(verdict: Mapping) -> str:
+    """One paragraph explaining the verdict's grade (what it favours and how strongly)."""
+    grade = str(verdict.get("grade", "") or "none")
+    ln_b = _f(verdict.get("ln_bayes_factor"))
+    rotation = str(verdict.get("rotation", ""))
+    if not math.isfinite(ln_b):
+        return f"Grade '{grade}': no Bayes factor was computed for this object."
+    favour = "tumbling (NPA)" if ln_b > 0 else "principal-axis rotation (PA)"
+    text = (f"Grade '{grade}': ln B(NPA:PA) = {ln_b:.3g}, so 2|ln B| = {2 * abs(ln_b):.3g}, which favours {favour}. "
+            + GRADE_WORDS.get(grade, "an unknown grade."))
+    if rotation == "undecided":
+        text += (" The verdict is nevertheless 'undecided': the evidence is too weak, split between period "
+                 "solutions, or the data cover too few cycles of the claimed period (see the warnings).")
+    return text + " The scale is that of Kass & Raftery (1995, J. Am. Statist. Assoc. 90, 773); the names are ours."
+
+
+def page_name(object_id: str, taken: set | None = None) -> str:
+    """A file-system-safe page stem for an object (unique within ``taken``, which is updated)."""
+    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", str(object_id)).strip("._") or "object"
+    if taken is not None:
+        base, k = stem, 2
+        while stem.lower() in taken:
+            stem, k = f"{base}_{k}", k + 1
+        taken.add(stem.lower())
+    return stem
+
+
+# ---------------------------------------------------------------------------
+# page frame
+# ---------------------------------------------------------------------------
+_CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,"Helvetica Neue",Arial,sans-serif;margin:0;
+color:#1a202c;background:#f7fafc;line-height:1.45;font-size:16px}
+header{background:#1a365d;color:#fff;padding:14px 28px}
+header h1{margin:0;font-size:1.5em} header p{margin:4px 0 0 0;color:#cbd5e0}
+header a{color:#bee3f8}
+main{padding:10px 28px 40px 28px;max-width:1300px}
+h2{border-bottom:2px solid #cbd5e0;padding-bottom:3px;margin-top:1.6em}
+table{border-collapse:collapse;background:#fff;margin:8px 0}
+th,td{border:1px solid #cbd5e0;padding:4px 9px;text-align:left;vertical-align:top}
+th{background:#edf2f7} td.num{text-align:right;font-variant-numeric:tabular-nums}
+table.sortable th{cursor:pointer;user-select:none} table.sortable th:hover{background:#e2e8f0}
+th[aria-sort=ascending]::after{content:" \\25B2"} th[aria-sort=descending]::after{content:" \\25BC"}
+.verdict{display:inline-block;padding:10px 16px;border-radius:6px;background:#fff;border:2px solid #2b6cb0;
+font-size:1.25em;margin:6px 0}
+.v-PA{border-color:#2b6cb0}.v-NPA{border-color:#c53030}.v-undecided{border-color:#718096}
+.caution{background:#fffaf0;border-left:5px solid #dd6b20;padding:8px 16px}
+.warn{color:#9c4221}
+figure{margin:14px 0;background:#fff;padding:8px;border:1px solid #e2e8f0;display:inline-block;max-width:100%}
+figure img{max-width:100%;height:auto} figcaption{color:#4a5568;font-size:.95em;max-width:1000px}
+.counts span{display:inline-block;margin:0 14px 6px 0;padding:4px 10px;background:#fff;border:1px solid #cbd5e0;
+border-radius:4px}
+#filter{font-size:1em;padding:5px 8px;width:24em}
+.note{color:#4a5568}
+#objects td:first-child{white-space:nowrap} #objects td.msg{max-width:30em;font-size:.9em}
+.counts{display:inline-block;vertical-align:top;margin-right:2.5em}
+"""
+
+_JS = """
+(function(){
+  var table=document.getElementById('objects'); if(!table) return;
+  var body=table.tBodies[0], heads=table.tHead.rows[0].cells;
+  function key(cell){var v=cell.getAttribute('data-sort'); if(v===null) v=cell.textContent;
+    var n=parseFloat(v); return (v!==''&&!isNaN(n))?{n:n}:{s:v.toLowerCase()};}
+  function cmp(a,b){ if(a.n!==undefined&&b.n!==undefined) return a.n-b.n;
+    if(a.n!==undefined) return -1; if(b.n!==undefined) return 1;
+    if(a.s===''&&b.s!=='') return 1; if(b.s===''&&a.s!=='') return -1; return a.s<b.s?-1:(a.s>b.s?1:0);}
+  Array.prototype.forEach.call(heads,function(th,col){
+    th.addEventListener('click',function(){
+      var asc=th.getAttribute('aria-sort')!=='ascending';
+      Array.prototype.forEach.call(heads,function(h){h.removeAttribute('aria-sort');});
+      th.setAttribute('aria-sort',asc?'ascending':'descending');
+      var rows=Array.prototype.slice.call(body.rows);
+      rows.sort(function(r1,r2){var c=cmp(key(r1.cells[col]),key(r2.cells[col])); return asc?c:-c;});
+      rows.forEach(function(r){body.appendChild(r);});
+    });
+  });
+  var box=document.getElementById('filter'), shown=document.getElementById('shown');
+  function filter(){var q=box.value.toLowerCase(), n=0;
+    Array.prototype.forEach.call(body.rows,function(r){var ok=r.textContent.toLowerCase().indexOf(q)>=0;
+      r.style.display=ok?'':'none'; if(ok) n++;});
+    shown.textContent=n+' of '+body.rows.length+' objects shown';}
+  if(box){box.addEventListener('input',filter); filter();}
+})();
+"""
+
+
+def _page(title: str, subtitle: str, body: str, *, script: bool = False) -> str:
+    from tumble import __version__
+
+    js = f"<script>{_JS}</script>" if script else ""
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
+        "<link rel=\"icon\" href=\"data:,\">\n"
+        f"<title>{_e(title)}</title>\n<style>{_CSS}</style>\n</head>\n<body>\n"
+        f"<header><h1>{_e(title)}</h1><p>{subtitle}</p></header>\n<main>\n{body}\n"
+        f"<p class=\"note\">Made by tumble {_e(__version__)}. Static page: no server, no network.</p>\n"
+        f"</main>\n{js}\n</body>\n</html>\n"
+    )
+
+
+def _cautions_html() -> str:
+    items = "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS)
+    return f"<h2 id=\"cautions\">Assumptions and cautions</h2>\n<div class=\"caution\"><ul>{items}</ul></div>"
+
+
+# ---------------------------------------------------------------------------
+# one object
+# ---------------------------------------------------------------------------
+def _triple(v):
+    """(median, lo, hi) from a list value or NaNs."""
+    if isinstance(v, (list, tuple)) and len(v) == 3:
+        return tuple(_f(x) for x in v)
+    return (math.nan, math.nan, math.nan)
+
+
+def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
+    """(quantity, value, interval, unit, meaning) rows for the quantities present."""
+    rows = []
+
+    def interval(name, lo, hi, value, unit, meaning):
+        if _fin(v.get(name)):
+            iv = f"{_fmt(v.get(lo), 7)} .. {_fmt(v.get(hi), 7)} (68%)" if _fin(v.get(lo)) else "-"
+            rows.append((value, _fmt(v.get(name), 7), iv, unit, meaning))
+
+    if _fin(v.get("period_h")):
+        err = v.get("period_h_err")
+        rows.append(("rotation period P", _fmt(v.get("period_h"), 8),
+                     f"&plusmn; {_fmt(err, 3)} (1 sigma)" if _fin(err) else "-", "h",
+                     "PA rotation period (twice the light-curve period for a double-peaked curve)"))
+    interval("p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "P_psi", "h", "NPA rotation period (median of the posterior)")
+    interval("p_phi_h", "p_phi_h_lo", "p_phi_h_hi", "P_phi", "h", "NPA precession period (median of the posterior)")
+    if _fin(v.get("p1_h")):
+        rows.append(("P1", _fmt(v.get("p1_h"), 8), "-", "h", "strongest light-curve period"))
+    if _fin(v.get("p2_h")):
+        rows.append(("P2", _fmt(v.get("p2_h"), 8), "-", "h", "second light-curve period (two-period fit)"))
+    if _fin(v.get("amplitude_mag")):
+        rows.append(("amplitude", _fmt(v.get("amplitude_mag"), 3), "-", "mag", "peak-to-peak, one-period fit"))
+    interval("excitation", "excitation_lo", "excitation_hi", "E/E0", "1",
+             "rotational energy over the PA energy at the same angular momentum")
+    for key, label, unit, meaning in (("a_over_b", "a/b", "1", "long/intermediate axis ratio"),
+                                      ("b_over_c", "b/c", "1", "intermediate/short axis ratio"),
+                                      ("l_lon_deg", "L longitude", "deg", "angular momentum, ecliptic J2000"),
+                                      ("l_lat_deg", "L latitude", "deg", "angular momentum, ecliptic J2000")):
+        med, lo, hi = _triple(v.get(key))
+        if math.isfinite(med):
+            rows.append((label, _fmt(med, 4), f"{_fmt(lo, 4)} .. {_fmt(hi, 4)} (68%)", unit, meaning))
+    interval("tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "damping time tau", "Gyr",
+             "order-of-magnitude estimate; rests on an assumed mu Q")
+    return rows
+
+
+def _load_posterior(path: Path):
+    if not path.exists():
+        return None
+    with np.load(path, allow_pickle=False) as z:
+        if "samples" not in z.files:
+            return None
+        return {"samples": np.array(z["samples"]), "names": [str(x) for x in z["names"]],
+                "units": [str(x) for x in z["units"]]}
+
+
+def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | None = None, two_d: bool = True,
+                   prefix: str = "") -> tuple[list[tuple[str, str]], list[str]]:
+    """Draw one object's figures into ``out_dir``.
+
+    Parameters
+    ----------
+    out_dir : path
+        Folder for the PNG files.
+    verdict : mapping
+        The verdict (``verdict.json`` keys or a results row).
+    lc : LightCurve or None
+        The photometry (without it only the posterior can be drawn).
+    posterior : mapping or None
+        ``samples`` (n, k), ``names`` and ``units`` of the posterior.
+    two_d : bool
+        Draw the (P1, P2) map when the verdict has two light-curve periods.
+    prefix : str
+        Prefix of the PNG file names.
+
+    Returns
+    -------
+    figures : list of (file name, caption)
+    notes : list of str
+        Figures that could not be drawn, and why.
+    """
+    from tumble import plots
+
+    out_dir = Path(out_dir)
+    figs: list[tuple[str, str]] = []
+    notes: list[str] = []
+    name = str(verdict.get("object") or verdict.get("object_id") or "")
+
+    def draw(stem, caption, fn):
+        try:
+            fn(out_dir / f"{prefix}{stem}.png")
+            figs.append((f"{prefix}{stem}.png", caption))
+        except TumbleError as exc:
+            notes.append(f"{stem}: {' '.join(str(exc).split())}")
+        except (ValueError, np.linalg.LinAlgError) as exc:
+            notes.append(f"{stem}: could not be drawn ({type(exc).__name__}: {' '.join(str(exc).split())[:200]})")
+
+    if lc is not None:
+        from tumble.periodogram import fourier_scan
+
+        p1 = _f(verdict.get("p1_h"))
+        chosen = p1 if math.isfinite(p1) else None
+        draw("scan", "1-D period scan: reduced chi-square of the multi-harmonic Fourier fit (per-session "
+             "zero-points) against trial period; the red line is the reported light-curve period P1, dashed "
+             "lines the other ranked minima with their alias relation to the best one.",
+             lambda p: plots.plot_scan(fourier_scan(lc), chosen_period_h=chosen, path=p))
+        model = None
+        try:
+            model = plots.model_from_verdict(lc, verdict)
+        except TumbleError as exc:
+            notes.append(f"model: {' '.join(str(exc).split())}")
+        p2 = _f(verdict.get("p2_h"))
+        if two_d and math.isfinite(p1) and math.isfinite(p2):
+            draw("map2d", "Two-period scan: Delta chi-square of the two-period Fourier series (Pravec et al. "
+                 "2005) over a (P1, P2) grid around the reported pair (+ marks the best grid pair).",
+                 lambda p: plots.plot_two_period_map(plots.two_period_zoom(lc, p1, p2), path=p))
+        if model is not None:
+            draw("lightcurve", "Light curve per session (blue, with errors) and the Fourier model at the reported "
+                 "periods with each session's zero-point (red).",
+                 lambda p: plots.plot_lightcurve(lc, model, path=p))
+            fold_caption = ("Folded light curve with the zero-points removed, on the rotation period." if
+                            model.kind == "PA" else
+                            "Two-period view: the data folded on P1 after subtracting the fitted P2 component "
+                            "(and combination terms), and on P2 after subtracting the P1 component.")
+            draw("folded", fold_caption, lambda p: plots.plot_folded(lc, model, path=p))
+            draw("residuals", "Residuals of the model against time (colour by session) and their distribution "
+                 "in units of the quoted errors.", lambda p: plots.plot_residuals(lc, model, path=p))
+    if posterior is not None and np.asarray(posterior.get("samples", [])).ndim == 2 \
+            and np.asarray(posterior["samples"]).shape[0] > 1:
+        draw("posterior", "Posterior samples of the main parameters of the physical rotation-state fit "
+             "(diagonal: histograms; below: pairs).",
+             lambda p: plots.plot_posterior_pairs(posterior["samples"], posterior["names"], posterior.get("units"),
+                                                  object_id=name, path=p))
+    return figs, notes
+
+
+def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, data_note: str = "") -> str:
+    rotation = str(v.get("rotation", "") or "")
+    status = str(v.get("status", "ok") or "ok")
+    parts = []
+    if back_link:
+        parts.append(f"<p><a href=\"{_e(back_link)}\">&larr; back to the survey table</a></p>")
+    if status != "ok":
+        parts.append(f"<h2>Status: {_e(status)}</h2><p class=\"warn\">{_e(v.get('message', ''))}</p>")
+        parts.append("<p>No verdict was made for this object.</p>")
+        parts.append(_cautions_html())
+        return "\n".join(parts)
+    mode = str(v.get("mode", "") or "none")
+    label = rotation + (f" ({mode})" if rotation == "NPA" and mode not in ("", "none") else "")
+    cls = rotation if rotation in ("PA", "NPA", "undecided") else "undecided"
+    prior = v.get("prior_npa")
+    prior_txt = f" at a prior of {_fmt(prior, 3)}" if _fin(prior) else ""
+    ln_err = v.get("ln_bayes_factor_err")
+    parts.append("<h2>Verdict</h2>")
+    parts.append(f"<div class=\"verdict v-{_e(cls)}\" id=\"verdict\">{_e(label or '-')} &mdash; grade "
+                 f"<b>{_e(v.get('grade', '') or 'none')}</b></div>")
+    parts.append("<table><tbody>"
+                 f"<tr><th>p(NPA)</th><td class=\"num\">{_fmt(v.get('p_npa'), 3)}</td>"
+                 f"<td>posterior probability of tumbling{_e(prior_txt)}</td></tr>"
+                 f"<tr><th>ln B(NPA:PA)</th><td class=\"num\">{_fmt(v.get('ln_bayes_factor'), 4)}"
+                 + (f" &plusmn; {_fmt(ln_err, 2)}" if _fin(ln_err) else "") +
+                 "</td><td>natural log of the Bayes factor (positive favours NPA)</td></tr>"
+                 "</tbody></table>")
+    parts.append(f"<p id=\"grade-words\">{_e(grade_in_words(v))}</p>")
+    parts.append("<h2>Periods and derived quantities</h2>")
+    rows = _periods_rows(v)
+    if rows:
+        body = "".join(f"<tr><td>{_e(q)}</td><td class=\"num\">{_e(val)}</td><td>{iv}</td><td>{_e(u)}</td>"
+                       f"<td>{_e(m)}</td></tr>" for q, val, iv, u, m in rows)
+        parts.append("<table id=\"periods\"><thead><tr><th>quantity</th><th>value</th><th>interval</th>"
+                     f"<th>unit</th><th>meaning</th></tr></thead><tbody>{body}</tbody></table>")
+    else:
+        parts.append("<p>No period was claimed.</p>")
+    parts.append("<h2>Data</h2><table><tbody>"
+                 f"<tr><th>points</th><td class=\"num\">{_e(v.get('n_points', '-'))}</td></tr>"
+                 f"<tr><th>sessions</th><td class=\"num\">{_e(v.get('n_sessions', '-'))}</td></tr>"
+                 f"<tr><th>span</th><td class=\"num\">{_fmt(v.get('span_d'), 4)} d</td></tr>"
+                 "</tbody></table>")
+    route = v.get("evidence_route")
+    if route:
+        parts.append(f"<p class=\"note\">Evidence route: {_e(route)}</p>")
+    warnings = v.get("warnings")
+    if isinstance(warnings, str):
+        warnings = [w for w in warnings.split("; ") if w]
+    if not warnings and v.get("message"):
+        warnings = [w for w in str(v.get("message")).split("; ") if w]
+    if warnings:
+        parts.append("<h2>Warnings</h2><ul>" + "".join(f"<li class=\"warn\">{_e(w)}</li>" for w in warnings)
+                     + "</ul>")
+    parts.append("<h2>Figures</h2>")
+    if data_note:
+        parts.append(f"<p class=\"note\">{_e(data_note)}</p>")
+    for fname, caption in figures:
+        parts.append(f"<figure><img src=\"{_e(fname)}\" alt=\"{_e(caption)}\"><figcaption>{_e(caption)}"
+                     "</figcaption></figure>")
+    if not figures:
+        parts.append("<p class=\"note\">No figures (no photometry or posterior samples were given).</p>")
+    for n in notes:
+        parts.append(f"<p class=\"note\">Not drawn: {_e(n)}</p>")
+    parts.append(_cautions_html())
+    return "\n".join(parts)
+
+
+def _normalise(verdict: Mapping) -> dict:
+    v = dict(verdict)
+    if "object" not in v and "object_id" in v:
+        v["object"] = v["object_id"]
+    return v
+
+
+def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mapping | None = None,
+                        two_d: bool = True, page: str = "index.html", back_link: str | None = None,
+                        figure_prefix: str = "", data_note: str = "") -> Path:
+    """Write one object's HTML page (and its figures) into ``out_dir``; returns the page's path.
+
+    Parameters
+    ----------
+    out_dir : path
+        Folder of the page and its PNG figures (created).
+    verdict : mapping
+        The verdict: the keys of ``verdict.json`` (``tumble classify``), of
+        ``Verdict.to_dict()`` or of a results row.
+    lc : LightCurve or None
+        The photometry, for the scan, light-curve, folded, residual and two-period figures.
+    posterior : mapping or None
+        ``samples`` (n, k), ``names``, ``units`` (as in ``posterior.npz``), for the pair plot.
+    two_d : bool
+        Draw the (P1, P2) map when two light-curve periods are reported.
+    page : str
+        File name of the page.
+    back_link : str or None
+        Link back to a survey index.
+    figure_prefix : str
+        Prefix of the figure file names.
+    """
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    v = _normalise(verdict)
+    name = str(v.get("object", "") or "object")
+    figures, notes = ([], []) if str(v.get("status", "ok") or "ok") != "ok" else object_figures(
+        out_dir, v, lc, posterior=posterior, two_d=two_d, prefix=figure_prefix)
+    body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note)
+    path = out_dir / page
+    atomic_write_text(path, _page(f"{name}: tumble report", "One object: rotation verdict, periods and figures. "
+                                  "Scientific estimates for research use, not operational decisions.", body))
+    return path
+
+
+# ---------------------------------------------------------------------------
+# a survey
+# ---------------------------------------------------------------------------
+#: Columns of the survey table: (results column, header, unit, digits or None for text).
+SURVEY_COLUMNS = (
+    ("object", "object", "", None), ("status", "status", "", None), ("rotation", "rotation", "", None),
+    ("mode", "mode", "", None), ("p_npa", "p(NPA)", "", 3), ("grade", "grade", "", None),
+    ("period_h", "P", "h", 7), ("p_psi_h", "P_psi", "h", 6), ("p_phi_h", "P_phi", "h", 6), ("p1_h", "P1", "h", 7),
+    ("p2_h", "P2", "h", 7), ("amplitude_mag", "amplitude", "mag", 3), ("tau_damp_gyr", "tau", "Gyr", 3),
+    ("n_points", "points", "", None), ("message", "message", "", None),
+)
+
+
+def _row_dict(table, i) -> dict:
+    out = {}
+    for c in table.colnames:
+        v = table[c][i]
+        if v is np.ma.masked:
+            v = "" if table[c].dtype.kind in "USO" else math.nan
+        if isinstance(v, np.generic):
+            v = v.item()
+        if isinstance(v, bytes):
+            v = v.decode("utf-8", "replace")
+        out[c] = v
+    return out
+
+
+def _read_sizes(path) -> dict:
+    """Object -> diameter (km) from a table with ``object`` and ``diameter_km``, or ``h_mag`` (and ``albedo``)."""
+    from astropy.table import Table
+
+    from tumble.damping import diameter_from_h
+
+    path = Path(path)
+    if not path.exists():
+        raise ReportError(f"{path}: no such file")
+    try:
+        table = Table.read(path, format="ascii") if path.suffix.lower() in (".csv", ".txt") else Table.read(path)
+    except Exception as exc:
+        raise ReportError(f"{path}: unreadable size table ({str(exc).splitlines()[0][:150]})") from None
+    cols = {c.lower(): c for c in table.colnames}
+    if "object" not in cols or not ({"diameter_km", "h_mag"} & set(cols)):
+        raise ReportError(f"{path}: a size table needs columns object and diameter_km or h_mag (albedo optional)")
+    out = {}
+    for row in table:
+        d = _f(row[cols["diameter_km"]]) if "diameter_km" in cols else math.nan
+        if not math.isfinite(d) and "h_mag" in cols:
+            h = _f(row[cols["h_mag"]])
+            a = _f(row[cols["albedo"]]) if "albedo" in cols else 0.14
+            if math.isfinite(h):
+                d = float(diameter_from_h(h, a if math.isfinite(a) and a > 0 else 0.14))
+        out[str(row[cols["object"]]).strip()] = d
+    return out
+
+
+def _cell(row: Mapping, col: str, digits, link: str | None) -> str:
+    v = row.get(col)
+    if digits is None:
+        text = "" if v is None else str(v)
+        if col == "n_points":
+            return f"<td class=\"num\" data-sort=\"{_e(text)}\">{_e(text)}</td>"
+        if link is not None:
+            return f"<td data-sort=\"{_e(text)}\"><a href=\"{_e(link)}\">{_e(text)}</a></td>"
+        if col == "message" and len(text) > 120:
+            return f"<td class=\"msg\" title=\"{_e(text)}\">{_e(text[:117])}...</td>"
+        cls = " class=\"msg\"" if col == "message" else ""
+        return f"<td{cls}>{_e(text)}</td>"
+    x = _f(v)
+    if not math.isfinite(x):
+        return "<td class=\"num\" data-sort=\"\">-</td>"
+    return f"<td class=\"num\" data-sort=\"{x!r}\">{x:.{digits}g}</td>"
+
+
+def _lightcurves(data, read_options):
+    """Object -> (LightCurve or None, error text or None) from the survey's inputs."""
+    from tumble.photometry import read_lightcurve
+    from tumble.survey import collect_objects
+
+    out = {}
+    for task in collect_objects(list(data), read_options=read_options):
+        if task.error is not None:
+            out[task.object_id] = (None, task.error)
+        elif task.lightcurve is not None:
+            out[task.object_id] = (task.lightcurve, None)
+        else:
+            out[task.object_id] = (list(task.paths), None)
+    return out, read_lightcurve
+
+
+def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterable | None = None,
+                        read_options=None, sizes=None, figures: bool = True, title: str | None = None,
+                        progress: bool = False) -> Path:
+    """Write the HTML report of a survey; returns the path of its index page.
+
+    Parameters
+    ----------
+    results_path : path
+        The results catalogue (``tumble survey --out``; ECSV, FITS, CSV or Parquet).
+    out_dir : path
+        Report folder (created): ``index.html``, ``sample_*.png`` and one folder per object,
+        ``objects/NAME/index.html`` with its figures beside it.
+    objects_dir : path or None
+        The ``--keep-objects`` folder of the survey: ``OBJECT/verdict.json`` files add the
+        intervals, warnings and evidence route to each object's page.
+    data : iterable of path or None
+        The survey's inputs (directories, globs, files or survey tables); with them each
+        object's page gets its figures (the photometry is re-read, not re-classified).
+    read_options : tumble.photometry.ReadOptions or None
+        How to read ``data``.
+    sizes : path, mapping or None
+        Diameters for the period-diameter diagram: a table with ``object`` and
+        ``diameter_km`` or ``h_mag`` (and ``albedo``), or a mapping object -> km. A
+        ``diameter_km`` column in the results is used too.
+    figures : bool
+        Draw figures (False: tables and text only).
+    title : str or None
+        Page title (default from the results file name).
+    progress : bool
+        tqdm bar over the objects.
+    """
+    from tumble import plots
+    from tumble.results import read_results
+
+    results_path = Path(results_path)
+    table = read_results(results_path)
+    out_dir = Path(out_dir)
+    (out_dir / "objects").mkdir(parents=True, exist_ok=True)
+    rows = [_row_dict(table, i) for i in range(len(table))]
+    objects_dir = Path(objects_dir) if objects_dir is not None else None
+    if objects_dir is not None and not objects_dir.is_dir():
+        raise ReportError(f"{objects_dir}: no such folder (the survey's --keep-objects folder)")
+    lcs, reader = ({}, None)
+    if data and figures:
+        lcs, reader = _lightcurves(data, read_options)
+    title = title or f"Survey report: {results_path.name}"
+
+    taken: set = set()
+    links = {}
+    iterator = rows
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(rows, unit="object", desc="report", leave=False)
+        iterator = bar
+    for row in iterator:
+        name = str(row.get("object", ""))
+        stem = page_name(name, taken)
+        links[name] = f"objects/{stem}/index.html"
+        v = dict(row)
+        vj = objects_dir / name / "verdict.json" if objects_dir is not None else None
+        if vj is not None and vj.exists():
+            try:
+                extra = json.loads(vj.read_text(encoding="utf-8"))
+            except (OSError, ValueError) as exc:
+                raise ReportError(f"{vj}: unreadable verdict ({exc})") from None
+            for k, val in extra.items():
+                # the damping time is the survey's (it knows the sizes); the rest is the richer verdict
+                if k != "object_id" and not k.startswith("tau_damp"):
+                    v[k] = val
+        lc, note = None, "No photometry given to the report (tumble report --data), so no light-curve figures."
+        if name in lcs:
+            item, err = lcs[name]
+            if err is not None:
+                note = f"Photometry could not be read: {err}"
+            elif isinstance(item, list):
+                try:
+                    lc = reader(item, options=read_options, object_id=name)
+                    note = ""
+                except TumbleError as exc:
+                    note = f"Photometry could not be read: {' '.join(str(exc).split())}"
+            else:
+                lc, note = item, ""
+        elif data:
+            note = "This object is not among the photometry inputs given to the report."
+        if not figures:
+            note = "Figures were switched off."
+        note += (" The survey keeps no posterior samples, so there is no posterior figure here "
+                 "(tumble classify --report draws it).") if str(row.get("status")) == "ok" else ""
+        write_object_report(out_dir / "objects" / stem, v, lc=lc, page="index.html", back_link="../../index.html",
+                            data_note=note.strip())
+    if bar is not None:
+        bar.close()
+
+    # the sample figures
+    sample_figs, sample_notes = [], []
+    diam = {}
+    if "diameter_km" in table.colnames:
+        diam.update({str(r["object"]): _f(r.get("diameter_km")) for r in rows})
+    if isinstance(sizes, Mapping):
+        diam.update({str(k): _f(x) for k, x in sizes.items()})
+    elif sizes is not None:
+        diam.update(_read_sizes(sizes))
+    if figures:
+        d = [diam.get(str(r["object"]), math.nan) for r in rows]
+        if any(math.isfinite(x) for x in d):
+            plots.plot_period_diameter(rows, d, title=results_path.stem, path=out_dir / "sample_period_diameter.png")
+            sample_figs.append(("sample_period_diameter.png",
+                                "Period-diameter diagram of the classified objects with lines of constant damping "
+                                "time (Burns & Safronov 1973 form, default mu Q, density and shape factor); "
+                                "symbols: blue circle PA, red up-triangle NPA SAM, orange down-triangle NPA LAM, "
+                                "purple diamond NPA with open mode, open grey square undecided."))
+        else:
+            sample_notes.append("No diameters are known (give the report a size table), so no period-diameter "
+                                "diagram.")
+    body = _survey_body(rows, links, sample_figs, sample_notes, results_path)
+    index = out_dir / "index.html"
+    atomic_write_text(index, _page(title, f"{len(rows)} objects from {_e(results_path.name)}. Scientific "
+                                   "estimates for research use, not operational decisions.", body, script=True))
+    return index
+
+
+def _counts_html(label: str, counts: Counter) -> str:
+    items = "".join(f"<span>{_e(k or '-')}: <b>{v}</b></span>" for k, v in sorted(counts.items()))
+    return f"<p class=\"counts\"><b>{_e(label)}</b><br>{items or '-'}</p>"
+
+
+def _survey_body(rows, links, sample_figs, sample_notes, results_path) -> str:
+    ok = [r for r in rows if str(r.get("status")) == "ok"]
+    parts = ["<h2>Summary</h2>",
+             _counts_html("status", Counter(str(r.get("status", "")) for r in rows)),
+             _counts_html("rotation (objects with status ok)", Counter(
+                 str(r.get("rotation", "")) + (f" {r.get('mode')}" if str(r.get("rotation")) == "NPA"
+                                               and str(r.get("mode")) not in ("", "none") else "") for r in ok)),
+             _counts_html("grade (objects with status ok)", Counter(str(r.get("grade", "")) for r in ok))]
+    parts.append("<h2>Objects</h2>")
+    parts.append("<p><label for=\"filter\">Filter rows: </label><input id=\"filter\" type=\"search\" "
+                 "placeholder=\"text in any column, e.g. NPA or KRN-00\"> <span id=\"shown\" class=\"note\"></span>"
+                 "</p><p class=\"note\">Click a column header to sort by it (again to reverse). Periods in hours; "
+                 "'-' where a value does not apply.</p>")
+    head = "".join(f"<th data-col=\"{_e(c)}\" title=\"{_e(c)}\">{_e(h)}{(' (' + _e(u) + ')') if u else ''}</th>"
+                   for c, h, u, _ in SURVEY_COLUMNS)
+    body = []
+    for r in rows:
+        name = str(r.get("object", ""))
+        cells = "".join(_cell(r, c, dg, links.get(name) if c == "object" else None) for c, _, _, dg in SURVEY_COLUMNS)
+        body.append(f"<tr>{cells}</tr>")
+    parts.append(f"<table id=\"objects\" class=\"sortable\"><thead><tr>{head}</tr></thead><tbody>"
+                 + "\n".join(body) + "</tbody></table>")
+    parts.append("<h2>Sample figures</h2>")
+    for fname, caption in sample_figs:
+        parts.append(f"<figure><img src=\"{_e(fname)}\" alt=\"{_e(caption)}\"><figcaption>{_e(caption)}"
+                     "</figcaption></figure>")
+    for n in sample_notes:
+        parts.append(f"<p class=\"note\">{_e(n)}</p>")
+    parts.append(_cautions_html())
+    return "\n".join(parts)
+
+
+# ---------------------------------------------------------------------------
+# what `tumble report` calls
+# ---------------------------------------------------------------------------
+def write_report(source, out_dir, *, objects_dir=None, data=None, read_options=None, sizes=None,
+                 figures: bool = True, progress: bool = False) -> Path:
+    """Report from ``source``: a ``tumble classify`` output folder (``verdict.json``, optional
+    ``posterior.npz``) or a results catalogue (a survey). Returns the index page's path.
+
+    For a classify folder, ``data`` are the object's photometry files (for the figures).
+    """
+    source = Path(source)
+    if source.is_dir():
+        vpath = source / "verdict.json"
+        if vpath.exists():
+            try:
+                verdict = json.loads(vpath.read_text(encoding="utf-8"))
+            except (OSError, ValueError) as exc:
+                raise ReportError(f"{vpath}: unreadable verdict ({exc})") from None
+            lc = None
+            note = "No photometry given to the report (tumble report --data FILE...), so no light-curve figures."
+            if data and figures:
+                from tumble.photometry import read_lightcurve
+
+                lc = read_lightcurve([str(p) for p in data], options=read_options)
+                note = ""
+            post = _load_posterior(source / "posterior.npz") if figures else None
+            return write_object_report(out_dir, verdict, lc=lc, posterior=post, data_note=note)
+        results = source / "results.ecsv"
+        if results.exists():
+            return write_survey_report(results, out_dir, objects_dir, data=data, read_options=read_options,
+                                       sizes=sizes, figures=figures, progress=progress)
+        raise ReportError(f"{source}: neither a classify output folder (verdict.json) nor one with results.ecsv")
+    if not source.exists():
+        raise ReportError(f"{source}: no such file or folder")
+    return write_survey_report(source, out_dir, objects_dir, data=data, read_options=read_options, sizes=sizes,
+                               figures=figures, progress=progress)
