@@ -1,0 +1,210 @@
+"""Throughput, parallel efficiency, Dask overhead and memory of ``tumble survey --screen``.
+
+Run:  .venv/bin/python benchmarks/bench_survey.py [--sizes 100,1000,5000] [--quick] [--efficiency-size N]
+
+The sample: simulated sparse survey objects of 200 points each (tumble.simulate.SparseSurvey: 100
+nights x 2 visits over 365 days, half PA and half SAM, 0.03 mag noise), one CSV file per object, written
+once into ``--data-dir`` and reused. Every configuration runs ``run_survey`` in its own subprocess (so
+memory is measured from a clean start) through the real path: the parent lists the files, the workers
+read and screen them. Measured side by side in one run and printed as ratios:
+
+- throughput of the process pool with ``--workers`` (default 2) at each size: objects/s, objects/s/core,
+  and the time per object relative to the smallest size (flat = the per-object cost does not grow);
+- parallel efficiency: 1 worker versus 2 workers on the same sample (``--efficiency-size`` objects;
+  target >= 1.7x);
+- Dask LocalCluster (2 single-threaded workers) versus the process pool (2 workers) on that sample
+  (overhead target <= 20 %);
+- peak memory (RSS) of the parent and of the largest worker, and of the whole process tree, sampled
+  every 0.1 s with psutil, for each size.
+
+The default sizes (100, 1000, 5000) take hours at ~2-4 s per object on two cores; ``--quick`` runs
+10, 20, 40. Numerical threads are pinned to one. The machines these run on are shared: read ratios.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _v in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ[_v] = "1"
+
+import argparse  # noqa: E402
+import json  # noqa: E402
+import math  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
+import threading  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+warnings.simplefilter("ignore")
+
+
+def make_sample(folder: Path, n: int, seed: int = 20261202) -> list[Path]:
+    """n sparse 200-point objects (object k is the same whatever n), as CSV files; existing files are reused."""
+    from tumble.dynamics import RotationState
+    from tumble.simulate import NoiseModel, SparseSurvey, simulate_lightcurve, write_simulation
+
+    folder.mkdir(parents=True, exist_ok=True)
+    paths = []
+    for k in range(n):
+        path = folder / f"bench{k:05d}.csv"
+        paths.append(path)
+        if path.exists():
+            continue
+        g = np.random.default_rng([seed, k])
+        lon, lat = g.uniform(0, 360), math.degrees(math.asin(g.uniform(-1, 1)))
+        axes = (1.5, 1.15, 1.0)
+        if k % 2 == 0:
+            state = RotationState.principal_axis(float(g.uniform(3.0, 30.0)), lon, lat, float(g.uniform(0, 360)),
+                                                 epoch_jd=2460000.5)
+        else:
+            a2, b2, c2 = np.square(axes)
+            i1, i2 = (b2 + c2) / (a2 + b2), (a2 + c2) / (a2 + b2)
+            idd = float(i2 + g.uniform(0.2, 0.8) * (1 - i2))
+            state = RotationState.excited(i1, i2, idd, float(g.uniform(3.0, 30.0)), lon, lat,
+                                          float(g.uniform(0, 360)), float(g.uniform(0, 360)), epoch_jd=2460000.5)
+        plan = SparseSurvey(2460000.5, span_d=365.0, n_nights=100, points_per_night=2)
+        sim = simulate_lightcurve(state, axes, plan, noise=NoiseModel(0.03), object_id=path.stem,
+                                  rng=int(g.integers(1 << 30)))
+        tmp = path.with_name("." + path.name)
+        write_simulation(sim, tmp, format="csv")
+        Path(str(tmp) + ".truth.json").unlink(missing_ok=True)
+        os.replace(tmp, path)
+    return paths
+
+
+def _one(args) -> None:
+    """Child: one survey run; prints its JSON line (wall time, counts)."""
+    from tumble.survey import SurveyConfig, run_survey
+
+    paths = sorted(Path(args.data_dir).glob("bench*.csv"))[: args.n]
+    out = Path(tempfile.mkdtemp(prefix="bench_survey_")) / "results.ecsv"
+    kw = {"dask_local": args.workers} if args.executor == "dask" else {"workers": args.workers}
+    t0 = time.perf_counter()
+    s = run_survey([str(p) for p in paths], out, SurveyConfig(route="screen", seed=1, object_timeout_s=None),
+                   progress=False, **kw)
+    wall = time.perf_counter() - t0
+    print(json.dumps({"wall_s": wall, "status": s.status_counts, "cpu_per_object_s": s.cpu_per_object_s,
+                      "rotation": s.rotation_counts, "results": str(out)}))
+
+
+def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
+    """Run one configuration in a subprocess, sampling the RSS of its process tree."""
+    import psutil
+
+    cmd = [sys.executable, __file__, "--_one", "--data-dir", str(data_dir), "--n", str(n), "--executor", executor,
+           "--workers", str(workers)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    peak = {"parent": 0, "worker": 0, "tree": 0}
+    stop = threading.Event()
+
+    def sample():
+        try:
+            root = psutil.Process(proc.pid)
+        except psutil.Error:
+            return
+        while not stop.is_set():
+            try:
+                parent = root.memory_info().rss
+                kids = []
+                for c in root.children(recursive=True):
+                    try:
+                        kids.append(c.memory_info().rss)
+                    except psutil.Error:
+                        pass
+                peak["parent"] = max(peak["parent"], parent)
+                peak["worker"] = max([peak["worker"], *kids])
+                peak["tree"] = max(peak["tree"], parent + sum(kids))
+            except psutil.Error:
+                pass
+            stop.wait(0.1)
+
+    th = threading.Thread(target=sample, daemon=True)
+    th.start()
+    stdout, stderr = proc.communicate()
+    stop.set()
+    th.join()
+    if proc.returncode != 0:
+        raise SystemExit(f"configuration {executor} x{workers} on {n} objects failed:\n{stderr[-2000:]}")
+    res = json.loads(stdout.strip().splitlines()[-1])
+    res.update(n=n, executor=executor, workers=workers, rss_parent_mb=peak["parent"] / 2**20,
+               rss_worker_mb=peak["worker"] / 2**20, rss_tree_mb=peak["tree"] / 2**20)
+    return res
+
+
+def _same_rows(a: str, b: str) -> bool:
+    from tumble.results import read_results
+
+    ta, tb = read_results(a), read_results(b)
+    cols = [c for c in ta.colnames if c != "runtime_s"]
+
+    def norm(t):
+        return [[None if isinstance(v, float) and math.isnan(v) else v for v in row]
+                for row in t[cols].as_array().tolist()]
+
+    return norm(ta) == norm(tb)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sizes", default="100,1000,5000", help="sample sizes (comma-separated)")
+    ap.add_argument("--quick", action="store_true", help="sizes 10,20,40")
+    ap.add_argument("--efficiency-size", type=int, help="sample for the 1 vs 2 worker and Dask comparisons "
+                                                        "(default: the smallest size)")
+    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--data-dir", default=str(Path(tempfile.gettempdir()) / "tumble_bench_survey"))
+    ap.add_argument("--_one", action="store_true", help=argparse.SUPPRESS)
+    ap.add_argument("--n", type=int, help=argparse.SUPPRESS)
+    ap.add_argument("--executor", default="pool", help=argparse.SUPPRESS)
+    args = ap.parse_args()
+    if args._one:
+        _one(args)
+        return
+    sizes = [10, 20, 40] if args.quick else sorted(int(v) for v in args.sizes.split(","))
+    n_eff = args.efficiency_size or sizes[0]
+    data = Path(args.data_dir)
+    t0 = time.perf_counter()
+    make_sample(data, max(sizes + [n_eff]))
+    print(f"sample: {max(sizes + [n_eff])} sparse objects of 200 points in {data} "
+          f"({time.perf_counter() - t0:.0f} s to make or reuse); cores {os.cpu_count()}, "
+          f"load {os.getloadavg()[0]:.2f} (shared machine)")
+
+    # 1 vs 2 workers vs Dask on the same sample, interleaved in one run
+    one = run_config(data, n_eff, "pool", 1)
+    two = run_config(data, n_eff, "pool", args.workers)
+    dask = run_config(data, n_eff, "dask", args.workers)
+    print(f"\nsame {n_eff} objects: 1 worker {one['wall_s']:.1f} s, {args.workers} workers {two['wall_s']:.1f} s, "
+          f"Dask LocalCluster {args.workers} workers {dask['wall_s']:.1f} s")
+    speedup = one["wall_s"] / two["wall_s"]
+    overhead = dask["wall_s"] / two["wall_s"] - 1.0
+    print(f"parallel speed-up {args.workers} vs 1 workers: {speedup:.2f}x (target >= 1.7x: "
+          f"{'met' if speedup >= 1.7 else 'NOT met'}); efficiency {speedup / args.workers:.0%}")
+    print(f"Dask overhead vs the process pool: {overhead:+.1%} (target <= 20%: {'met' if overhead <= 0.2 else 'NOT met'})")
+    print(f"identical rows (1 worker, {args.workers} workers, Dask): "
+          f"{_same_rows(one['results'], two['results']) and _same_rows(one['results'], dask['results'])}")
+    print(f"load average now {os.getloadavg()[0]:.2f}")
+
+    # throughput and memory per size
+    runs = [two if n == n_eff else run_config(data, n, "pool", args.workers) for n in sizes]
+    base = runs[0]["wall_s"] / runs[0]["n"]
+    print(f"\n{'objects':>8s} {'wall s':>8s} {'obj/s':>7s} {'obj/s/core':>10s} {'s/obj':>7s} {'vs first':>8s} "
+          f"{'RSS parent MB':>13s} {'RSS worker MB':>13s} {'RSS tree MB':>11s}  status")
+    for r in runs:
+        per = r["wall_s"] / r["n"]
+        print(f"{r['n']:8d} {r['wall_s']:8.1f} {r['n'] / r['wall_s']:7.3f} {r['n'] / r['wall_s'] / args.workers:10.3f} "
+              f"{per:7.2f} {per / base:8.2f} {r['rss_parent_mb']:13.0f} {r['rss_worker_mb']:13.0f} "
+              f"{r['rss_tree_mb']:11.0f}  {r['status']}")
+    for label, r in (("1 worker", one), ("Dask", dask)):
+        print(f"{label:>8s} on {r['n']} objects: RSS parent {r['rss_parent_mb']:.0f} MB, largest worker "
+              f"{r['rss_worker_mb']:.0f} MB, tree {r['rss_tree_mb']:.0f} MB")
+    print(f"\nmean screen time per object (runtime_s): {two['cpu_per_object_s']:.2f} s; "
+          f"total benchmark time {time.perf_counter() - t0:.0f} s; load average {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()
