@@ -476,8 +476,8 @@ def plot_residuals(lc, model: LightCurveModel, *, path=None):
         ax.set_title(f"residuals (rms {np.sqrt(np.mean(r**2)):.3g} mag; colour = session)", fontsize=11)
         z = r / err
         axh.hist(z[np.isfinite(z)], bins=30, color="#4a5568")
-        axh.set_xlabel("residual / quoted error")
-        axh.set_ylabel("number of points")
+        axh.set_xlabel("residual / quoted error (dimensionless)")
+        axh.set_ylabel("number of points (count)")
         fig.suptitle(f"{lc.object_id}: residuals of the {model.kind} Fourier model")
     return _finish(fig, path)
 
@@ -524,7 +524,7 @@ def plot_posterior_pairs(samples, names, units=None, *, object_id: str = "", par
                     continue
                 if i == j:
                     ax.hist(x[:, cols[i]], bins=30, color="#4a5568", histtype="stepfilled")
-                    ax.set_ylabel("samples" if i == 0 else "")
+                    ax.set_ylabel("samples (count)" if i == 0 else "")
                 else:
                     ax.plot(x[:, cols[j]], x[:, cols[i]], ".", ms=1.5, color="#2b6cb0", alpha=0.5)
                     if j == 0:
