@@ -57,6 +57,9 @@ __all__ = [
     "augmented_cholesky_chi2",
     "reference_basis_chi2",
     "is_uniform",
+    "ExactChi2",
+    "exact_evaluator",
+    "projected_qr_chi2",
 ]
 
 TWO_PI = 2.0 * np.pi
@@ -625,6 +628,7 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
     return chi2.reshape(rows, n_freq), min_pivot.reshape(rows, n_freq)
 
 
+
 def augmented_cholesky_chi2(m: np.ndarray, skip: int = 0):
     """Last pivot and smallest scaled pivot of a batch of augmented normal matrices.
 
@@ -733,82 +737,142 @@ def reference_basis_chi2(t, y, w, z, jmult, kmult, frequencies, f1=0.0) -> np.nd
     return out
 
 
-def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, block: int = 64):
+class ExactChi2:
     """Exact chi-square by Householder QR after projecting out the nuisance columns.
 
-    ``f1`` is one fixed frequency for all ``frequencies`` or one per frequency.
+    Built once per light curve and basis (the dense orthonormal nuisance matrix and the weighted
+    data are kept), then called for any number of frequencies; used for the frequencies the fast
+    kernel flags as ill-conditioned and for every refinement, where one frequency at a time is
+    evaluated (a lean path without batching overhead).
 
-    Used for the frequencies the fast kernel flags as ill-conditioned: the
-    weighted design ``W^1/2 X(f)`` minus its projection on the (orthonormal)
-    nuisance columns is factorised by QR (numerically stable; no normal
-    equations), in batches of frequencies.
+    The weighted design ``W^1/2 X(f)`` minus its projection on the (orthonormal) nuisance columns
+    is factorised by QR (numerically stable; no normal equations): for ``[X | y] = QR`` the
+    residual norm of the fit of y on X is ``|R[p, p]|`` (e.g. Golub & Van Loan 2013, sec. 5.3).
+    Rank-deficient designs (coinciding frequencies) fall back to SVD least squares.
     """
-    t = np.asarray(t, float)
-    sw = np.sqrt(np.asarray(w, float))
-    yw = sw * np.asarray(y_res, float)
-    freqs = np.atleast_1d(np.asarray(frequencies, float))
-    out = np.empty(freqs.size)
-    f1s = np.broadcast_to(np.asarray(f1, float), freqs.shape)  # one f1 for all, or one per frequency
-    jmf = np.asarray(jmult, float)
-    km = np.asarray(kmult, float)
-    # all nuisance columns as one dense orthonormal matrix (weighted space)
-    ncol = sum(g.v.shape[1] for g in groups)
-    qdense = None
-    if ncol:
-        qdense = np.zeros((t.size, ncol))
-        c0 = 0
-        for g in groups:
-            q_g = g.v.shape[1]
-            qdense[g.index, c0:c0 + q_g] = g.v / sw[g.index, None]
-            c0 += q_g
-    jmi = np.asarray(jmult, int)
-    kmi = np.asarray(kmult, int)
-    jmax = int(np.max(np.abs(jmi))) if jmi.size else 0
-    kmax = int(np.max(kmi)) if kmi.size else 0
-    p = 2 * kmi.size
-    for lo in range(0, freqs.size, block):
-        f = freqs[lo:lo + block]
-        # exp(2 pi i (j f1 + k f) t) = e1^j e2^k: two exponentials per point, the rest products
-        e1 = np.exp((1j * TWO_PI) * np.mod(f1s[lo:lo + block, None] * t[None, :], 1.0))  # (B, n)
-        e2 = np.exp((1j * TWO_PI) * np.mod(f[:, None] * t[None, :], 1.0))
-        pow1 = {0: None, 1: e1}
-        for j in range(2, jmax + 1):
-            pow1[j] = pow1[j - 1] * e1
-        pow2 = {0: None, 1: e2}
-        for k in range(2, kmax + 1):
-            pow2[k] = pow2[k - 1] * e2
-        # the weighted design and the data, one row per column ([X | y]'; each matrix Fortran-ordered)
-        xt = np.empty((f.size, p + 1, t.size))
-        for a, (j, k) in enumerate(zip(jmi, kmi)):
-            z1 = pow1[abs(int(j))]
-            if z1 is not None and j < 0:
-                z1 = np.conj(z1)
-            z2 = pow2[int(k)]
-            z = z1 if z2 is None else (z2 if z1 is None else z1 * z2)
-            if z is None:  # j = k = 0: the column cos 0 = 1 (its sine is identically zero)
-                xt[:, 2 * a] = sw
-                xt[:, 2 * a + 1] = 0.0
-                continue
-            np.multiply(z.real, sw, out=xt[:, 2 * a])
-            np.multiply(z.imag, sw, out=xt[:, 2 * a + 1])
-        xt[:, p] = yw
-        if qdense is not None:
-            # the groups' columns are mutually orthonormal: one projection removes them all
-            # (y_res is already orthogonal to them: its row is left as it is)
-            coef = np.matmul(xt, qdense)
-            coef[:, p] = 0.0
-            xt -= np.matmul(coef, qdense.T)
-        x = xt[:, :p]
-        # for [X | y] = QR the residual norm of the fit of y on X is |R[p, p]|
-        # (e.g. Golub & Van Loan 2013, sec. 5.3)
-        rx = np.linalg.qr(xt.transpose(0, 2, 1), mode="r")
-        out[lo:lo + block] = rx[:, p, p] ** 2
-        x = x.transpose(0, 2, 1)
-        # rank-deficient designs (coinciding frequencies): QR is not safe, use SVD least squares
-        rd = np.abs(np.einsum("bii->bi", rx[:, :p, :p]))
-        deficient = np.flatnonzero(np.min(rd, axis=1) <= 1e-9 * np.max(rd, axis=1))
-        for b in deficient:
-            coef, *_ = np.linalg.lstsq(x[b], yw, rcond=1e-10)
-            res = yw - x[b] @ coef
-            out[lo + b] = float(res @ res)
-    return out
+
+    def __init__(self, t, w, y_res, groups, jmult, kmult):
+        self.t = np.asarray(t, float)
+        self.sw = np.sqrt(np.asarray(w, float))
+        self.yw = self.sw * np.asarray(y_res, float)
+        ncol = sum(g.v.shape[1] for g in groups)
+        self.qdense = None
+        if ncol:
+            # all nuisance columns as one dense orthonormal matrix (weighted space)
+            self.qdense = np.zeros((self.t.size, ncol))
+            c0 = 0
+            for g in groups:
+                q_g = g.v.shape[1]
+                self.qdense[g.index, c0:c0 + q_g] = g.v / self.sw[g.index, None]
+                c0 += q_g
+        self.jm = np.asarray(jmult, int)
+        self.km = np.asarray(kmult, int)
+        self.jmax = int(np.max(np.abs(self.jm))) if self.jm.size else 0
+        self.kmax = int(np.max(self.km)) if self.km.size else 0
+        self.p = 2 * self.km.size
+
+    def _columns(self, e1, e2, out):
+        """Fill out[..., 2a, :], out[..., 2a + 1, :] with the weighted Re, Im of e1^j_a e2^k_a.
+
+        ``e1``, ``e2``: exp(2 pi i f1 t), exp(2 pi i f t), shape (..., n) (``e1`` None when no j != 0).
+        """
+        shape = e2.shape
+        # powers 0..kmax of e2 (and 0..jmax of e1) by repeated products, stacked on a new axis
+        pow2 = np.empty(shape[:-1] + (self.kmax + 1, shape[-1]), dtype=complex)
+        pow2[..., 0, :] = 1.0
+        for k in range(1, self.kmax + 1):
+            np.multiply(pow2[..., k - 1, :], e2, out=pow2[..., k, :])
+        z = pow2[..., self.km, :]
+        if self.jmax and e1 is not None:
+            pow1 = np.empty(shape[:-1] + (2 * self.jmax + 1, shape[-1]), dtype=complex)
+            c = self.jmax
+            pow1[..., c, :] = 1.0
+            for j in range(1, self.jmax + 1):
+                np.multiply(pow1[..., c + j - 1, :], e1, out=pow1[..., c + j, :])
+            pow1[..., :c, :] = np.conj(pow1[..., c + 1:, :][..., ::-1, :])
+            z *= pow1[..., c + self.jm, :]
+        np.multiply(z.real, self.sw, out=out[..., 0:self.p:2, :])
+        np.multiply(z.imag, self.sw, out=out[..., 1:self.p:2, :])
+
+    def scalar(self, f: float, f1: float = 0.0) -> float:
+        """Chi-square at one frequency ``f`` (and one ``f1``), cycles/day."""
+        from scipy.linalg import lapack
+
+        t, p = self.t, self.p
+        e1 = np.exp((1j * TWO_PI) * np.mod(float(f1) * t, 1.0)) if self.jmax else None
+        e2 = np.exp((1j * TWO_PI) * np.mod(float(f) * t, 1.0))
+        xt = np.empty((p + 1, t.size))  # rows = columns of [X | y]: xt.T is Fortran-ordered
+        self._columns(e1, e2, xt)
+        xt[p] = self.yw
+        if self.qdense is not None:
+            # y_res is already orthogonal to the nuisance columns: project the design only
+            xt[:p] -= (xt[:p] @ self.qdense) @ self.qdense.T
+        qr, _tau, _work, info = lapack.dgeqrf(xt.T, overwrite_a=0)
+        rd = np.abs(np.diag(qr[:p, :p]))
+        if info != 0 or rd.size and np.min(rd) <= 1e-9 * np.max(rd):
+            x = xt[:p].T
+            coef, *_ = np.linalg.lstsq(x, self.yw, rcond=1e-10)
+            res = self.yw - x @ coef
+            return float(res @ res)
+        return float(qr[p, p] ** 2)
+
+    def __call__(self, frequencies, f1=0.0, block: int = 64) -> np.ndarray:
+        """Chi-square at each frequency; ``f1`` is one fixed frequency for all or one per frequency."""
+        t = self.t
+        freqs = np.atleast_1d(np.asarray(frequencies, float))
+        f1s = np.broadcast_to(np.asarray(f1, float), freqs.shape)  # one f1 for all, or one per frequency
+        out = np.empty(freqs.size)
+        p = self.p
+        for lo in range(0, freqs.size, block):
+            f = freqs[lo:lo + block]
+            # exp(2 pi i (j f1 + k f) t) = e1^j e2^k: two exponentials per point, the rest products
+            e1 = np.exp((1j * TWO_PI) * np.mod(f1s[lo:lo + block, None] * t[None, :], 1.0)) if self.jmax else None
+            e2 = np.exp((1j * TWO_PI) * np.mod(f[:, None] * t[None, :], 1.0))
+            # the weighted design and the data, one row per column ([X | y]'; each matrix Fortran-ordered)
+            xt = np.empty((f.size, p + 1, t.size))
+            self._columns(e1, e2, xt)
+            xt[:, p] = self.yw
+            if self.qdense is not None:
+                # the groups' columns are mutually orthonormal: one projection removes them all
+                # (y_res is already orthogonal to them: its row is left as it is)
+                coef = np.matmul(xt, self.qdense)
+                coef[:, p] = 0.0
+                xt -= np.matmul(coef, self.qdense.T)
+            rx = np.linalg.qr(xt.transpose(0, 2, 1), mode="r")
+            out[lo:lo + block] = rx[:, p, p] ** 2
+            # rank-deficient designs (coinciding frequencies): QR is not safe, use SVD least squares
+            rd = np.abs(np.einsum("bii->bi", rx[:, :p, :p]))
+            deficient = np.flatnonzero(np.min(rd, axis=1) <= 1e-9 * np.max(rd, axis=1))
+            for b in deficient:
+                x = xt[b, :p].T
+                coef_b, *_ = np.linalg.lstsq(x, self.yw, rcond=1e-10)
+                res = self.yw - x @ coef_b
+                out[lo + b] = float(res @ res)
+        return out
+
+
+_EXACT = threading.local()
+
+
+def exact_evaluator(data, jmult, kmult) -> ExactChi2:
+    """The :class:`ExactChi2` of a light curve's prepared arrays (``data.t, w, y_res, groups``) and a
+    basis, cached per thread for the few most recent (data, basis) pairs (a scan refines many peaks)."""
+    key = (tuple(int(j) for j in jmult), tuple(int(k) for k in kmult))
+    cache = getattr(_EXACT, "entries", None)
+    if cache is None:
+        cache = _EXACT.entries = []
+    for d, k, ev in cache:
+        if d is data and k == key:
+            return ev
+    ev = ExactChi2(data.t, data.w, data.y_res, data.groups, jmult, kmult)
+    cache.append((data, key, ev))
+    del cache[:-8]
+    return ev
+
+
+def projected_qr_chi2(t, w, y_res, groups, jmult, kmult, frequencies, f1=0.0, block: int = 64):
+    """Exact chi-square by Householder QR after projecting out the nuisance columns (:class:`ExactChi2`).
+
+    ``f1`` is one fixed frequency for all ``frequencies`` or one per frequency.
+    """
+    return ExactChi2(t, w, y_res, groups, jmult, kmult)(frequencies, f1=f1, block=block)

@@ -430,7 +430,13 @@ def _basis(order):
 
 def _exact_chi2(data: ScanData, order: int, freqs) -> np.ndarray:
     jm, km = _basis(order)
-    return K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, np.atleast_1d(freqs))
+    return K.exact_evaluator(data, jm, km)(np.atleast_1d(freqs))
+
+
+def _exact_chi2_at(data: ScanData, order: int, freq: float) -> float:
+    """Exact chi-square at one frequency (the lean one-frequency QR path)."""
+    jm, km = _basis(order)
+    return K.exact_evaluator(data, jm, km).scalar(freq)
 
 
 def _scan_chi2(data: ScanData, order: int, freqs: np.ndarray, *, method: str = "auto", progress=None):
@@ -544,7 +550,7 @@ def _fit(data: ScanData, order: int, freq: float) -> FourierFit:
 
 def _refine(data, order, f_lo, f_hi, f0):
     """Exact chi-square minimum in [f_lo, f_hi] (bounded Brent search)."""
-    fun = lambda f: float(_exact_chi2(data, order, [f])[0])  # noqa: E731
+    fun = lambda f: _exact_chi2_at(data, order, f)  # noqa: E731
     tol = max(1e-14 * abs(f0), 1e-6 * (f_hi - f_lo))
     res = optimize.minimize_scalar(fun, bounds=(f_lo, f_hi), method="bounded",
                                    options={"xatol": tol, "maxiter": 200})
@@ -561,7 +567,7 @@ def _delta_chi2_halfwidth(data, order, f_hat, chi2_hat, s2, step0, f_limit_lo, f
     Each side: expand a bracket from ``step0`` until the rescaled Delta chi2
     exceeds 1 (or the limit is reached), then find the crossing by Brent's method.
     """
-    g = lambda f: (float(_exact_chi2(data, order, [f])[0]) - chi2_hat) / s2 - 1.0  # noqa: E731
+    g = lambda f: (_exact_chi2_at(data, order, f) - chi2_hat) / s2 - 1.0  # noqa: E731
     out = []
     for direction, limit in ((+1, f_limit_hi), (-1, f_limit_lo)):
         step = step0

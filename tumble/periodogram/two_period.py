@@ -39,6 +39,17 @@ from tumble.periodogram.scan import (
 #: Ill-conditioning test of the 2-D map (cf. scan.EXACT_COND_FACTOR): the map is kept to ~1e-8
 #: relative accuracy, the refined best pair is always exact (least squares).
 MAP_COND_FACTOR = 1e-5
+#: Ill-conditioning test of the P2 scan of the 'refine' search: that scan only ranks candidates
+#: (predicted relative accuracy ~4e-13 / factor, i.e. ~1e-6), and every candidate is then
+#: evaluated exactly (docs/methods-period-search.md, section 8).
+SCAN_COND_FACTOR = 4e-7
+#: Oversampling factor of the automatic P2 grid of the 'refine' search (step 1 / (q m T)); the
+#: candidates are then examined on the step of the 1-D scan's oversampling factor.
+P2_OVERSAMPLE = 2.0
+#: Number of the deepest local minima of the P2 scan that are examined exactly.
+P2_CANDIDATES = 8
+#: Number of the best exactly examined P2 candidates refined jointly with P1.
+JOINT_STARTS = 3
 
 __all__ = ["TwoPeriodResult", "two_period_scan", "commensurate_mask", "two_period_basis", "two_period_chi2",
            "two_period_chi2_reference"]
@@ -166,7 +177,7 @@ class TwoPeriodResult:
 def _exact(data: ScanData, basis, f1: float, f2: float) -> float:
     """Exact chi-square of the 2-D series at (f1, f2) (QR after projecting out the nuisance; SVD if rank-deficient)."""
     jm, km = basis
-    return float(K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, [f2], f1=f1)[0])
+    return K.exact_evaluator(data, jm, km).scalar(f2, f1)
 
 
 def _fit2d(data: ScanData, basis, f1: float, f2: float):
@@ -226,7 +237,8 @@ def two_period_chi2_reference(lc, p1_h, p2_h, *, order: int = 2, sessions: bool 
     return np.array([K.reference_basis_chi2(data.t, data.y, data.w, data.z, jm, km, f2, f1=a) for a in f1])
 
 
-def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="auto", progress=None):
+def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="auto", progress=None,
+              cond_factor: float = MAP_COND_FACTOR):
     jm, km = basis
     n_b = jm.size
     engine = K.make_engine(f2, "direct" if method == "direct" else "nufft")
@@ -243,17 +255,56 @@ def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="
         c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine, f1=fb,
                                    paired=paired, explicit=explicit)
         with np.errstate(divide="ignore", invalid="ignore"):
-            risk = MAP_COND_FACTOR * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
+            risk = cond_factor * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
         flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
         if np.any(flag):
             # all flagged pairs of the batch in one batched QR call
             r_idx, c_idx = np.nonzero(flag)
-            c[r_idx, c_idx] = K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm, km, f2[c_idx],
-                                                  f1=fb[r_idx])
+            c[r_idx, c_idx] = K.exact_evaluator(data, jm, km)(f2[c_idx], f1=fb[r_idx])
         chi2[lo:lo + rows] = c
         if progress is not None:
             progress(fb.size)
     return chi2
+
+
+def _local_minima(c: np.ndarray) -> np.ndarray:
+    """Indices of the local minima of a curve (nan = +inf; the ends count against +inf)."""
+    c = np.where(np.isfinite(c), c, np.inf)
+    if c.size == 1:
+        return np.array([0]) if np.isfinite(c[0]) else np.zeros(0, dtype=int)
+    left = np.concatenate([[np.inf], c[:-1]])
+    right = np.concatenate([c[1:], [np.inf]])
+    return np.flatnonzero((c < left) & (c <= right) & np.isfinite(c))
+
+
+def _p2_candidates(data, basis, order, f1, f2, chi2_scan, fine_step, span, n_cand=P2_CANDIDATES):
+    """The ``n_cand`` deepest local minima of a P2 scan, each examined exactly, best first.
+
+    Around each minimum the exact chi-square (QR) is evaluated at the scan's own point and, when
+    ``fine_step`` is smaller than the scan's step, at ``fine_step`` spacing out to one scan step on
+    either side (commensurate points skipped); each minimum contributes its best point.
+    Returns a list of ``(f2, chi2)`` sorted by chi2.
+    """
+    mins = _local_minima(chi2_scan)
+    mins = mins[np.argsort(chi2_scan[mins])][:n_cand]
+    coarse = float(np.median(np.diff(f2))) if f2.size > 1 else fine_step
+    r = int(np.ceil(coarse / fine_step - 1e-9)) if fine_step < coarse else 0
+    offsets = fine_step * np.arange(-r, r + 1) if r else np.zeros(1)
+    cand = f2[mins][:, None] + offsets[None, :]
+    ok = (cand > 0) & ~commensurate_mask(order, [f1], cand.ravel(), span)[0].reshape(cand.shape)
+    if not np.any(ok):
+        i = int(np.nanargmin(chi2_scan))
+        return [(float(f2[i]), _exact(data, basis, f1, float(f2[i])))]
+    jm, km = basis
+    exact = np.full(cand.shape, np.inf)
+    exact[ok] = K.exact_evaluator(data, jm, km)(cand[ok], f1=f1)
+    out = []
+    for row in range(cand.shape[0]):
+        if np.any(ok[row]):
+            i = int(np.argmin(exact[row]))
+            out.append((float(cand[row, i]), float(exact[row, i])))
+    out.sort(key=lambda x: x[1])
+    return out
 
 
 def _halfwidth(fun, x0, c0, s2, step0, limit):
@@ -293,7 +344,7 @@ def _refine_pair(data, basis, f1, f2, step1, step2):
 
 def _one_d_chi2(data, order_1d, f):
     jm1, km1 = np.zeros(order_1d, dtype=int), np.arange(1, order_1d + 1)
-    return float(K.projected_qr_chi2(data.t, data.w, data.y_res, data.groups, jm1, km1, [f])[0])
+    return K.exact_evaluator(data, jm1, km1).scalar(f)
 
 
 def _choose_order_1d(data, f1, order, max_order):
@@ -312,7 +363,8 @@ def _choose_order_1d(data, f1, order, max_order):
 def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *, p1_grid=None,
                     order_1d: int | None = None, min_period_h: float | None = None,
                     max_period_h: float | None = None, sessions: bool = True, phase_term: bool | None = None,
-                    oversample: float = OVERSAMPLE, method: str = "auto", progress=False) -> TwoPeriodResult:
+                    oversample: float = OVERSAMPLE, p2_oversample: float | None = None, method: str = "auto",
+                    progress=False) -> TwoPeriodResult:
     """Two-period (2-D Fourier series) search.
 
     Parameters
@@ -326,7 +378,8 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
         :func:`fourier_scan` of the same order (then refined jointly with P2).
     p2_grid : array_like or None
         Trial P2 values, hours. None: the automatic grid over
-        ``[min_period_h, max_period_h]`` (see :func:`frequency_grid`).
+        ``[min_period_h, max_period_h]`` (see :func:`frequency_grid`), with the oversampling
+        factor ``p2_oversample`` in 'refine' mode and ``oversample`` in 'grid' mode.
     p1_grid : array_like or None
         Trial P1 values, hours. When given, the full (P1, P2) grid is computed
         ('grid' mode) and its minimum refined; otherwise 'refine' mode.
@@ -339,6 +392,11 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
     min_period_h, max_period_h : float or None
         Period range of the automatic grids, hours.
     sessions, phase_term, oversample, method : see :func:`fourier_scan`.
+    p2_oversample : float or None
+        Oversampling factor of the automatic P2 grid in 'refine' mode (None: ``P2_OVERSAMPLE``,
+        2, capped at ``oversample``). The ``P2_CANDIDATES`` deepest minima of that scan are then
+        evaluated exactly on the step of ``oversample`` out to one P2 step on either side, and the
+        best of them starts the joint refinement.
     progress : bool or callable
         tqdm bar (True) or a callable receiving the rows done.
 
@@ -348,11 +406,11 @@ def two_period_scan(lc, order: int = 2, p1: float | None = None, p2_grid=None, *
     """
     with K.single_thread_blas():
         return _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, max_period_h, sessions,
-                                phase_term, oversample, method, progress)
+                                phase_term, oversample, p2_oversample, method, progress)
 
 
 def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, max_period_h, sessions,
-                     phase_term, oversample, method, progress):
+                     phase_term, oversample, p2_oversample, method, progress):
     data = prepare(lc, sessions=sessions, phase_term=phase_term)
     _check_order(order, data)
     span = data.span_d
@@ -360,8 +418,10 @@ def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, ma
         d_lo, d_hi = default_period_range_h(data, sessions)
         min_period_h = d_lo if min_period_h is None else min_period_h
         max_period_h = d_hi if max_period_h is None else max_period_h
+    fine_step = 1.0 / (oversample * order * span)
     if p2_grid is None:
-        f2 = frequency_grid(span, order, min_period_h, max_period_h, oversample)
+        q2 = oversample if p1_grid is not None else min(oversample, p2_oversample or P2_OVERSAMPLE)
+        f2 = frequency_grid(span, order, min_period_h, max_period_h, q2)
     else:
         f2 = np.sort(HOURS_PER_DAY / np.atleast_1d(np.asarray(p2_grid, float)))
     scan_1d = None
@@ -406,21 +466,35 @@ def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, ma
             m1 = int(order_1d or _choose_order_1d(data, f1_0, order, max(4, 2 * order)))
             basis = two_period_basis(order, m1)
             _check_size(data, basis, order)
-            chi2_map = _map_chi2(data, basis, np.array([f1_0]), f2, method=method, progress=cb)[0]
+            chi2_map = _map_chi2(data, basis, np.array([f1_0]), f2, method=method, progress=cb,
+                                 cond_factor=SCAN_COND_FACTOR)[0]
             chi2_map[commensurate_mask(order, [f1_0], f2, span)[0]] = np.nan
             if not np.any(np.isfinite(chi2_map)):
                 raise PeriodSearchError(f"{lc.object_id}: every P2 of the grid is commensurate with P1")
-            f2_0 = float(f2[np.nanargmin(chi2_map)])
-            step1 = 1.0 / (oversample * order * span)
+            # the deepest minima of the scan, examined exactly (on the fine step for the automatic grid)
+            starts = _p2_candidates(data, basis, order, f1_0, f2, chi2_map,
+                                    fine_step if p2_grid is None else np.inf, span)
+            step1 = fine_step
             p1_grid_h = None
     finally:
         if bar is not None:
             bar.close()
-    step2 = float(np.median(np.diff(f2))) if f2.size > 1 else 1.0 / (oversample * order * span)
-    f1_b, f2_b, chi2_2d = _refine_pair(data, basis, f1_0, f2_0, step1, step2)
-    if commensurate_mask(order, [f1_b], [f2_b], span)[0, 0]:
-        # the refinement drifted onto a commensurate pair: keep the grid point
-        f1_b, f2_b, chi2_2d = f1_0, f2_0, _exact(data, basis, f1_0, f2_0)
+    step2 = float(np.median(np.diff(f2))) if f2.size > 1 else fine_step
+    if mode == "refine" and p2_grid is None:
+        step2 = fine_step
+    if mode == "grid":
+        starts = [(f2_0, None)]
+    best = None
+    # joint refinement of (P1, P2) from the best start (grid mode) or from each of the JOINT_STARTS
+    # best candidates of the P2 scan (refine mode: P1 refined locally for each of them)
+    for f2_s, _ in starts[:JOINT_STARTS]:
+        f1_r, f2_r, c_r = _refine_pair(data, basis, f1_0, f2_s, step1, step2)
+        if commensurate_mask(order, [f1_r], [f2_r], span)[0, 0]:
+            # the refinement drifted onto a commensurate pair: keep the start
+            f1_r, f2_r, c_r = f1_0, f2_s, _exact(data, basis, f1_0, f2_s)
+        if best is None or c_r < best[2]:
+            best = (f1_r, f2_r, c_r)
+    f1_b, f2_b, chi2_2d = best
 
     # the best 1-D fit: order m1 at P1, refined locally
     res1 = optimize.minimize_scalar(lambda f: _one_d_chi2(data, m1, f), bounds=(f1_b - 2 * step1, f1_b + 2 * step1),
