@@ -85,12 +85,57 @@ def _one(args) -> None:
     paths = sorted(Path(args.data_dir).glob("bench*.csv"))[: args.n]
     out = Path(tempfile.mkdtemp(prefix="bench_survey_")) / "results.ecsv"
     kw = {"dask_local": args.workers} if args.executor == "dask" else {"workers": args.workers}
+    from tumble.survey import journal_path
+
+    jpath = journal_path(out)
+    first = {}
+    done = threading.Event()
+
+    def watch():  # time of the first finished object (start-up of the executor + one object)
+        while not done.is_set():
+            if jpath.exists() and jpath.stat().st_size:
+                first["t"] = time.perf_counter()
+                return
+            time.sleep(0.02)
+
+    th = threading.Thread(target=watch, daemon=True)
     t0 = time.perf_counter()
+    th.start()
     s = run_survey([str(p) for p in paths], out, SurveyConfig(route="screen", seed=1, object_timeout_s=None),
                    progress=False, **kw)
     wall = time.perf_counter() - t0
-    print(json.dumps({"wall_s": wall, "status": s.status_counts, "cpu_per_object_s": s.cpu_per_object_s,
+    done.set()
+    first_s = first.get("t", t0 + wall) - t0
+    import tumble
+
+    print(json.dumps({"module": tumble.__file__, "wall_s": wall, "first_s": first_s,
+                      "steady_obj_s": (args.n - 1) / (wall - first_s) if wall > first_s and args.n > 1 else math.nan,
+                      "status": s.status_counts, "cpu_per_object_s": s.cpu_per_object_s,
                       "rotation": s.rotation_counts, "results": str(out)}))
+
+
+_ENV = dict(os.environ)
+
+
+def snapshot_package() -> str:
+    """Copy the tumble package to a temporary folder that every configuration imports (PYTHONPATH), so
+    that edits made to the working tree while the benchmark runs cannot make the configurations differ."""
+    import shutil
+
+    import tumble
+
+    src = Path(tumble.__file__).resolve().parent
+    dst = Path(tempfile.mkdtemp(prefix="bench_survey_pkg_"))
+    shutil.copytree(src, dst / "tumble", ignore=shutil.ignore_patterns("__pycache__"))
+    _ENV["PYTHONPATH"] = str(dst) + (os.pathsep + _ENV["PYTHONPATH"] if _ENV.get("PYTHONPATH") else "")
+    try:
+        rev = subprocess.run(["git", "-C", str(src), "rev-parse", "--short", "HEAD"], capture_output=True,
+                             text=True).stdout.strip()
+        dirty = subprocess.run(["git", "-C", str(src), "status", "--porcelain", "--", "."], capture_output=True,
+                               text=True).stdout.strip()
+        return f"{rev}{' + uncommitted edits in tumble/' if dirty else ''}"
+    except OSError:
+        return "unknown revision"
 
 
 def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
@@ -99,7 +144,7 @@ def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
 
     cmd = [sys.executable, __file__, "--_one", "--data-dir", str(data_dir), "--n", str(n), "--executor", executor,
            "--workers", str(workers)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=_ENV)
     peak = {"parent": 0, "worker": 0, "tree": 0}
     stop = threading.Event()
 
@@ -125,6 +170,7 @@ def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
             stop.wait(0.1)
 
     th = threading.Thread(target=sample, daemon=True)
+    load0 = os.getloadavg()[0]
     th.start()
     stdout, stderr = proc.communicate()
     stop.set()
@@ -132,7 +178,8 @@ def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
     if proc.returncode != 0:
         raise SystemExit(f"configuration {executor} x{workers} on {n} objects failed:\n{stderr[-2000:]}")
     res = json.loads(stdout.strip().splitlines()[-1])
-    res.update(n=n, executor=executor, workers=workers, rss_parent_mb=peak["parent"] / 2**20,
+    assert "bench_survey_pkg_" in res["module"], "the configuration did not import the snapshot"
+    res.update(n=n, executor=executor, workers=workers, load=(load0, os.getloadavg()[0]), rss_parent_mb=peak["parent"] / 2**20,
                rss_worker_mb=peak["worker"] / 2**20, rss_tree_mb=peak["tree"] / 2**20)
     return res
 
@@ -170,6 +217,7 @@ def main() -> None:
     data = Path(args.data_dir)
     t0 = time.perf_counter()
     make_sample(data, max(sizes + [n_eff]))
+    print(f"code: a snapshot of tumble at {snapshot_package()}, imported by every configuration")
     print(f"sample: {max(sizes + [n_eff])} sparse objects of 200 points in {data} "
           f"({time.perf_counter() - t0:.0f} s to make or reuse); cores {os.cpu_count()}, "
           f"load {os.getloadavg()[0]:.2f} (shared machine)")
@@ -179,7 +227,13 @@ def main() -> None:
     two = run_config(data, n_eff, "pool", args.workers)
     dask = run_config(data, n_eff, "dask", args.workers)
     print(f"\nsame {n_eff} objects: 1 worker {one['wall_s']:.1f} s, {args.workers} workers {two['wall_s']:.1f} s, "
-          f"Dask LocalCluster {args.workers} workers {dask['wall_s']:.1f} s")
+          f"Dask LocalCluster {args.workers} workers {dask['wall_s']:.1f} s (wall, start-up included)")
+    for label, r in (("1 worker", one), (f"{args.workers} workers", two), ("Dask", dask)):
+        print(f"  {label:>10s}: first object done after {r['first_s']:.1f} s; then {r['steady_obj_s']:.3f} obj/s; "
+              f"load average {r['load'][0]:.1f} -> {r['load'][1]:.1f}")
+    steady = two["steady_obj_s"] / one["steady_obj_s"]
+    steady_dask = two["steady_obj_s"] / dask["steady_obj_s"] - 1.0
+    print(f"after the first object: speed-up {steady:.2f}x, Dask overhead {steady_dask:+.1%}")
     speedup = one["wall_s"] / two["wall_s"]
     overhead = dask["wall_s"] / two["wall_s"] - 1.0
     print(f"parallel speed-up {args.workers} vs 1 workers: {speedup:.2f}x (target >= 1.7x: "

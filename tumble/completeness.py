@@ -285,17 +285,18 @@ def _directions(lc):
     return _unit(np.cos(a) * o + np.sin(a) * perp), o, "invented orbit, own phase angle"
 
 
-def inject_lightcurve(lc, inj: Injection, seed: int):
+def inject_lightcurve(lc, inj: Injection, seed: int, directions=None):
     """The light curve of injection ``inj`` on the cadence, errors and geometry of ``lc``.
 
-    Returns (LightCurve, model peak-to-peak amplitude on the cadence in mag, geometry source).
+    ``directions``: the ``(sun_dir, obs_dir, source)`` of ``lc`` if already computed (they depend on the
+    plan object only). Returns (LightCurve, model peak-to-peak amplitude on the cadence in mag, geometry source).
     """
     from tumble.simulate import model_magnitudes
 
     g = np.random.default_rng(np.random.SeedSequence([int(seed) % (2**32), int(inj.index), 0x40153]))
     t = np.asarray(lc.t, float)
     state = _state(inj, float(t[0]))
-    s, o, source = _directions(lc)
+    s, o, source = directions if directions is not None else _directions(lc)
     model = model_magnitudes(state, inj.axes, t, s, o, phase_deg=lc.phase_deg)
     amp_on_cadence = float(np.ptp(model))
     if lc.r_au is not None and lc.delta_au is not None:
@@ -591,11 +592,18 @@ def run_completeness(plan_inputs, n_inject: int, out, config=None, *, dist: Inje
     inj_path, png_path = derived_paths(out)
     plans, problems = load_plans(plan_inputs, read_options or config.read_options)
     names = [lc.object_id for lc in plans]
-    injections, tasks, extras = [], [], {}
-    for k in range(int(n_inject)):
+    injections, tasks, extras, directions = [], [], {}, {}
+    steps = range(int(n_inject))
+    if progress and n_inject >= 200:
+        from tqdm import tqdm
+
+        steps = tqdm(steps, unit="inj", desc="injections", dynamic_ncols=True)
+    for k in steps:
         inj, p = draw_injection(k, len(plans), names, dist, config.seed)
         try:
-            lc, amp, source = inject_lightcurve(plans[p], inj, config.seed)
+            if p not in directions:
+                directions[p] = _directions(plans[p])
+            lc, amp, source = inject_lightcurve(plans[p], inj, config.seed, directions[p])
             task = ObjectTask(inj.object_id, k, lightcurve=lc)
         except TumbleError as exc:  # e.g. a state the dynamics rejects: an error row, the run goes on
             amp, source = math.nan, ""
