@@ -2,13 +2,15 @@
 
 Classifies every campaign object with ``tumble survey`` (files grouped by
 the name before ``__``) and compares the verdicts with the truth table, reads
-the sparse survey table, inspects one object, and constrains the rigidity
-from the census of earlier verdicts, printing what a user would see from the
-command line. Output goes to ``demo_out/``.
+the sparse survey table, inspects one object, constrains the rigidity
+from the census of earlier verdicts, and makes the HTML report of the
+campaign with ``tumble report``, printing what a user would see from the
+command line. Output goes to ``demo_out/`` (the report to ``demo_out/report/``).
 """
 
 from __future__ import annotations
 
+import shutil
 import sys
 from collections import defaultdict
 from pathlib import Path
@@ -59,10 +61,14 @@ def main() -> int:
 
     OUT.mkdir(exist_ok=True)
     results = OUT / "campaign_results.ecsv"
+    objects, report = OUT / "objects", OUT / "report"
     for stale in (results, results.with_name(results.name + ".journal.jsonl")):
         stale.unlink(missing_ok=True)
+    for stale_dir in (objects, report):
+        shutil.rmtree(stale_dir, ignore_errors=True)
     print("== Kestrel Ridge Network follow-up campaign (invented): tumble survey ==")
-    code = tumble(["survey", str(HERE / "campaign"), "--out", str(results), "--seed", "1", "--quiet"])
+    code = tumble(["survey", str(HERE / "campaign"), "--out", str(results), "--seed", "1", "--quiet",
+                   "--keep-objects", str(objects)])
     if code != 0:
         return code
     print("\n== How the demo did against its truth table ==")
@@ -88,8 +94,18 @@ def main() -> int:
     print("== Rigidity from the census of earlier verdicts: tumble relax --sample ==")
     code = tumble(["relax", "--sample", str(HERE / "census" / "krn_census.ecsv"), "--quiet", "--seed", "1"])
     print("\n(the census was generated with log10 muQ = 11.3 Pa; see catalogs_demo/README.md)")
-    print(f"outputs in {OUT}")
-    return code
+    if code != 0:
+        return code
+
+    print("\n== The campaign's HTML report: tumble report ==")
+    # sizes for the period-diameter diagram: the catalogue's diameters (from H and albedo)
+    code = tumble(["report", str(results), "--out", str(report), "--objects", str(objects),
+                   "--data", str(HERE / "campaign"), "--sizes", str(HERE / "truth.ecsv"), "--quiet"])
+    if code != 0:
+        return code
+    print(f"\noutputs in {OUT}")
+    print(f"open the report: {(report / 'index.html').resolve().as_uri()}")
+    return 0
 
 
 if __name__ == "__main__":

@@ -277,9 +277,11 @@ def plot_scan(scan, *, chosen_period_h: float | None = None, n_aliases: int = 6,
             if abs(peak.period_h / chosen - 1.0) < 1e-6:
                 continue
             ax.axvline(peak.period_h, color="#dd6b20", lw=0.9, ls="--")
-            ax.annotate(f"{peak.alias}\n{peak.period_h:.4g} h", xy=(peak.period_h, 1.0),
-                        xycoords=("data", "axes fraction"), xytext=(2, -2), textcoords="offset points",
-                        fontsize=8, va="top", color="#7b341e")
+            # labels staggered down the axes so that close peaks stay readable
+            ax.annotate(f"{peak.alias}: {peak.period_h:.4g} h", xy=(peak.period_h, 0.98 - 0.075 * shown),
+                        xycoords=("data", "axes fraction"), xytext=(3, 0), textcoords="offset points",
+                        fontsize=8, va="top", color="#7b341e",
+                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85})
             shown += 1
         if shown:
             ax.plot([], [], color="#dd6b20", lw=0.9, ls="--", label="other ranked peaks (alias label)")

@@ -128,7 +128,7 @@ color:#1a202c;background:#f7fafc;line-height:1.45;font-size:16px}
 header{background:#1a365d;color:#fff;padding:14px 28px}
 header h1{margin:0;font-size:1.5em} header p{margin:4px 0 0 0;color:#cbd5e0}
 header a{color:#bee3f8}
-main{padding:10px 28px 40px 28px;max-width:1300px}
+main{padding:10px 28px 40px 28px;max-width:1500px}
 h2{border-bottom:2px solid #cbd5e0;padding-bottom:3px;margin-top:1.6em}
 table{border-collapse:collapse;background:#fff;margin:8px 0}
 th,td{border:1px solid #cbd5e0;padding:4px 9px;text-align:left;vertical-align:top}
@@ -146,7 +146,8 @@ figure img{max-width:100%;height:auto} figcaption{color:#4a5568;font-size:.95em;
 border-radius:4px}
 #filter{font-size:1em;padding:5px 8px;width:24em}
 .note{color:#4a5568}
-#objects td:first-child{white-space:nowrap} #objects td.msg{max-width:30em;font-size:.9em}
+#objects td:first-child{white-space:nowrap} #objects td.msg{min-width:14em;max-width:26em;font-size:.9em}
+.scroll{overflow-x:auto;max-width:100%}
 .counts{display:inline-block;vertical-align:top;margin-right:2.5em}
 """
 
@@ -359,7 +360,7 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
                  f"<tr><th>p(NPA)</th><td class=\"num\">{_fmt(v.get('p_npa'), 3)}</td>"
                  f"<td>posterior probability of tumbling{_e(prior_txt)}</td></tr>"
                  f"<tr><th>ln B(NPA:PA)</th><td class=\"num\">{_fmt(v.get('ln_bayes_factor'), 4)}"
-                 + (f" &plusmn; {_fmt(ln_err, 2)}" if _fin(ln_err) else "") +
+                 + (f" &plusmn; {_fmt(ln_err, 2)}" if _fin(ln_err) and _f(ln_err) > 0 else "") +
                  "</td><td>natural log of the Bayes factor (positive favours NPA)</td></tr>"
                  "</tbody></table>")
     parts.append(f"<p id=\"grade-words\">{_e(grade_in_words(v))}</p>")
@@ -685,8 +686,8 @@ def _survey_body(rows, links, sample_figs, sample_notes, results_path) -> str:
         name = str(r.get("object", ""))
         cells = "".join(_cell(r, c, dg, links.get(name) if c == "object" else None) for c, _, _, dg in SURVEY_COLUMNS)
         body.append(f"<tr>{cells}</tr>")
-    parts.append(f"<table id=\"objects\" class=\"sortable\"><thead><tr>{head}</tr></thead><tbody>"
-                 + "\n".join(body) + "</tbody></table>")
+    parts.append(f"<div class=\"scroll\"><table id=\"objects\" class=\"sortable\"><thead><tr>{head}</tr></thead>"
+                 "<tbody>" + "\n".join(body) + "</tbody></table></div>")
     parts.append("<h2>Sample figures</h2>")
     for fname, caption in sample_figs:
         parts.append(f"<figure><img src=\"{_e(fname)}\" alt=\"{_e(caption)}\"><figcaption>{_e(caption)}"
