@@ -50,6 +50,8 @@ P2_OVERSAMPLE = 2.0
 P2_CANDIDATES = 8
 #: Number of the best exactly examined P2 candidates refined jointly with P1.
 JOINT_STARTS = 3
+#: Distinct minima kept (and refined exactly) by the 1-D scan that gives P1 in 'refine' mode.
+P1_SCAN_PEAKS = 3
 
 __all__ = ["TwoPeriodResult", "two_period_scan", "commensurate_mask", "two_period_basis", "two_period_chi2",
            "two_period_chi2_reference"]
@@ -332,14 +334,19 @@ def _halfwidth(fun, x0, c0, s2, step0, limit):
     return 0.5 * (out[0] + out[1])
 
 
-def _refine_pair(data, basis, f1, f2, step1, step2):
-    """Joint least-squares refinement of (f1, f2) from a grid point (Nelder-Mead on exact chi2)."""
+def _refine_pair(data, basis, f1, f2, step1, step2, xatol=1e-4, rtol=1e-9, simplex=0.5):
+    """Joint least-squares refinement of (f1, f2) from a start (Nelder-Mead on the exact chi2).
+
+    ``xatol`` and ``simplex`` (the initial simplex' size) are in units of the steps (the 1-sigma
+    widths are typically 0.1 to 1 step), ``rtol`` is relative to the chi-square.
+    """
     fun = lambda v: _exact(data, basis, f1 + v[0] * step1, f2 + v[1] * step2)  # noqa: E731
+    c0 = fun([0.0, 0.0])
     res = optimize.minimize(fun, x0=[0.0, 0.0], method="Nelder-Mead",
-                            options={"xatol": 1e-6, "fatol": 1e-9, "initial_simplex": [[0, 0], [0.5, 0], [0, 0.5]],
-                                     "maxiter": 400})
-    v = res.x if res.fun <= fun([0.0, 0.0]) else np.zeros(2)
-    return f1 + v[0] * step1, f2 + v[1] * step2, float(min(res.fun, fun([0.0, 0.0])))
+                            options={"xatol": xatol, "fatol": rtol * c0,
+                                     "initial_simplex": [[0, 0], [simplex, 0], [0, simplex]], "maxiter": 400})
+    v = res.x if res.fun <= c0 else np.zeros(2)
+    return f1 + v[0] * step1, f2 + v[1] * step2, float(min(res.fun, c0))
 
 
 def _one_d_chi2(data, order_1d, f):
@@ -459,7 +466,7 @@ def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, ma
             if p1 is None:
                 scan_1d = fourier_scan(lc, order=order, min_period_h=min_period_h, max_period_h=max_period_h,
                                        sessions=sessions, phase_term=phase_term, oversample=oversample,
-                                       method=method)
+                                       method=method, max_peaks=P1_SCAN_PEAKS)
                 f1_0 = HOURS_PER_DAY / scan_1d.fit_period_h
             else:
                 f1_0 = HOURS_PER_DAY / float(p1)
@@ -484,17 +491,17 @@ def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, ma
         step2 = fine_step
     if mode == "grid":
         starts = [(f2_0, None)]
-    best = None
-    # joint refinement of (P1, P2) from the best start (grid mode) or from each of the JOINT_STARTS
-    # best candidates of the P2 scan (refine mode: P1 refined locally for each of them)
-    for f2_s, _ in starts[:JOINT_STARTS]:
-        f1_r, f2_r, c_r = _refine_pair(data, basis, f1_0, f2_s, step1, step2)
+    def refine(f1_s, f2_s, **kw):
+        f1_r, f2_r, c_r = _refine_pair(data, basis, f1_s, f2_s, step1, step2, **kw)
         if commensurate_mask(order, [f1_r], [f2_r], span)[0, 0]:
             # the refinement drifted onto a commensurate pair: keep the start
-            f1_r, f2_r, c_r = f1_0, f2_s, _exact(data, basis, f1_0, f2_s)
-        if best is None or c_r < best[2]:
-            best = (f1_r, f2_r, c_r)
-    f1_b, f2_b, chi2_2d = best
+            f1_r, f2_r, c_r = f1_s, f2_s, _exact(data, basis, f1_s, f2_s)
+        return f1_r, f2_r, c_r
+
+    # joint refinement of (P1, P2) from the best start (grid mode) or from each of the JOINT_STARTS
+    # best candidates of the P2 scan (refine mode: P1 refined locally for each of them)
+    refined = [refine(f1_0, f2_s) for f2_s, _ in starts[:JOINT_STARTS]]
+    f1_b, f2_b, chi2_2d = min(refined, key=lambda r: r[2])
 
     # the best 1-D fit: order m1 at P1, refined locally
     res1 = optimize.minimize_scalar(lambda f: _one_d_chi2(data, m1, f), bounds=(f1_b - 2 * step1, f1_b + 2 * step1),
