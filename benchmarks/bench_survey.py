@@ -231,6 +231,16 @@ def main() -> None:
     for label, r in (("1 worker", one), (f"{args.workers} workers", two), ("Dask", dask)):
         print(f"  {label:>10s}: first object done after {r['first_s']:.1f} s; then {r['steady_obj_s']:.3f} obj/s; "
               f"load average {r['load'][0]:.1f} -> {r['load'][1]:.1f}")
+    # busy fraction: time inside the task function / (wall x workers); what is lost to start-up, scheduling
+    # and idle workers, as against per-object compute that is slower (a loaded machine, memory bandwidth)
+    for label, r in (("1 worker", one), (f"{args.workers} workers", two), ("Dask", dask)):
+        w = 1 if r is one else args.workers
+        busy = r["cpu_per_object_s"] * r["n"] / (r["wall_s"] * w)
+        print(f"  {label:>10s}: mean time per object inside the task {r['cpu_per_object_s']:.2f} s; "
+              f"workers busy {busy:.0%} of the wall time")
+    print(f"per-object task time, {args.workers} workers / 1 worker: "
+          f"{two['cpu_per_object_s'] / one['cpu_per_object_s']:.2f}; Dask / pool: "
+          f"{dask['cpu_per_object_s'] / two['cpu_per_object_s']:.2f} (1.00 on an idle machine)")
     steady = two["steady_obj_s"] / one["steady_obj_s"]
     steady_dask = two["steady_obj_s"] / dask["steady_obj_s"] - 1.0
     print(f"after the first object: speed-up {steady:.2f}x, Dask overhead {steady_dask:+.1%}")
