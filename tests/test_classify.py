@@ -17,6 +17,8 @@ from tumble.classify import (
     classify,
     decide,
     fourier_evidence,
+    error_scale_floor,
+    geometry_error_floor,
     grade_from_ln_b,
     npa_candidates,
     screen,
@@ -143,6 +145,24 @@ def test_candidates_contain_the_published_relations():
     for m, a, b, (pa, pb), (qa, qb) in c:  # the error-propagation coefficients reproduce the frequencies
         assert pa * f_phi + pb * f_psi == pytest.approx(a)
         assert qa * f_phi + qb * f_psi == pytest.approx(b)
+
+
+def test_model_error_floor_grows_with_amplitude_and_geometry(rng):
+    # The floor is 0.01 mag for small geometry changes and 8 % of the amplitude at >= 20 deg
+    # (docs/methods-classify.md); the error-scale bound stays in (0.7, 1] and is ~1 when the floor
+    # dominates the quoted errors (common practice: a model-discrepancy term irreducible by the noise).
+    lc = _pa_lc(rng, n_nights=2)
+    assert geometry_error_floor(lc, 0.3) == pytest.approx(0.01)
+    assert 0.7 < error_scale_floor(lc, 0.01) <= 1.0
+    assert error_scale_floor(replace(lc, err=np.full(lc.n_points, 1e-4)), 0.02) == pytest.approx(1.0, abs=1e-3)
+    plan = SparseSurvey(2460000.5, span_d=120.0, n_nights=40, points_per_night=3, visit_spacing_min=40.0)
+    sp = simulate_lightcurve(RotationState.principal_axis(7.3, 40.0, 50.0), (1.6, 1.2, 1.0), plan,
+                             noise=NoiseModel(0.01), rng=rng).lightcurve
+    from tumble.classify import geometry_change_deg
+
+    g = geometry_change_deg(sp)
+    assert g > 5.0
+    assert geometry_error_floor(sp, 0.5) == pytest.approx(max(0.01, 0.08 * 0.5 * min(1.0, g / 20.0)))
 
 
 # ---------------------------------------------------------------- simulated objects

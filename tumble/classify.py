@@ -91,6 +91,29 @@ MIN_CYCLES = 1.5
 GRADE_NAMES = ("none", "tentative", "sound", "firm")
 #: The PA family: (harmonics, drift degree) pairs, equal prior weight.
 PA_VARIANTS = tuple(FourierVariant(h, d) for h in (1, 2, 4, 6) for d in (0, 1, 3))
+#: Long spans: one extra degree of coefficient drift per this many days of data (the geometry of a
+#: sparse survey season changes the light-curve shape more than a cubic drift can follow).
+LONG_DRIFT_SCALE_D = 12.0
+#: Largest drift degree of the long-span variants.
+LONG_DRIFT_MAX_DEGREE = 9
+
+
+def pa_variants(span_d: float) -> tuple:
+    """The PA family for a data span: :data:`PA_VARIANTS`, plus high-degree drift variants on long spans.
+
+    Over a season the viewing and illumination geometry change the shape of a PA light curve
+    (amplitude-phase effect, aspect, and the non-uniform synodic phase drift); a cubic drift of the
+    coefficients cannot follow that over months, and a two-period series then absorbs it. A span of
+    ``T`` days gets Legendre drift of degree ``min(T / LONG_DRIFT_SCALE_D, LONG_DRIFT_MAX_DEGREE)``
+    (when above 3) for H = 2, 4 and 6: a coefficient can change on time scales of about two weeks,
+    but not within a night or a few days, where a second period of a tumbler lives.
+    """
+    d = min(int(span_d / LONG_DRIFT_SCALE_D), LONG_DRIFT_MAX_DEGREE)
+    if d <= 3:
+        return PA_VARIANTS
+    return PA_VARIANTS + tuple(FourierVariant(h, d) for h in (2, 4, 6))
+
+
 #: Orders m of the two-dimensional combination terms in the NPA family.
 NPA_COMBO_ORDERS = (1, 2, 3)
 #: The NPA family: each PA base with at most this many harmonics, plus each combination order.
@@ -101,6 +124,8 @@ MAX_F2_GRID = 3000
 NPA_MAX_WINDOWS = 4
 #: Alias tolerance (cycles/day) around k/day for sparse data, whose daily window aliases slow variations.
 SPARSE_ALIAS_TOL_PER_D = 0.02
+#: Sparse data: the 1/day alias guard covers k cycles/day up to this k.
+SPARSE_ALIAS_K_MAX = 24
 #: Sidereal day (d) for the 1/day alias guard.
 SIDEREAL_DAY_D = 0.99726958
 
@@ -297,6 +322,74 @@ class EvidenceResult:
     route: str
 
 
+#: Model-error floor per unit light-curve amplitude at a geometry change of
+#: :data:`GEOMETRY_FLOOR_SCALE_DEG` or more (see :func:`geometry_error_floor`).
+GEOMETRY_FLOOR_PER_AMPLITUDE = 0.08
+#: Geometry change (deg) at which the amplitude-relative floor reaches its full value.
+GEOMETRY_FLOOR_SCALE_DEG = 20.0
+#: Geometry change per day assumed when the data carry no Sun/observer directions (deg/day).
+GEOMETRY_RATE_UNKNOWN_DEG_PER_D = 0.25
+
+
+def geometry_change_deg(lc) -> float:
+    """How much the viewing and illumination geometry change over the data, degrees.
+
+    The larger of the phase-angle range and the largest angle between the phase-angle
+    bisector at any time and its mean direction (the aspect and synodic drivers of light-curve
+    changes; Harris et al. 1984, Icarus 57, 251). Without Sun/observer directions, the span times
+    :data:`GEOMETRY_RATE_UNKNOWN_DEG_PER_D` (capped at 30 deg).
+    """
+    if lc.sun_dir is not None and lc.obs_dir is not None:
+        s = np.asarray(lc.sun_dir, float)
+        o = np.asarray(lc.obs_dir, float)
+        alpha = np.degrees(np.arccos(np.clip(np.sum(s * o, axis=1), -1, 1)))
+        b = s + o
+        b /= np.maximum(np.linalg.norm(b, axis=1), 1e-12)[:, None]
+        m = b.mean(axis=0)
+        m /= max(np.linalg.norm(m), 1e-12)
+        spread = float(np.degrees(np.arccos(np.clip(b @ m, -1, 1))).max())
+        return max(float(np.ptp(alpha)), 2.0 * spread)
+    if lc.phase_deg is not None and np.ptp(lc.phase_deg) > 0:
+        return max(float(np.ptp(lc.phase_deg)), min(30.0, lc.span_d * GEOMETRY_RATE_UNKNOWN_DEG_PER_D))
+    return min(30.0, lc.span_d * GEOMETRY_RATE_UNKNOWN_DEG_PER_D)
+
+
+def geometry_error_floor(lc, amplitude_mag: float) -> float:
+    """Model-error floor of the shape-free families for this light curve, mag.
+
+    ``max(MODEL_ERROR_FLOOR_MAG, GEOMETRY_FLOOR_PER_AMPLITUDE * A * min(1, G / GEOMETRY_FLOOR_SCALE_DEG))``
+    with ``A`` the peak-to-peak amplitude of a one-period fit and ``G`` the geometry change
+    (:func:`geometry_change_deg`). A real body's light curve changes shape with aspect and phase
+    angle by a fraction of its amplitude (amplitudes grow by a few per cent per degree of phase angle, the amplitude-phase
+    relation of Zappala et al. 1990, A&A 231, 548; slope values from memory), and the one-period family with drifting coefficients follows
+    that only approximately; left as white noise, the residual shape change would be taken as evidence
+    for the richer two-period family on precise, long-span data.
+    """
+    g = geometry_change_deg(lc)
+    return max(MODEL_ERROR_FLOOR_MAG, GEOMETRY_FLOOR_PER_AMPLITUDE * float(amplitude_mag) * min(1.0, g / GEOMETRY_FLOOR_SCALE_DEG))
+
+
+#: The quoted errors are trusted down to this factor (they may be over-stated, but not by more).
+QUOTED_ERROR_SCALE_MIN = 0.7
+
+
+def error_scale_floor(lc, floor_mag: float) -> float:
+    """Lower bound ``kappa_min`` of the error scale of the floor-inflated errors.
+
+    The noise is ``kappa_q^2 err^2 + floor^2`` with the quoted-error factor ``kappa_q >=``
+    :data:`QUOTED_ERROR_SCALE_MIN` and the model-error floor irreducible, so relative to the
+    inflated errors ``sqrt(err^2 + floor^2)`` (median error) the scale is at least
+    ``sqrt((k0^2 err^2 + floor^2) / (err^2 + floor^2))``. No family is then credited for fitting
+    the data more closely than that: without the bound, a model-error residual of a PA body under
+    changing geometry, absorbed by the richer two-period family, would count as evidence in
+    proportion to the number of points, however precise the photometry.
+    """
+    e2 = float(np.median(np.asarray(lc.err, float))) ** 2
+    f2 = float(floor_mag) ** 2
+    k0 = QUOTED_ERROR_SCALE_MIN
+    return math.sqrt((k0 * k0 * e2 + f2) / (e2 + f2))
+
+
 def _mixture(lnz):
     """Equal-weight mixture over variants (last axis)."""
     return special.logsumexp(lnz, axis=-1) - math.log(lnz.shape[-1])
@@ -372,7 +465,8 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     -------
     EvidenceResult
     """
-    if error_floor_mag is None:
+    auto_floor = error_floor_mag is None
+    if auto_floor:
         error_floor_mag = MODEL_ERROR_FLOOR_MAG
     data = prepare_linear(lc, weights=weights, error_floor_mag=error_floor_mag)
     span = data.span_d
@@ -404,14 +498,21 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     coarse = linear_log_evidence(data, scan_basis, grid)[:, 0] + daily(grid)
     n_eval += len(grid)
     peaks = _peak_indices(coarse, n_windows, 3)
+    if auto_floor:
+        amp0 = float(np.ptp(fit_linear(data, FourierBasis.build([FourierVariant(4, False)]), 0,
+                                       grid[peaks[0]]).fourier_mag))
+        error_floor_mag = geometry_error_floor(lc, amp0)
+    kappa_min = error_scale_floor(lc, error_floor_mag)
+    data = prepare_linear(lc, weights=weights, error_floor_mag=error_floor_mag, kappa_min=kappa_min)
     centres = [grid[i] for i in peaks]
     best = centres[0]
     for alias in (best / 2, best * 2, best * 1.5, best / 1.5):
         if f_lo <= alias <= f_hi and all(abs(alias - c) > 3 * step for c in centres):
             centres.append(alias)
 
-    pa_basis = FourierBasis.build(PA_VARIANTS)
-    npa_variants = tuple(FourierVariant(v.n_harmonics, v.drift, m) for v in PA_VARIANTS
+    pa_vars = pa_variants(span)
+    pa_basis = FourierBasis.build(pa_vars)
+    npa_variants = tuple(FourierVariant(v.n_harmonics, v.drift, m) for v in pa_vars
                          if v.n_harmonics <= NPA_MAX_BASE_HARMONICS for m in NPA_COMBO_ORDERS)
     npa_basis = FourierBasis.build(npa_variants)
 
@@ -607,7 +708,8 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
              "frequencies integrated by grid quadrature with Laplace refinement of unresolved peaks, "
              f"f1 over {len(keep)} candidate windows, f2 over [1.5/span, f1/2]; "
-             f"PA = mixture of {len(PA_VARIANTS)} harmonic/drift orders, NPA = mixture of {len(npa_variants)}")
+             f"PA = mixture of {len(pa_vars)} harmonic/drift orders, NPA = mixture of {len(npa_variants)}; "
+             f"model-error floor {error_floor_mag:.3g} mag, error scale >= {kappa_min:.3g}")
     return EvidenceResult(
         ln_z_pa=float(ln_z_pa), ln_z_npa=float(ln_z_npa), ln_bayes_factor=float(ln_b), ln_bayes_factor_err=float(err),
         f1_per_d=float(f1), f1_sigma_per_d=float(pa_windows[ipa].sigma), f1_npa_per_d=float(r["f1"]),
@@ -1084,8 +1186,8 @@ def _period_from_frequency(f, sf):
     return p, (24.0 * sf / f**2 if np.isfinite(sf) else math.nan)
 
 
-def _near_daily_alias(f_per_d, tol_per_d):
-    for k in (1, 2, 3):
+def _near_daily_alias(f_per_d, tol_per_d, k_max: int = 3):
+    for k in range(1, k_max + 1):
         for day in (1.0, 1.0 / SIDEREAL_DAY_D):
             if abs(f_per_d - k * day) < tol_per_d:
                 return True
@@ -1107,8 +1209,9 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
     4. ``2 ln B`` lies within two of its estimated quadrature errors (``2 x ln_bayes_factor_err``)
        of the undecided band -> undecided.
     5. NPA with either light-curve basis frequency within ``0.5/span`` (or 3 sigma; for sparse
-       data :data:`SPARSE_ALIAS_TOL_PER_D`) of 1, 2 or 3 cycles per (solar or sidereal) day ->
-       undecided (calibration or window-function alias of a slow variation).
+       data :data:`SPARSE_ALIAS_TOL_PER_D`) of 1, 2 or 3 cycles per (solar or sidereal) day (for
+       sparse data any k <= :data:`SPARSE_ALIAS_K_MAX`) -> undecided (calibration or
+       window-function alias of a slow variation).
     6. The data span is shorter than :data:`MIN_CYCLES` times the longest claimed period -> undecided.
     7. NPA: the mode is the physical fit's best mode unless SAM and LAM reach log-likelihoods
        within 2 nats of each other (mode ``none``); an unconverged or multimodal physical
@@ -1167,7 +1270,8 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
         for name, f, sf in (("first", evidence.f1_npa_per_d, evidence.f1_npa_sigma_per_d),
                             ("second", evidence.f2_per_d, evidence.f2_sigma_per_d)):
             tol = max(0.5 / span_d, 3 * (sf if np.isfinite(sf) else 0.0), SPARSE_ALIAS_TOL_PER_D if sparse else 0.0)
-            if _near_daily_alias(f, tol) and rotation != "undecided":
+            # sparse nightly sampling aliases a slow variation to any k cycles/day, not only k <= 3
+            if _near_daily_alias(f, tol, k_max=SPARSE_ALIAS_K_MAX if sparse else 3) and rotation != "undecided":
                 rotation = "undecided"
                 warn.append(f"{name} light-curve period {24.0 / f:.4g} h lies at a 1/day alias")
     if fit is not None:
@@ -1305,7 +1409,7 @@ def robust_weights(lc, *, nu: float = 4.0, p_min_h: float = 0.5, p_max_h: float 
         fitr = fit_linear(data, basis, len(npa_variants) - 1, ev.f1_npa_per_d, ev.f2_per_d)
     else:
         basis = FourierBasis.build(PA_VARIANTS)
-        fitr = fit_linear(data, basis, len(PA_VARIANTS) - 1, ev.f1_per_d)
+        fitr = fit_linear(data, basis, len(PA_VARIANTS) - 1, ev.f1_per_d)  # H=6+drift3: the richest fixed variant
     r = (data.y - fitr.model_mag) / np.asarray(lc.err)
     kappa = max(1.4826 * float(np.median(np.abs(r))), 1e-12)
     w = (nu + 1.0) / (nu + (r / kappa) ** 2)
@@ -1322,16 +1426,30 @@ def screen(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, order: int = 2) -> Verdi
     and the same decision rules as :func:`decide` are applied (no physical fit, so
     no mode). Its calibration is separate (``docs/validation-classify.md``).
     """
-    from tumble.periodogram import PeriodSearchError, two_period_scan
+    from dataclasses import replace as _replace
+
+    from tumble.periodogram import PeriodSearchError, fourier_scan, two_period_scan
 
     t0 = time.perf_counter()
     try:
-        res = two_period_scan(lc, order=order)
+        # the model-error floor and error-scale bound of the evidence route (geometry_error_floor,
+        # error_scale_floor), from the amplitude of a quick one-period scan
+        amp = float(fourier_scan(lc, order=order).amplitude_mag)
+        floor = geometry_error_floor(lc, amp)
+        kmin = error_scale_floor(lc, floor)
+        lc_eff = _replace(lc, err=np.sqrt(np.asarray(lc.err, float) ** 2 + floor**2))
+        res = two_period_scan(lc_eff, order=order)
     except PeriodSearchError as exc:
         raise ClassifyError(str(exc)) from None
-    # BIC with the error scale profiled (n ln(chi2/n)), so that mis-stated errors do not inflate it
+    # BIC with the error scale profiled but bounded below (kappa >= kmin relative to the inflated
+    # errors): mis-stated errors do not inflate it, and fits closer than the floor earn nothing
     n = res.n_points
-    dbic = (n * math.log(res.chi2_2d / res.chi2_1d) + (res.n_params_2d - res.n_params_1d) * math.log(n))
+
+    def loglik(chi2):
+        s2 = max(chi2 / n, kmin**2)
+        return -0.5 * n * math.log(s2) - 0.5 * chi2 / s2
+
+    dbic = -2.0 * (loglik(res.chi2_2d) - loglik(res.chi2_1d)) + (res.n_params_2d - res.n_params_1d) * math.log(n)
     ln_b = -0.5 * dbic
     f1 = res.f1_per_d
     f2 = res.f2_per_d
@@ -1349,7 +1467,7 @@ def screen(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, order: int = 2) -> Verdi
         kappa_npa=math.nan,
         delta_bic=float(dbic), n_evaluations=0,
         route=f"screen: -Delta BIC / 2 between the best order-{order} two-period and one-period Fourier fits "
-              f"(F-test p = {res.f_test_p_value:.3g})")
+              f"(F-test p = {res.f_test_p_value:.3g}; model-error floor {floor:.3g} mag, error scale >= {kmin:.3g})")
     from dataclasses import replace
 
     v = decide(ev, span_d=lc.span_d, prior_npa=prior_npa, object_id=lc.object_id, n_points=lc.n_points,

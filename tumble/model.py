@@ -235,6 +235,8 @@ class LinearData:
     nuisance_names : tuple of str
     y, z : numpy.ndarray
         Magnitudes (reduced when distances are known) and raw nuisance columns.
+    kappa_min : float
+        Lower bound of the error scale ``kappa`` (0 = none); see :func:`prepare_linear`.
     """
 
     t_d: np.ndarray
@@ -250,6 +252,7 @@ class LinearData:
     nuisance_names: tuple
     y: np.ndarray
     z: np.ndarray
+    kappa_min: float = 0.0
 
     @property
     def nu(self) -> int:
@@ -257,7 +260,8 @@ class LinearData:
         return self.n_points - self.n_nuisance
 
 
-def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None, error_floor_mag: float = 0.0) -> LinearData:
+def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None, error_floor_mag: float = 0.0,
+                   kappa_min: float = 0.0) -> LinearData:
     """Whiten a light curve and project out its nuisance model (see :func:`nuisance_design`).
 
     Parameters
@@ -268,6 +272,11 @@ def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None, error_f
     error_floor_mag : float
         Model-error floor added in quadrature to the errors, mag (the shape-free models
         describe a real light curve only to about this level).
+    kappa_min : float
+        Lower bound of the error scale: the scale-invariant prior of ``kappa`` is truncated to
+        ``kappa >= kappa_min``, so that no model is credited for fitting the data more closely than
+        the (floor-inflated) errors allow. The marginal likelihood stays closed form (a regularised
+        incomplete gamma function, see :func:`_log_scale_integral`). 0 = no bound.
     """
     y = np.asarray(lc.reduced_mag, float)
     z, names = nuisance_design(lc, phase_slope=phase_slope)
@@ -289,7 +298,7 @@ def prepare_linear(lc, *, weights=None, phase_slope: bool | None = None, error_f
     if nu < 3:
         raise ModelError(f"{lc.object_id}: {len(y)} points leave {nu} degrees of freedom after the zero-points")
     return LinearData(t - t_mid, (t - t_mid) / (0.5 * span), sw, qz, yp, float(yp @ yp), len(y), int(qz.shape[1]),
-                      float(t_mid), span, names, y, z)
+                      float(t_mid), span, names, y, z, float(kappa_min))
 
 
 @dataclass(frozen=True)
@@ -368,9 +377,10 @@ class FourierBasis:
             sig += [sigma_mag / j] * 2
             col += 2
             didx = []
-            for _d in range(drift):
+            for d in range(1, drift + 1):
                 didx.append([col, col + 1])
-                sig += [0.5 * sigma_mag / j] * 2
+                # degrees above 3 (long, geometry-changing spans) get a prior shrinking as 3/d
+                sig += [0.5 * sigma_mag / j * min(1.0, 3.0 / d)] * 2
                 col += 2
             harm_cols[j] = (idx, didx)
         combos = []
@@ -417,10 +427,7 @@ class FourierBasis:
         col = 0
         c1, s1 = np.cos(ph1), np.sin(ph1)
         cj, sj = c1.copy(), s1.copy()
-        tau = data.tau
-        legendre = [tau, 1.5 * tau**2 - 0.5, 2.5 * tau**3 - 1.5 * tau][: self.drift]
-        if self.drift > 3:
-            raise ModelError("drift degree above 3 is not supported")
+        legendre = legendre_drift(data.tau, self.drift)
         for j in range(1, self.max_harmonics + 1):
             if j > 1:  # angle-addition recurrence for cos(j x), sin(j x)
                 cj, sj = cj * c1 - sj * s1, sj * c1 + cj * s1
@@ -440,6 +447,22 @@ class FourierBasis:
         return out
 
 
+#: Largest Legendre degree of the coefficient drift.
+MAX_DRIFT_DEGREE = 12
+
+
+def legendre_drift(tau, degree: int) -> list:
+    """Legendre polynomials ``P_1..P_degree`` of the scaled time ``tau`` (Bonnet's recurrence)."""
+    if degree > MAX_DRIFT_DEGREE:
+        raise ModelError(f"drift degree above {MAX_DRIFT_DEGREE} is not supported")
+    out = []
+    p_prev, p = np.ones_like(tau), tau
+    for d in range(1, degree + 1):
+        out.append(p)
+        p_prev, p = p, ((2 * d + 1) * tau * p - d * p_prev) / (d + 1)
+    return out
+
+
 def _gram(data: LinearData, x: np.ndarray):
     """Projected Gram matrices and moments: ``G = X^T M X``, ``b = X^T M y`` (M projects out nuisance)."""
     g = np.matmul(np.swapaxes(x, 1, 2), x)
@@ -449,7 +472,44 @@ def _gram(data: LinearData, x: np.ndarray):
     return g, b
 
 
-def _evidence_from_gram(g, b, yy, nu, sigma):
+def _log_lower_gamma_regularised(a: float, x):
+    """``ln P(a, x)``, the log of the regularised lower incomplete gamma function, without underflow.
+
+    ``scipy.special.gammainc`` where it is above 1e-280; below, the series
+    ``P(a, x) = x^a e^-x / Gamma(a + 1) * sum_k x^k / ((a + 1) ... (a + k))``
+    (Abramowitz & Stegun 1964, 6.5.29), which converges fast there (``x < a``).
+    """
+    x = np.asarray(x, float)
+    p = special.gammainc(a, x)
+    out = np.log(np.maximum(p, 1e-300))
+    small = p < 1e-280
+    if np.any(small):
+        xs = x[small]
+        term = np.ones_like(xs)
+        total = np.ones_like(xs)
+        for k in range(1, 400):
+            term = term * xs / (a + k)
+            total += term
+            if np.all(term < 1e-17 * total):
+                break
+        out[small] = a * np.log(xs) - xs - special.gammaln(a + 1.0) + np.log(total)
+    return out
+
+
+def _log_scale_integral(q, nu, kappa_min: float):
+    """``ln`` of the integral over the error scale: ``int (2 pi kappa^2)^(-nu/2) exp(-q / 2 kappa^2) 2 dkappa/kappa``.
+
+    Over ``kappa > 0`` it is ``Gamma(nu/2) (pi q)^(-nu/2)``; truncated to ``kappa >= kappa_min`` it is
+    that times ``P(nu/2, q / (2 kappa_min^2))`` (substitute ``s = q / 2 kappa^2``).
+    """
+    q = np.asarray(q, float)
+    val = special.gammaln(0.5 * nu) - 0.5 * nu * np.log(np.pi * q)
+    if kappa_min > 0:
+        val = val + _log_lower_gamma_regularised(0.5 * nu, q / (2.0 * kappa_min**2))
+    return val
+
+
+def _evidence_from_gram(g, b, yy, nu, sigma, kappa_min: float = 0.0):
     """Closed-form marginal likelihood from projected moments (see the module notes), shape (F,)."""
     a = g + np.diag(1.0 / sigma**2)[None]
     try:
@@ -460,7 +520,7 @@ def _evidence_from_gram(g, b, yy, nu, sigma):
     u = np.linalg.solve(chol, b[..., None])[..., 0]
     q = np.maximum(yy - np.sum(u * u, axis=1), 1e-300 * max(yy, 1.0))
     logdet = 2.0 * np.sum(np.log(np.diagonal(chol, axis1=1, axis2=2)), axis=1)
-    return (-np.sum(np.log(sigma)) - 0.5 * logdet + special.gammaln(0.5 * nu) - 0.5 * nu * np.log(np.pi * q)), q
+    return (-np.sum(np.log(sigma)) - 0.5 * logdet + _log_scale_integral(q, nu, kappa_min)), q
 
 
 def linear_log_evidence(data: LinearData, basis: FourierBasis, f1, f2=None, *, chunk_elements: int = 4_000_000):
@@ -493,14 +553,14 @@ def linear_log_evidence(data: LinearData, basis: FourierBasis, f1, f2=None, *, c
         g, b = _gram(data, x)
         for v, cols in enumerate(basis.columns):
             if len(cols) == 0:
-                out[sl, v] = special.gammaln(0.5 * data.nu) - 0.5 * data.nu * np.log(np.pi * data.yy)
+                out[sl, v] = _log_scale_integral(data.yy, data.nu, data.kappa_min)
                 continue
             out[sl, v], _ = _evidence_from_gram(g[:, cols][:, :, cols], b[:, cols], data.yy, data.nu,
-                                                basis.sigma[cols])
+                                                basis.sigma[cols], data.kappa_min)
     return out
 
 
-def linear_log_evidence_reference(y, err, z, x, sigma, n_kappa: int = 4000) -> float:
+def linear_log_evidence_reference(y, err, z, x, sigma, n_kappa: int = 4000, kappa_min: float = 0.0) -> float:
     """Slow reference: the same marginal likelihood by brute force, for tests.
 
     Integrates the Gaussian likelihood over the coefficients by the textbook
@@ -519,6 +579,8 @@ def linear_log_evidence_reference(y, err, z, x, sigma, n_kappa: int = 4000) -> f
         Unwhitened Fourier columns.
     sigma : array_like (p,)
         Prior standard deviations of the Fourier coefficients.
+    kappa_min : float
+        Lower end of the ``kappa`` quadrature (the truncated scale prior of :func:`prepare_linear`).
     """
     from scipy import integrate
 
@@ -542,7 +604,7 @@ def linear_log_evidence_reference(y, err, z, x, sigma, n_kappa: int = 4000) -> f
         # remove the wide-prior normalisation of the q flat columns: N(0, k^2 wide^2) -> flat in mag
         return val + q * np.log(wide * np.sqrt(2 * np.pi)) + q * lk
 
-    grid = np.linspace(-6.0, 6.0, n_kappa)
+    grid = np.linspace(math.log(kappa_min) if kappa_min > 0 else -6.0, 6.0, n_kappa)
     vals = np.array([log_given_kappa(g) for g in grid])
     m = vals.max()
     # d(kappa^2)/kappa^2 = 2 d ln kappa
