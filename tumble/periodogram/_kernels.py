@@ -508,13 +508,26 @@ def scan_basis_chi2(t, w, y_res, groups, jmult, kmult, engine: SumEngine, *, f1=
         real_jobs = []  # diagonal "minus" sums are real: pack two per complex transform
         kmax_all = 2 * int(np.max(km)) if n_b else 0
         table = engine.shift_table(t, kmax_all) if hasattr(engine, "shift_table") else None
+        # the pair points' times and phase tables, gathered once (each transform combines them)
+        t_pi, t_pj = t[pi], t[pj]
+        tab_pi, tab_pj = {}, {}
+
+        def gathered(cache, k, index):
+            if k not in cache:
+                cache[k] = table[k][index]
+            return cache[k]
+
         for (ka, kb), combos in by_mult.items():
             for sign in (+1, -1):
-                tau_direct = (ka + sign * kb) * t
-                tau_pairs = ka * t[pi] + sign * kb * t[pj]
-                tau = np.concatenate([tau_direct, tau_pairs])
-                shift = None if table is None else np.concatenate(
-                    [table[ka + sign * kb], table[ka][pi] * table[sign * kb][pj]])
+                tau = np.empty(t.size + pi.size)
+                np.multiply(t, ka + sign * kb, out=tau[: t.size])
+                np.multiply(t_pi, ka, out=tau[t.size:])
+                tau[t.size:] += (sign * kb) * t_pj
+                shift = None
+                if table is not None:
+                    shift = np.empty(tau.size, dtype=complex)
+                    shift[: t.size] = table[ka + sign * kb]
+                    np.multiply(gathered(tab_pi, ka, pi), gathered(tab_pj, sign * kb, pj), out=shift[t.size:])
                 strengths = np.empty((len(combos), rows, tau.size), dtype=complex)
                 for r, (a, b) in enumerate(combos):
                     strengths[r, :, : t.size] = _times_strength(rows, 0.5 * w, ph.get(int(jm[a] + sign * jm[b])))

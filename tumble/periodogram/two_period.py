@@ -533,7 +533,8 @@ def _two_period_scan(lc, order, p1, p2_grid, p1_grid, order_1d, min_period_h, ma
     hess = np.array([[h11, h12], [h12, h22]])
     try:
         cov = 2.0 * s2 * np.linalg.inv(hess)
-        sig1, sig2 = np.sqrt(cov[0, 0]), np.sqrt(cov[1, 1])
+        with np.errstate(invalid="ignore"):  # a negative variance is caught just below
+            sig1, sig2 = np.sqrt(cov[0, 0]), np.sqrt(cov[1, 1])
         if not (np.isfinite(sig1) and np.isfinite(sig2) and cov[0, 0] > 0 and cov[1, 1] > 0):
             raise np.linalg.LinAlgError
     except np.linalg.LinAlgError:
