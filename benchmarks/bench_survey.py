@@ -15,7 +15,10 @@ read and screen them. Measured side by side in one run and printed as ratios:
 - Dask LocalCluster (2 single-threaded workers) versus the process pool (2 workers) on that sample
   (overhead target <= 20 %);
 - peak memory (RSS) of the parent and of the largest worker, and of the whole process tree, sampled
-  every 0.1 s with psutil, for each size.
+  every 0.1 s with psutil, for each size;
+- CPU seconds consumed per object by all the processes of a run (psutil): on a shared machine the
+  wall-clock ratios depend on the cores other users leave; the CPU ratios do not, and the speed-up
+  for free cores derived from them is printed, labelled as derived.
 
 The default sizes (100, 1000, 5000) take hours at ~2-4 s per object on two cores; ``--quick`` runs
 10, 20, 40. Numerical threads are pinned to one. The machines these run on are shared: read ratios.
@@ -146,6 +149,7 @@ def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
            "--workers", str(workers)]
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=_ENV)
     peak = {"parent": 0, "worker": 0, "tree": 0}
+    cpu = {}  # pid -> last seen user + system CPU time, s (the run's processes, sampled while alive)
     stop = threading.Event()
 
     def sample():
@@ -156,10 +160,14 @@ def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
         while not stop.is_set():
             try:
                 parent = root.memory_info().rss
+                t = root.cpu_times()
+                cpu[root.pid] = t.user + t.system
                 kids = []
                 for c in root.children(recursive=True):
                     try:
                         kids.append(c.memory_info().rss)
+                        t = c.cpu_times()
+                        cpu[c.pid] = t.user + t.system
                     except psutil.Error:
                         pass
                 peak["parent"] = max(peak["parent"], parent)
@@ -179,7 +187,8 @@ def run_config(data_dir: Path, n: int, executor: str, workers: int) -> dict:
         raise SystemExit(f"configuration {executor} x{workers} on {n} objects failed:\n{stderr[-2000:]}")
     res = json.loads(stdout.strip().splitlines()[-1])
     assert "bench_survey_pkg_" in res["module"], "the configuration did not import the snapshot"
-    res.update(n=n, executor=executor, workers=workers, load=(load0, os.getloadavg()[0]), rss_parent_mb=peak["parent"] / 2**20,
+    res.update(n=n, executor=executor, workers=workers, load=(load0, os.getloadavg()[0]),
+               cpu_s=sum(cpu.values()), cpu_obj_s=sum(cpu.values()) / n, rss_parent_mb=peak["parent"] / 2**20,
                rss_worker_mb=peak["worker"] / 2**20, rss_tree_mb=peak["tree"] / 2**20)
     return res
 
@@ -241,6 +250,20 @@ def main() -> None:
     print(f"per-object task time, {args.workers} workers / 1 worker: "
           f"{two['cpu_per_object_s'] / one['cpu_per_object_s']:.2f}; Dask / pool: "
           f"{dask['cpu_per_object_s'] / two['cpu_per_object_s']:.2f} (1.00 on an idle machine)")
+    # CPU accounting (psutil, every process of the run, sampled every 0.1 s: the last 0.1 s of a process is
+    # missed): on a shared machine the CPU a run consumes per object is what its executor costs; wall-clock
+    # speed-up then follows from the cores the machine actually grants
+    print(f"CPU seconds per object (all processes of the run): 1 worker {one['cpu_obj_s']:.2f}, "
+          f"{args.workers} workers {two['cpu_obj_s']:.2f}, Dask {dask['cpu_obj_s']:.2f}; "
+          f"ratios {args.workers} workers / 1 worker {two['cpu_obj_s'] / one['cpu_obj_s']:.2f}, "
+          f"Dask / pool {dask['cpu_obj_s'] / two['cpu_obj_s']:.2f}")
+    cpu_speedup = args.workers * one["cpu_obj_s"] / two["cpu_obj_s"]
+    cpu_dask = dask["cpu_obj_s"] / two["cpu_obj_s"] - 1.0
+    print(f"derived for {args.workers} free cores (not measured wall time): speed-up {cpu_speedup:.2f}x "
+          f"(target >= 1.7x: {'met' if cpu_speedup >= 1.7 else 'NOT met'}), Dask CPU overhead {cpu_dask:+.1%} "
+          f"(target <= 20%: {'met' if cpu_dask <= 0.2 else 'NOT met'}); CPU granted: 1 worker "
+          f"{one['cpu_s'] / one['wall_s']:.2f} cores, {args.workers} workers {two['cpu_s'] / two['wall_s']:.2f}, "
+          f"Dask {dask['cpu_s'] / dask['wall_s']:.2f} of {os.cpu_count()}")
     steady = two["steady_obj_s"] / one["steady_obj_s"]
     steady_dask = two["steady_obj_s"] / dask["steady_obj_s"] - 1.0
     print(f"after the first object: speed-up {steady:.2f}x, Dask overhead {steady_dask:+.1%}")
@@ -256,12 +279,15 @@ def main() -> None:
     # throughput and memory per size
     runs = [two if n == n_eff else run_config(data, n, "pool", args.workers) for n in sizes]
     base = runs[0]["wall_s"] / runs[0]["n"]
+    cbase = runs[0]["cpu_obj_s"]
     print(f"\n{'objects':>8s} {'wall s':>8s} {'obj/s':>7s} {'obj/s/core':>10s} {'s/obj':>7s} {'vs first':>8s} "
+          f"{'CPU s/obj':>9s} {'vs first':>8s} {'obj/CPU-s':>9s} "
           f"{'RSS parent MB':>13s} {'RSS worker MB':>13s} {'RSS tree MB':>11s}  status")
     for r in runs:
         per = r["wall_s"] / r["n"]
         print(f"{r['n']:8d} {r['wall_s']:8.1f} {r['n'] / r['wall_s']:7.3f} {r['n'] / r['wall_s'] / args.workers:10.3f} "
-              f"{per:7.2f} {per / base:8.2f} {r['rss_parent_mb']:13.0f} {r['rss_worker_mb']:13.0f} "
+              f"{per:7.2f} {per / base:8.2f} {r['cpu_obj_s']:9.2f} {r['cpu_obj_s'] / cbase:8.2f} "
+              f"{1 / r['cpu_obj_s']:9.3f} {r['rss_parent_mb']:13.0f} {r['rss_worker_mb']:13.0f} "
               f"{r['rss_tree_mb']:11.0f}  {r['status']}")
     for label, r in (("1 worker", one), ("Dask", dask)):
         print(f"{label:>8s} on {r['n']} objects: RSS parent {r['rss_parent_mb']:.0f} MB, largest worker "
