@@ -4,7 +4,7 @@ Usage::
 
     python benchmarks/bench_periodogram.py            # everything (several minutes)
     python benchmarks/bench_periodogram.py --quick    # smaller grids, for a smoke run
-    python benchmarks/bench_periodogram.py --part 1d  # or 2d, scaling
+    python benchmarks/bench_periodogram.py --part 1d  # or 2d, 2d-sessions, scaling, 2d-search
 
 Threads are pinned to one before numpy is imported (OPENBLAS/OMP/MKL), and
 nifty-ls and FINUFFT are called with nthreads=1. The figures are recorded in
