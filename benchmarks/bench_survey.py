@@ -278,6 +278,18 @@ def main() -> None:
 
     # throughput and memory per size
     runs = [two if n == n_eff else run_config(data, n, "pool", args.workers) for n in sizes]
+    # fixed start-up against marginal cost: CPU at n_eff and 2 n_eff objects, for the pool and for Dask
+    pool2 = next((r for r in runs if r["n"] == 2 * n_eff), None) or run_config(data, 2 * n_eff, "pool", args.workers)
+    dask2 = run_config(data, 2 * n_eff, "dask", args.workers)
+    print(f"\nmarginal CPU per object (CPU at {2 * n_eff} minus CPU at {n_eff} objects, / {n_eff}):")
+    marg = {}
+    for label, a, b in (("pool", two, pool2), ("Dask", dask, dask2)):
+        m = (b["cpu_s"] - a["cpu_s"]) / n_eff
+        marg[label] = m
+        print(f"  {label:>5s}: {m:.2f} CPU-s per object; fixed start-up {a['cpu_s'] - n_eff * m:.1f} CPU-s; "
+              f"wall {a['wall_s']:.1f} s -> {b['wall_s']:.1f} s")
+    print(f"Dask marginal CPU overhead vs the pool: {marg['Dask'] / marg['pool'] - 1:+.1%} (target <= 20%: "
+          f"{'met' if marg['Dask'] / marg['pool'] - 1 <= 0.2 else 'NOT met'}; start-up excluded)")
     base = runs[0]["wall_s"] / runs[0]["n"]
     cbase = runs[0]["cpu_obj_s"]
     print(f"\n{'objects':>8s} {'wall s':>8s} {'obj/s':>7s} {'obj/s/core':>10s} {'s/obj':>7s} {'vs first':>8s} "
