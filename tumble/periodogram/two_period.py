@@ -106,7 +106,8 @@ class TwoPeriodResult:
     p2_grid_h : numpy.ndarray, shape (F2,)
         Trial P2 values, hours.
     chi2_p2 : numpy.ndarray, shape (F2,) or (F1, F2)
-        Chi-square of the P2 scan at P1 fixed ('refine'), or the full map ('grid');
+        Chi-square of the P2 scan at P1 fixed ('refine'; a candidate ranking, relative
+        accuracy ~1e-6, see ``SCAN_COND_FACTOR``), or the full map ('grid', ~1e-8);
         nan where f2 is commensurate with f1 (:func:`commensurate_mask`).
     p1_grid_h : numpy.ndarray or None
         Trial P1 values of the map, hours ('grid' mode).
