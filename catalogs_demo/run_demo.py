@@ -2,7 +2,8 @@
 
 Classifies every campaign object with ``tumble survey`` (files grouped by
 the name before ``__``) and compares the verdicts with the truth table, reads
-the sparse survey table, inspects one object, constrains the rigidity
+the sparse survey table and triages it with ``tumble survey --screen`` (compared
+with the truth table too), inspects one object, constrains the rigidity
 from the census of earlier verdicts, and makes the HTML report of the
 campaign with ``tumble report``, printing what a user would see from the
 command line. Output goes to ``demo_out/`` (the report to ``demo_out/report/``).
@@ -54,6 +55,26 @@ def accuracy_against_truth(results_path: Path) -> None:
           f"(undecided counts as not right)")
 
 
+def screen_against_truth(results_path: Path) -> None:
+    """Confusion table of the sparse screen against the truth table."""
+    from astropy.table import Table
+
+    truth = {str(r["object"]): str(r["rotation"]) for r in Table.read(HERE / "truth.ecsv")}
+    res = Table.read(results_path)
+    table = defaultdict(int)
+    for r in res:
+        found = str(r["rotation"]) if r["status"] == "ok" else "error"
+        table[(truth[str(r["object"])], found)] += 1
+    cols = ("PA", "NPA", "undecided", "error")
+    print(f"{'truth':10s}" + "".join(f"{c:>11s}" for c in cols))
+    for t in ("PA", "NPA"):
+        print(f"{t:10s}" + "".join(f"{table[(t, c)]:11d}" for c in cols))
+    n_pa = sum(table[("PA", c)] for c in cols)
+    n_npa = sum(table[("NPA", c)] for c in cols)
+    print(f"screen: {table[('PA', 'NPA')]} of {n_pa} PA objects flagged NPA; {table[('NPA', 'NPA')]} of {n_npa} "
+          f"NPA objects flagged NPA (a triage for follow-up, not a verdict)")
+
+
 def main() -> int:
     from tumble.cli import main as tumble
     from tumble.exceptions import PhotometryError
@@ -85,6 +106,15 @@ def main() -> int:
             n_points.append(item.n_points)
     print(f"{counts['ok']} objects read ({counts['error']} errors); "
           f"{min(n_points)}-{max(n_points)} points each, all sparse (one zero-point per band)")
+    print("\n== The sparse sample: tumble survey --screen (fast triage) ==")
+    sparse_results = OUT / "sparse_screen.ecsv"
+    for stale in (sparse_results, sparse_results.with_name(sparse_results.name + ".journal.jsonl")):
+        stale.unlink(missing_ok=True)
+    code = tumble(["survey", str(HERE / "sparse" / "svs_sample.csv.gz"), "--screen", "--out", str(sparse_results),
+                   "--seed", "1", "--quiet"])
+    if code != 0:
+        return code
+    screen_against_truth(sparse_results)
 
     print("\n== One object in full: tumble inspect ==")
     code = tumble(["inspect", *map(str, campaign_groups()["KRN-003"]), "--write", str(OUT / "KRN-003.ecsv")])
