@@ -473,7 +473,7 @@ def plot_completeness(table, path) -> Path:
     Left: detection probability of injected NPA per period x amplitude bin;
     right: false-NPA rate of injected PA. Each cell is coloured by the fraction
     classified NPA (colour map 'cividis', 0 to 1) and labelled with the fraction
-    and ``k/n`` (classified NPA / classified); empty bins are grey.
+    and ``k/n`` (classified NPA / classified); empty bins are white, marked "-".
     """
     import matplotlib
 
@@ -487,7 +487,7 @@ def plot_completeness(table, path) -> Path:
     pe = np.unique(np.concatenate([bins["period_h_lo"], bins["period_h_hi"]]))
     ae = np.unique(np.concatenate([bins["amplitude_mag_lo"], bins["amplitude_mag_hi"]]))
     fig, axes = plt.subplots(1, 2, figsize=(12, 5), constrained_layout=True, sharey=True)
-    cmap = matplotlib.colormaps["cividis"].with_extremes(bad="0.85")
+    cmap = matplotlib.colormaps["cividis"].with_extremes(bad="white")
     norm = Normalize(0.0, 1.0)
     mesh = None
     for ax, truth, title in ((axes[0], "NPA", "injected NPA: detection probability"),
@@ -505,7 +505,7 @@ def plot_completeness(table, path) -> Path:
             if np.isfinite(r["frac_npa"]):
                 colour = "black" if r["frac_npa"] > 0.55 else "white"
             else:
-                colour = "0.35"  # empty bin, on the grey background
+                colour = "0.35"  # empty bin, on the white background
             ax.text(xc, yc, text, ha="center", va="center", fontsize=8, color=colour)
         mesh = ax.pcolormesh(pe, ae, np.ma.masked_invalid(grid), cmap=cmap, norm=norm, edgecolors="white",
                              linewidth=0.5)
