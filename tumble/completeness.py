@@ -31,7 +31,6 @@ cadences and these stated parameter distributions, not of the true population.
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
