@@ -140,6 +140,7 @@ def test_cli_summary(plans, tmp_path, capsys):
     (["--inject", "4", "--plan-from", "/nonexistent/plan.csv"], ["no such file"]),
     (["--inject", "0", "--plan-from", str(BAD_DIR / "empty.csv")], ["--inject", "positive"]),
     (["--inject", "4"], ["--plan-from"]),
+    (["--inject", "4", "--plan-from", str(BAD_DIR / "empty.csv"), "--report", "rep"], ["--report"]),
     (["--inject", "4", "--plan-from", str(BAD_DIR / "empty.csv"), "--period-bins", "5,2"], ["period_bins_h"]),
 ])
 def test_bad_plan_input_is_a_one_line_error(argv, words, tmp_path, capsys):

@@ -113,6 +113,8 @@ def run(args: argparse.Namespace) -> int:
             raise SurveyError("--inject needs --plan-from INPUT (the survey objects whose cadences to use)")
         if args.inputs:
             raise SurveyError("with --inject give the cadence objects with --plan-from, not as INPUT")
+        if args.report:
+            raise SurveyError("--report writes the report of a survey run; it does not go with --inject")
     elif not args.inputs:
         raise SurveyError("give at least one INPUT (directory, glob pattern or file)")
     elif not args.out:
