@@ -89,19 +89,25 @@ def _object_column(browser):
         ".map(function(r){return r.cells[0].textContent.trim();});")
 
 
+def _open_checked(browser, page, shot):
+    """Open a page, take its screenshot, and check it loaded cleanly: no console errors, every image loaded."""
+    browser.get(page.as_uri())
+    browser.save_screenshot(str(shot))
+    assert shot.stat().st_size > 0
+    assert _log_errors(browser) == []
+    imgs = _images(browser)
+    assert all(ok and width > 0 for _, ok, width in imgs), imgs
+    return imgs
+
+
 def test_survey_report_loads_sorts_and_filters(browser, reports, tmp_path):
     from selenium.webdriver.common.by import By
 
     from tumble.results import read_results
 
     index = reports / "survey_report" / "index.html"
-    browser.get(index.as_uri())
-    browser.save_screenshot(str(tmp_path / "survey.png"))
-    assert (tmp_path / "survey.png").stat().st_size > 0
-    assert _log_errors(browser) == []
-    imgs = _images(browser)
+    imgs = _open_checked(browser, index, tmp_path / "survey.png")
     assert imgs, "the survey page shows its sample figure"
-    assert all(ok and width > 0 for _, ok, width in imgs), imgs
 
     table = read_results(reports / "results.ecsv")
     names = [str(x) for x in table["object"]]
@@ -164,14 +170,9 @@ def test_object_report_loads_with_all_figures(browser, reports, tmp_path):
     from selenium.webdriver.common.by import By
 
     page = reports / "object_report" / "index.html"
-    browser.get(page.as_uri())
-    browser.save_screenshot(str(tmp_path / "object.png"))
-    assert (tmp_path / "object.png").stat().st_size > 0
-    assert _log_errors(browser) == []
-    imgs = _images(browser)
+    imgs = _open_checked(browser, page, tmp_path / "object.png")
     srcs = {Path(s).stem for s, _, _ in imgs}
     assert {"scan", "lightcurve", "folded", "residuals", "posterior"} <= srcs, srcs
-    assert all(ok and width > 0 for _, ok, width in imgs), imgs
     verdict = json.loads((reports / "c" / "verdict.json").read_text())
     box = browser.find_element(By.ID, "verdict").text
     assert verdict["rotation"] in box and verdict["grade"] in box
