@@ -93,6 +93,17 @@ def test_plot_is_a_png_image(run_a):
     assert img.ndim == 3 and img.shape[0] > 200 and img.shape[1] > 400
 
 
+def test_completeness_map_is_among_the_package_figures(run_a, tmp_path):
+    # every figure is reachable from tumble.plots; the map written there is the same image
+    # (matplotlib reads both back; image shapes compared, not pixels)
+    import matplotlib.image as mpimg
+
+    from tumble.plots import plot_completeness
+
+    out = plot_completeness(run_a.table, tmp_path / "map.png")
+    assert mpimg.imread(out).shape == mpimg.imread(run_a.plot_path).shape
+
+
 def test_deterministic_for_a_seed(plans, run_a, tmp_path):
     from astropy.table import Table
 

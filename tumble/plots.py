@@ -51,6 +51,7 @@ __all__ = [
     "plot_residuals",
     "plot_posterior_pairs",
     "plot_period_diameter",
+    "plot_completeness",
     "MAIN_PARAMETERS",
 ]
 
@@ -603,3 +604,14 @@ def plot_period_diameter(rows, diameters_km, *, title: str = "sample", taus_gyr=
         ax.legend(loc="lower right")
         ax.set_title(f"{title}: period-diameter diagram ({int(ok.sum())} of {len(rows)} objects plotted)")
     return _finish(fig, path)
+
+
+def plot_completeness(table, path):
+    """The survey completeness map (detection probability of NPA per period and amplitude bin).
+
+    It lives with the injection machinery in :mod:`tumble.completeness`; re-exported here so that
+    every figure of the package can be found in one module.
+    """
+    from tumble.completeness import plot_completeness as _plot
+
+    return _plot(table, path)
