@@ -55,7 +55,7 @@ from __future__ import annotations
 import math
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import special
@@ -582,7 +582,6 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         else:
             cont = -np.inf
         ln_f2_parts = [w.ln_integral for w in f2_windows] + [cont]
-        ln_f2 = _logsumexp(ln_f2_parts)
         jbest = int(np.argmax([w.ln_integral for w in f2_windows]))
         w2 = f2_windows[jbest]
         f2b = w2.best
@@ -669,7 +668,6 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     lz_pa = linear_log_evidence(data, pa_basis, [f1])[0]
     vpa = int(np.argmax(lz_pa))
     fit_pa = fit_linear(data, pa_basis, vpa, f1)
-    cols = pa_basis.columns[vpa]
     coef = fit_pa.coefficients
     # coefficient layout of the variant: per harmonic cos, sin (+ drift cos, sin)
     per = 2 * (1 + pa_basis.variants[vpa].drift)

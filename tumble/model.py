@@ -60,13 +60,12 @@ magnitudes in mag.
 from __future__ import annotations
 
 import math
-import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import special
 
-from tumble.exceptions import DataWarning, TumbleError
+from tumble.exceptions import TumbleError
 
 __all__ = [
     "ModelError",
@@ -718,7 +717,7 @@ class PhysicalModel:
     def __init__(self, lc, mode: str, *, period_range_h=(0.5, 2000.0), p_psi_range_h=None,
                  student_t: bool = False, nu_t: float = 4.0, geometry: ViewingGeometry | None = None,
                  epoch_jd: float | None = None):
-        from tumble.inference import IsotropicLatitude, LogUniform, Parameter, ParameterSpace, PeriodicUniform, Uniform
+        from tumble.inference import IsotropicLatitude, LogUniform, Parameter, PeriodicUniform, Uniform
 
         mode = str(mode).upper()
         if mode not in ("PA", "SAM", "LAM"):

@@ -15,8 +15,7 @@ probability in ``docs/methods-period-search.md``.
 
 from __future__ import annotations
 
-import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import optimize, stats
