@@ -930,6 +930,46 @@ def _random_orientations(space, base: dict, n, rng):
     return x
 
 
+#: starts refined per mode by a short Levenberg-Marquardt run, at most this many per frequency mapping
+N_SHORT_STARTS = 30
+N_STARTS_PER_MAPPING = 4
+#: of those, the best are refined fully
+N_FULL_STARTS = 4
+#: orientation restarts: random orientations drawn for each of the best N_RESTART_TOP fitted states
+#: (fitted shape and two others with the same period ratio); the N_RESTART_LM best are refined
+N_RESTART_ORIENT = 400
+N_RESTART_TOP = 2
+N_RESTART_LM = 3
+
+
+
+
+def _orientation_restarts(model, mode, x_best, rng):
+    """Starts that keep the frequencies of a fitted state and redraw its orientation.
+
+    The frequencies of an NPA state (``P_psi`` and the period ratio) are found well by the
+    frequency mappings, but the angular-momentum direction and the initial Euler angles have many
+    local optima. Draws ``N_RESTART_ORIENT`` random orientations for the fitted shape and for two
+    other shapes with the same period ratio, and returns the ``N_RESTART_LM`` best starts.
+    """
+    from tumble.dynamics import periods_unit_momentum
+
+    sp = model.space
+    d = dict(zip(sp.names, x_best))
+    args, _ = model.state_arrays(x_best[None])
+    pp, pf = periods_unit_momentum(args[0], args[1], args[2])
+    ratio = float(np.asarray(pf).ravel()[0] / np.asarray(pp).ravel()[0])
+    shapes = [(d["a_over_b"], d["b_over_c"], d["excitation_u"])] + _shape_solutions(mode, ratio, rng, n_pick=2)
+    xs = []
+    for ab, bc, u in shapes:
+        base = {"p_psi_h": d["p_psi_h"], "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
+                "ln_jitter_mag": d["ln_jitter_mag"]}
+        xs.append(_random_orientations(sp, base, N_RESTART_ORIENT, rng))
+    xs = np.concatenate(xs)
+    ll = model(xs)
+    return [xs[i] for i in np.argsort(-ll)[:N_RESTART_LM]]
+
+
 def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=None, n_walkers: int | None = None,
                        max_steps: int = 1500, max_points: int = 300, n_orientations: int = 48,
                        progress: bool = False, student_t: bool = False) -> RotationFit:
@@ -1014,15 +1054,16 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
             if not lst:
                 continue
             lst.sort(key=lambda e: -e[0])
-            # short refinement of the best start of each of the 6 most promising mappings, then a
-            # full one of the best 2 (different mappings have different basins)
-            firsts, seen_c = [], set()
+            # short refinement of the N_SHORT_STARTS best starts (at most N_STARTS_PER_MAPPING per
+            # frequency mapping: different mappings have different basins), a full one of the best
+            # N_FULL_STARTS, then orientation restarts around the best fitted frequencies
+            firsts, seen_c = [], {}
             for v0, x0, cand in lst:
                 key = (round(cand[1], 9), round(cand[2], 9))
-                if key not in seen_c:
-                    seen_c.add(key)
+                if seen_c.get(key, 0) < N_STARTS_PER_MAPPING:
+                    seen_c[key] = seen_c.get(key, 0) + 1
                     firsts.append((x0, cand))
-                if len(firsts) >= 6:
+                if len(firsts) >= N_SHORT_STARTS:
                     break
             short = []
             for x0, cand in firsts:
@@ -1030,10 +1071,19 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
                 short.append((v, x, cand))
             short.sort(key=lambda e: -e[0])
             best_x, best_ll, best_c = None, -np.inf, ()
-            for v0, x0, cand in short[:2]:
+            fulls = []
+            for v0, x0, cand in short[:N_FULL_STARTS]:
                 x, v = _optimise(models[mode], x0)
+                fulls.append((v, x, cand))
                 if v > best_ll:
                     best_x, best_ll, best_c = x, v, cand
+            if N_RESTART_ORIENT > 0:
+                fulls.sort(key=lambda e: -e[0])
+                for v0, x0, cand in fulls[:N_RESTART_TOP]:
+                    for x1 in _orientation_restarts(models[mode], mode, x0, rng):
+                        x, v = _optimise(models[mode], x1)
+                        if v > best_ll:
+                            best_x, best_ll, best_c = x, v, cand
             results[mode] = (best_ll, best_x, models[mode], best_c)
         if not results:
             raise ClassifyError(f"{lc.object_id}: no SAM or LAM state reproduces the frequencies "
