@@ -602,13 +602,32 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
             return (_mixture(linear_log_evidence(data, npa_basis, np.full(len(f2), f1), f2))
                     + _log_uniform_logpdf(f2, f2_lo, 0.5 * f1) + _commensurate_penalty(f1, f2, span))
 
-        w2n = _integrate_peak(f2_fun_n, f2b, 2 * step2, f2_lo, min(0.5 * f1n, f2_hi))
+        hi_n = min(0.5 * f1n, f2_hi)
+        w2n = _integrate_peak(f2_fun_n, f2b, 2 * step2, f2_lo, hi_n)
         n_eval += w2n.n_evaluations
-        ln_f2_n = _logsumexp([w2n.ln_integral] + [p for k, p in enumerate(ln_f2_parts) if k != jbest])
+        # the other f2 windows and the continuum on the same f1 slice: with precise data the
+        # evidence is sharp in f1, and slices at different f1 must not be mixed
+        others = []
+        if abs(f1n - f1c) > 0:
+            found = [w2n.best]
+            for k, w in enumerate(f2_windows):
+                if k == jbest or w.best > hi_n or min(abs(w.best - b) for b in found) < 3 * step2:
+                    continue
+                wk = _integrate_peak(f2_fun_n, w.best, 2 * step2, f2_lo, hi_n)
+                n_eval += wk.n_evaluations
+                if min(abs(wk.best - b) for b in found) >= 3 * step2:  # not the same peak climbed again
+                    found.append(wk.best)
+                    others.append(wk.ln_integral)
+            sel = mask & (thin <= hi_n) & (np.abs(thin - w2n.best) > 2 * step2)
+            if sel.sum() > 1:
+                n_eval += int(sel.sum())
+                others.append(_log_trapezoid(thin[sel], f2_fun_n(thin[sel])))
+        else:
+            others = [p for k, p in enumerate(ln_f2_parts) if k != jbest]
+        ln_f2_n = _logsumexp([w2n.ln_integral] + others)
         # separable product rule: ∫∫ Z p1 p2 ≈ [∫ Z(f1, f2*) p1 p2 df1] [∫ Z(f1*, f2) p2 df2] / [Z(f1*, f2*) p2(f2*)]
         ln_npa = pk1.ln_integral + ln_f2_n - w2n.best_value
-        rest = [p for k, p in enumerate(ln_f2_parts) if k != jbest]
-        ln_npa_alt = pk1.ln_integral_alt + _logsumexp([w2n.ln_integral_alt] + rest) - w2n.best_value
+        ln_npa_alt = pk1.ln_integral_alt + _logsumexp([w2n.ln_integral_alt] + others) - w2n.best_value
         mass = float(np.exp(w2n.ln_integral - ln_f2_n)) if np.isfinite(ln_f2_n) else 1.0
         peaks = [(float(f1c), float(w.best), float(w.ln_integral)) for w in f2_windows]
         return dict(ln=ln_npa, ln_alt=ln_npa_alt, f1=f1n, f2=w2n.best, s1=pk1.sigma, s2=w2n.sigma,
@@ -693,8 +712,8 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
     else:
         npa_label, kappa_npa, dbic = "", float("nan"), float("inf")
     allpk = [(r["f1"], r["f2"], r["ln"]) for r in npa_results.values() if np.isfinite(r["f2"])]
-    for r in npa_results.values():
-        allpk += r.get("peaks", [])
+    for res in npa_results.values():  # not `r`: r is the dominant window's result, used below
+        allpk += res.get("peaks", [])
     allpk.sort(key=lambda e: -e[2])
     npa_pairs = []
     for f1p, f2p, _ in allpk:
