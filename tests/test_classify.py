@@ -133,6 +133,23 @@ def test_daily_alias_second_period_is_undecided(pa_evidence):
     assert v.rotation == "undecided" and any("1/day" in w for w in v.warnings)
 
 
+def test_sparse_pair_that_only_modulates_a_daily_alias_is_undecided(pa_evidence):
+    # Nightly sampling aliases a light curve at f to f +- k c/d (common practice: the spectral window
+    # of nightly data has peaks at k c/d); a second frequency with f1 - f2 within 1.5 cycles per
+    # span of 1 c/d only modulates that alias slowly, as a PA light curve changing with geometry does.
+    lc, ev = pa_evidence
+    span = 120.0
+    base = dict(ln_bayes_factor=40.0, f1_npa_sigma_per_d=1e-4, f2_sigma_per_d=1e-4, npa_window_mass=1.0,
+                window_disagreement=False)
+    alias = replace(ev, f1_npa_per_d=1.70837, f2_per_d=0.71352, **base)  # f1 - f2 = 0.99485 c/d
+    v = decide(alias, span_d=span, sparse=True)
+    assert v.rotation == "undecided" and any("f1 - f2" in w for w in v.warnings)
+    # the same pair in dense data, and a pair far from every alias in sparse data, are not affected
+    assert decide(alias, span_d=span, sparse=False).rotation == "NPA"
+    clear = replace(ev, f1_npa_per_d=1.70837, f2_per_d=0.61352, **base)  # f1 - f2 = 1.09485, f1 + f2 = 2.32189
+    assert decide(clear, span_d=span, sparse=True).rotation == "NPA"
+
+
 def test_candidates_contain_the_published_relations():
     # SAM: dominant light-curve frequency f_phi - f_psi; LAM: f_phi and f_phi + f_psi
     # (Kaasalainen 2001, A&A 376, 302; Pravec et al. 2005, Icarus 173, 108).

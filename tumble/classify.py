@@ -1278,7 +1278,10 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
     5. NPA with either light-curve basis frequency within ``0.5/span`` (or 3 sigma; for sparse
        data :data:`SPARSE_ALIAS_TOL_PER_D`) of 1, 2 or 3 cycles per (solar or sidereal) day (for
        sparse data any k <= :data:`SPARSE_ALIAS_K_MAX`) -> undecided (calibration or
-       window-function alias of a slow variation).
+       window-function alias of a slow variation). For sparse data also ``f1 - f2`` or ``f1 + f2``
+       within ``MIN_CYCLES/span`` of 1, 2 or 3 c/d -> undecided: the second period then only
+       modulates a daily alias of the first with fewer than 1.5 cycles over the span, which the
+       slow change of a PA light curve with geometry mimics.
     6. The data span is shorter than :data:`MIN_CYCLES` times the longest claimed period -> undecided.
     7. NPA: the mode is the physical fit's best mode unless SAM and LAM reach log-likelihoods
        within 2 nats of each other (mode ``none``); an unconverged or multimodal physical
@@ -1341,6 +1344,15 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
             if _near_daily_alias(f, tol, k_max=SPARSE_ALIAS_K_MAX if sparse else 3) and rotation != "undecided":
                 rotation = "undecided"
                 warn.append(f"{name} light-curve period {24.0 / f:.4g} h lies at a 1/day alias")
+        if sparse and rotation != "undecided":
+            f1n, f2n = evidence.f1_npa_per_d, evidence.f2_per_d
+            for label, c in (("f1 - f2", f1n - f2n), ("f1 + f2", f1n + f2n)):
+                if _near_daily_alias(c, MIN_CYCLES / span_d, k_max=3):
+                    rotation = "undecided"
+                    warn.append(f"{label} = {c:.5f} c/d lies within {MIN_CYCLES}/span of a 1, 2 or 3 c/d alias: the "
+                                "second period only modulates a daily alias of the first, as a PA light curve "
+                                "changing with geometry does in sparse nightly data")
+                    break
     if fit is not None:
         state_conv = fit.converged
         if not fit.converged:
