@@ -989,6 +989,29 @@ def _orientation_restarts(model, mode, x_best, rng):
     return [xs[i] for i in np.argsort(-ll)[:N_RESTART_LM]]
 
 
+def _two_period_pair(lc):
+    """The best order-2 pair of the joint two-period least-squares scan as ``[(f_high, f_low)]`` (c/d).
+
+    The shape-free evidence ranks lattices by marginal likelihood, and with drift terms a wrong
+    lattice can fit a short dense campaign as closely as the true one (a clear LAM test case:
+    kappa 0.95 for the wrong basis, 1.02 for the true one), while the plain two-period scan often
+    hits the true pair (there 2 (f_phi + f_psi) and f_phi). Its pair is added to the frequency
+    mappings the physical fit tries, which can tell the lattices apart.
+    """
+    from tumble.periodogram import two_period_scan
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = two_period_scan(lc, order=2)
+    except (TumbleError, ValueError, np.linalg.LinAlgError):
+        return []
+    fa, fb = res.f1_per_d, res.f2_per_d
+    if not (np.isfinite(fa) and np.isfinite(fb) and fa > 0 and fb > 0):
+        return []
+    return [(float(max(fa, fb)), float(min(fa, fb)))]
+
+
 def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=None, n_walkers: int | None = None,
                        max_steps: int = 1500, max_points: int = 300, n_orientations: int = 48,
                        progress: bool = False, student_t: bool = False) -> RotationFit:
@@ -1045,8 +1068,9 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     else:
         f1, f2 = evidence.f1_npa_per_d, evidence.f2_per_d
         pairs = [(f1, f2)] + [p for p in evidence.npa_pairs if p != (f1, f2)]
+        pairs = pairs[:3] + _two_period_pair(lc)
         cands, seen_c = [], set()
-        for pf1, pf2 in pairs[:3]:
+        for pf1, pf2 in pairs:
             for c in npa_candidates(pf1, pf2):
                 key = (c[0], round(c[1], 6), round(c[2], 6))
                 if key not in seen_c:
