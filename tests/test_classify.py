@@ -104,6 +104,15 @@ def test_multimodal_period_posterior_is_not_confident(pa_evidence):
     assert disagree.rotation == "undecided"
 
 
+def test_undefined_evidence_is_never_a_verdict(pa_evidence):
+    # A failed evidence evaluation (NaN ln B) must read as undecided with p_npa NaN, not as PA
+    # (common practice: an estimate that could not be made is reported as missing, not as zero).
+    lc, ev = pa_evidence
+    v = decide(replace(ev, ln_bayes_factor=math.nan), span_d=lc.span_d)
+    assert v.rotation == "undecided" and v.grade == "none" and math.isnan(v.p_npa)
+    assert any("could not be evaluated" in w for w in v.warnings)
+
+
 def test_unconverged_state_posterior_caps_the_grade(pa_evidence):
     lc, ev = pa_evidence
     npa = replace(ev, ln_bayes_factor=40.0, f1_npa_per_d=6.6, f2_per_d=1.6, f1_npa_sigma_per_d=1e-4,

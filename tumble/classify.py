@@ -628,6 +628,10 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
         # separable product rule: ∫∫ Z p1 p2 ≈ [∫ Z(f1, f2*) p1 p2 df1] [∫ Z(f1*, f2) p2 df2] / [Z(f1*, f2*) p2(f2*)]
         ln_npa = pk1.ln_integral + ln_f2_n - w2n.best_value
         ln_npa_alt = pk1.ln_integral_alt + _logsumexp([w2n.ln_integral_alt] + others) - w2n.best_value
+        if not np.isfinite(w2n.best_value):
+            # no admissible f2 (>= MIN_CYCLES / span, <= f1 / 2) at the NPA's own f1: the window
+            # holds no NPA model at all (an undefined -inf - -inf would otherwise poison the sum)
+            ln_npa = ln_npa_alt = -np.inf
         mass = float(np.exp(w2n.ln_integral - ln_f2_n)) if np.isfinite(ln_f2_n) else 1.0
         peaks = [(float(f1c), float(w.best), float(w.ln_integral)) for w in f2_windows]
         return dict(ln=ln_npa, ln_alt=ln_npa_alt, f1=f1n, f2=w2n.best, s1=pk1.sigma, s2=w2n.sigma,
@@ -1321,7 +1325,11 @@ def decide(evidence: EvidenceResult, *, span_d: float, prior_npa: float = DEFAUL
     favour = "NPA" if ln_b > 0 else "PA"
     rotation = favour
     cap = None
-    if abs(2 * ln_b) < 2:
+    if np.isnan(ln_b):
+        # a defect upstream must never read as a verdict
+        rotation, grade, p_npa = "undecided", "none", math.nan
+        warn.append("the evidence could not be evaluated (ln B is undefined)")
+    elif abs(2 * ln_b) < 2:
         rotation = "undecided"
         warn.append(f"weak evidence: |2 ln B| = {abs(2 * ln_b):.2f} < 2")
     elif favour == "NPA" and p_npa < 0.5:
