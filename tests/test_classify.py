@@ -171,6 +171,22 @@ def test_candidates_contain_the_published_relations():
     for m, a, b, (pa, pb), (qa, qb) in c:  # the error-propagation coefficients reproduce the frequencies
         assert pa * f_phi + pb * f_psi == pytest.approx(a)
         assert qa * f_phi + qb * f_psi == pytest.approx(b)
+    # The same lattice has other bases (Kaasalainen 2001: any n1 f_phi + n2 f_psi): a SAM whose
+    # strongest fitted term is f_phi itself, or f_phi + f_psi, is among the "other" forms.
+    f_phi, f_psi = 24 / 3.5, 24 / 20.0
+    assert not any(m == "SAM" and abs(a - f_psi) < 1e-9 and abs(b - f_phi) < 1e-9
+                   for m, a, b, *_ in npa_candidates(f_phi, f_psi))
+    for f1 in (f_phi, f_phi + f_psi):
+        other = npa_candidates(f1, f_psi, forms="other")
+        assert any(m == "SAM" and abs(a - f_psi) < 1e-9 and abs(b - f_phi) < 1e-9 for m, a, b, *_ in other)
+        f2 = f_psi
+        for m, a, b, (pa, pb), (qa, qb) in other:
+            assert pa * f1 + pb * f2 == pytest.approx(a) and qa * f1 + qb * f2 == pytest.approx(b)
+    both = npa_candidates(f_phi, f_psi, forms="all")
+    assert both == npa_candidates(f_phi, f_psi) + [c for c in npa_candidates(f_phi, f_psi, forms="other")
+                                                  if c[:3] not in [d[:3] for d in npa_candidates(f_phi, f_psi)]]
+    with pytest.raises(ValueError):
+        npa_candidates(f_phi, f_psi, forms="every")
 
 
 def test_model_error_floor_grows_with_amplitude_and_geometry(rng):

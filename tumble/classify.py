@@ -744,23 +744,31 @@ def fourier_evidence(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_win
 # ---------------------------------------------------------------------------
 # physical rotation state
 # ---------------------------------------------------------------------------
-def npa_candidates(f1_per_d: float, f2_per_d: float) -> list:
+def npa_candidates(f1_per_d: float, f2_per_d: float, *, forms: str = "published") -> list:
     """Rotation/precession frequency pairs consistent with a light-curve lattice basis (f1, f2).
 
     The light curve of a free rotator holds only ``n1 f_phi + n2 f_psi``
     (Kaasalainen 2001, A&A 376, 302); its dominant terms are ``f_phi - f_psi``
     (SAM) and ``f_phi``, ``f_phi + f_psi`` (LAM) (Pravec et al. 2005, Icarus
     173, 108). With ``f1`` the fundamental and ``f2`` the reduced second basis
-    frequency, ``f_psi`` is one of ``f2``, ``f1 - f2``, ``f1 + f2`` and
+    frequency, ``f_psi`` is one of ``f2``, ``f1 - f2``, ``f1 + f2`` (and halves and doubles) and
 
-    - SAM: ``f_phi = f1 + f_psi`` (``f1`` = the dominant ``f_phi - f_psi``);
-    - LAM: ``f_phi = f1``, or ``f_phi + f_psi = f1``.
+    - ``forms="published"``: SAM ``f_phi = f1 + f_psi`` (``f1`` = the dominant ``f_phi - f_psi``);
+      LAM ``f_phi = f1``, or ``f_phi + f_psi = f1``;
+    - ``forms="other"``: the remaining assignments of ``f1`` to ``f_phi - f_psi``, ``f_phi`` or
+      ``f_phi + f_psi`` in each mode (SAM ``f_phi = f1`` or ``f_phi + f_psi = f1``; LAM
+      ``f_phi - f_psi = f1``). The evidence's basis is only one basis of the lattice, and
+      its ``f1`` is the strongest term of the fitted series, which for a real body need not
+      be the published dominant one;
+    - ``forms="all"``: both, published first.
 
     Returns
     -------
     list of (mode, f_psi_per_d, f_phi_per_d, (a_psi, b_psi), (a_phi, b_phi))
         The last two items give ``f = a f1 + b f2`` for error propagation.
     """
+    if forms not in ("published", "other", "all"):
+        raise ValueError(f"forms must be 'published', 'other' or 'all', not {forms!r}")
     out = []
     seen = set()
 
@@ -770,21 +778,30 @@ def npa_candidates(f1_per_d: float, f2_per_d: float) -> list:
             seen.add(key)
             out.append((mode, fpsi, fphi, cpsi, cphi))
 
-    # a light curve of a body with the ellipsoid's symmetry holds only even combinations, so the
-    # basis may be twice the physical frequencies: allow halves of f1 and of the f_psi options
-    for d1 in (1, 2):
-        g1 = f1_per_d / d1
-        for a in (0, 1, 2):
-            for b in (-2, -1, 1, 2):
-                for d2 in (1, 2):
-                    fpsi = (a * f1_per_d + b * f2_per_d) / d2
-                    if not fpsi > 0:
-                        continue
-                    cpsi = (a / d2, b / d2)
-                    add("SAM", fpsi, g1 + fpsi, cpsi, (1 / d1 + cpsi[0], cpsi[1]))
-                    if g1 > fpsi:
-                        add("LAM", fpsi, g1, cpsi, (1 / d1, 0.0))
-                        add("LAM", fpsi, g1 - fpsi, cpsi, (1 / d1 - cpsi[0], -cpsi[1]))
+    # which of f_phi - f_psi ("diff"), f_phi ("phi"), f_phi + f_psi ("sum") the f1 basis is
+    published = {"SAM": ("diff",), "LAM": ("phi", "sum")}
+    other = {"SAM": ("phi", "sum"), "LAM": ("diff",)}
+    chosen = [published] if forms == "published" else [other] if forms == "other" else [published, other]
+    for table in chosen:
+        # a light curve of a body with the ellipsoid's symmetry holds only even combinations, so the
+        # basis may be twice the physical frequencies: allow halves of f1 and of the f_psi options
+        for d1 in (1, 2):
+            g1 = f1_per_d / d1
+            for a in (0, 1, 2):
+                for b in (-2, -1, 1, 2):
+                    for d2 in (1, 2):
+                        fpsi = (a * f1_per_d + b * f2_per_d) / d2
+                        if not fpsi > 0:
+                            continue
+                        cpsi = (a / d2, b / d2)
+                        for mode in ("SAM", "LAM"):
+                            for form in table[mode]:
+                                if form == "diff":
+                                    add(mode, fpsi, g1 + fpsi, cpsi, (1 / d1 + cpsi[0], cpsi[1]))
+                                elif g1 > fpsi and form == "phi":
+                                    add(mode, fpsi, g1, cpsi, (1 / d1, 0.0))
+                                elif g1 > fpsi and form == "sum":
+                                    add(mode, fpsi, g1 - fpsi, cpsi, (1 / d1 - cpsi[0], -cpsi[1]))
     return out
 
 
@@ -958,22 +975,30 @@ N_SHORT_STARTS = 30
 N_STARTS_PER_MAPPING = 4
 #: of those, the best are refined fully
 N_FULL_STARTS = 4
-#: orientation restarts: random orientations drawn for each of the best N_RESTART_TOP fitted states
-#: (fitted shape and two others with the same period ratio); the N_RESTART_LM best are refined
-N_RESTART_ORIENT = 400
-N_RESTART_TOP = 2
-N_RESTART_LM = 3
+#: the same for the other basis assignments of the lattices (``npa_candidates(forms="other")``)
+N_SHORT_STARTS_OTHER = 16
+N_STARTS_PER_MAPPING_OTHER = 2
+N_FULL_STARTS_OTHER = 2
+#: shape restarts: for each of the best N_RESTART_TOP fitted states, N_RESTART_SHAPES shapes with
+#: the same period ratio (the fitted one first) x N_RESTART_ORIENT random orientations each get a
+#: short refinement; the N_RESTART_LM best are refined fully
+N_RESTART_TOP = 4
+N_RESTART_SHAPES = 6
+N_RESTART_ORIENT = 2
+N_RESTART_LM = 2
 
 
-
-
-def _orientation_restarts(model, mode, x_best, rng):
-    """Starts that keep the frequencies of a fitted state and redraw its orientation.
+def _shape_restarts(model, mode, x_best, rng):
+    """Starts that keep the frequencies of a fitted state and redraw its shape and orientation.
 
     The frequencies of an NPA state (``P_psi`` and the period ratio) are found well by the
-    frequency mappings, but the angular-momentum direction and the initial Euler angles have many
-    local optima. Draws ``N_RESTART_ORIENT`` random orientations for the fitted shape and for two
-    other shapes with the same period ratio, and returns the ``N_RESTART_LM`` best starts.
+    frequency mappings, but the fit then stalls in the shape: a wrong ellipsoid with the right
+    period ratio is a deep local optimum, while from the right shape almost every random
+    orientation converges (measured on simulated SAM and LAM bodies; `docs/validation-classify.md`).
+    The likelihood of an unrefined start says little about its basin, so the starts are not ranked
+    here: returns ``N_RESTART_SHAPES x N_RESTART_ORIENT`` starts - the fitted shape and shapes
+    drawn along the constant-ratio curve of :func:`_shape_solutions`, each with random
+    orientations.
     """
     from tumble.dynamics import periods_unit_momentum
 
@@ -982,15 +1007,60 @@ def _orientation_restarts(model, mode, x_best, rng):
     args, _ = model.state_arrays(x_best[None])
     pp, pf = periods_unit_momentum(args[0], args[1], args[2])
     ratio = float(np.asarray(pf).ravel()[0] / np.asarray(pp).ravel()[0])
-    shapes = [(d["a_over_b"], d["b_over_c"], d["excitation_u"])] + _shape_solutions(mode, ratio, rng, n_pick=2)
+    shapes = [(d["a_over_b"], d["b_over_c"], d["excitation_u"])]
+    shapes += _shape_solutions(mode, ratio, rng, n_pick=N_RESTART_SHAPES - 1)
     xs = []
     for ab, bc, u in shapes:
         base = {"p_psi_h": d["p_psi_h"], "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
                 "ln_jitter_mag": d["ln_jitter_mag"]}
-        xs.append(_random_orientations(sp, base, N_RESTART_ORIENT, rng))
-    xs = np.concatenate(xs)
-    ll = model(xs)
-    return [xs[i] for i in np.argsort(-ll)[:N_RESTART_LM]]
+        xs.extend(_random_orientations(sp, base, N_RESTART_ORIENT, rng))
+    return xs
+
+
+#: local no-drift refinement of the evidence's lattice basis: grid half-width and step (cycles per span)
+REFINE_HALF_WIDTH = 0.6
+REFINE_STEP = 0.03
+REFINE_VARIANTS = (FourierVariant(4, 0, 2), FourierVariant(4, 0, 3))
+
+
+def _refined_pairs(lc, f1, f2):
+    """The evidence's ``(f1, f2)`` re-located by two-period series without drift, ``[(f1', f2'), ...]``.
+
+    The evidence's series carry Legendre drift in their coefficients, and a coefficient whose
+    phase drifts linearly is a shifted frequency: with drift the best ``f1`` can sit 0.3-0.4 cycles
+    per span from the body's true lattice, outside the basin of the physical fit. Without drift
+    the frequencies are pinned (measured on simulated LAM and SAM bodies: 0.03-0.04 c/d offsets
+    over 9.3 d fell to < 0.002 c/d). Each variant of :data:`REFINE_VARIANTS` gives its best pair on
+    a local grid of +-:data:`REFINE_HALF_WIDTH` cycles per span.
+    """
+
+    if not (np.isfinite(f1) and np.isfinite(f2) and f1 > 0 and f2 > 0):
+        return []
+    span = lc.span_d
+    off = np.arange(-REFINE_HALF_WIDTH, REFINE_HALF_WIDTH + 1e-9, REFINE_STEP) / span
+    g1, g2 = f1 + off, f2 + off
+    g1, g2 = g1[g1 > 0], g2[g2 > 0]
+    a1, a2 = np.meshgrid(g1, g2, indexing="ij")
+    a1, a2 = a1.ravel(), a2.ravel()
+    ok = a2 < a1
+    if not ok.any():
+        return []
+    a1, a2 = a1[ok], a2[ok]
+    try:
+        data = prepare_linear(lc, error_floor_mag=MODEL_ERROR_FLOOR_MAG)
+    except (TumbleError, ValueError, np.linalg.LinAlgError):
+        return []
+    out = []
+    for variant in REFINE_VARIANTS:
+        basis = FourierBasis.build([variant])
+        lz = linear_log_evidence(data, basis, a1, a2)[:, 0]
+        if not np.any(np.isfinite(lz)):
+            continue
+        k = int(np.nanargmax(lz))
+        pair = (float(a1[k]), float(a2[k]))
+        if all(abs(pair[0] - p[0]) > 0.1 / span or abs(pair[1] - p[1]) > 0.1 / span for p in out):
+            out.append(pair)
+    return out
 
 
 def _two_period_pair(lc):
@@ -1072,14 +1142,18 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     else:
         f1, f2 = evidence.f1_npa_per_d, evidence.f2_per_d
         pairs = [(f1, f2)] + [p for p in evidence.npa_pairs if p != (f1, f2)]
-        pairs = pairs[:3] + _two_period_pair(lc)
-        cands, seen_c = [], set()
-        for pf1, pf2 in pairs:
-            for c in npa_candidates(pf1, pf2):
-                key = (c[0], round(c[1], 6), round(c[2], 6))
-                if key not in seen_c:
-                    seen_c.add(key)
-                    cands.append(c)
+        pairs = pairs[:3] + _two_period_pair(lc) + _refined_pairs(lc, f1, f2)
+        # published mappings first, then the other basis assignments of the same lattices; each
+        # group has its own quota of refined starts, so the second cannot crowd out the first
+        cands, seen_c, group_of = [], set(), {}
+        for group, forms in ((0, "published"), (1, "other")):
+            for pf1, pf2 in pairs:
+                for c in npa_candidates(pf1, pf2, forms=forms):
+                    key = (c[0], round(c[1], 6), round(c[2], 6))
+                    if key not in seen_c:
+                        seen_c.add(key)
+                        cands.append(c)
+                        group_of[(c[0], round(c[1], 9), round(c[2], 9))] = group
         per_mode = {"SAM": [], "LAM": []}
         models = {}
         for cand in cands:
@@ -1103,31 +1177,40 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
             lst.sort(key=lambda e: -e[0])
             # short refinement of the N_SHORT_STARTS best starts (at most N_STARTS_PER_MAPPING per
             # frequency mapping: different mappings have different basins), a full one of the best
-            # N_FULL_STARTS, then orientation restarts around the best fitted frequencies
-            firsts, seen_c = [], {}
-            for v0, x0, cand in lst:
-                key = (round(cand[1], 9), round(cand[2], 9))
-                if seen_c.get(key, 0) < N_STARTS_PER_MAPPING:
-                    seen_c[key] = seen_c.get(key, 0) + 1
-                    firsts.append((x0, cand))
-                if len(firsts) >= N_SHORT_STARTS:
-                    break
-            short = []
-            for x0, cand in firsts:
-                x, v = _optimise(models[mode], x0, n_iter=12)
-                short.append((v, x, cand))
-            short.sort(key=lambda e: -e[0])
+            # N_FULL_STARTS, then shape and orientation restarts around the best fitted frequencies
+            tops = []
+            for group, (n_short, per_map, n_full) in enumerate(
+                    ((N_SHORT_STARTS, N_STARTS_PER_MAPPING, N_FULL_STARTS),
+                     (N_SHORT_STARTS_OTHER, N_STARTS_PER_MAPPING_OTHER, N_FULL_STARTS_OTHER))):
+                firsts, seen_c = [], {}
+                for v0, x0, cand in lst:
+                    if group_of[(cand[0], round(cand[1], 9), round(cand[2], 9))] != group:
+                        continue
+                    key = (round(cand[1], 9), round(cand[2], 9))
+                    if seen_c.get(key, 0) < per_map:
+                        seen_c[key] = seen_c.get(key, 0) + 1
+                        firsts.append((x0, cand))
+                    if len(firsts) >= n_short:
+                        break
+                short = []
+                for x0, cand in firsts:
+                    x, v = _optimise(models[mode], x0, n_iter=12)
+                    short.append((v, x, cand))
+                short.sort(key=lambda e: -e[0])
+                tops += short[:n_full]
             best_x, best_ll, best_c = None, -np.inf, ()
             fulls = []
-            for v0, x0, cand in short[:N_FULL_STARTS]:
+            for v0, x0, cand in tops:
                 x, v = _optimise(models[mode], x0)
                 fulls.append((v, x, cand))
                 if v > best_ll:
                     best_x, best_ll, best_c = x, v, cand
-            if N_RESTART_ORIENT > 0:
+            if N_RESTART_TOP > 0:
                 fulls.sort(key=lambda e: -e[0])
                 for v0, x0, cand in fulls[:N_RESTART_TOP]:
-                    for x1 in _orientation_restarts(models[mode], mode, x0, rng):
+                    rs = [_optimise(models[mode], x1, n_iter=12) for x1 in _shape_restarts(models[mode], mode, x0, rng)]
+                    rs.sort(key=lambda e: -e[1])
+                    for x1, _ in rs[:N_RESTART_LM]:
                         x, v = _optimise(models[mode], x1)
                         if v > best_ll:
                             best_x, best_ll, best_c = x, v, cand
