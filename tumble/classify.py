@@ -994,7 +994,7 @@ def _shape_restarts(model, mode, x_best, rng):
     The frequencies of an NPA state (``P_psi`` and the period ratio) are found well by the
     frequency mappings, but the fit then stalls in the shape: a wrong ellipsoid with the right
     period ratio is a deep local optimum, while from the right shape almost every random
-    orientation converges (measured on simulated SAM and LAM bodies; `docs/validation-classify.md`).
+    orientation converges (measured on simulated SAM and LAM bodies; `docs/methods-classify.md`).
     The likelihood of an unrefined start says little about its basin, so the starts are not ranked
     here: returns ``N_RESTART_SHAPES x N_RESTART_ORIENT`` starts - the fitted shape and shapes
     drawn along the constant-ratio curve of :func:`_shape_solutions`, each with random
@@ -1033,7 +1033,6 @@ def _refined_pairs(lc, f1, f2):
     over 9.3 d fell to < 0.002 c/d). Each variant of :data:`REFINE_VARIANTS` gives its best pair on
     a local grid of +-:data:`REFINE_HALF_WIDTH` cycles per span.
     """
-
     if not (np.isfinite(f1) and np.isfinite(f2) and f1 > 0 and f2 > 0):
         return []
     span = lc.span_d
@@ -1145,18 +1144,17 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
         pairs = pairs[:3] + _two_period_pair(lc) + _refined_pairs(lc, f1, f2)
         # published mappings first, then the other basis assignments of the same lattices; each
         # group has its own quota of refined starts, so the second cannot crowd out the first
-        cands, seen_c, group_of = [], set(), {}
+        cands, seen_c = [], set()
         for group, forms in ((0, "published"), (1, "other")):
             for pf1, pf2 in pairs:
                 for c in npa_candidates(pf1, pf2, forms=forms):
                     key = (c[0], round(c[1], 6), round(c[2], 6))
                     if key not in seen_c:
                         seen_c.add(key)
-                        cands.append(c)
-                        group_of[(c[0], round(c[1], 9), round(c[2], 9))] = group
+                        cands.append((group, c))
         per_mode = {"SAM": [], "LAM": []}
         models = {}
-        for cand in cands:
+        for group, cand in cands:
             mode, fpsi, fphi = cand[:3]
             p_psi = 24.0 / fpsi
             if p_psi > span_h / MIN_CYCLES * 3 or p_psi < 0.2:
@@ -1170,7 +1168,7 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
                 xs = _random_orientations(model.space, base, n_orientations, rng)
                 ll = model(xs)
                 j = int(np.argmax(ll))
-                per_mode[mode].append((float(ll[j]), xs[j], cand))
+                per_mode[mode].append((float(ll[j]), xs[j], cand, group))
         for mode, lst in per_mode.items():
             if not lst:
                 continue
@@ -1183,8 +1181,8 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
                     ((N_SHORT_STARTS, N_STARTS_PER_MAPPING, N_FULL_STARTS),
                      (N_SHORT_STARTS_OTHER, N_STARTS_PER_MAPPING_OTHER, N_FULL_STARTS_OTHER))):
                 firsts, seen_c = [], {}
-                for v0, x0, cand in lst:
-                    if group_of[(cand[0], round(cand[1], 9), round(cand[2], 9))] != group:
+                for v0, x0, cand, g in lst:
+                    if g != group:
                         continue
                     key = (round(cand[1], 9), round(cand[2], 9))
                     if seen_c.get(key, 0) < per_map:
