@@ -63,16 +63,16 @@ def screen_against_truth(results_path: Path) -> None:
     res = Table.read(results_path)
     table = defaultdict(int)
     for r in res:
-        found = str(r["rotation"]) if r["status"] == "ok" else "error"
+        found = str(r["screen_flag"]) if r["status"] == "ok" else "error"
         table[(truth[str(r["object"])], found)] += 1
-    cols = ("PA", "NPA", "undecided", "error")
+    cols = ("quiet", "candidate", "unknown", "error")
     print(f"{'truth':10s}" + "".join(f"{c:>11s}" for c in cols))
     for t in ("PA", "NPA"):
         print(f"{t:10s}" + "".join(f"{table[(t, c)]:11d}" for c in cols))
     n_pa = sum(table[("PA", c)] for c in cols)
     n_npa = sum(table[("NPA", c)] for c in cols)
-    print(f"screen: {table[('PA', 'NPA')]} of {n_pa} PA objects flagged NPA; {table[('NPA', 'NPA')]} of {n_npa} "
-          f"NPA objects flagged NPA (a triage for follow-up, not a verdict)")
+    print(f"screen: {table[('PA', 'candidate')]} of {n_pa} PA objects flagged as candidates; "
+          f"{table[('NPA', 'candidate')]} of {n_npa} NPA objects flagged (a triage for follow-up, not a verdict)")
 
 
 def main() -> int:

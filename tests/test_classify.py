@@ -131,7 +131,7 @@ def test_unconverged_state_posterior_caps_the_grade(pa_evidence):
     assert v2.p_psi_h == pytest.approx(30.0) and v2.p_phi_h == pytest.approx(24 / 7.2)
     # SAM and LAM equally good: the mode is not decided
     v3 = decide(npa, span_d=lc.span_d, fit=replace(fit, converged=True, max_log_likelihood={"SAM": 50.5, "LAM": 50.0}))
-    assert v3.mode == "none"
+    assert v3.mode == "unknown"  # SAM and LAM not told apart (issue 19: "unknown", not "none")
 
 
 def test_daily_alias_second_period_is_undecided(pa_evidence):
@@ -229,7 +229,8 @@ def test_pure_noise_is_not_npa(rng):
 
 
 def test_outliers_with_robust_option_are_not_npa(rng):
-    lc = _pa_lc(rng, n_nights=2, outliers=0.03)
+    # four nights: two nights (about four rotations) cannot test NPA at all (see the untestable test)
+    lc = _pa_lc(rng, n_nights=4, outliers=0.03)
     v, _, _ = classify(lc, fit_state=False, student_t=True)
     assert v.rotation == "PA"
     assert any("robust" in w for w in v.warnings)
@@ -281,8 +282,8 @@ def test_apophis_like_state_is_sam_with_its_periods(rng):
 
 def test_same_seed_same_verdict(rng):
     lc = _pa_lc(rng, n_nights=2)
-    a = classify(lc, rng=7, max_steps=30)[0]
-    b = classify(lc, rng=7, max_steps=30)[0]
+    a = classify(lc, rng=7, max_steps=30).verdict
+    b = classify(lc, rng=7, max_steps=30).verdict
     da, db = a.to_dict(), b.to_dict()
     da.pop("runtime_s"), db.pop("runtime_s")
     assert repr(da) == repr(db)
@@ -304,11 +305,14 @@ def test_gault_screen_is_not_npa(gault_csv):
     from tumble.photometry import read_lightcurve
 
     s = screen(read_lightcurve(gault_csv))
-    assert s.rotation != "NPA"
+    assert s.screen_flag != "candidate"
 
 
 def test_screen_on_clear_cases(rng):
+    # the screen speaks as a screen: a flag and a score, never a rotation or a grade
     v = screen(_pa_lc(rng, n_nights=4))
-    assert v.rotation == "PA"
+    assert v.screen_flag == "quiet" and v.rotation == "" and v.grade == ""
+    assert v.period_h == pytest.approx(7.3, rel=5e-3)
     st, lc = _npa_lc(rng, "SAM", 40.0, 9.0, n_nights=10, cadence=10.0)
-    assert screen(lc).rotation == "NPA"
+    s = screen(lc)
+    assert s.screen_flag == "candidate" and s.screen_score > 5

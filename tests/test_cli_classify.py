@@ -15,7 +15,8 @@ from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve, writ
 @pytest.fixture
 def pa_file(tmp_path, rng):
     st = RotationState.principal_axis(7.3, 40.0, 50.0)
-    plan = DenseCampaign(2460000.5, n_nights=2, hours_per_night=6.0, cadence_min=8.0, zero_point_sigma_mag=0.05)
+    # four nights: two (about four rotations) cannot test NPA, and the verdict would be undecided
+    plan = DenseCampaign(2460000.5, n_nights=4, hours_per_night=6.0, cadence_min=8.0, zero_point_sigma_mag=0.05)
     sim = simulate_lightcurve(st, (1.6, 1.2, 1.0), plan, noise=NoiseModel(0.01), rng=rng, object_id="2031 QX")
     path = tmp_path / "pa.csv"
     write_simulation(sim, path)
@@ -37,7 +38,8 @@ def test_classify_writes_verdict_results_and_samples(pa_file, tmp_path, capsys):
     v = json.loads((out / "verdict.json").read_text())
     for k in REQUIRED:
         assert k in v
-    assert v["rotation"] == "PA" and v["mode"] == "none"
+    assert v["rotation"] == "PA" and v["mode"] == ""
+    assert v["npa_limit_mag"] > 0 and v["period_fap"] < 1e-3 and v["grade_uncapped"] in ("sound", "firm")
     assert abs(v["period_h"] - 7.3) < 0.02
     assert v["tau_damp_gyr"] is not None and v["tau_damp_gyr"] > 0
     from tumble.results import read_results
@@ -60,7 +62,8 @@ def test_screen_and_json(pa_file, tmp_path, capsys):
     code = main(["classify", str(pa_file), "--out", str(tmp_path / "s"), "--screen", "--json"])
     assert code == 0
     v = json.loads(capsys.readouterr().out)
-    assert v["screen"] is True and v["rotation"] == "PA"
+    # a screen speaks as a screen: a flag and a score, no rotation verdict and no grade
+    assert v["screen"] is True and v["screen_flag"] == "quiet" and v["rotation"] == "" and v["grade"] == ""
     assert any("screen" in w for w in v["warnings"])
 
 

@@ -73,7 +73,7 @@ def test_end_to_end_table_columns_units_and_counts(run_a):
         sel = inj[inj["truth"] == truth]
         ok = sel[sel["status"] == "ok"]
         # the counts recomputed from the per-injection table
-        assert allrow["n_classified"] == len(ok) and allrow["n_npa"] == int(np.sum(ok["rotation"] == "NPA"))
+        assert allrow["n_classified"] == len(ok) and allrow["n_npa"] == int(np.sum(ok["screen_flag"] == "candidate"))
         assert allrow["n_classified"] + allrow["n_error"] == allrow["n_injected"]
         assert allrow["n_npa"] + allrow["n_pa"] + allrow["n_undecided"] == allrow["n_classified"]
         if allrow["n_classified"]:

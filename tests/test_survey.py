@@ -69,7 +69,9 @@ def test_error_rows_name_file_and_problem(serial_rows, sample):
     assert "empty.csv: file is empty" in errors["empty"]
     assert "only 5 usable points" in errors["too_few_points"]
     assert "truncated or corrupt gzip" in errors["truncated"]
-    assert all(r["rotation"] for r in serial_rows if r["status"] == "ok")
+    # screened rows state a flag, never a rotation
+    assert all(r["screen_flag"] in ("candidate", "quiet", "unknown") and not r["rotation"]
+               for r in serial_rows if r["status"] == "ok")
 
 
 def test_two_workers_same_rows(serial_rows, sample, tmp_path):

@@ -376,6 +376,18 @@ def _bin_index(values, edges):
     return np.clip(idx, 0, len(edges) - 2)
 
 
+#: A screened object states no rotation: its flag counts as the outcome (candidate = detected).
+SCREEN_OUTCOME = {"candidate": "NPA", "quiet": "PA", "unknown": "undecided"}
+
+
+def outcome(row) -> str:
+    """The outcome of a results row: its rotation, or for a screened row the outcome of its screen flag."""
+    rotation = row.get("rotation", "") or ""
+    if rotation:
+        return str(rotation)
+    return SCREEN_OUTCOME.get(str(row.get("screen_flag", "") or ""), "undecided")
+
+
 def completeness_table(injections, rows, dist: InjectionDistributions, meta: dict | None = None):
     """The completeness table (astropy Table) from the injections and their results rows.
 
@@ -389,7 +401,7 @@ def completeness_table(injections, rows, dist: InjectionDistributions, meta: dic
 
     def add(truth, scope, plo, phi, alo, ahi, members):
         status = [rows[m.object_id]["status"] for m in members]
-        rot = [rows[m.object_id].get("rotation", "") for m in members if rows[m.object_id]["status"] == "ok"]
+        rot = [outcome(rows[m.object_id]) for m in members if rows[m.object_id]["status"] == "ok"]
         n_ok, n_npa = len(rot), sum(r == "NPA" for r in rot)
         lo, hi = binomial_interval(n_npa, n_ok)
         for key, val in (("truth", truth), ("scope", scope), ("period_h_lo", plo), ("period_h_hi", phi),

@@ -34,7 +34,7 @@ import numpy as np
 from tumble._io import atomic_write_text
 from tumble.exceptions import TumbleError
 
-__all__ = ["ReportError", "CAUTIONS", "GRADE_WORDS", "grade_in_words", "object_figures", "write_object_report",
+__all__ = ["ReportError", "CAUTIONS", "grade_in_words", "object_figures", "write_object_report",
            "write_survey_report", "write_report", "page_name"]
 
 
@@ -60,15 +60,6 @@ CAUTIONS = (
     "Figures show a linear Fourier model at the reported light-curve periods, not the physical model.",
 )
 
-#: What each grade means, in words (Kass & Raftery 1995, section 3.2, on 2|ln B|; our grade names).
-GRADE_WORDS = {
-    "none": "2|ln B| is below 2: the data do not favour either rotation state by more than a bare mention.",
-    "tentative": "2|ln B| lies between 2 and 6: positive but weak evidence; more data could overturn it.",
-    "sound": "2|ln B| lies between 6 and 10: strong evidence.",
-    "firm": "2|ln B| is 10 or more: very strong evidence.",
-}
-
-
 def _f(v) -> float:
     if isinstance(v, (list, tuple)):
         return math.nan
@@ -93,19 +84,14 @@ def _e(text) -> str:
 
 
 def grade_in_words(verdict: Mapping) -> str:
-    """One paragraph explaining the verdict's grade (what it favours and how strongly)."""
-    grade = str(verdict.get("grade", "") or "none")
-    ln_b = _f(verdict.get("ln_bayes_factor"))
-    rotation = str(verdict.get("rotation", ""))
-    if not math.isfinite(ln_b):
-        return f"Grade '{grade}': no Bayes factor was computed for this object."
-    favour = "tumbling (NPA)" if ln_b > 0 else "principal-axis rotation (PA)"
-    text = (f"Grade '{grade}': ln B(NPA:PA) = {ln_b:.3g}, so 2|ln B| = {2 * abs(ln_b):.3g}, which favours {favour}. "
-            + GRADE_WORDS.get(grade, "an unknown grade."))
-    if rotation == "undecided":
-        text += (" The verdict is nevertheless 'undecided': the evidence is too weak, split between period "
-                 "solutions, or the data cover too few cycles of the claimed period (see the warnings).")
-    return text + " The scale is that of Kass & Raftery (1995, J. Am. Statist. Assoc. 90, 773); the names are ours."
+    """One paragraph on the verdict's grade, always true of the numbers shown (capped grades included).
+
+    The sentence comes from :func:`tumble.classify.grade_sentence`, which reads the thresholds of
+    :mod:`tumble.classify.thresholds`.
+    """
+    from tumble.classify.verdict import grade_sentence
+
+    return grade_sentence(verdict) + " The bands are those of Kass & Raftery (1995, J. Am. Statist. Assoc. 90, 773); the names are ours."
 
 
 def page_name(object_id: str, taken: set | None = None) -> str:
@@ -203,11 +189,12 @@ def _cautions_html() -> str:
 # ---------------------------------------------------------------------------
 # one object
 # ---------------------------------------------------------------------------
-def _triple(v):
-    """(median, lo, hi) from a list value or NaNs."""
-    if isinstance(v, (list, tuple)) and len(v) == 3:
-        return tuple(_f(x) for x in v)
-    return (math.nan, math.nan, math.nan)
+def _triple(v: Mapping, key: str):
+    """(median, lo, hi) of ``key`` from ``key``, ``key_lo``, ``key_hi`` (or an older [median, lo, hi] list)."""
+    x = v.get(key)
+    if isinstance(x, (list, tuple)) and len(x) == 3:
+        return tuple(_f(y) for y in x)
+    return (_f(x), _f(v.get(key + "_lo")), _f(v.get(key + "_hi")))
 
 
 def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
@@ -238,7 +225,7 @@ def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
                                       ("b_over_c", "b/c", "1", "intermediate/short axis ratio"),
                                       ("l_lon_deg", "L longitude", "deg", "angular momentum, ecliptic J2000"),
                                       ("l_lat_deg", "L latitude", "deg", "angular momentum, ecliptic J2000")):
-        med, lo, hi = _triple(v.get(key))
+        med, lo, hi = _triple(v, key)
         if math.isfinite(med):
             rows.append((label, _fmt(med, 4), f"{_fmt(lo, 4)} .. {_fmt(hi, 4)} (68%)", unit, meaning))
     interval("tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "damping time tau", "Gyr",

@@ -276,13 +276,15 @@ def _classify_task(task: ObjectTask, config: SurveyConfig) -> dict:
     if config.route == "screen":
         verdict = screen(lc, prior_npa=config.prior_npa)
     else:
-        verdict, _, _ = classify(lc, prior_npa=config.prior_npa, rng=rng, n_walkers=config.n_walkers,
-                                 max_steps=config.max_steps)
+        verdict = classify(lc, prior_npa=config.prior_npa, rng=rng, n_walkers=config.n_walkers,
+                           max_steps=config.max_steps).verdict
     row = verdict.results_row()
     row["object"] = task.object_id
     d_km, h_mag, albedo = config.sizes.get(task.object_id, (None, None, None))
-    damp = damping_for_classification(verdict, diameter_km=d_km, h_mag=h_mag, albedo=albedo,
-                                      rng=object_seed(config.seed + 1, task.object_id))
+    damp = None
+    if config.route != "screen":  # a screen states no rotation, so no damping time
+        damp = damping_for_classification(verdict, diameter_km=d_km, h_mag=h_mag, albedo=albedo,
+                                          rng=object_seed(config.seed + 1, task.object_id))
     if damp is not None:
         row.update(tau_damp_gyr=damp.tau_gyr, tau_damp_gyr_lo=damp.tau_gyr_lo, tau_damp_gyr_hi=damp.tau_gyr_hi)
     if config.keep_objects_dir:
@@ -634,8 +636,9 @@ def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = Non
 def _summarise(rows, n_objects, n_before, n_processed, wall, out, jpath) -> SurveySummary:
     status = Counter(r["status"] for r in rows)
     ok = [r for r in rows if r["status"] == "ok"]
-    rotation = Counter(r["rotation"] for r in ok)
-    grades = Counter(f"{r['rotation']}/{r['grade'] or '-'}" for r in ok)
+    # a screened row states no rotation: it is counted by its screen flag
+    rotation = Counter(r["rotation"] or f"screen {r.get('screen_flag') or '?'}" for r in ok)
+    grades = Counter(f"{r['rotation']}/{r['grade'] or '-'}" for r in ok if r["rotation"])
     errors = Counter(_error_kind(r["message"]) for r in rows if r["status"] == "error")
     runtimes = [float(r["runtime_s"]) for r in rows if np.isfinite(float(r.get("runtime_s", np.nan)))]
     npa = sorted((r for r in ok if r["rotation"] == "NPA"), key=lambda r: -float(r["p_npa"]))

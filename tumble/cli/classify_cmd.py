@@ -10,10 +10,15 @@ from tumble.cli._common import add_input_options, add_output_options, print_json
 
 #: verdict.json keys, in order (results-column names where DESIGN.md has them).
 VERDICT_KEYS = (
-    "object", "rotation", "mode", "p_npa", "prior_npa", "ln_bayes_factor", "ln_bayes_factor_err", "grade",
-    "period_h", "period_h_err", "p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "p_phi_h", "p_phi_h_lo", "p_phi_h_hi",
-    "p1_h", "p2_h", "excitation", "excitation_lo", "excitation_hi", "a_over_b", "b_over_c", "l_lon_deg",
-    "l_lat_deg", "amplitude_mag", "tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "evidence_route",
+    "object", "route", "rotation", "mode", "p_npa", "prior_npa", "ln_bayes_factor", "ln_bayes_factor_err", "grade",
+    "grade_uncapped", "grade_reason", "screen_flag", "screen_score",
+    "period_h", "period_h_err", "period_syn_h", "period_fap", "n_cycles", "phase_coverage",
+    "p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "p_phi_h", "p_phi_h_lo", "p_phi_h_hi",
+    "p1_h", "p2_h", "excitation", "excitation_lo", "excitation_hi", "a_over_b", "a_over_b_lo", "a_over_b_hi",
+    "b_over_c", "b_over_c_lo", "b_over_c_hi", "l_lon_deg", "l_lon_deg_lo", "l_lon_deg_hi", "l_lat_deg",
+    "l_lat_deg_lo", "l_lat_deg_hi", "amplitude_mag", "npa_testable", "npa_limit_mag", "chi2_dof_chosen",
+    "chi2_dof_rejected", "error_scale_chosen", "residual_period_h", "residual_fap",
+    "tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "evidence_route",
     "state_converged", "mode_margin", "n_points", "n_sessions", "span_d", "screen", "seed", "warnings",
 )
 
@@ -25,13 +30,14 @@ def add_parser(sub) -> None:
         description="Decide from one object's photometry whether it rotates about its principal axis (PA) "
                     "or tumbles (NPA, SAM or LAM): Bayes factor of shape-free one- and two-period models, "
                     "posterior probability at the given prior, a grade on the Kass & Raftery (1995) scale, "
-                    "periods with 68%% intervals, and the rotation state from a physical ellipsoid fit. "
+                    "periods with 68 %% intervals, and the rotation state from a physical ellipsoid fit. "
                     "Writes verdict.json, results.ecsv and posterior.npz to --out.",
     )
     p.add_argument("files", nargs="+", metavar="FILE", help="photometry files of one object")
     p.add_argument("--out", metavar="DIR", help="output directory (default: OBJECT-classify)")
     p.add_argument("--screen", action="store_true",
-                   help="fast screen from the 1-D and 2-D scans only (Delta BIC), no physical fit")
+                   help="fast triage from the 1-D and 2-D scans only: a flag (candidate, quiet, unknown) and a "
+                        "score (-Delta BIC / 2), not a verdict")
     p.add_argument("--seed", type=int, default=0, metavar="N", help="random seed (default: 0)")
     p.add_argument("--walkers", type=int, metavar="W", help="emcee walkers per ensemble (default: 4 x parameters)")
     p.add_argument("--max-steps", type=int, default=1500, metavar="S",
@@ -94,11 +100,13 @@ def run(args: argparse.Namespace) -> int:
     fit = None
     if args.screen:
         verdict = screen(lc, prior_npa=args.prior_npa)
+        damp = None  # a screen states no rotation, so no damping time
     else:
-        verdict, _, fit = classify(lc, prior_npa=args.prior_npa, rng=rng, n_walkers=args.walkers,
-                                   max_steps=args.max_steps, student_t=args.robust, p_min_h=args.min_period_h,
-                                   p_max_h=args.max_period_h, progress=not args.quiet)
-    damp = _damping(verdict, args, np.random.default_rng(args.seed + 1))
+        result = classify(lc, prior_npa=args.prior_npa, rng=rng, n_walkers=args.walkers,
+                          max_steps=args.max_steps, student_t=args.robust, p_min_h=args.min_period_h,
+                          p_max_h=args.max_period_h, progress=not args.quiet)
+        verdict, fit = result.verdict, result.fit
+        damp = _damping(verdict, args, np.random.default_rng(args.seed + 1))
     d = verdict.to_dict()
     d["object"] = d.pop("object_id")
     d["screen"] = bool(args.screen)
@@ -121,9 +129,10 @@ def run(args: argparse.Namespace) -> int:
         arrays = {"samples": post.samples, "log_prob": post.log_prob, "log_likelihood": post.log_likelihood,
                   "names": np.array(post.names), "units": np.array(post.units),
                   "mode": np.array(fit.mode), "converged": np.array(fit.converged)}
-    with atomic_path(out_dir / "posterior.npz") as tmp:
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
+    if arrays:  # no posterior (screen, or no physical fit): no posterior file
+        with atomic_path(out_dir / "posterior.npz") as tmp:
+            with open(tmp, "wb") as fh:
+                np.savez(fh, **arrays)
     index = None
     if args.report:
         from tumble.report import write_object_report
@@ -132,8 +141,12 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print_json(out)
         return 0
-    _print_verdict(out, damp)
-    print(f"wrote {out_dir / 'verdict.json'}, {out_dir / 'results.ecsv'}, {out_dir / 'posterior.npz'}")
+    if args.screen:
+        _print_screen(out)
+    else:
+        _print_verdict(out, damp)
+    written = [out_dir / "verdict.json", out_dir / "results.ecsv"] + ([out_dir / "posterior.npz"] if arrays else [])
+    print("wrote " + ", ".join(str(w) for w in written))
     if index is not None:
         print(f"report written: {index}")
     return 0
@@ -143,15 +156,48 @@ def _fmt(x, digits=5):
     return "-" if x is None else f"{x:.{digits}g}"
 
 
-def _print_verdict(v: dict, damp) -> None:
+def _print_header(v: dict) -> None:
     print(f"object        {v['object']}  ({v['n_points']} points, {v['n_sessions']} sessions, "
           f"{v['span_d']:.3g} d)")
-    print(f"rotation      {v['rotation']}" + (f"  (mode {v['mode']})" if v["rotation"] == "NPA" else ""))
-    print(f"probability   p(NPA) = {_fmt(v['p_npa'], 3)} at prior {v['prior_npa']:g};  "
-          f"ln B(NPA:PA) = {_fmt(v['ln_bayes_factor'], 4)} +- {_fmt(v['ln_bayes_factor_err'], 2)}")
-    print(f"grade         {v['grade']}  (Kass & Raftery 1995 scale on 2|ln B|)")
+
+
+def _print_screen(v: dict) -> None:
+    from tumble.classify.screen import SCREEN_FLAGS
+
+    _print_header(v)
+    print(f"screen        {v['screen_flag']}: {SCREEN_FLAGS[v['screen_flag']]}")
+    print(f"score         -Delta BIC / 2 = {_fmt(v['screen_score'], 3)} (two periods over one)")
     if v["period_h"] is not None:
-        print(f"period        {_fmt(v['period_h'], 8)} +- {_fmt(v['period_h_err'], 2)} h")
+        print(f"period        {_fmt(v['period_h'], 6)} h (one-period scan; false-alarm probability "
+              f"{_fmt_fap(v['period_fap'])})")
+    for w in v["warnings"]:
+        print(f"note          {w}")
+
+
+def _fmt_fap(p) -> str:
+    if p is None:
+        return "-"
+    return "< 1e-10" if p < 1e-10 else f"{p:.2g}"
+
+
+def _print_verdict(v: dict, damp) -> None:
+    from tumble.classify import format_probability, grade_sentence
+
+    _print_header(v)
+    print(f"rotation      {v['rotation']}" + (f"  (mode {v['mode']})" if v["rotation"] == "NPA" else ""))
+    p_text = format_probability(v["p_npa"] if v["p_npa"] is not None else float("nan"))
+    print(f"probability   p(NPA) = {p_text} at prior {v['prior_npa']:g};  "
+          f"ln B(NPA:PA) = {_fmt(v['ln_bayes_factor'], 4)} +- {_fmt(v['ln_bayes_factor_err'], 2)}")
+    print(f"grade         {v['grade']}: {grade_sentence(v)}")
+    if v["period_h"] is not None:
+        print(f"period        {_fmt(v['period_h'], 8)} +- {_fmt(v['period_h_err'], 2)} h  "
+              f"({_fmt(v['n_cycles'], 3)} cycles, {_fmt(100 * v['phase_coverage'], 3)} % of the phase covered, "
+              f"false-alarm probability {_fmt_fap(v['period_fap'])})")
+    elif v["p1_h"] is not None and v["rotation"] == "undecided":
+        print(f"light curve   P1 = {_fmt(v['p1_h'], 7)} h (no rotation verdict)")
+    if v["npa_limit_mag"] is not None:
+        print(f"NPA limit     tumbling with a second-period signature above {_fmt(v['npa_limit_mag'], 2)} mag rms "
+              "would have been detected")
     if v["p_psi_h"] is not None:
         print(f"P_psi         {_fmt(v['p_psi_h'], 7)} h  (68%: {_fmt(v['p_psi_h_lo'], 7)} .. {_fmt(v['p_psi_h_hi'], 7)})")
         print(f"P_phi         {_fmt(v['p_phi_h'], 7)} h  (68%: {_fmt(v['p_phi_h_lo'], 7)} .. {_fmt(v['p_phi_h_hi'], 7)})")

@@ -1,0 +1,544 @@
+"""Frequency-integrated evidence NPA:PA of the shape-free families (a flat driver over a frozen problem).
+
+At fixed frequencies the marginal likelihood over every linear coefficient, the zero-points and the
+error scale is exact (:func:`tumble.model.linear_log_evidence`); each family is an equal-weight
+mixture over its orders (:mod:`tumble.classify.families`). The frequencies are integrated
+numerically under the priors of :mod:`tumble.classify.prior`:
+
+- ``f1`` over the windows around the strongest peaks of a coarse 1-D scan and their
+  half/double/3:2 aliases (the same truncated prior in both families, so the restriction cancels);
+- ``f2`` over the admissible set ``A(f1)`` (renormalised log-uniform prior);
+
+by :func:`tumble.classify.quadrature.integrate_peak` on each window, and a product (separable)
+rule for the two-dimensional windows. The quadrature error is the difference between the two
+rules on the dominant windows.
+
+The driver :func:`fourier_evidence` is a flat sequence of steps named after what they do, each a
+plain function of the frozen :class:`EvidenceProblem`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import partial
+
+import numpy as np
+
+from tumble.classify.families import NPA_COMBO_ORDERS, NPA_MAX_BASE_HARMONICS, mixture, npa_variants, pa_variants
+from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG, error_scale_floor, geometry_error_floor
+from tumble.classify.prior import (
+    admissible_f2_share,
+    commensurate_mask,
+    daily_alias_mask,
+    f2_log_prior,
+    frequency_limits,
+    log_uniform_logpdf,
+)
+from tumble.classify.quadrature import PeakIntegral, integrate_peak, log_trapezoid, logsumexp, peak_indices
+from tumble.classify.thresholds import MIN_CYCLES
+from tumble.exceptions import TumbleError
+from tumble.model import FourierBasis, FourierVariant, LinearData, fit_linear, linear_log_evidence, prepare_linear
+
+__all__ = ["ClassifyError", "EvidenceResult", "EvidenceProblem", "fourier_evidence", "fourier_evidence_with_problem", "build_problem",
+           "NpaWindow", "npa_window"]
+
+#: Largest f2 grid per window (the step is widened beyond it; the peaks are refined anyway).
+MAX_F2_GRID = 3000
+#: Candidate f1 windows (after the best) that get the two-period integration.
+NPA_MAX_WINDOWS = 4
+#: Windows more than this many nats below the best PA window are not given the NPA integration.
+WINDOW_LN_RANGE = 15.0
+#: Peaks of the light two-period scan integrated per window.
+N_F2_PEAKS = 4
+#: A coordinate-ascent scan of f1 at the best f2 is run only on coarse grids up to this length.
+MAX_ASCENT_GRID = 40_000
+#: Smallest quadrature error credited to ln B (nats): the rules agree to about this on resolved peaks.
+MIN_LNB_ERROR = 0.05
+
+
+class ClassifyError(TumbleError, ValueError):
+    """The classification cannot run on these data or with these settings."""
+
+
+@dataclass(frozen=True)
+class EvidenceResult:
+    """Bayes factor NPA:PA of the shape-free models and the frequencies behind it.
+
+    Attributes
+    ----------
+    ln_z_pa, ln_z_npa : float
+        Log evidences (nats) of the PA and NPA families, up to a common constant
+        (f1 prior truncated to the candidate windows, identical in both).
+    ln_bayes_factor : float
+        ``ln_z_npa - ln_z_pa`` (nats); NaN when NPA is not testable.
+    ln_bayes_factor_err : float
+        Estimated quadrature error of ``ln_bayes_factor`` (nats).
+    f1_per_d, f1_sigma_per_d : float
+        Fundamental light-curve frequency of the dominant PA window and its
+        posterior standard deviation, cycles/day.
+    f1_npa_per_d, f2_per_d, f2_sigma_per_d, f1_npa_sigma_per_d : float
+        Frequency pair of the dominant NPA window (cycles/day) and their
+        standard deviations.
+    pa_window_mass, npa_window_mass : float
+        Posterior mass of the dominant window within each family (1 = unimodal).
+    pa_variant, npa_variant : str
+        The most probable harmonic order of each family at its best frequency.
+    second_harmonic_dominates : bool
+        The 2nd harmonic of ``f1`` carries more power than the first (double-peaked curve).
+    amplitude_mag : float
+        Peak-to-peak amplitude of the best PA fit's Fourier part over the observed points, mag.
+    windows : tuple of dict
+        Per candidate ``f1`` window: ``f1_per_d``, ``ln_pa``, ``ln_npa``, ``f2_per_d``.
+    window_disagreement : bool
+        Windows holding at least 10 % of the combined posterior mass favour different hypotheses.
+    npa_pairs : tuple of (float, float)
+        Frequency pairs (f1, f2), cycles/day, of the strongest two-period peaks, best first
+        (starting points of the physical fit).
+    kappa_pa, kappa_npa : float
+        Fitted error scales of the best PA and NPA fits (1 = errors as quoted plus the floor).
+    delta_bic : float
+        ``BIC_NPA - BIC_PA`` at the best frequencies of the largest variants.
+    n_evaluations : int
+        Frequency (pair) evaluations of the marginal likelihood.
+    route : str
+        Description of how the evidence was computed.
+    f2_admissible_share : float
+        Share of the log-frequency range ``[1.5/span, f1/2]`` at the dominant PA window's ``f1``
+        that is admissible for a second frequency (:func:`tumble.classify.prior.admissible_f2_share`).
+    npa_testable : bool
+        An admissible NPA alternative exists on these data.
+    error_floor_mag, kappa_min : float
+        The model-error floor (mag) and the error-scale bound used.
+    """
+
+    ln_z_pa: float
+    ln_z_npa: float
+    ln_bayes_factor: float
+    ln_bayes_factor_err: float
+    f1_per_d: float
+    f1_sigma_per_d: float
+    f1_npa_per_d: float
+    f1_npa_sigma_per_d: float
+    f2_per_d: float
+    f2_sigma_per_d: float
+    pa_window_mass: float
+    npa_window_mass: float
+    pa_variant: str
+    npa_variant: str
+    second_harmonic_dominates: bool
+    amplitude_mag: float
+    windows: tuple
+    window_disagreement: bool
+    npa_pairs: tuple
+    kappa_pa: float
+    kappa_npa: float
+    delta_bic: float
+    n_evaluations: int
+    route: str
+    f2_admissible_share: float = math.nan
+    npa_testable: bool = True
+    error_floor_mag: float = math.nan
+    kappa_min: float = math.nan
+
+
+@dataclass(frozen=True)
+class EvidenceProblem:
+    """Everything the frequency integration needs, fixed before it starts.
+
+    Attributes
+    ----------
+    data : tumble.model.LinearData
+        Whitened data with the model-error floor and the error-scale bound.
+    span_d : float
+    f_lo, f_hi : float
+        Range of the f1 prior, c/d.
+    f2_lo : float
+        Lowest admissible f2, c/d (``MIN_CYCLES / span``).
+    step, step2 : float
+        Coarse f1 step and f2 grid step, c/d.
+    oversample : float
+    nightly : bool
+        Most points have a nightly zero-point (f1 at k/day is excluded).
+    pa_basis, npa_basis : tumble.model.FourierBasis
+    coarse_grid, coarse_values : numpy.ndarray
+        The coarse 1-D scan (light PA model) and its log evidence with the f1 exclusions.
+    error_floor_mag, kappa_min : float
+    """
+
+    data: LinearData
+    span_d: float
+    f_lo: float
+    f_hi: float
+    f2_lo: float
+    step: float
+    step2: float
+    oversample: float
+    nightly: bool
+    pa_basis: FourierBasis
+    npa_basis: FourierBasis
+    coarse_grid: np.ndarray
+    coarse_values: np.ndarray
+    error_floor_mag: float
+    kappa_min: float
+
+    # -- log densities (prior included) ---------------------------------------------------------
+    def f1_log_prior(self, f):
+        """Log-uniform f1 prior with the daily exclusion (``-inf`` where excluded)."""
+        f = np.asarray(f, float)
+        return np.where(daily_alias_mask(f, self.span_d, self.nightly), -np.inf,
+                        log_uniform_logpdf(f, self.f_lo, self.f_hi))
+
+    def pa_log_density(self, f):
+        """PA family: ``ln Z(f1) + ln p(f1)`` over an array of f1."""
+        return mixture(linear_log_evidence(self.data, self.pa_basis, f)) + self.f1_log_prior(f)
+
+    def npa_log_density_f2(self, f2, *, f1):
+        """NPA family along f2 at fixed f1: ``ln Z(f1, f2) + ln p(f2 | f1)``."""
+        f2 = np.asarray(f2, float)
+        return (mixture(linear_log_evidence(self.data, self.npa_basis, np.full(len(f2), f1), f2))
+                + f2_log_prior(f1, f2, self.span_d))
+
+    def npa_log_density_f1(self, f1, *, f2):
+        """NPA family along f1 at fixed f2: ``ln Z(f1, f2) + ln p(f1) + ln p(f2 | f1)``."""
+        f1 = np.asarray(f1, float)
+        return (mixture(linear_log_evidence(self.data, self.npa_basis, f1, np.full(len(f1), f2)))
+                + self.f1_log_prior(f1) + f2_log_prior(f1, f2, self.span_d))
+
+
+@dataclass(frozen=True)
+class NpaWindow:
+    """The two-period integral of one f1 window.
+
+    Attributes
+    ----------
+    ln, ln_alt : float
+        ``ln ∫∫`` by the chosen and the alternative quadrature rule.
+    f1, f2, s1, s2 : float
+        Best frequencies and their Laplace widths, c/d.
+    mass : float
+        Share of the window's f2 integral in its dominant f2 peak.
+    peaks : tuple of (f1, f2, ln)
+        The f2 peaks found at the window's f1.
+    n_evaluations : int
+    """
+
+    ln: float
+    ln_alt: float
+    f1: float
+    f2: float
+    s1: float
+    s2: float
+    mass: float
+    peaks: tuple
+    n_evaluations: int
+
+
+def _empty_window(f1c) -> NpaWindow:
+    return NpaWindow(-np.inf, -np.inf, float(f1c), np.nan, np.nan, np.nan, 1.0, (), 0)
+
+
+def build_problem(lc, *, p_min_h: float, p_max_h: float, oversample: float, weights, max_coarse: int,
+                  error_floor_mag: float | None) -> EvidenceProblem:
+    """The coarse scan, the model-error floor and the error-scale bound, frozen into a problem."""
+    auto_floor = error_floor_mag is None
+    data = prepare_linear(lc, weights=weights, error_floor_mag=MODEL_ERROR_FLOOR_MAG if auto_floor else error_floor_mag)
+    span = data.span_d
+    limits = frequency_limits(span, p_min_h, p_max_h)
+    if limits is None:
+        raise ClassifyError(
+            f"{lc.object_id}: the data span {span:.3g} d cannot cover {MIN_CYCLES} cycles of any period in "
+            f"{p_min_h}..{p_max_h} h")
+    f_lo, f_hi = limits
+    scan_basis = FourierBasis.build([FourierVariant(2, False)])
+    step = 1.0 / (oversample * span * 2)
+    n_coarse = int((f_hi - f_lo) / step) + 1
+    if n_coarse > max_coarse:
+        step = (f_hi - f_lo) / max_coarse
+        n_coarse = max_coarse + 1
+    grid = f_lo + step * np.arange(n_coarse)
+    nightly = bool(np.mean(lc.session >= 0) > 0.5 and lc.n_sessions >= 2)
+    coarse = linear_log_evidence(data, scan_basis, grid)[:, 0]
+    coarse = np.where(daily_alias_mask(grid, span, nightly), -np.inf, coarse)
+    if auto_floor:
+        best = grid[peak_indices(coarse, 1, 3)[0]]
+        amp0 = float(np.ptp(fit_linear(data, FourierBasis.build([FourierVariant(4, False)]), 0, best).fourier_mag))
+        error_floor_mag = geometry_error_floor(lc, amp0)
+    kappa_min = error_scale_floor(lc, error_floor_mag)
+    data = prepare_linear(lc, weights=weights, error_floor_mag=error_floor_mag, kappa_min=kappa_min)
+    pa_vars = pa_variants(span)
+    return EvidenceProblem(
+        data=data, span_d=span, f_lo=f_lo, f_hi=f_hi, f2_lo=MIN_CYCLES / span, step=step,
+        step2=1.0 / (oversample * span * max(NPA_COMBO_ORDERS)), oversample=oversample, nightly=nightly,
+        pa_basis=FourierBasis.build(pa_vars), npa_basis=FourierBasis.build(npa_variants(pa_vars)),
+        coarse_grid=grid, coarse_values=coarse, error_floor_mag=float(error_floor_mag), kappa_min=float(kappa_min))
+
+
+def candidate_f1_centres(problem: EvidenceProblem, n_windows: int) -> list:
+    """Centres of the f1 windows: the strongest coarse peaks and the aliases of the best."""
+    peaks = peak_indices(problem.coarse_values, n_windows, 3)
+    centres = [problem.coarse_grid[i] for i in peaks]
+    best = centres[0]
+    for alias in (best / 2, best * 2, best * 1.5, best / 1.5):
+        if problem.f_lo <= alias <= problem.f_hi and all(abs(alias - c) > 3 * problem.step for c in centres):
+            centres.append(alias)
+    return centres
+
+
+def integrate_pa_window(problem: EvidenceProblem, centre: float) -> PeakIntegral:
+    """The PA family's integral over one f1 window."""
+    return integrate_peak(problem.pa_log_density, centre, 2 * problem.step, problem.f_lo, problem.f_hi)
+
+
+def windows_for_npa(ln_pa) -> list:
+    """Indices of the PA windows that also get the two-period integration (best first, within range)."""
+    order = list(np.argsort(-ln_pa))
+    return sorted(int(i) for k, i in enumerate(order)
+                  if k < NPA_MAX_WINDOWS and (k < 2 or ln_pa[i] > ln_pa.max() - WINDOW_LN_RANGE))
+
+
+def _f2_grid(problem: EvidenceProblem, f2_hi: float) -> tuple:
+    step2 = problem.step2
+    n2 = int((f2_hi - problem.f2_lo) / step2) + 1
+    if n2 > MAX_F2_GRID:
+        step2 = (f2_hi - problem.f2_lo) / MAX_F2_GRID
+        n2 = MAX_F2_GRID + 1
+    grid2 = problem.f2_lo + step2 * np.arange(n2)
+    return grid2[grid2 <= f2_hi], step2
+
+
+def _light_f2_scan(problem: EvidenceProblem, f1c: float, grid2) -> np.ndarray:
+    """Peak finding along f2 with one light two-period variant (the best PA base's harmonics, order 2)."""
+    lz1 = linear_log_evidence(problem.data, problem.pa_basis, [f1c])[0]
+    base = problem.pa_basis.variants[int(np.argmax(lz1))]
+    light = FourierBasis.build([FourierVariant(min(base.n_harmonics, NPA_MAX_BASE_HARMONICS), base.drift, 2)])
+    v = linear_log_evidence(problem.data, light, np.full(len(grid2), f1c), grid2)[:, 0]
+    return np.where(commensurate_mask(f1c, grid2, problem.span_d), -np.inf, v)
+
+
+def _npa_window_once(problem: EvidenceProblem, f1c: float) -> NpaWindow:
+    """Two-period integral of the window at ``f1c`` (separable product rule)."""
+    f2_hi = 0.5 * f1c
+    if not f2_hi > problem.f2_lo * 1.01:
+        return _empty_window(f1c)
+    grid2, step2 = _f2_grid(problem, f2_hi)
+    n_eval = len(grid2)
+    v_light = _light_f2_scan(problem, f1c, grid2)
+    pk2 = peak_indices(v_light, N_F2_PEAKS, 3)
+    f2_at_c = partial(problem.npa_log_density_f2, f1=f1c)
+    f2_windows = [integrate_peak(f2_at_c, grid2[j], 2 * step2, problem.f2_lo, f2_hi) for j in pk2]
+    n_eval += sum(w.n_evaluations for w in f2_windows)
+    # the continuum between the peaks on a three-times thinner grid
+    thin = grid2[::3]
+    mask = np.ones(len(thin), bool)
+    for j in pk2:
+        mask &= np.abs(thin - grid2[j]) > 2 * step2
+    cont = -np.inf
+    if mask.sum() > 1:
+        n_eval += int(mask.sum())
+        cont = log_trapezoid(thin[mask], f2_at_c(thin[mask]))
+    ln_f2_parts = [w.ln_integral for w in f2_windows] + [cont]
+    jbest = int(np.argmax([w.ln_integral for w in f2_windows]))
+    f2b = f2_windows[jbest].best
+    # f1 width under NPA at the best f2
+    pk1 = integrate_peak(partial(problem.npa_log_density_f1, f2=f2b), f1c, 2 * problem.step, problem.f_lo,
+                         problem.f_hi)
+    n_eval += pk1.n_evaluations
+    # re-centre f2 at the NPA's own f1 and redo the dominant f2 window
+    f1n = pk1.best
+    f2_at_n = partial(problem.npa_log_density_f2, f1=f1n)
+    hi_n = min(0.5 * f1n, f2_hi)
+    w2n = integrate_peak(f2_at_n, f2b, 2 * step2, problem.f2_lo, hi_n)
+    n_eval += w2n.n_evaluations
+    # the other f2 windows and the continuum on the same f1 slice: with precise data the
+    # evidence is sharp in f1, and slices at different f1 must not be mixed
+    others = []
+    if abs(f1n - f1c) > 0:
+        found = [w2n.best]
+        for k, w in enumerate(f2_windows):
+            if k == jbest or w.best > hi_n or min(abs(w.best - b) for b in found) < 3 * step2:
+                continue
+            wk = integrate_peak(f2_at_n, w.best, 2 * step2, problem.f2_lo, hi_n)
+            n_eval += wk.n_evaluations
+            if min(abs(wk.best - b) for b in found) >= 3 * step2:  # not the same peak climbed again
+                found.append(wk.best)
+                others.append(wk.ln_integral)
+        sel = mask & (thin <= hi_n) & (np.abs(thin - w2n.best) > 2 * step2)
+        if sel.sum() > 1:
+            n_eval += int(sel.sum())
+            others.append(log_trapezoid(thin[sel], f2_at_n(thin[sel])))
+    else:
+        others = [p for k, p in enumerate(ln_f2_parts) if k != jbest]
+    if not np.isfinite(w2n.best_value):
+        # no admissible f2 at the NPA's own f1: the window holds no NPA model at all
+        return NpaWindow(-np.inf, -np.inf, float(f1n), float(w2n.best), float(pk1.sigma), np.nan, 1.0, (), n_eval)
+    ln_f2_n = logsumexp([w2n.ln_integral] + others)
+    # separable product rule: ∫∫ Z p1 p2 ≈ [∫ Z(f1, f2*) p1 p2 df1] [∫ Z(f1*, f2) p2 df2] / [Z(f1*, f2*) p2(f2*)]
+    ln_npa = pk1.ln_integral + ln_f2_n - w2n.best_value
+    ln_npa_alt = pk1.ln_integral_alt + logsumexp([w2n.ln_integral_alt] + others) - w2n.best_value
+    mass = float(np.exp(w2n.ln_integral - ln_f2_n)) if np.isfinite(ln_f2_n) else 1.0
+    peaks = tuple((float(f1c), float(w.best), float(w.ln_integral)) for w in f2_windows)
+    return NpaWindow(float(ln_npa), float(ln_npa_alt), float(f1n), float(w2n.best), float(pk1.sigma),
+                     float(w2n.sigma), mass, peaks, n_eval)
+
+
+def npa_window(problem: EvidenceProblem, f1c: float) -> NpaWindow:
+    """Two-period integral of the window at ``f1c``, re-run once at the NPA's own f1 if it moved.
+
+    A drifting one-period fit can prefer a slightly different f1 than the lattice basis.
+    """
+    r = _npa_window_once(problem, f1c)
+    if np.isfinite(r.f1) and abs(r.f1 - f1c) > 0.25 * problem.step:
+        r2 = _npa_window_once(problem, r.f1)
+        n = r.n_evaluations + r2.n_evaluations
+        r = r2 if r2.ln >= r.ln else r
+        r = NpaWindow(**{**r.__dict__, "n_evaluations": n})
+    return r
+
+
+def ascent_windows(problem: EvidenceProblem, f2_best: float, known_f1) -> list:
+    """New f1 centres from a scan of f1 at the best f2 with a light two-period basis.
+
+    Coordinate ascent: a better f1 outside the windows (a lattice vector the one-period scan missed)
+    becomes a new window of both families.
+    """
+    grid = problem.coarse_grid
+    if not (np.isfinite(f2_best) and len(grid) <= MAX_ASCENT_GRID):
+        return []
+    light = FourierBasis.build([FourierVariant(2, True, 2)])
+    g1 = grid[grid >= 2.0 * f2_best]
+    if len(g1) <= 3:
+        return []
+    v1 = linear_log_evidence(problem.data, light, g1, np.full(len(g1), f2_best))[:, 0]
+    v1 = np.where(daily_alias_mask(g1, problem.span_d, problem.nightly), -np.inf, v1)
+    return [float(g1[j]) for j in peak_indices(v1, 2, 3)
+            if all(abs(g1[j] - f) > 3 * problem.step for f in known_f1)]
+
+
+def _best_fit_diagnostics(problem: EvidenceProblem, f1: float, nw: NpaWindow) -> dict:
+    """Variant labels, error scales, amplitude, harmonic dominance and Delta BIC at the best frequencies."""
+    data, pa_b, npa_b = problem.data, problem.pa_basis, problem.npa_basis
+    vpa = int(np.argmax(linear_log_evidence(data, pa_b, [f1])[0]))
+    fit_pa = fit_linear(data, pa_b, vpa, f1)
+    coef = fit_pa.coefficients
+    # coefficient layout of the variant: per harmonic cos, sin (+ drift cos, sin)
+    per = 2 * (1 + pa_b.variants[vpa].drift)
+    p1 = float(np.sum(coef[0:2] ** 2))
+    p2 = float(np.sum(coef[per:per + 2] ** 2)) if len(coef) >= per + 2 else 0.0
+    out = dict(pa_variant=pa_b.variants[vpa].label, kappa_pa=float(fit_pa.kappa), amplitude_mag=float(np.ptp(fit_pa.fourier_mag)),
+               second_harmonic_dominates=bool(p2 >= p1), npa_variant="", kappa_npa=math.nan, delta_bic=math.inf)
+    if np.isfinite(nw.f2):
+        vnpa = int(np.argmax(linear_log_evidence(data, npa_b, [nw.f1], [nw.f2])[0]))
+        fit_npa = fit_linear(data, npa_b, vnpa, nw.f1, nw.f2)
+        # BIC with the largest variants at the best frequencies (+1 for each frequency)
+        k_pa = len(pa_b.columns[-1]) + 1
+        k_npa = len(npa_b.columns[-1]) + 2
+        chi_pa = fit_linear(data, pa_b, len(pa_b.variants) - 1, f1).kappa ** 2 * data.nu
+        chi_npa = fit_linear(data, npa_b, len(npa_b.variants) - 1, nw.f1, nw.f2).kappa ** 2 * data.nu
+        n = data.n_points
+        dbic = (n * math.log(chi_npa / n) + k_npa * math.log(n)) - (n * math.log(chi_pa / n) + k_pa * math.log(n))
+        out.update(npa_variant=npa_b.variants[vnpa].label, kappa_npa=float(fit_npa.kappa), delta_bic=float(dbic))
+    return out
+
+
+def _npa_pairs(npa: dict, span_d: float) -> tuple:
+    """Distinct (f1, f2) pairs of the strongest two-period peaks, best first (at most four)."""
+    allpk = [(w.f1, w.f2, w.ln) for w in npa.values() if np.isfinite(w.f2)]
+    for w in npa.values():
+        allpk += list(w.peaks)
+    allpk.sort(key=lambda e: -e[2])
+    pairs = []
+    for f1p, f2p, _ in allpk:
+        if all(abs(f1p - a) > 1e-6 or abs(f2p - b) > 0.3 / span_d for a, b in pairs):
+            pairs.append((float(f1p), float(f2p)))
+    return tuple(pairs[:4])
+
+
+def fourier_evidence(lc, **kwargs) -> EvidenceResult:
+    """Bayes factor NPA:PA of the shape-free Fourier families (see :func:`fourier_evidence_with_problem`)."""
+    return fourier_evidence_with_problem(lc, **kwargs)[1]
+
+
+def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 2000.0, n_windows: int = 5,
+                     oversample: float = 3.0, weights=None, max_coarse: int = 100_000,
+                     error_floor_mag: float | None = None) -> tuple:
+    """The evidence problem and the Bayes factor NPA:PA of the shape-free Fourier families (module notes).
+
+    Parameters
+    ----------
+    lc : LightCurve
+    p_min_h, p_max_h : float
+        Range of the fundamental light-curve period searched, hours.
+    n_windows : int
+        Number of coarse-scan peaks (besides the aliases of the best) integrated.
+    oversample : float
+        Coarse grid step is ``1 / (oversample * span * H)`` for the scan order H.
+    weights : array_like (n,), optional
+        Extra weights (robust re-weighting).
+    max_coarse : int
+        Largest number of coarse frequencies (the step is widened beyond it).
+    error_floor_mag : float, optional
+        Model-error floor added in quadrature to the quoted errors (default: from the amplitude and
+        the geometry change, :func:`tumble.classify.noise.geometry_error_floor`).
+
+    Returns
+    -------
+    (EvidenceProblem, EvidenceResult)
+        ``ln_bayes_factor`` is NaN and ``npa_testable`` False when no admissible second frequency
+        exists at the dominant f1 (the data cannot test NPA).
+    """
+    problem = build_problem(lc, p_min_h=p_min_h, p_max_h=p_max_h, oversample=oversample, weights=weights,
+                            max_coarse=max_coarse, error_floor_mag=error_floor_mag)
+    pa_windows = [integrate_pa_window(problem, c) for c in candidate_f1_centres(problem, n_windows)]
+    keep = windows_for_npa(np.array([w.ln_integral for w in pa_windows]))
+    npa = {i: npa_window(problem, pa_windows[i].best) for i in keep}
+    ibest = max(keep, key=lambda i: npa[i].ln)
+    for fc in ascent_windows(problem, npa[ibest].f2, [pa_windows[i].best for i in keep]):
+        pa_windows.append(integrate_pa_window(problem, fc))
+        keep.append(len(pa_windows) - 1)
+        npa[keep[-1]] = npa_window(problem, pa_windows[-1].best)
+    n_eval = (len(problem.coarse_grid) + sum(w.n_evaluations for w in pa_windows)
+              + sum(w.n_evaluations for w in npa.values()))
+
+    ln_pa_k = np.array([pa_windows[i].ln_integral for i in keep])
+    ln_npa_k = np.array([npa[i].ln for i in keep])
+    ln_z_pa = logsumexp(ln_pa_k)
+    ln_z_npa = logsumexp(ln_npa_k)
+    ipa = keep[int(np.argmax(ln_pa_k))]
+    inpa = keep[int(np.argmax(ln_npa_k))] if np.any(np.isfinite(ln_npa_k)) else ipa
+    f1 = pa_windows[ipa].best
+    share = admissible_f2_share(f1, problem.span_d)
+    testable = bool(np.isfinite(ln_z_npa))
+    ln_b = ln_z_npa - ln_z_pa if testable else math.nan
+    # quadrature error: the two rules on the dominant windows
+    alt_pa = pa_windows[ipa].ln_integral_alt
+    alt_npa = npa[inpa].ln_alt
+    err = math.hypot(alt_pa - pa_windows[ipa].ln_integral if np.isfinite(alt_pa) else 0.0,
+                     alt_npa - npa[inpa].ln if np.isfinite(alt_npa) and np.isfinite(npa[inpa].ln) else 0.0)
+    err = max(err, MIN_LNB_ERROR)
+    # window masses and disagreement
+    both = np.logaddexp(ln_pa_k + math.log(0.5), ln_npa_k + math.log(0.5))
+    w_mass = np.exp(both - logsumexp(both))
+    favour = np.sign(ln_npa_k - ln_pa_k)
+    big = w_mass >= 0.1
+    disagree = bool(testable and big.sum() > 1 and len(set(favour[big].tolist())) > 1)
+    pa_mass = float(np.exp(ln_pa_k.max() - ln_z_pa))
+    npa_mass = float(np.exp(ln_npa_k.max() - ln_z_npa)) * npa[inpa].mass if testable else 1.0
+    r = npa[inpa]
+    diag = _best_fit_diagnostics(problem, f1, r)
+    windows = tuple(dict(f1_per_d=float(pa_windows[i].best), ln_pa=float(pa_windows[i].ln_integral),
+                         ln_npa=float(npa[i].ln), f2_per_d=float(npa[i].f2)) for i in keep)
+    route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
+             "frequencies integrated by grid quadrature with Laplace refinement of unresolved peaks, "
+             f"f1 over {len(keep)} candidate windows, f2 log-uniform over the admissible part of [1.5/span, f1/2] "
+             f"(commensurate bands removed, renormalised); PA = mixture of {len(problem.pa_basis.variants)} "
+             f"harmonic/drift orders, NPA = mixture of {len(problem.npa_basis.variants)}; "
+             f"model-error floor {problem.error_floor_mag:.3g} mag, error scale >= {problem.kappa_min:.3g}")
+    return problem, EvidenceResult(
+        ln_z_pa=float(ln_z_pa), ln_z_npa=float(ln_z_npa), ln_bayes_factor=float(ln_b), ln_bayes_factor_err=float(err),
+        f1_per_d=float(f1), f1_sigma_per_d=float(pa_windows[ipa].sigma), f1_npa_per_d=float(r.f1),
+        f1_npa_sigma_per_d=float(r.s1), f2_per_d=float(r.f2), f2_sigma_per_d=float(r.s2),
+        pa_window_mass=pa_mass, npa_window_mass=float(npa_mass), windows=windows, window_disagreement=disagree,
+        npa_pairs=_npa_pairs(npa, problem.span_d), n_evaluations=int(n_eval), route=route,
+        f2_admissible_share=float(share), npa_testable=testable, error_floor_mag=problem.error_floor_mag,
+        kappa_min=problem.kappa_min, **diag)

@@ -1,0 +1,354 @@
+"""The decision rules: evidence (and physical fit, significance, adequacy) to a :class:`Verdict`.
+
+Each rule is a small named function of the frozen :class:`DecisionInputs` returning the findings it
+makes: ``undecided`` (the verdict is withheld, with the reason) or ``cap`` (the grade is capped at
+``tentative``, with the reason). :data:`RULES` runs them in order; every threshold is a named
+constant of :mod:`tumble.classify.thresholds`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from tumble.classify import thresholds as th
+from tumble.classify.prior import near_daily_alias
+from tumble.classify.verdict import MIRROR_NOTE, NO_PERIOD_REASON, UNTESTABLE_REASON, Verdict
+
+__all__ = ["Finding", "DecisionInputs", "RULES", "decide", "grade_from_ln_b"]
+
+
+def grade_from_ln_b(ln_b: float) -> str:
+    """Grade of ``|2 ln B|`` on the Kass & Raftery (1995, section 3.2) scale, in our words.
+
+    ``[0, 2)`` none, ``[2, 6)`` tentative, ``[6, 10)`` sound, ``>= 10`` firm; the
+    scale is applied to whichever hypothesis ``ln B`` favours.
+    """
+    from tumble.inference import kass_raftery_level
+
+    if not np.isfinite(ln_b):
+        return "none"
+    return th.GRADE_NAMES[int(kass_raftery_level(ln_b))]
+
+
+@dataclass(frozen=True)
+class Finding:
+    """What one rule found: ``effect`` is ``'undecided'``, ``'cap'`` or ``'mode_unknown'``."""
+
+    effect: str
+    reason: str
+
+
+@dataclass(frozen=True)
+class DecisionInputs:
+    """Everything the rules look at (frozen).
+
+    Attributes
+    ----------
+    evidence : EvidenceResult
+    span_d : float
+    sparse : bool
+    prior_npa, p_npa : float
+    favour : {'PA', 'NPA'}
+        The hypothesis ``ln B`` favours (PA when it is undefined).
+    fit : RotationFit or None
+    period_check : PeriodCheck or None
+        None when the significance could not be checked (a verdict from statistics alone).
+    adequacy : ModelAdequacy or None
+    longest_h : float
+        The longest period the verdict would claim, hours.
+    pa_geometry_fit : RotationFit or None
+        The physical PA ellipsoid fit with the real geometry (made before an NPA verdict).
+    """
+
+    evidence: object
+    span_d: float
+    sparse: bool
+    prior_npa: float
+    p_npa: float
+    favour: str
+    fit: object
+    period_check: object
+    adequacy: object
+    longest_h: float
+    pa_geometry_fit: object = None
+
+
+def _undecided(reason):
+    return [Finding("undecided", reason)]
+
+
+def rule_evidence_defined(d: DecisionInputs) -> list:
+    """A NaN ln B from a defect upstream must never read as a verdict."""
+    if d.evidence.npa_testable and np.isnan(d.evidence.ln_bayes_factor):
+        return _undecided("the evidence could not be evaluated (ln B is undefined)")
+    return []
+
+
+def rule_npa_testable(d: DecisionInputs) -> list:
+    """No admissible second frequency (or too few): PA cannot be preferred to an untested alternative."""
+    share = d.evidence.f2_admissible_share
+    if not d.evidence.npa_testable or (np.isfinite(share) and share < th.MIN_ADMISSIBLE_F2_SHARE):
+        return _undecided(f"{UNTESTABLE_REASON}: every second period the span could resolve is commensurate with "
+                          f"the first (admissible share {100 * (share if np.isfinite(share) else 0):.0f} % of the "
+                          f"second-frequency range)")
+    return []
+
+
+def rule_significant_period(d: DecisionInputs) -> list:
+    """A verdict needs a significant, covered, resolved light-curve period."""
+    if d.period_check is not None and not d.period_check.significant:
+        return _undecided(f"{NO_PERIOD_REASON}: " + "; ".join(d.period_check.reasons))
+    return []
+
+
+def rule_weak_evidence(d: DecisionInputs) -> list:
+    ln_b = d.evidence.ln_bayes_factor
+    if np.isfinite(ln_b) and abs(2 * ln_b) < th.UNDECIDED_2LNB:
+        return _undecided(f"weak evidence: |2 ln B| = {abs(2 * ln_b):.2f} < {th.UNDECIDED_2LNB:g}")
+    return []
+
+
+def rule_npa_probability(d: DecisionInputs) -> list:
+    if d.favour == "NPA" and d.p_npa < th.MIN_P_NPA_FOR_NPA:
+        return _undecided(f"NPA favoured (2 ln B = {2 * d.evidence.ln_bayes_factor:.2f}) but p_npa = {d.p_npa:.2f} "
+                          f"< {th.MIN_P_NPA_FOR_NPA:g} at prior {d.prior_npa:g}")
+    return []
+
+
+def rule_window_disagreement(d: DecisionInputs) -> list:
+    if d.evidence.window_disagreement:
+        return _undecided("period windows with comparable posterior mass favour different hypotheses")
+    return []
+
+
+def rule_window_mass(d: DecisionInputs) -> list:
+    mass = d.evidence.npa_window_mass if d.favour == "NPA" else d.evidence.pa_window_mass
+    if mass < th.WINDOW_MASS_UNDECIDED:
+        return _undecided(f"period posterior is multimodal: the dominant window holds only {100 * mass:.0f} % of its mass")
+    if mass < th.WINDOW_MASS_CAP:
+        return [Finding("cap", f"the period posterior is multimodal (the dominant window holds {100 * mass:.0f} % of "
+                               "its mass)")]
+    return []
+
+
+def rule_quadrature_error(d: DecisionInputs) -> list:
+    ln_b, err = d.evidence.ln_bayes_factor, d.evidence.ln_bayes_factor_err
+    if np.isfinite(ln_b) and abs(2 * ln_b) - th.UNDECIDED_2LNB < th.QUADRATURE_ERRORS_MARGIN * err:
+        return _undecided(f"ln B = {ln_b:.2f} has a quadrature error of {err:.2f} nats, too large for this margin")
+    return []
+
+
+def rule_daily_alias(d: DecisionInputs) -> list:
+    """NPA with a light-curve basis frequency at k cycles/day: a calibration or window alias of a slow variation."""
+    if d.favour != "NPA":
+        return []
+    ev = d.evidence
+    for name, f, sf in (("first", ev.f1_npa_per_d, ev.f1_npa_sigma_per_d), ("second", ev.f2_per_d, ev.f2_sigma_per_d)):
+        tol = max(0.5 / d.span_d, 3 * (sf if np.isfinite(sf) else 0.0), th.SPARSE_ALIAS_TOL_PER_D if d.sparse else 0.0)
+        # sparse nightly sampling aliases a slow variation to any k cycles/day, not only k <= 3
+        k_max = th.SPARSE_ALIAS_K_MAX if d.sparse else th.DENSE_ALIAS_K_MAX
+        if np.isfinite(f) and near_daily_alias(f, tol, k_max=k_max):
+            return _undecided(f"{name} light-curve period {24.0 / f:.4g} h lies at a 1/day alias")
+    return []
+
+
+def rule_sparse_modulated_alias(d: DecisionInputs) -> list:
+    """Sparse NPA whose f1 -+ f2 sits at 1-3 c/d: the second period only modulates a daily alias of the first."""
+    if d.favour != "NPA" or not d.sparse:
+        return []
+    f1n, f2n = d.evidence.f1_npa_per_d, d.evidence.f2_per_d
+    for label, c in (("f1 - f2", f1n - f2n), ("f1 + f2", f1n + f2n)):
+        if np.isfinite(c) and near_daily_alias(c, th.MIN_CYCLES / d.span_d, k_max=th.DENSE_ALIAS_K_MAX):
+            return _undecided(f"{label} = {c:.5f} c/d lies within {th.MIN_CYCLES}/span of a 1, 2 or 3 c/d alias: the "
+                              "second period only modulates a daily alias of the first, as a PA light curve "
+                              "changing with geometry does in sparse nightly data")
+    return []
+
+
+def rule_coverage(d: DecisionInputs) -> list:
+    if np.isfinite(d.longest_h) and d.span_d * 24.0 < th.MIN_CYCLES * d.longest_h:
+        return _undecided(f"the data span ({d.span_d:.3g} d) covers fewer than {th.MIN_CYCLES} cycles of the longest "
+                          f"claimed period ({d.longest_h:.4g} h)")
+    return []
+
+
+def rule_state_posterior(d: DecisionInputs) -> list:
+    if d.favour == "NPA" and d.fit is not None and not d.fit.converged:
+        return [Finding("cap", "the physical-model posterior did not converge or is multimodal")]
+    return []
+
+
+def rule_mode_margin(d: DecisionInputs) -> list:
+    fit = d.fit
+    if d.favour != "NPA":
+        return []
+    if fit is None or fit.mode not in ("SAM", "LAM"):
+        return [Finding("mode_unknown", "no physical fit: the mode is unknown")]
+    others = [v for k, v in fit.max_log_likelihood.items() if k != fit.mode]
+    margin = fit.max_log_likelihood[fit.mode] - max(others) if others else math.nan
+    if np.isfinite(margin) and margin < th.MODE_MARGIN_NATS:
+        return [Finding("mode_unknown", f"SAM and LAM fit almost equally well (margin {margin:.2f} nats): mode not decided")]
+    return []
+
+
+def rule_adequacy(d: DecisionInputs) -> list:
+    """A chosen model that needs inflated errors or leaves periodic residuals gets the lowest grade."""
+    a = d.adequacy
+    if a is None:
+        return []
+    out = []
+    if np.isfinite(a.error_scale_chosen) and a.error_scale_chosen > th.ERROR_SCALE_MAX:
+        out.append(Finding("cap", f"the {d.favour} model needs the quoted errors scaled by {a.error_scale_chosen:.2g} "
+                                  f"(limit {th.ERROR_SCALE_MAX:g})"))
+    if np.isfinite(a.residual_fap) and a.residual_fap < th.RESIDUAL_FAP_MAX:
+        out.append(Finding("cap", f"the {d.favour} model leaves a periodic residual at {a.residual_period_h:.4g} h "
+                                  f"(false-alarm probability {a.residual_fap:.2g})"))
+    return out
+
+
+def geometry_veto_statistic(npa_fit, pa_fit) -> float:
+    """``2 (ln L_NPA - ln L_PA) - (k_NPA - k_PA) ln n`` of the two physical fits (BIC difference, Schwarz 1978)."""
+    ll_npa = max(v for k, v in npa_fit.max_log_likelihood.items() if k in ("SAM", "LAM"))
+    ll_pa = pa_fit.max_log_likelihood["PA"]
+    dk = len(npa_fit.best) - len(pa_fit.best)
+    return 2.0 * (ll_npa - ll_pa) - dk * math.log(max(npa_fit.n_points_fitted, 2))
+
+
+def rule_geometry_aware_pa(d: DecisionInputs) -> list:
+    """Before an NPA verdict the PA ellipsoid seen with the real geometry must also fail."""
+    if d.favour != "NPA" or d.pa_geometry_fit is None or d.fit is None or d.fit.mode not in ("SAM", "LAM"):
+        return []
+    stat = geometry_veto_statistic(d.fit, d.pa_geometry_fit)
+    if not stat > th.GEOMETRY_VETO_2LNB:
+        return _undecided(f"a PA ellipsoid seen with the real Sun and observer directions fits as well as the tumbling "
+                          f"state (2 Delta ln L - Delta k ln n = {stat:.1f}, needs > {th.GEOMETRY_VETO_2LNB:g})")
+    return []
+
+
+#: The rules, in the order they are applied (all run; every finding is reported).
+RULES = (rule_evidence_defined, rule_npa_testable, rule_significant_period, rule_weak_evidence, rule_npa_probability,
+         rule_window_disagreement, rule_window_mass, rule_quadrature_error, rule_daily_alias,
+         rule_sparse_modulated_alias, rule_coverage, rule_geometry_aware_pa, rule_state_posterior, rule_mode_margin,
+         rule_adequacy)
+
+
+def _period_from_frequency(f, sf):
+    """Period (h) and its 1-sigma error from a frequency (1/d) and its standard deviation."""
+    p = 24.0 / f
+    return p, (24.0 * sf / f**2 if np.isfinite(sf) else math.nan)
+
+
+def _pa_periods(ev) -> dict:
+    p1, e1 = _period_from_frequency(ev.f1_per_d, ev.f1_sigma_per_d)
+    mult = 1.0 if ev.second_harmonic_dominates else 2.0
+    return dict(period_h=p1 * mult, period_h_err=e1 * mult, period_syn_h=p1 * mult, p1_h=p1)
+
+
+def _npa_periods(ev, fit) -> dict:
+    p1, _ = _period_from_frequency(ev.f1_npa_per_d, ev.f1_npa_sigma_per_d)
+    p2, _ = _period_from_frequency(ev.f2_per_d, ev.f2_sigma_per_d)
+    v = dict(p1_h=p1, p2_h=p2)
+    if fit is None or fit.mode not in ("SAM", "LAM") or not fit.candidate:
+        return v
+    # periods from the physical fit (posterior median and 68 % interval when sampled); the
+    # truncated two-period Fourier series locates the lattice but can bias f2 by a few per cent.
+    # Without samples the interval is the Fourier frequency error propagated through the mapping.
+    _, _, _, (ap, bp), (af, bf) = fit.candidate
+    s1 = ev.f1_npa_sigma_per_d if np.isfinite(ev.f1_npa_sigma_per_d) else 0.0
+    s2 = ev.f2_sigma_per_d if np.isfinite(ev.f2_sigma_per_d) else 0.0
+    ppsi, pphi = fit.derived["p_psi_h"][0], fit.derived["p_phi_h"][0]
+    if fit.posterior is not None:
+        ppsi_lo, ppsi_hi = fit.derived["p_psi_h"][1:]
+        pphi_lo, pphi_hi = fit.derived["p_phi_h"][1:]
+    else:
+        eppsi = 24.0 * math.hypot(ap * s1, bp * s2) / (24.0 / ppsi) ** 2
+        epphi = 24.0 * math.hypot(af * s1, bf * s2) / (24.0 / pphi) ** 2
+        ppsi_lo, ppsi_hi, pphi_lo, pphi_hi = ppsi - eppsi, ppsi + eppsi, pphi - epphi, pphi + epphi
+    ex = fit.derived["excitation"]
+    v.update(p_psi_h=ppsi, p_psi_h_lo=ppsi_lo, p_psi_h_hi=ppsi_hi, p_phi_h=pphi, p_phi_h_lo=pphi_lo,
+             p_phi_h_hi=pphi_hi, excitation=ex[0], excitation_lo=ex[1], excitation_hi=ex[2])
+    return v
+
+
+#: Period fields emptied when no significant period exists.
+PERIOD_FIELDS = ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "p_phi_h",
+                 "p_phi_h_lo", "p_phi_h_hi", "p1_h", "p2_h", "excitation", "excitation_lo", "excitation_hi")
+
+
+def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, fit=None, object_id: str = "object",
+           n_points: int = 0, n_sessions: int = 0, extra_warnings=(), route: str | None = None, sparse: bool = False,
+           period_check=None, adequacy=None, route_name: str = "full", npa_limit_mag: float = math.nan,
+           pa_geometry_fit=None) -> Verdict:
+    """Turn the evidence (and the physical fit, significance and adequacy, if any) into a :class:`Verdict`.
+
+    Every rule of :data:`RULES` runs; an ``undecided`` finding withholds the verdict (grade
+    ``none``, no mode), a ``cap`` finding caps the grade at ``tentative`` and says why. The grade
+    before caps is kept as ``grade_uncapped`` so that the report can state both.
+    """
+    from tumble.inference import posterior_probability
+
+    ev = evidence
+    ln_b = ev.ln_bayes_factor
+    testable = bool(ev.npa_testable) and np.isfinite(ln_b)
+    p_npa = float(posterior_probability(np.clip(ln_b, -700, 700), prior_npa)) if testable else math.nan
+    favour = "NPA" if testable and ln_b > 0 else "PA"
+    values = _pa_periods(ev) if favour == "PA" else _npa_periods(ev, fit)
+    claimed = [values.get(k, math.nan) for k in ("period_h", "p1_h", "p2_h", "p_psi_h", "p_phi_h")]
+    claimed = [p for p in claimed if np.isfinite(p)]
+    longest = max(claimed) if claimed else math.nan
+    inputs = DecisionInputs(ev, span_d, sparse, prior_npa, p_npa, favour, fit, period_check, adequacy, longest,
+                            pa_geometry_fit)
+    findings = [f for rule in RULES for f in rule(inputs)]
+    warn = list(extra_warnings) + [f.reason for f in findings]
+    undecided = any(f.effect == "undecided" for f in findings)
+    uncapped = grade_from_ln_b(ln_b) if testable else "none"
+    caps = [f.reason for f in findings if f.effect == "cap"]
+    grade, grade_reason = uncapped, ""
+    if caps and th.GRADE_NAMES.index(uncapped) > th.GRADE_NAMES.index("tentative"):
+        grade, grade_reason = "tentative", "; ".join(caps)
+    if undecided:
+        grade = "none"
+        grade_reason = "; ".join(f.reason for f in findings if f.effect == "undecided")
+    rotation = "undecided" if undecided else favour
+    mode = ""
+    if rotation == "NPA":
+        mode = "unknown" if any(f.effect == "mode_unknown" for f in findings) else fit.mode
+    if period_check is not None and not period_check.significant:
+        values = {k: v for k, v in values.items() if k not in PERIOD_FIELDS}
+    if rotation != "PA":
+        values.pop("period_h", None)
+        values.pop("period_h_err", None)
+    margin = math.nan
+    extra = {}
+    if fit is not None:
+        for k in ("a_over_b", "b_over_c", "l_lon_deg", "l_lat_deg"):
+            extra[k] = fit.derived[k]
+        if fit.geometry_note.startswith("no Sun"):
+            warn.append(fit.geometry_note)
+        if favour == "NPA" and fit.mode in ("SAM", "LAM"):
+            others = [v for k, v in fit.max_log_likelihood.items() if k != fit.mode]
+            margin = fit.max_log_likelihood[fit.mode] - max(others) if others else math.nan
+            warn.append(MIRROR_NOTE)
+        if not fit.converged:
+            warn.append("physical-model posterior not converged or multimodal: " + "; ".join(fit.reasons))
+    pc = period_check
+    ad = adequacy
+    return Verdict(
+        object_id=object_id, rotation=rotation, mode=mode, p_npa=p_npa, ln_bayes_factor=float(ln_b),
+        ln_bayes_factor_err=float(ev.ln_bayes_factor_err), grade=grade, prior_npa=float(prior_npa),
+        grade_uncapped=uncapped, grade_reason=grade_reason, amplitude_mag=float(ev.amplitude_mag),
+        period_fap=float(pc.fap) if pc is not None else math.nan,
+        n_cycles=float(pc.n_cycles) if pc is not None else math.nan,
+        phase_coverage=float(pc.phase_coverage) if pc is not None else math.nan,
+        npa_testable=bool(testable), npa_limit_mag=float(npa_limit_mag) if rotation == "PA" else math.nan,
+        chi2_dof_chosen=ad.chi2_dof_chosen if ad is not None else math.nan,
+        chi2_dof_rejected=ad.chi2_dof_rejected if ad is not None else math.nan,
+        error_scale_chosen=ad.error_scale_chosen if ad is not None else math.nan,
+        residual_period_h=ad.residual_period_h if ad is not None else math.nan,
+        residual_fap=ad.residual_fap if ad is not None else math.nan,
+        evidence_route=route or ev.route, route=route_name, state_converged=bool(fit.converged) if fit else False,
+        mode_margin=float(margin), warnings=tuple(dict.fromkeys(warn)), n_points=int(n_points),
+        n_sessions=int(n_sessions), span_d=float(span_d), **values, **extra)
