@@ -31,6 +31,10 @@ Sub-commands
     a table, scores it on the held-out half and writes its coefficients as JSON.
 ``timing``
     Wall time per object of each route on a few objects of each plan, one core.
+``perf``
+    Wall time of the default classify (with sampling) on a dense 1000-point light curve, and the
+    sampler's overhead: ``sample_posterior`` against the bare model cost of the same number of walker
+    evaluations, measured side by side in one run.
 
 Results are scientific estimates for research use; the figures describe the simulated library.
 """
@@ -85,9 +89,9 @@ def load_population(cache: Path) -> list:
     return pop
 
 
-def select(pop: list, split: str, limit: int | None) -> list:
-    """Objects of a split in the hashed processing order, the first ``limit`` of them."""
-    chosen = [s for s in pop if split == "all" or s.split == split]
+def select(pop: list, split: str, limit: int | None, plans=None) -> list:
+    """Objects of a split (and of the given plan kinds) in the hashed processing order, the first ``limit`` of them."""
+    chosen = [s for s in pop if (split == "all" or s.split == split) and (not plans or s.plan_kind in plans)]
     chosen.sort(key=lambda s: order_key(s.object_id))
     return chosen if limit is None else chosen[:limit]
 
@@ -212,7 +216,7 @@ def _short(row) -> str:
 def cmd_run(args) -> int:
     cache = Path(args.cache)
     pop = load_population(cache)
-    jobs_specs = select(pop, args.split, args.limit)
+    jobs_specs = select(pop, args.split, args.limit, args.plan)
     out = Path(args.out) if args.out else cache / f"results-{args.route}.jsonl"
     done = {r["object_id"] for r in read_table(out) if r.get("route") == args.route}
     todo = [s for s in jobs_specs if s.object_id not in done]
@@ -232,7 +236,7 @@ def cmd_run(args) -> int:
 
 def cmd_generate(args) -> int:
     cache = Path(args.cache)
-    pop = select(load_population(cache), args.split, args.limit)
+    pop = select(load_population(cache), args.split, args.limit, args.plan)
     jobs = [Job(s, "", str(library_dir(cache)), args.timeout_s) for s in pop]
     t0 = time.perf_counter()
     for k, msg in enumerate(_pool_map(render_job, jobs, args.workers), 1):
@@ -291,6 +295,84 @@ def cmd_timing(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------------------
+# Performance of the default route and of the sampler (kept from the earlier benchmark)
+
+
+def run_performance():
+    """Wall time of the default classify on a dense 1000-point curve; the sampler's overhead beside the bare model."""
+    import numpy as np
+
+    from tumble.classify import classify, fourier_evidence
+    from tumble.dynamics import RotationState
+    from tumble.inference import sample_posterior
+    from tumble.model import PhysicalModel
+    from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve
+
+    print("\n=== performance (one core) ===")
+    rng = np.random.default_rng(5)
+    st = RotationState.principal_axis(7.3, 40.0, 50.0)
+    plan = DenseCampaign(2460000.5, n_nights=10, hours_per_night=8.0, cadence_min=4.8, zero_point_sigma_mag=0.03)
+    lc = simulate_lightcurve(st, (1.6, 1.2, 1.0), plan, noise=NoiseModel(0.01), rng=rng).lightcurve
+    print(f"dense light curve: {lc.n_points} points over {lc.span_d:.2f} d")
+    t0 = time.perf_counter()
+    v, ev, fit = classify(lc, rng=1)
+    t1 = time.perf_counter()
+    print(f"default classify (max-steps 1500): {t1 - t0:.1f} s wall; verdict {v.rotation} {v.grade}, "
+          f"period {v.period_h:.6f} h; state converged: {v.state_converged}")
+    t0 = time.perf_counter()
+    ev = fourier_evidence(lc)
+    t_ev = time.perf_counter() - t0
+    print(f"   of which the evidence (quadrature): {t_ev:.1f} s, {ev.n_evaluations} frequency evaluations")
+    # sampler overhead: sample_posterior against the bare model cost of the same walker evaluations
+    from tumble.classify import _thin
+
+    sub = _thin(lc, 300)
+    model = PhysicalModel(sub, "PA", period_range_h=(3.0, 30.0))
+    x0 = np.array([fit.best[n] for n in model.space.names])
+    class Timed:
+        """The model, with the time spent inside its calls accumulated (same calls, same batches)."""
+
+        def __init__(self, m):
+            self.m, self.t, self.calls, self.points = m, 0.0, 0, 0
+
+        def __call__(self, x):
+            t = time.perf_counter()
+            out = self.m(x)
+            self.t += time.perf_counter() - t
+            self.calls += 1
+            self.points += len(np.atleast_2d(x))
+            return out
+
+    timed = Timed(model)
+    t0 = time.perf_counter()
+    post = sample_posterior(timed, model.space, start=x0, n_ensembles=2, max_steps=600, first_block=600,
+                            rng=2, warn=False, start_scale=1e-3)
+    t_s = time.perf_counter() - t0
+    n_eval = post.diagnostics.n_evaluations
+    t_m = timed.t
+    print(f"sampler: {t_s:.2f} s for {n_eval} walker-evaluations in {timed.calls} model calls "
+          f"(mean batch {timed.points / max(1, timed.calls):.1f}); time inside the model {t_m:.2f} s; "
+          f"overhead {100 * (t_s - t_m) / t_m:.1f} % (target <= 25 %)")
+    # the same count of evaluations in batches of the whole ensemble, for comparison (emcee's stretch
+    # move evaluates half the ensemble per call, so its batches are half this size)
+    nw = post.diagnostics.n_walkers
+    xs = model.space.sample_prior(nw, 3)
+    calls = max(1, n_eval // nw)
+    t0 = time.perf_counter()
+    for _ in range(calls):
+        model(xs)
+    t_b = time.perf_counter() - t0
+    print(f"   bare model in whole-ensemble batches: {t_b:.2f} s (half-ensemble batches cost "
+          f"{t_m / max(t_b, 1e-9):.2f}x that)")
+
+
+def cmd_perf(args) -> int:
+    warnings.simplefilter("ignore")
+    run_performance()
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     sub = ap.add_subparsers(dest="command", required=True)
@@ -299,6 +381,8 @@ def build_parser() -> argparse.ArgumentParser:
     common.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
     common.add_argument("--limit", type=int, default=None, help="first N objects of the hashed order")
     common.add_argument("--split", choices=("calibration", "heldout", "all"), default="all")
+    common.add_argument("--plan", nargs="+", choices=("dense", "sparse", "close"), default=None,
+                        help="only objects of these plan kinds (default all)")
     common.add_argument("--timeout-s", type=float, default=DEFAULT_TIMEOUT_S, help="per-object time limit, s")
     p = sub.add_parser("run", parents=[common], help="run a route on the library")
     p.add_argument("--route", choices=sorted(ROUTES), default="evidence")
@@ -314,12 +398,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", default=str(CACHE_DIR / "calibration.json"), help="JSON of the fitted map")
     p = sub.add_parser("timing", parents=[common], help="wall time per object of the routes, one core")
     p.add_argument("--routes", nargs="+", choices=sorted(ROUTES), default=["screen", "evidence"])
+    sub.add_parser("perf", help="wall time of the default classify and the sampler's overhead, one core")
     return ap
 
 
 #: Sub-command drivers by name.
 COMMANDS = {"run": cmd_run, "generate": cmd_generate, "report": cmd_report, "calibrate": cmd_calibrate,
-            "timing": cmd_timing}
+            "timing": cmd_timing, "perf": cmd_perf}
 
 
 def main(argv=None) -> int:

@@ -308,7 +308,8 @@ class ObjectSpec:
     category : str
         The recipe it came from (e.g. ``dense-npa``, ``sparse-pa``, ``slow-pa-short-arc``).
     truth_class : {'PA', 'NPA', 'none'}
-        'none' for flat and pure-noise curves (no rotational signal).
+        'none' for flat and pure-noise curves (no rotational signal); 'binary' is reserved for the
+        binaries of issue 20.
     plan : DensePlan, SparsePlan or ClosePlan
     body : Body
     scattering : Scattering
@@ -564,7 +565,7 @@ class Recipe:
     plan : str
         Key of :data:`PLAN_DRAWERS`.
     rotation : {'PA', 'NPA', 'slow-PA', 'flat', 'noise'}
-        Key of :data:`ROTATION_DRAWERS`.
+        Key of :data:`ROTATION_DRAWERS` (a 'binary' kind joins with issue 20).
     noise_range_mag : (float, float)
         Noise drawn log-uniform within (0 means noise-free: 'flat').
     """
@@ -599,18 +600,32 @@ RECIPES = (
 )
 
 
-def _draw_rotation(kind, rng, plan, body, attitude):
-    if kind == "PA":
-        return draw_pa_rotation(rng, plan_span_h(plan), attitude)
-    if kind == "slow-PA":
-        return draw_pa_rotation(rng, plan_span_h(plan), attitude, slow_short=True)
-    if kind == "NPA":
-        return draw_npa_rotation(rng, body, attitude)
+def _rotation_pa(rng, plan, body, attitude):
+    return draw_pa_rotation(rng, plan_span_h(plan), attitude)
+
+
+def _rotation_slow_pa(rng, plan, body, attitude):
+    return draw_pa_rotation(rng, plan_span_h(plan), attitude, slow_short=True)
+
+
+def _rotation_npa(rng, plan, body, attitude):
+    return draw_npa_rotation(rng, body, attitude)
+
+
+def _rotation_none(rng, plan, body, attitude):
     return null_rotation()
 
 
-#: Truth class of each rotation kind.
+#: Rotation drawing functions by recipe kind: ``f(rng, plan, body, attitude) -> Rotation``.
+#: Binaries (issue 20: primary PA ellipsoid, satellite on a circular orbit with mutual events) join
+#: here as a kind of their own with truth class 'binary', with a rendering step that adds the events.
+ROTATION_DRAWERS = {"PA": _rotation_pa, "slow-PA": _rotation_slow_pa, "NPA": _rotation_npa,
+                    "flat": _rotation_none, "noise": _rotation_none}
+
+#: Truth class of each rotation kind ('binary' is reserved for issue 20's binaries).
 TRUTH_CLASS = {"PA": "PA", "slow-PA": "PA", "NPA": "NPA", "flat": "none", "noise": "none"}
+#: Kinds whose light curve carries a rotational signal (the others are a sphere).
+SIGNAL_KINDS = ("PA", "slow-PA", "NPA")
 
 
 def draw_object(recipe: Recipe, index: int, object_id: str, seed: int) -> ObjectSpec:
@@ -618,10 +633,10 @@ def draw_object(recipe: Recipe, index: int, object_id: str, seed: int) -> Object
     rng = np.random.default_rng(seed)
     plan = PLAN_DRAWERS[recipe.plan](rng)
     rot_kind = recipe.rotation
-    signal = rot_kind in ("PA", "slow-PA", "NPA")
+    signal = rot_kind in SIGNAL_KINDS
     attitude = "numeric" if (signal and rng.random() < NUMERIC_FRACTION) else "closed"
     body = draw_body(rng, numeric=attitude == "numeric") if signal else Body("sphere", 1.0, 1.0)
-    rotation = _draw_rotation(rot_kind, rng, plan, body, attitude)
+    rotation = ROTATION_DRAWERS[rot_kind](rng, plan, body, attitude)
     lo, hi = recipe.noise_range_mag
     noise = 0.0 if hi == 0 else _log_uniform(rng, lo, hi)
     return ObjectSpec(object_id=object_id, category=recipe.category, truth_class=TRUTH_CLASS[rot_kind], plan=plan,

@@ -48,6 +48,8 @@ RECALL_EDGES = (0.0, 0.5, 1.0, 3.0, 10.0, math.inf)
 N_RELIABILITY_BINS = 10
 #: Relative tolerances of the period-accuracy figures (issue 14: within 1 % and 2 %).
 PERIOD_TOLERANCES = (0.01, 0.02)
+#: |ln B| at or above this is the classifier's stand-in weight for an excluded alternative (issue 14), counted apart.
+LN_B_STAND_IN = 1000.0
 #: Plans reported separately.
 PLANS = ("dense", "sparse", "close")
 
@@ -229,6 +231,9 @@ def period_accuracy(rows) -> dict:
             sp = [r for r in pa if plan == "all" or r.get("true.plan_kind") == plan]
             k = sum(_within(get(r, "period_h"), r.get("true.period_h"), tol) for r in sp)
             out[("PA", plan, tol)] = _rate(k, len(sp))
+            k = sum(any(_within(get(r, "period_h"), _num(r.get("true.period_h")) * m, tol) for m in (0.5, 1.0, 2.0))
+                    for r in sp)
+            out[("PA-alias", plan, tol)] = _rate(k, len(sp))
             sn = [r for r in npa if plan == "all" or r.get("true.plan_kind") == plan]
             k = sum(_within(get(r, "p_psi_h"), r.get("true.p_psi_h"), tol)
                     and _within(get(r, "p_phi_h"), r.get("true.p_phi_h"), tol) for r in sn)
@@ -278,6 +283,11 @@ def report_text(rows, *, split: str = "all", figure_path=None, p_field: str = "p
     for plan, rate in false_npa_table(good).items():
         w(f"   {plan:7s} {rate.k:4d}/{rate.n:<4d} = {rate.value:6.3f}   95 % upper limit {rate.hi:.3f}")
 
+    for cls in ("none", "binary"):  # flat/noise curves; binaries when the library holds them (issue 20)
+        sub = [r for r in good if r.get("true.truth_class") == cls]
+        if sub:
+            w(f"   truth class {cls}: {_rate(sum(is_npa_verdict(r) for r in sub), len(sub), one_sided=True).text()} called NPA")
+
     w("\nNPA recall (verdict NPA) by signature/noise, two-sided 95 % intervals (target dense >= 0.90 at >= 3):")
     for (plan, lo, hi), rate in recall_table(good).items():
         if rate.n:
@@ -308,11 +318,20 @@ def report_text(rows, *, split: str = "all", figure_path=None, p_field: str = "p
 
     w("\nPeriods within 1 % / 2 % of the truth:")
     acc = period_accuracy(good)
-    for kind, label in (("PA", "PA verdicts on PA bodies, period"), ("NPA", "NPA verdicts on tumblers, P_psi and P_phi")):
+    for kind, label in (("PA", "PA verdicts on PA bodies, period"),
+                        ("PA-alias", "PA verdicts on PA bodies, period or its half or double"), ("NPA", "NPA verdicts on tumblers, P_psi and P_phi")):
         for plan in PLANS + ("all",):
             r1, r2 = acc[(kind, plan, 0.01)], acc[(kind, plan, 0.02)]
             if r1.n:
                 w(f"   {label} ({plan}): {r1.k}/{r1.n} = {r1.value:.3f} within 1 %, {r2.k}/{r2.n} = {r2.value:.3f} within 2 %")
+
+    big = [r for r in good if abs(_num(get(r, "ln_b"))) >= LN_B_STAND_IN]
+    if big:
+        per = {}
+        for r in big:
+            per[r.get("true.category", "?")] = per.get(r.get("true.category", "?"), 0) + 1
+        w(f"\n|ln B| >= {LN_B_STAND_IN:g} (a stand-in exclusion weight, not evidence) on {len(big)} objects: "
+          + ", ".join(f"{k} {v}" for k, v in sorted(per.items())))
 
     w("\nCases the data cannot decide (targets: no period and no grade on flat/noise; no PA grade above the lowest "
       "where NPA is not testable):")
