@@ -46,14 +46,18 @@ def _num(v) -> float:
         return math.nan
 
 
+#: |ln B| is clipped here before the transform: an infinite ln B (no admissible NPA model) is the extreme.
+LN_B_CLIP = 1.0e4
+
+
 def signed_log(x: float) -> float:
-    """sign(x) log(1 + |x|)."""
-    return math.copysign(math.log1p(abs(x)), x) if np.isfinite(x) else math.nan
+    """sign(x) log(1 + |x|) (NaN stays NaN)."""
+    return math.copysign(math.log1p(abs(x)), x) if not math.isnan(x) else math.nan
 
 
 def feat_ln_b(row) -> float:
-    """sign(ln B) log(1 + |ln B|), ln B (NPA:PA) in nats."""
-    return signed_log(_num(scoring.get(row, "ln_b")))
+    """sign(ln B) log(1 + |ln B|), ln B (NPA:PA) in nats clipped to +-1e4 (-inf: no NPA model admissible)."""
+    return signed_log(float(np.clip(_num(scoring.get(row, "ln_b")), -LN_B_CLIP, LN_B_CLIP)))
 
 
 def feat_log_n(row) -> float:

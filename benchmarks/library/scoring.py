@@ -185,7 +185,7 @@ def plot_reliability(tables: dict, path, title: str = "reliability of p_npa") ->
     ax.set_xlabel("predicted P(NPA) (bin mean)")
     ax.set_ylabel("observed NPA fraction (95 % interval)")
     ax.set_title(title, fontsize=10)
-    ax.legend(fontsize=8, loc="upper left")
+    ax.legend(fontsize=8, loc="lower right")
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=110, format="png")
 
