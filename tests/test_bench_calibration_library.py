@@ -258,3 +258,12 @@ def test_report_scores_a_small_table(tmp_path):
     assert acc[("NPA", "dense", 0.01)].k == 15
     text = scoring.report_text(rows, figure_path=tmp_path / "rel.png")
     assert "expected calibration error" in text and (tmp_path / "rel.png").stat().st_size > 0
+
+
+def test_npa_light_curve_periods_match_the_frequency_combinations():
+    # a tumbler's light curve holds only n1 f_phi + n2 f_psi (Kaasalainen 2001, A&A 376, 302);
+    # for P_psi = 20 h, P_phi = 8 h: f_phi + f_psi -> 5.714 h, f_phi -> 8 h
+    row = {"true.p_psi_h": 20.0, "true.p_phi_h": 8.0, "p1_h": 1 / (1 / 8 + 1 / 20), "p2_h": 8.0}
+    assert scoring.npa_lightcurve_match(row, 0.01)
+    assert not scoring.npa_lightcurve_match({**row, "p2_h": 9.3}, 0.01)
+    assert not scoring.npa_lightcurve_match({**row, "p2_h": float("nan")}, 0.01)

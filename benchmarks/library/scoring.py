@@ -221,6 +221,23 @@ def _within(found, true, tol) -> bool:
     return bool(np.isfinite(f) and np.isfinite(t) and t > 0 and abs(f / t - 1.0) <= tol)
 
 
+#: Largest |n1|, |n2| of the combinations n1 f_phi + n2 f_psi that an NPA light-curve period may match.
+NPA_COMBINATION_ORDER = 2
+
+
+def npa_lightcurve_match(row, tol) -> bool:
+    """Both light-curve periods found (p1_h, p2_h) are within ``tol`` of combinations n1 f_phi + n2 f_psi
+    (|n| <= 2) of the true periods: the frequencies of a tumbler's light curve (Kaasalainen 2001), the
+    check for routes that report light-curve periods but not P_psi, P_phi."""
+    fp, fs = 1.0 / _num(row.get("true.p_phi_h")), 1.0 / _num(row.get("true.p_psi_h"))
+    k = NPA_COMBINATION_ORDER
+    combos = [abs(a * fp + b * fs) for a in range(-k, k + 1) for b in range(-k, k + 1) if (a or b)]
+    found = [1.0 / _num(get(row, "p1_h")), 1.0 / _num(get(row, "p2_h"))]
+    if not all(np.isfinite(found)) or not all(np.isfinite([fp, fs])):
+        return False
+    return all(any(c > 0 and abs(f / c - 1.0) <= tol for c in combos) for f in found)
+
+
 def period_accuracy(rows) -> dict:
     """Fractions of PA verdicts on PA bodies with the period, and NPA verdicts on tumblers with both periods, within tolerance."""
     out = {}
@@ -238,6 +255,7 @@ def period_accuracy(rows) -> dict:
             k = sum(_within(get(r, "p_psi_h"), r.get("true.p_psi_h"), tol)
                     and _within(get(r, "p_phi_h"), r.get("true.p_phi_h"), tol) for r in sn)
             out[("NPA", plan, tol)] = _rate(k, len(sn))
+            out[("NPA-lc", plan, tol)] = _rate(sum(npa_lightcurve_match(r, tol) for r in sn), len(sn))
     return out
 
 
@@ -319,7 +337,8 @@ def report_text(rows, *, split: str = "all", figure_path=None, p_field: str = "p
     w("\nPeriods within 1 % / 2 % of the truth:")
     acc = period_accuracy(good)
     for kind, label in (("PA", "PA verdicts on PA bodies, period"),
-                        ("PA-alias", "PA verdicts on PA bodies, period or its half or double"), ("NPA", "NPA verdicts on tumblers, P_psi and P_phi")):
+                        ("PA-alias", "PA verdicts on PA bodies, period or its half or double"), ("NPA", "NPA verdicts on tumblers, P_psi and P_phi"),
+                        ("NPA-lc", "NPA verdicts on tumblers, both light-curve periods at n1 f_phi + n2 f_psi")):
         for plan in PLANS + ("all",):
             r1, r2 = acc[(kind, plan, 0.01)], acc[(kind, plan, 0.02)]
             if r1.n:
