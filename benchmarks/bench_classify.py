@@ -14,6 +14,9 @@ Sub-commands
     Draws the population (:mod:`library.population`, 630 objects by default: dense, sparse and
     close-approach PA and NPA, slow PA rotators over short arcs, flat and pure-noise curves) and
     renders every object into the cache (``benchmarks/.cache/library-<version>/``, git-ignored).
+``summary``
+    Counts and ranges of the rendered library per category (points, span, phase, amplitude/noise,
+    signature/noise, numerically integrated fraction, split).
 ``run``
     Runs one route (``--route screen|evidence|full``) on each object in a process pool
     (``--workers``), objects in a fixed hashed order so that any ``--limit N`` first objects are a
@@ -241,7 +244,66 @@ def cmd_generate(args) -> int:
     t0 = time.perf_counter()
     for k, msg in enumerate(_pool_map(render_job, jobs, args.workers), 1):
         print(f"[{k}/{len(jobs)} {time.perf_counter() - t0:5.0f} s] {msg}", flush=True)
-    print(f"library of {len(pop)} objects in {library_dir(cache)}")
+    print(library_summary(cache))
+    return 0
+
+
+def library_summary(cache: Path) -> str:
+    """Counts and ranges of the rendered library (from the cached truth records)."""
+    import numpy as np
+
+    pop = load_population(cache)
+    truths = []
+    for s in pop:
+        js = library_dir(cache) / f"{s.object_id}.json"
+        if js.exists():
+            truths.append(json.loads(js.read_text())["truth"])
+    lines = [f"library {library_dir(cache).name}: {len(pop)} objects drawn, {len(truths)} rendered"]
+    if not truths:
+        return lines[0]
+
+    def col(name, sub):
+        return np.array([t[name] for t in sub], float)
+
+    warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN medians of the flat curves print as nan
+
+    by = {}
+    for t in truths:
+        by.setdefault(t["category"], []).append(t)
+    lines.append(f"{'category':20s} {'n':>4s} {'calib':>5s} {'numeric':>7s} {'points':>11s} {'span d':>13s} "
+                 f"{'phase deg':>11s} {'amp/noise med':>13s} {'sig/noise med':>13s}")
+    for cat, sub in sorted(by.items()):
+        n_cal = sum(t["split"] == "calibration" for t in sub)
+        num = sum(t["attitude"] == "numeric" for t in sub)
+        pts, span = col("n_points", sub), col("span_d", sub)
+        lines.append(f"{cat:20s} {len(sub):4d} {n_cal:5d} {num:7d} {pts.min():5.0f}-{pts.max():<5.0f} "
+                     f"{span.min():6.1f}-{span.max():<6.1f} {col('phase_min_deg', sub).min():5.1f}-"
+                     f"{col('phase_max_deg', sub).max():<5.1f} {np.nanmedian(col('amplitude_over_noise', sub)):13.2f} "
+                     f"{np.nanmedian(col('signature_over_noise', sub)):13.2f}")
+    pa = [t for t in truths if t["truth_class"] == "PA"]
+    npa = [t for t in truths if t["truth_class"] == "NPA"]
+    num = sum(t["attitude"] == "numeric" for t in truths)
+    lines.append(f"PA {len(pa)}, NPA {len(npa)}, none {len(truths) - len(pa) - len(npa)}; numerically integrated "
+                 f"attitude with facet brightness {num} ({num / len(truths):.0%}); calibration half "
+                 f"{sum(t['split'] == 'calibration' for t in truths)}, held-out {sum(t['split'] == 'heldout' for t in truths)}")
+    if npa:
+        s2n = col("signature_over_noise", npa)
+        edges = (0, 0.5, 1, 3, 10, np.inf)
+        lines.append("NPA signature/noise: " + ", ".join(
+            f"[{lo:g}, {hi:g}) {int(np.sum((s2n >= lo) & (s2n < hi)))}" for lo, hi in zip(edges[:-1], edges[1:])))
+        lines.append(f"NPA P_psi {col('p_psi_h', npa).min():.1f}-{col('p_psi_h', npa).max():.1f} h, P_phi "
+                     f"{col('p_phi_h', npa).min():.1f}-{col('p_phi_h', npa).max():.1f} h; E/E0 "
+                     f"{np.nanmin(col('excitation_e_over_e0', npa)):.4f}-{np.nanmax(col('excitation_e_over_e0', npa)):.2f}; "
+                     f"SAM {sum(t['mode'] == 'SAM' for t in npa)}, LAM {sum(t['mode'] == 'LAM' for t in npa)}")
+    if pa:
+        lines.append(f"PA periods {col('p_psi_h', pa).min():.2f}-{col('p_psi_h', pa).max():.1f} h; close-approach "
+                     f"minimum distance {min(t['delta_min_au'] for t in truths if t['plan_kind'] == 'close'):.3f}-"
+                     f"{max(t['delta_min_au'] for t in truths if t['plan_kind'] == 'close'):.3f} au")
+    return "\n".join(lines)
+
+
+def cmd_summary(args) -> int:
+    print(library_summary(Path(args.cache)))
     return 0
 
 
@@ -389,6 +451,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", default=None, help="JSON-lines table (default <cache>/results-<route>.jsonl)")
     p.add_argument("--quick", action="store_true", help="the first 40 objects only")
     sub.add_parser("generate", parents=[common], help="render the library into the cache")
+    sub.add_parser("summary", parents=[common], help="counts and ranges of the rendered library")
     p = sub.add_parser("report", help="score a results table")
     p.add_argument("table")
     p.add_argument("--split", choices=("calibration", "heldout", "all"), default="all")
@@ -403,7 +466,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 #: Sub-command drivers by name.
-COMMANDS = {"run": cmd_run, "generate": cmd_generate, "report": cmd_report, "calibrate": cmd_calibrate,
+COMMANDS = {"run": cmd_run, "generate": cmd_generate, "summary": cmd_summary, "report": cmd_report, "calibrate": cmd_calibrate,
             "timing": cmd_timing, "perf": cmd_perf}
 
 

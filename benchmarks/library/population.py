@@ -58,7 +58,7 @@ __all__ = [
 ]
 
 #: Bumped whenever a drawing rule changes, so that cached renders of an older population are not reused.
-GENERATOR_VERSION = "cal-1"
+GENERATOR_VERSION = "cal-2"
 #: Start of the invented observing epoch (TDB JD, 2026 Jan 1); objects start within two years of it.
 EPOCH0_JD = 2461041.5
 #: Fraction of objects with a numerically integrated attitude and facet brightness (issue: "at least a third").

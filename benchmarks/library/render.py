@@ -58,6 +58,11 @@ SPARSE_WINDOW_H = 6.0
 SPARSE_VISIT_SPACING_MIN = (20.0, 60.0)
 #: Hours of darkness within which a dense night's run starts (start jitter), hours.
 NIGHT_START_JITTER_H = 2.0
+#: Close approaches: largest phase angle observed (issue 14: "phase angles up to 80-90 deg"), the
+#: smallest solar elongation a telescope points at (common practice), and the fewest points kept.
+CLOSE_MAX_PHASE_DEG = 90.0
+CLOSE_MIN_ELONGATION_DEG = 45.0
+CLOSE_MIN_POINTS = 40
 #: km/s in au/day (IAU 2012 au).
 KM_S_PER_AU_D = 149_597_870.7 / 86400.0
 
@@ -261,13 +266,22 @@ def close_approach_elements(t_ca_tdb_jd: float, miss_distance_au: float, phase_c
 
 
 def close_times(spec: ObjectSpec, rng) -> PlanTimes:
-    """Consecutive nights around closest approach, on the close-approach orbit."""
+    """Consecutive nights around closest approach, on the close-approach orbit; points beyond
+    :data:`CLOSE_MAX_PHASE_DEG` or below :data:`CLOSE_MIN_ELONGATION_DEG` are not observed."""
+    from tumble import geometry
+    from tumble.simulate import solar_elongation_deg
+
     p = spec.plan
     starts = p.start_jd + np.arange(p.n_nights) + rng.uniform(0.0, NIGHT_START_JITTER_H / 24.0, p.n_nights)
     t, night = _night_runs(rng, starts, p.hours_per_night, p.cadence_min, p.loss_fraction)
     el = close_approach_elements(p.start_jd + p.ca_offset_d, p.miss_distance_au, p.phase_ca_deg, p.v_rel_km_s,
                                  p.direction_angle_deg, p.velocity_angle_deg)
-    return PlanTimes(t, night, "V", p.zero_point_sigma_mag, el)
+    geo = geometry.observing_geometry(t, el)
+    keep = (geo.phase_deg <= CLOSE_MAX_PHASE_DEG) & (solar_elongation_deg(geo) >= CLOSE_MIN_ELONGATION_DEG)
+    if keep.sum() < CLOSE_MIN_POINTS:  # keep the points nearest closest approach rather than none
+        keep = np.argsort(np.abs(t - (p.start_jd + p.ca_offset_d)))[:CLOSE_MIN_POINTS]
+        keep = np.isin(np.arange(t.size), keep)
+    return PlanTimes(t[keep], night[keep], "V", p.zero_point_sigma_mag, el)
 
 
 #: Time builders by plan kind.
