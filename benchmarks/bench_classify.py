@@ -328,7 +328,18 @@ def cmd_calibrate(args) -> int:
         return 2
     model, text = calibration.fit_and_evaluate(rows)
     print(text)
-    calibration.save_calibration(model, Path(args.out))
+    import subprocess
+
+    try:
+        commit = subprocess.run(["git", "-C", str(Path(__file__).resolve().parent), "rev-parse", "--short", "HEAD"],
+                                capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        commit = "unknown"
+    extra = {"library": f"{GENERATOR_VERSION}-{POPULATION_SEED}", "table": Path(args.table).name,
+             "code_commit": commit, "fitted_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+             "note": "P(NPA) calibrated on simulated objects (benchmarks/bench_classify.py); a scientific "
+                     "estimate for research use, valid for the route it was fitted on"}
+    calibration.save_calibration(model, Path(args.out), extra)
     print(f"wrote {args.out}")
     return 0
 

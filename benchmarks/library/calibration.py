@@ -32,8 +32,9 @@ __all__ = ["Feature", "FEATURES", "CalibrationMap", "fit_calibration", "apply_ca
 
 #: Version of the map's JSON layout.
 MAP_VERSION = 1
-#: Ridge penalty on the standardised coefficients (the intercept is free): keeps separable data finite.
-RIDGE = 1e-2
+#: Ridge penalty on the standardised coefficients (the intercept is free): keeps separable data finite;
+#: the same as a Gaussian prior of standard deviation 1/sqrt(2 RIDGE) = 2.2 on each.
+RIDGE = 0.1
 #: ln B is used through a signed logarithm, sign(x) log(1 + |x|): monotone, and the -1e4 stand-in values
 #: of an excluded alternative do not dominate the fit.
 LN_B_FEATURE = "signed_log_ln_b"
