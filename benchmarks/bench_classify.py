@@ -1,23 +1,45 @@
-"""Calibration and performance of ``tumble classify``: injection-recovery over simulated objects.
+"""Calibration and validation of ``tumble classify`` on the simulated library of issue 14.
 
-Run:  .venv/bin/python benchmarks/bench_classify.py [--n-seeds 2] [--quick] [--timing-only]
+Run (from the worktree; ``nice`` on shared machines)::
 
-Part 1 (calibration): PA, SAM and LAM objects x dense and sparse plans x three noise levels x three
-shape/scattering variants, for the default route (max-steps 0: the verdict and periods do not use the
-sampler) and for ``--screen``. Variants, so that the calibration is not tuned to one simulator:
+    nice .venv/bin/python benchmarks/bench_classify.py run --route evidence --workers 2 --limit 200
+    .venv/bin/python benchmarks/bench_classify.py report benchmarks/.cache/results-evidence.jsonl
+    .venv/bin/python benchmarks/bench_classify.py calibrate benchmarks/.cache/results-evidence.jsonl
+    .venv/bin/python benchmarks/bench_classify.py generate          # render and cache the whole library
+    .venv/bin/python benchmarks/bench_classify.py timing            # one-core wall time of the routes
 
-- ``ls``: triaxial ellipsoid, Lommel-Seeliger closed form (tumble.simulate);
-- ``lambert-hg``: ellipsoid with Lommel-Seeliger + 0.1 Lambert (quadrature) and an IAU H,G phase trend;
-- ``facets``: a non-ellipsoidal convex-ish facet shape (icosphere with random radial bumps), LS + 0.3
-  Lambert, brightness summed over facets (tumble.brightness.FacetShape), with a linear phase trend.
+Sub-commands
+------------
+``generate``
+    Draws the population (:mod:`library.population`, 630 objects by default: dense, sparse and
+    close-approach PA and NPA, slow PA rotators over short arcs, flat and pure-noise curves) and
+    renders every object into the cache (``benchmarks/.cache/library-<version>/``, git-ignored).
+``summary``
+    Counts and ranges of the rendered library per category (points, span, phase, amplitude/noise,
+    signature/noise, numerically integrated fraction, split).
+``run``
+    Runs one route (``--route screen|evidence|full``) on each object in a process pool
+    (``--workers``), objects in a fixed hashed order so that any ``--limit N`` first objects are a
+    random sample of all kinds; ``--split`` picks the calibration or held-out half. Every finished
+    object is appended at once to the JSON-lines table (one row: truth ``true.*``, data ``lc.*``,
+    everything the verdict exposes, the evidence's statistics as ``ev.*``), so an interrupted run
+    loses nothing and a rerun skips the objects already there. ``--timeout-s`` turns an object that
+    runs too long into an error row.
+``report``
+    Scores a table (:mod:`library.scoring`): false-NPA rate on PA per plan with its 95 % upper limit,
+    NPA recall by signature/noise, reliability table and figure of ``p_npa`` with the expected
+    calibration error, grade confusion, period accuracy, flat/noise and short-arc behaviour.
+``calibrate``
+    Fits the calibration map (:func:`library.calibration.fit_calibration`) on the calibration half of
+    a table, scores it on the held-out half and writes its coefficients as JSON.
+``timing``
+    Wall time per object of each route on a few objects of each plan, one core.
+``perf``
+    Wall time of the default classify (with sampling) on a dense 1000-point light curve, and the
+    sampler's overhead: ``sample_posterior`` against the bare model cost of the same number of walker
+    evaluations, measured side by side in one run.
 
-Printed: confusion matrix, false-NPA rate on PA, NPA recall where the NPA signature (rms residual of the
-best one-period fit to the noiseless curve) is >= 3x the noise, period accuracy of detected NPA, a
-reliability table of p_npa, and the same for the screen.
-
-Part 2 (performance): wall time of the default classify (with sampling) on a dense 1000-point light curve,
-and the sampler's overhead: time of ``sample_posterior`` against the bare model-evaluation cost of the same
-number of walker evaluations, measured side by side in the same run. Threads pinned to one.
+Results are scientific estimates for research use; the figures describe the simulated library.
 """
 
 from __future__ import annotations
@@ -25,220 +47,340 @@ from __future__ import annotations
 import os
 
 for _v in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ[_v] = "1"
+    os.environ.setdefault(_v, "1")
 
 import argparse  # noqa: E402
+import json  # noqa: E402
 import math  # noqa: E402
+import signal  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
 import warnings  # noqa: E402
+from dataclasses import dataclass  # noqa: E402
+from pathlib import Path  # noqa: E402
 
-import numpy as np  # noqa: E402
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from tumble.brightness import FacetShape, PhaseTrend, icosphere, lommel_seeliger_ellipsoid  # noqa: E402
-from tumble.classify import classify, screen  # noqa: E402
-from tumble.dynamics import RotationState, ecliptic_to_body, periods_unit_momentum  # noqa: E402
-from tumble.model import FourierBasis, FourierVariant, fit_linear, linear_log_evidence, prepare_linear  # noqa: E402
-from tumble.photometry import LightCurve  # noqa: E402
-from tumble.simulate import DenseCampaign, NoiseModel, SparseSurvey, simulate_lightcurve  # noqa: E402
+from library.population import GENERATOR_VERSION, generate_population, order_key, spec_from_dict  # noqa: E402
+from library.routes import ROUTES, decision_statistics, lightcurve_statistics  # noqa: E402
 
-warnings.simplefilter("ignore")
-
-
-def _inertia(axes):
-    a2, b2, c2 = np.asarray(axes, float) ** 2
-    return (b2 + c2) / (a2 + b2), (a2 + c2) / (a2 + b2)
-
-
-def draw_state(kind, rng):
-    ab = rng.uniform(1.25, 1.9)
-    bc = rng.uniform(1.05, 1.35)
-    axes = np.array([ab * bc, bc, 1.0])
-    lon, lat = rng.uniform(0, 360), math.degrees(math.asin(rng.uniform(-1, 1)))
-    if kind == "PA":
-        return RotationState.principal_axis(rng.uniform(3.0, 20.0), lon, lat, rng.uniform(0, 360)), axes
-    i1, i2 = _inertia(axes)
-    u = rng.uniform(0.25, 0.85)
-    idd = 1.0 - u * (1.0 - i2) if kind == "SAM" else i1 + u * (i2 - i1)
-    p_psi = rng.uniform(15.0, 50.0)
-    return RotationState.excited(i1, i2, idd, p_psi, lon, lat, rng.uniform(0, 360), rng.uniform(0, 360)), axes
+#: Local, git-ignored folder of the rendered library and the result tables.
+CACHE_DIR = Path(__file__).resolve().parent / ".cache"
+#: Master seed of the population.
+POPULATION_SEED = 20261204
+#: Default per-object time limit of a run, seconds (an object over it becomes an error row).
+DEFAULT_TIMEOUT_S = 900
+#: Objects per plan kind timed by the ``timing`` sub-command.
+TIMING_PER_PLAN = 3
 
 
-def bumpy_shape(axes, rng, amplitude=0.08):
-    verts, faces = icosphere(3)
-    # radial bumps from a few random low-order harmonics (x, y, z products)
-    x, y, z = verts.T
-    terms = [x * y, y * z, z * x, x * x - y * y, x, y, z]
-    r = 1.0 + amplitude * sum(rng.standard_normal() * t for t in terms) / math.sqrt(len(terms))
-    return FacetShape.from_mesh(verts * r[:, None] * axes, faces)
+def library_dir(cache: Path) -> Path:
+    """Folder of the rendered objects of this generator version."""
+    return cache / f"library-{GENERATOR_VERSION}-{POPULATION_SEED}"
 
 
-def make_plan(plan, start):
-    if plan == "dense":
-        return DenseCampaign(start, n_nights=10, hours_per_night=7.0, cadence_min=10.0, zero_point_sigma_mag=0.03)
-    return SparseSurvey(start, span_d=120.0, n_nights=70, points_per_night=3, visit_spacing_min=40.0)
+def load_population(cache: Path) -> list:
+    """The population, from its cached JSON or drawn (and cached)."""
+    from tumble._io import atomic_path
+
+    path = library_dir(cache) / "population.json"
+    if path.exists():
+        return [spec_from_dict(d) for d in json.loads(path.read_text())]
+    pop = generate_population(POPULATION_SEED)
+    with atomic_path(path) as tmp:
+        Path(tmp).write_text(json.dumps([s.to_dict() for s in pop]))
+    return pop
 
 
-def simulate(kind, plan, noise, variant, rng):
-    st, axes = draw_state(kind, rng)
-    start = 2460000.5 + rng.uniform(0, 300)
-    st = RotationState(*(list(st.kernel_arguments()[:-1]) + [start + 1.0]))
-    p = make_plan(plan, start)
-    law, trend = "lommel-seeliger", None
-    if variant == "lambert-hg":
-        law, trend = "ls-lambert", PhaseTrend("hg", g=0.15)
-    elif variant == "facets":
-        trend = PhaseTrend("linear", slope_mag_per_deg=0.03)
-    sim = simulate_lightcurve(st, axes, p, law=law, lambert_weight=0.1, trend=trend,
-                              noise=NoiseModel(noise), rng=rng)
-    lc = sim.lightcurve
-    model = np.asarray(sim.model_mag, float)
-    if variant == "facets":
-        shape = bumpy_shape(axes, rng)
-        v = np.stack([lc.sun_dir, lc.obs_dir])[:, None]
-        body = ecliptic_to_body(*st.kernel_arguments(), lc.t, v)[:, 0]
-        ell = lommel_seeliger_ellipsoid(body[0], body[1], axes)
-        fac = shape.brightness(body[0], body[1], lambert_weight=0.3)
-        delta = -2.5 * np.log10(fac / np.mean(fac)) + 2.5 * np.log10(ell / np.mean(ell))
-        model = model + delta
-        lc = LightCurve.from_arrays(lc.t, lc.mag + delta, lc.err, session=lc.session, band=lc.band,
-                                    r_au=lc.r_au, delta_au=lc.delta_au, phase_deg=lc.phase_deg,
-                                    sun_dir=lc.sun_dir, obs_dir=lc.obs_dir, light_time_corrected=True,
-                                    object_id=lc.object_id, time_scale="tdb")
-    return st, lc, model
+def select(pop: list, split: str, limit: int | None, plans=None) -> list:
+    """Objects of a split (and of the given plan kinds) in the hashed processing order, the first ``limit`` of them."""
+    chosen = [s for s in pop if (split == "all" or s.split == split) and (not plans or s.plan_kind in plans)]
+    chosen.sort(key=lambda s: order_key(s.object_id))
+    return chosen if limit is None else chosen[:limit]
 
 
-def npa_signature(lc, model_mag):
-    """rms residual of the best one-period fit (H = 6 with drift) to the noiseless curve, mag."""
-    clean = LightCurve.from_arrays(lc.t, model_mag, np.full(lc.n_points, 0.01), session=lc.session, band=lc.band,
-                                   r_au=lc.r_au, delta_au=lc.delta_au, phase_deg=lc.phase_deg,
-                                   light_time_corrected=True, time_scale="tdb")
-    data = prepare_linear(clean)
-    span = data.span_d
-    grid = np.arange(1.5 / span, 48.0, 1.0 / (3 * span * 4))
-    scan = FourierBasis.build([FourierVariant(4, False)])
-    lz = linear_log_evidence(data, scan, grid)[:, 0]
-    big = FourierBasis.build([FourierVariant(6, True)])
-    best = np.inf
-    for i in np.argsort(-lz)[:5]:
-        for f in np.linspace(grid[i] - 1.0 / (3 * span * 4), grid[i] + 1.0 / (3 * span * 4), 21):
-            fit = fit_linear(data, big, 0, f)
-            best = min(best, float(np.std(clean.reduced_mag - fit.model_mag)))
-    return best
+# ---------------------------------------------------------------------------
+# Workers
 
 
-def run_calibration(n_seeds, quick, workers=1):
-    kinds = ("PA", "SAM", "LAM")
-    plans = ("dense", "sparse")
-    noises = (0.005, 0.02, 0.05)
-    variants = ("ls", "lambert-hg", "facets")
-    rows = []
-    rng = np.random.default_rng(20261202)
-    jobs = [(k, p, s, v, seed) for seed in range(n_seeds) for k in kinds for p in plans for s in noises
-            for v in variants]
-    if quick:
-        jobs = jobs[::6]
-    # every object gets its own seed drawn up front, so the result does not depend on the worker count
-    seeds = rng.integers(0, 2**32, size=len(jobs))
-    t_all = time.perf_counter()
-    args = [(j, len(jobs), job, int(sd)) for j, (job, sd) in enumerate(zip(jobs, seeds))]
-    if workers > 1:
-        import multiprocessing as mp
+@dataclass(frozen=True)
+class Job:
+    """One object to run: its spec, the route, the cache folder and the time limit."""
 
-        with mp.get_context("fork").Pool(workers) as pool:
-            rows = list(pool.imap(_one, args))
+    spec: object
+    route: str
+    cache_dir: str
+    timeout_s: float
+
+
+class ObjectTimeout(Exception):
+    """An object ran past the per-object time limit."""
+
+
+def _alarm(signum, frame):
+    raise ObjectTimeout
+
+
+def run_job(job: Job) -> dict:
+    """Render (or load) one object and run the route on it; any failure becomes an error row."""
+    from library.render import load_or_render
+
+    warnings.simplefilter("ignore")
+    row = {"object_id": job.spec.object_id, "route": job.route, "status": "ok", "error": ""}
+    t0 = time.perf_counter()
+    obj = None
+    old = signal.signal(signal.SIGALRM, _alarm)
+    signal.alarm(int(math.ceil(job.timeout_s)))
+    try:
+        obj = load_or_render(job.spec, job.cache_dir)
+        t1 = time.perf_counter()
+        result = ROUTES[job.route].run(obj.lightcurve, job.spec.seed)
+        row["route_runtime_s"] = time.perf_counter() - t1
+        row.update(decision_statistics(result))
+    except ObjectTimeout:
+        row.update(status="timeout", error=f"over {job.timeout_s:g} s")
+    except Exception as exc:  # a failure is a result of the benchmark too
+        row.update(status="error", error=f"{type(exc).__name__}: {exc}"[:300])
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, old)
+    row["wall_s"] = time.perf_counter() - t0
+    if obj is not None:
+        row.update({f"true.{k}": v for k, v in obj.truth.to_dict().items()})
+        row.update(lightcurve_statistics(obj.lightcurve))
     else:
-        rows = [_one(a) for a in args]
-    print(f"calibration wall time {time.perf_counter() - t_all:.0f} s ({workers} worker processes)")
+        row.update({"true.category": job.spec.category, "true.split": job.spec.split,
+                    "true.truth_class": job.spec.truth_class, "true.plan_kind": job.spec.plan_kind})
+    return row
+
+
+def render_job(job: Job) -> str:
+    """Render (or find) one object in the cache; returns a one-line status."""
+    from library.render import load_or_render
+
+    warnings.simplefilter("ignore")
+    t0 = time.perf_counter()
+    try:
+        load_or_render(job.spec, job.cache_dir)
+        return f"{job.spec.object_id} {time.perf_counter() - t0:.1f} s"
+    except Exception as exc:
+        return f"{job.spec.object_id} FAILED {type(exc).__name__}: {exc}"
+
+
+# ---------------------------------------------------------------------------
+# The table (JSON lines, appended per object)
+
+
+def read_table(path: Path) -> list:
+    """Rows of a JSON-lines table; an unreadable (half-written) last line is ignored."""
+    rows = []
+    if not path.exists():
+        return rows
+    with open(path, encoding="utf-8") as fh:
+        for line in fh:
+            line = line.strip()
+            if not line:
+                continue
+            try:
+                rows.append(json.loads(line))
+            except json.JSONDecodeError:
+                continue
     return rows
 
 
-def _one(arg):
-    j, n_jobs, (kind, plan, noise, variant, seed), obj_seed = arg
-    rng = np.random.default_rng(obj_seed)
-    if True:
-        st, lc, model = simulate(kind, plan, noise, variant, rng)
-        sig = npa_signature(lc, model) if kind != "PA" else 0.0
-        t0 = time.perf_counter()
-        try:
-            # dense: full route (physical fit optimised, not sampled); sparse: the verdict alone (the
-            # physical fit of sparse data is too slow for a 100-object study and is not scored)
-            v, ev, fit = classify(lc, rng=seed, max_steps=0, fit_state=(plan == "dense"))
-            rot, mode, p_npa, ppsi, pphi = v.rotation, v.mode, v.p_npa, v.p_psi_h, v.p_phi_h
-        except Exception as exc:  # a failure is a result too
-            rot, mode, p_npa, ppsi, pphi = f"error:{type(exc).__name__}", "none", math.nan, math.nan, math.nan
-        t1 = time.perf_counter()
-        try:
-            s = screen(lc)
-            srot, sp = s.rotation, s.p_npa
-        except Exception as exc:
-            srot, sp = f"error:{type(exc).__name__}", math.nan
-        t2 = time.perf_counter()
-        row = dict(kind=kind, plan=plan, noise=noise, variant=variant, signature=sig, rotation=rot,
-                   mode=mode, p_npa=p_npa, p_psi=ppsi, p_phi=pphi, true_psi=st.p_psi_h, true_phi=st.p_phi_h,
-                   screen=srot, screen_p=sp, t_classify=t1 - t0, t_screen=t2 - t1, n=lc.n_points)
-        print(f"[{j + 1}/{n_jobs}] {kind:3s} {plan:6s} {noise:.3f} {variant:10s} n={lc.n_points:4d} "
-              f"sig={sig:.3f} -> {rot:9s} {mode:4s} p={p_npa:.3g} Ppsi={ppsi:.4g}/{st.p_psi_h:.4g} "
-              f"Pphi={pphi:.4g}/{st.p_phi_h:.4g} | screen {srot} | {t1 - t0:.1f}s {t2 - t1:.1f}s", flush=True)
-        return row
+def append_row(fh, row: dict) -> None:
+    """Append one row and make it durable (a crash after this loses nothing)."""
+    fh.write(json.dumps(row, allow_nan=True) + "\n")
+    fh.flush()
+    os.fsync(fh.fileno())
 
 
-def report(rows, key="rotation", pkey="p_npa", title="default classify"):
-    print(f"\n=== {title} ===")
-    labels = ("PA", "NPA", "undecided", "error")
+def _pool_map(func, jobs, workers):
+    if workers <= 1:
+        for j in jobs:
+            yield func(j)
+        return
+    import multiprocessing as mp
 
-    def lab(x):
-        return x if x in labels[:3] else "error"
-
-    print("confusion matrix (rows: truth; columns: verdict)")
-    print(f"{'':6s}" + "".join(f"{c:>11s}" for c in labels))
-    for truth in ("PA", "SAM", "LAM"):
-        sub = [r for r in rows if r["kind"] == truth]
-        counts = [sum(lab(r[key]) == c for r in sub) for c in labels]
-        print(f"{truth:6s}" + "".join(f"{c:11d}" for c in counts))
-    for plan in ("dense", "sparse"):
-        pa = [r for r in rows if r["kind"] == "PA" and r["plan"] == plan]
-        fn = sum(r[key] == "NPA" for r in pa)
-        print(f"false-NPA rate on PA ({plan}): {fn}/{len(pa)} = {fn / max(1, len(pa)):.3f}")
-    pa = [r for r in rows if r["kind"] == "PA"]
-    fn = sum(r[key] == "NPA" for r in pa)
-    print(f"false-NPA rate on PA (all): {fn}/{len(pa)} = {fn / max(1, len(pa)):.3f}  (target <= 0.02)")
-    strong = [r for r in rows if r["kind"] != "PA" and r["signature"] >= 3 * r["noise"]]
-    rec = sum(r[key] == "NPA" for r in strong)
-    print(f"NPA recall, signature >= 3x noise: {rec}/{len(strong)} = {rec / max(1, len(strong)):.3f}  (target >= 0.90)")
-    for plan in ("dense", "sparse"):
-        s = [r for r in strong if r["plan"] == plan]
-        rr = sum(r[key] == "NPA" for r in s)
-        print(f"   {plan}: {rr}/{len(s)}")
-    for var in ("ls", "lambert-hg", "facets"):
-        s = [r for r in strong if r["variant"] == var]
-        rr = sum(r[key] == "NPA" for r in s)
-        p = [r for r in pa if r["variant"] == var]
-        print(f"   variant {var:10s}: recall {rr}/{len(s)}, false NPA {sum(r[key] == 'NPA' for r in p)}/{len(p)}")
-    if key == "rotation":
-        det = [r for r in rows if r["kind"] != "PA" and r[key] == "NPA" and r["plan"] == "dense"]
-        good = [r for r in det if np.isfinite(r["p_psi"]) and abs(r["p_psi"] / r["true_psi"] - 1) < 0.02
-                and abs(r["p_phi"] / r["true_phi"] - 1) < 0.02]
-        mode_ok = sum(r["mode"] == r["kind"] for r in det)
-        print(f"detected NPA (dense) with P_psi and P_phi within 2%: {len(good)}/{len(det)} = "
-              f"{len(good) / max(1, len(det)):.3f}  (target >= 0.90)")
-        print(f"detected NPA (dense) with the right mode: {mode_ok}/{len(det)}")
-    print(f"reliability of {pkey} (predicted vs observed NPA fraction, objects with a finite value)")
-    edges = np.array([0, 0.01, 0.1, 0.5, 0.9, 0.99, 1.0 + 1e-12])
-    print(f"{'bin':>14s} {'n':>4s} {'mean p':>8s} {'obs NPA':>8s}")
-    for lo, hi in zip(edges[:-1], edges[1:]):
-        s = [r for r in rows if np.isfinite(r[pkey]) and lo <= r[pkey] < hi]
-        if s:
-            print(f"[{lo:.2f}, {min(hi, 1):.2f}) {len(s):4d} {np.mean([r[pkey] for r in s]):8.3f} "
-                  f"{np.mean([r['kind'] != 'PA' for r in s]):8.3f}")
-    tk = "t_classify" if key == "rotation" else "t_screen"
-    print(f"median wall time per object: {np.median([r[tk] for r in rows]):.2f} s")
+    with mp.get_context("fork").Pool(workers, maxtasksperchild=50) as pool:
+        yield from pool.imap_unordered(func, jobs)
 
 
-def run_timing():
-    from tumble.classify import fourier_evidence, fit_rotation_state
+def _short(row) -> str:
+    t = row.get("true.truth_class", "?")
+    cat = row.get("true.category", "?")
+    if row["status"] != "ok":
+        return f"{row['object_id']:30s} {cat:18s} {t:4s} -> {row['status']}: {row['error'][:80]}"
+    return (f"{row['object_id']:30s} {cat:18s} {t:4s} sig/noise={row.get('true.signature_over_noise', math.nan):6.2f}"
+            f" -> {row.get('rotation', '?'):9s} {row.get('grade', ''):9s} lnB={row.get('ln_bayes_factor', math.nan):9.2f}"
+            f" p={row.get('p_npa', math.nan):.3g} ({row['wall_s']:.1f} s)")
+
+
+def cmd_run(args) -> int:
+    cache = Path(args.cache)
+    pop = load_population(cache)
+    jobs_specs = select(pop, args.split, args.limit, args.plan)
+    out = Path(args.out) if args.out else cache / f"results-{args.route}.jsonl"
+    done = {r["object_id"] for r in read_table(out) if r.get("route") == args.route}
+    todo = [s for s in jobs_specs if s.object_id not in done]
+    print(f"route {args.route}: {len(jobs_specs)} objects selected ({args.split}), {len(jobs_specs) - len(todo)} "
+          f"already in {out}, {len(todo)} to run on {args.workers} worker(s)", flush=True)
+    jobs = [Job(s, args.route, str(library_dir(cache)), args.timeout_s) for s in todo]
+    out.parent.mkdir(parents=True, exist_ok=True)
+    t0 = time.perf_counter()
+    with open(out, "a", encoding="utf-8") as fh:
+        for k, row in enumerate(_pool_map(run_job, jobs, args.workers), 1):
+            append_row(fh, row)
+            el = time.perf_counter() - t0
+            print(f"[{k}/{len(jobs)} {el:6.0f} s] {_short(row)}", flush=True)
+    print(f"wrote {out} ({time.perf_counter() - t0:.0f} s wall)")
+    return 0
+
+
+def cmd_generate(args) -> int:
+    cache = Path(args.cache)
+    pop = select(load_population(cache), args.split, args.limit, args.plan)
+    jobs = [Job(s, "", str(library_dir(cache)), args.timeout_s) for s in pop]
+    t0 = time.perf_counter()
+    for k, msg in enumerate(_pool_map(render_job, jobs, args.workers), 1):
+        print(f"[{k}/{len(jobs)} {time.perf_counter() - t0:5.0f} s] {msg}", flush=True)
+    print(library_summary(cache))
+    return 0
+
+
+def library_summary(cache: Path) -> str:
+    """Counts and ranges of the rendered library (from the cached truth records)."""
+    import numpy as np
+
+    pop = load_population(cache)
+    truths = []
+    for s in pop:
+        js = library_dir(cache) / f"{s.object_id}.json"
+        if js.exists():
+            truths.append(json.loads(js.read_text())["truth"])
+    lines = [f"library {library_dir(cache).name}: {len(pop)} objects drawn, {len(truths)} rendered"]
+    if not truths:
+        return lines[0]
+
+    def col(name, sub):
+        return np.array([t[name] for t in sub], float)
+
+    warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN medians of the flat curves print as nan
+
+    by = {}
+    for t in truths:
+        by.setdefault(t["category"], []).append(t)
+    lines.append(f"{'category':20s} {'n':>4s} {'calib':>5s} {'numeric':>7s} {'points':>11s} {'span d':>13s} "
+                 f"{'phase deg':>11s} {'amp/noise med':>13s} {'sig/noise med':>13s}")
+    for cat, sub in sorted(by.items()):
+        n_cal = sum(t["split"] == "calibration" for t in sub)
+        num = sum(t["attitude"] == "numeric" for t in sub)
+        pts, span = col("n_points", sub), col("span_d", sub)
+        lines.append(f"{cat:20s} {len(sub):4d} {n_cal:5d} {num:7d} {pts.min():5.0f}-{pts.max():<5.0f} "
+                     f"{span.min():6.1f}-{span.max():<6.1f} {col('phase_min_deg', sub).min():5.1f}-"
+                     f"{col('phase_max_deg', sub).max():<5.1f} {np.nanmedian(col('amplitude_over_noise', sub)):13.2f} "
+                     f"{np.nanmedian(col('signature_over_noise', sub)):13.2f}")
+    pa = [t for t in truths if t["truth_class"] == "PA"]
+    npa = [t for t in truths if t["truth_class"] == "NPA"]
+    num = sum(t["attitude"] == "numeric" for t in truths)
+    lines.append(f"PA {len(pa)}, NPA {len(npa)}, none {len(truths) - len(pa) - len(npa)}; numerically integrated "
+                 f"attitude with facet brightness {num} ({num / len(truths):.0%}); calibration half "
+                 f"{sum(t['split'] == 'calibration' for t in truths)}, held-out {sum(t['split'] == 'heldout' for t in truths)}")
+    if npa:
+        s2n = col("signature_over_noise", npa)
+        edges = (0, 0.5, 1, 3, 10, np.inf)
+        lines.append("NPA signature/noise: " + ", ".join(
+            f"[{lo:g}, {hi:g}) {int(np.sum((s2n >= lo) & (s2n < hi)))}" for lo, hi in zip(edges[:-1], edges[1:])))
+        lines.append(f"NPA P_psi {col('p_psi_h', npa).min():.1f}-{col('p_psi_h', npa).max():.1f} h, P_phi "
+                     f"{col('p_phi_h', npa).min():.1f}-{col('p_phi_h', npa).max():.1f} h; E/E0 "
+                     f"{np.nanmin(col('excitation_e_over_e0', npa)):.4f}-{np.nanmax(col('excitation_e_over_e0', npa)):.2f}; "
+                     f"SAM {sum(t['mode'] == 'SAM' for t in npa)}, LAM {sum(t['mode'] == 'LAM' for t in npa)}")
+    if pa:
+        lines.append(f"PA periods {col('p_psi_h', pa).min():.2f}-{col('p_psi_h', pa).max():.1f} h; close-approach "
+                     f"minimum distance {min(t['delta_min_au'] for t in truths if t['plan_kind'] == 'close'):.3f}-"
+                     f"{max(t['delta_min_au'] for t in truths if t['plan_kind'] == 'close'):.3f} au")
+    return "\n".join(lines)
+
+
+def cmd_summary(args) -> int:
+    print(library_summary(Path(args.cache)))
+    return 0
+
+
+def cmd_report(args) -> int:
+    from library import scoring
+
+    rows = read_table(Path(args.table))
+    if not rows:
+        print(f"{args.table}: no rows", file=sys.stderr)
+        return 2
+    fig = Path(args.figure) if args.figure else Path(args.table).with_suffix(".reliability.png")
+    print(scoring.report_text(rows, split=args.split, figure_path=fig))
+    return 0
+
+
+def cmd_calibrate(args) -> int:
+    from library import calibration
+
+    rows = read_table(Path(args.table))
+    if not rows:
+        print(f"{args.table}: no rows", file=sys.stderr)
+        return 2
+    model, text = calibration.fit_and_evaluate(rows)
+    print(text)
+    import subprocess
+
+    try:
+        commit = subprocess.run(["git", "-C", str(Path(__file__).resolve().parent), "rev-parse", "--short", "HEAD"],
+                                capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        commit = "unknown"
+    extra = {"library": f"{GENERATOR_VERSION}-{POPULATION_SEED}", "table": Path(args.table).name,
+             "code_commit": commit, "fitted_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+             "note": "P(NPA) calibrated on simulated objects (benchmarks/bench_classify.py); a scientific "
+                     "estimate for research use, valid for the route it was fitted on"}
+    calibration.save_calibration(model, Path(args.out), extra)
+    print(f"wrote {args.out}")
+    return 0
+
+
+def cmd_timing(args) -> int:
+    from library.render import load_or_render
+
+    cache = Path(args.cache)
+    pop = select(load_population(cache), "all", None)
+    by_plan = {}
+    for s in pop:
+        if s.truth_class != "none" and len(by_plan.setdefault(s.plan_kind, [])) < TIMING_PER_PLAN:
+            by_plan[s.plan_kind].append(s)
+    warnings.simplefilter("ignore")
+    print(f"{'plan':8s} {'object':30s} {'n':>5s} " + " ".join(f"{r:>10s}" for r in args.routes))
+    for plan, specs in by_plan.items():
+        for s in specs:
+            obj = load_or_render(s, library_dir(cache))
+            times = []
+            for r in args.routes:
+                t0 = time.perf_counter()
+                ROUTES[r].run(obj.lightcurve, s.seed)
+                times.append(time.perf_counter() - t0)
+            print(f"{plan:8s} {s.object_id:30s} {obj.lightcurve.n_points:5d} " + " ".join(f"{t:9.1f}s" for t in times),
+                  flush=True)
+    return 0
+
+
+# ---------------------------------------------------------------------------
+# Performance of the default route and of the sampler (kept from the earlier benchmark)
+
+
+def run_performance():
+    """Wall time of the default classify on a dense 1000-point curve; the sampler's overhead beside the bare model."""
+    import numpy as np
+
+    from tumble.classify import classify, fourier_evidence
+    from tumble.dynamics import RotationState
     from tumble.inference import sample_posterior
     from tumble.model import PhysicalModel
+    from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve
 
     print("\n=== performance (one core) ===")
     rng = np.random.default_rng(5)
@@ -298,19 +440,52 @@ def run_timing():
           f"{t_m / max(t_b, 1e-9):.2f}x that)")
 
 
-def main(argv=None):
-    ap = argparse.ArgumentParser()
-    ap.add_argument("--n-seeds", type=int, default=2)
-    ap.add_argument("--quick", action="store_true")
-    ap.add_argument("--timing-only", action="store_true")
-    ap.add_argument("--workers", type=int, default=1, help="worker processes for the calibration (timing: one)")
-    args = ap.parse_args(argv)
-    if not args.timing_only:
-        rows = run_calibration(args.n_seeds, args.quick, args.workers)
-        report(rows)
-        report(rows, key="screen", pkey="screen_p", title="--screen")
-    run_timing()
+def cmd_perf(args) -> int:
+    warnings.simplefilter("ignore")
+    run_performance()
     return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    sub = ap.add_subparsers(dest="command", required=True)
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--cache", default=str(CACHE_DIR), help="cache folder (rendered library, tables)")
+    common.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
+    common.add_argument("--limit", type=int, default=None, help="first N objects of the hashed order")
+    common.add_argument("--split", choices=("calibration", "heldout", "all"), default="all")
+    common.add_argument("--plan", nargs="+", choices=("dense", "sparse", "close"), default=None,
+                        help="only objects of these plan kinds (default all)")
+    common.add_argument("--timeout-s", type=float, default=DEFAULT_TIMEOUT_S, help="per-object time limit, s")
+    p = sub.add_parser("run", parents=[common], help="run a route on the library")
+    p.add_argument("--route", choices=sorted(ROUTES), default="evidence")
+    p.add_argument("--out", default=None, help="JSON-lines table (default <cache>/results-<route>.jsonl)")
+    p.add_argument("--quick", action="store_true", help="the first 40 objects only")
+    sub.add_parser("generate", parents=[common], help="render the library into the cache")
+    sub.add_parser("summary", parents=[common], help="counts and ranges of the rendered library")
+    p = sub.add_parser("report", help="score a results table")
+    p.add_argument("table")
+    p.add_argument("--split", choices=("calibration", "heldout", "all"), default="all")
+    p.add_argument("--figure", default=None, help="reliability diagram PNG (default beside the table)")
+    p = sub.add_parser("calibrate", help="fit the calibration map on a results table")
+    p.add_argument("table")
+    p.add_argument("--out", default=str(CACHE_DIR / "calibration.json"), help="JSON of the fitted map")
+    p = sub.add_parser("timing", parents=[common], help="wall time per object of the routes, one core")
+    p.add_argument("--routes", nargs="+", choices=sorted(ROUTES), default=["screen", "evidence"])
+    sub.add_parser("perf", help="wall time of the default classify and the sampler's overhead, one core")
+    return ap
+
+
+#: Sub-command drivers by name.
+COMMANDS = {"run": cmd_run, "generate": cmd_generate, "summary": cmd_summary, "report": cmd_report, "calibrate": cmd_calibrate,
+            "timing": cmd_timing, "perf": cmd_perf}
+
+
+def main(argv=None) -> int:
+    args = build_parser().parse_args(argv)
+    if getattr(args, "quick", False) and args.limit is None:
+        args.limit = 40
+    return COMMANDS[args.command](args)
 
 
 if __name__ == "__main__":
