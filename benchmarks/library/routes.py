@@ -29,7 +29,8 @@ def run_evidence(lc, seed):
     """The frequency-integrated evidence and the decision rules, no physical fit."""
     from tumble.classify import classify
 
-    return classify(lc, rng=seed, fit_state=False)
+    # the detection limit is not a decision statistic: skipped here to halve the cost per object
+    return classify(lc, rng=seed, fit_state=False, detection_limit=False)
 
 
 def run_full(lc, seed):
@@ -115,6 +116,10 @@ def decision_statistics(result) -> dict:
       parts with their names as prefixes;
     - anything else with ``to_dict()`` or dataclass fields: its keys.
     """
+    if hasattr(result, "verdict") and hasattr(result, "evidence"):  # tumble.classify.Classification
+        out = flatten(_as_dict(result.verdict))
+        out.update(flatten(_as_dict(result.evidence), "ev."))
+        return out
     if isinstance(result, tuple):
         out = flatten(_as_dict(result[0]))
         if len(result) > 1 and result[1] is not None:
