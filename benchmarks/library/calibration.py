@@ -56,34 +56,43 @@ def signed_log(x: float) -> float:
     return math.copysign(math.log1p(abs(x)), x) if not math.isnan(x) else math.nan
 
 
+def _package_features(row) -> np.ndarray:
+    """The package's own definition of the map's inputs (tumble.classify.calibration), from a results row."""
+    from tumble.classify.calibration import calibration_features
+
+    f1 = _num(row.get("ev.f1_per_d"))
+    n = _num(row.get("lc.n_points", scoring.get(row, "n_points")))
+    return calibration_features(
+        ln_b=float(np.clip(_num(scoring.get(row, "ln_b")), -LN_B_CLIP, LN_B_CLIP)),
+        n_points=int(n) if math.isfinite(n) else 0,
+        span_d=_num(row.get("lc.span_d", row.get("span_d"))), p1_h=24.0 / f1 if f1 > 0 else math.nan,
+        amplitude_mag=_num(scoring.get(row, "amplitude_mag")), median_err_mag=_num(row.get("lc.median_err_mag")),
+        sparse_fraction=_num(row.get("lc.sparse_fraction")))
+
+
 def feat_ln_b(row) -> float:
     """sign(ln B) log(1 + |ln B|), ln B (NPA:PA) in nats clipped to +-1e4 (-inf: no NPA model admissible)."""
-    return signed_log(float(np.clip(_num(scoring.get(row, "ln_b")), -LN_B_CLIP, LN_B_CLIP)))
+    return float(_package_features(row)[0])
 
 
 def feat_log_n(row) -> float:
     """log10 of the number of points."""
-    n = _num(row.get("lc.n_points", scoring.get(row, "n_points")))
-    return math.log10(n) if n > 0 else math.nan
+    return float(_package_features(row)[1])
 
 
 def feat_log_span_over_period(row) -> float:
-    """log10(span / strongest light-curve period found (p1_h)); missing when no period was found."""
-    p = _num(scoring.get(row, "p1_h"))
-    span_h = 24.0 * _num(row.get("lc.span_d", row.get("span_d")))
-    return math.log10(span_h / p) if p > 0 and span_h > 0 else math.nan
+    """log10(span / the evidence's strongest light-curve period 24/f1)."""
+    return float(_package_features(row)[2])
 
 
 def feat_log_amplitude_over_noise(row) -> float:
     """log10(amplitude of the one-period fit / median quoted error)."""
-    a = _num(scoring.get(row, "amplitude_mag"))
-    e = _num(row.get("lc.median_err_mag"))
-    return math.log10(a / e) if a > 0 and e > 0 else math.nan
+    return float(_package_features(row)[3])
 
 
 def feat_sparse(row) -> float:
     """Fraction of sparse points (no session zero point)."""
-    return _num(row.get("lc.sparse_fraction"))
+    return float(_package_features(row)[4])
 
 
 @dataclass(frozen=True)

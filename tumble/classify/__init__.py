@@ -119,6 +119,16 @@ def _check_periods(lc, ev: EvidenceResult, problem: EvidenceProblem, favour: str
                         sparse=sparse, f2_per_d=ev.f2_per_d, longest_h=max(p1, p2))
 
 
+def _features(lc, ev: EvidenceResult) -> np.ndarray:
+    """The calibration map's inputs for this light curve and evidence."""
+    from tumble.classify.calibration import calibration_features
+
+    return calibration_features(ln_b=ev.ln_bayes_factor, n_points=lc.n_points, span_d=lc.span_d,
+                                p1_h=24.0 / ev.f1_per_d if ev.f1_per_d > 0 else math.nan,
+                                amplitude_mag=ev.amplitude_mag, median_err_mag=float(np.median(lc.err)),
+                                sparse_fraction=float(np.mean(np.asarray(lc.session) < 0)))
+
+
 def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: int | None = None,
              max_steps: int = 1500, fit_state: bool = True, student_t: bool = False, p_min_h: float = 0.5,
              p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True) -> Classification:
@@ -182,6 +192,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     verdict = decide(ev, span_d=lc.span_d, prior_npa=prior_npa, fit=fit, object_id=lc.object_id,
                      n_points=lc.n_points, n_sessions=lc.n_sessions, extra_warnings=extra, sparse=sparse,
                      period_check=period_check, adequacy=adequacy, route_name="full" if fit_state else "evidence",
-                     npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry)
+                     npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
+                     calibration_features=_features(lc, ev))
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))
     return Classification(verdict, ev, fit, period_check, adequacy, limit)

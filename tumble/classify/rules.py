@@ -104,6 +104,13 @@ def rule_significant_period(d: DecisionInputs) -> list:
     return []
 
 
+def rule_calibration_agrees(d: DecisionInputs) -> list:
+    """ln B favours PA but the calibrated probability of NPA exceeds one half: no verdict."""
+    if d.favour == "PA" and np.isfinite(d.p_npa) and d.p_npa > th.MIN_P_NPA_FOR_NPA:
+        return _undecided(f"ln B favours PA but the calibrated probability of NPA is {d.p_npa:.2f}")
+    return []
+
+
 def rule_weak_evidence(d: DecisionInputs) -> list:
     ln_b = d.evidence.ln_bayes_factor
     if np.isfinite(ln_b) and abs(2 * ln_b) < th.UNDECIDED_2LNB:
@@ -230,6 +237,7 @@ def rule_geometry_aware_pa(d: DecisionInputs) -> list:
 
 #: The rules, in the order they are applied (all run; every finding is reported).
 RULES = (rule_evidence_defined, rule_npa_testable, rule_significant_period, rule_weak_evidence, rule_npa_probability,
+         rule_calibration_agrees,
          rule_window_disagreement, rule_window_mass, rule_quadrature_error, rule_daily_alias,
          rule_sparse_modulated_alias, rule_coverage, rule_geometry_aware_pa, rule_state_posterior, rule_mode_margin,
          rule_adequacy)
@@ -287,13 +295,21 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     Every rule of :data:`RULES` runs; an ``undecided`` finding withholds the verdict (grade
     ``none``, no mode), a ``cap`` finding caps the grade at ``tentative`` and says why. The grade
     before caps is kept as ``grade_uncapped`` so that the report can state both.
+
+    With ``calibration_features`` (:func:`tumble.classify.calibration.calibration_features`) and the
+    shipped calibration map, ``p_npa`` is the calibrated probability at ``prior_npa`` and the grade
+    comes from it; otherwise ``p_npa`` is Bayes' rule on ``ln B`` and the grade from ``2 |ln B|``.
     """
+    from tumble.classify.calibration import calibrated_p_npa, grade_from_probability, load_calibration
     from tumble.inference import posterior_probability
 
     ev = evidence
     ln_b = ev.ln_bayes_factor
     testable = bool(ev.npa_testable) and np.isfinite(ln_b)
-    p_npa = float(posterior_probability(np.clip(ln_b, -700, 700), prior_npa)) if testable else math.nan
+    p_model = float(posterior_probability(np.clip(ln_b, -700, 700), prior_npa)) if testable else math.nan
+    cmap = load_calibration() if calibration_features is not None else None
+    calibrated = bool(testable and cmap is not None)
+    p_npa = calibrated_p_npa(cmap, calibration_features, prior_npa) if calibrated else p_model
     favour = "NPA" if testable and ln_b > 0 else "PA"
     values = _pa_periods(ev) if favour == "PA" else _npa_periods(ev, fit)
     claimed = [values.get(k, math.nan) for k in ("period_h", "p1_h", "p2_h", "p_psi_h", "p_phi_h")]
@@ -304,7 +320,12 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     findings = [f for rule in RULES for f in rule(inputs)]
     warn = list(extra_warnings) + [f.reason for f in findings]
     undecided = any(f.effect == "undecided" for f in findings)
-    uncapped = grade_from_ln_b(ln_b) if testable else "none"
+    if not testable:
+        uncapped = "none"
+    elif calibrated:
+        uncapped = grade_from_probability(p_npa if favour == "NPA" else 1.0 - p_npa)
+    else:
+        uncapped = grade_from_ln_b(ln_b)
     caps = [f.reason for f in findings if f.effect == "cap"]
     grade, grade_reason = uncapped, ""
     if caps and th.GRADE_NAMES.index(uncapped) > th.GRADE_NAMES.index("tentative"):
@@ -337,7 +358,8 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     pc = period_check
     ad = adequacy
     return Verdict(
-        object_id=object_id, rotation=rotation, mode=mode, p_npa=p_npa, ln_bayes_factor=float(ln_b),
+        object_id=object_id, rotation=rotation, mode=mode, p_npa=p_npa, p_npa_model=p_model, calibrated=calibrated,
+        ln_bayes_factor=float(ln_b),
         ln_bayes_factor_err=float(ev.ln_bayes_factor_err), grade=grade, prior_npa=float(prior_npa),
         grade_uncapped=uncapped, grade_reason=grade_reason, amplitude_mag=float(ev.amplitude_mag),
         period_fap=float(pc.fap) if pc is not None else math.nan,

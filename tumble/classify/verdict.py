@@ -45,9 +45,13 @@ class Verdict:
         NPA mode; ``unknown`` when SAM and LAM fit equally well or no physical fit was made;
         empty unless the rotation is NPA.
     p_npa : float
-        Posterior probability of NPA rotation from ``ln_bayes_factor`` and ``prior_npa`` (NaN when
-        NPA could not be tested). A model probability of the shape-free families: see
-        ``docs/validation-classify.md`` for how well it is calibrated.
+        Probability of NPA rotation at ``prior_npa`` (NaN when NPA could not be tested): calibrated on
+        the simulated library when ``calibrated`` (``tumble.classify.calibration``), else Bayes' rule on
+        ``ln_bayes_factor``. See ``docs/validation-classify.md`` for how well it is calibrated.
+    p_npa_model : float
+        Bayes' rule on ``ln_bayes_factor`` and ``prior_npa`` (the shape-free models' own probability).
+    calibrated : bool
+        ``p_npa`` and the grade come from the calibration map.
     ln_bayes_factor, ln_bayes_factor_err : float
         ln B (NPA:PA) and its estimated error, nats.
     grade : {'none', 'tentative', 'sound', 'firm'}
@@ -117,6 +121,8 @@ class Verdict:
     ln_bayes_factor_err: float
     grade: str
     prior_npa: float
+    p_npa_model: float = math.nan
+    calibrated: bool = False
     grade_uncapped: str = "none"
     grade_reason: str = ""
     period_h: float = math.nan
@@ -216,8 +222,20 @@ def grade_sentence(v: dict) -> str:
     two = abs(2.0 * float(ln_b))
     favoured = "NPA" if float(ln_b) > 0 else "PA"
     level = GRADE_NAMES.index(uncapped) if uncapped in GRADE_NAMES else 0
-    evidence = (f"2|ln B| = {two:.1f} favours {favoured} and lies {_band_text(level)}, "
-                f"which alone would be graded '{uncapped}' (Kass & Raftery 1995 bands)")
+    p_npa = v.get("p_npa")
+    if v.get("calibrated") and p_npa is not None and np.isfinite(float(p_npa)):
+        from tumble.classify.calibration import GRADE_PROBABILITIES
+
+        p_fav = float(p_npa) if favoured == "NPA" else 1.0 - float(p_npa)
+        edges = (0.0,) + tuple(GRADE_PROBABILITIES)
+        band = (f"at least {edges[-1]:.3f}" if level >= len(edges) - 1
+                else f"between {edges[level]:.3f} and {edges[level + 1]:.3f}")
+        evidence = (f"2 ln B = {2.0 * float(ln_b):.1f} favours {favoured}, and the calibrated probability of "
+                    f"{favoured}, {format_probability(p_fav)}, lies {band}, which alone would be graded "
+                    f"'{uncapped}' (Kass & Raftery 1995 bands as probabilities at even odds)")
+    else:
+        evidence = (f"2|ln B| = {two:.1f} favours {favoured} and lies {_band_text(level)}, "
+                    f"which alone would be graded '{uncapped}' (Kass & Raftery 1995 bands)")
     if rotation == "undecided":
         return f"Undecided, so no grade: {evidence}, but " + (reason or "a decision rule withheld the verdict") + "."
     if grade == uncapped:
