@@ -37,7 +37,7 @@ from tumble.display import (DAMPING_DIGITS, format_interval, format_period_h, fo
 from tumble.exceptions import TumbleError
 from tumble.schema import FIELD_BY_NAME, REPORT_FIELDS, display, normalise
 
-__all__ = ["ReportError", "CAUTIONS", "GRADE_WORDS", "grade_in_words", "object_figures", "write_object_report",
+__all__ = ["ReportError", "CAUTIONS", "GRADE_WORDS", "grade_in_words", "object_figures", "object_tables", "write_object_report",
            "write_survey_report", "write_report", "page_name"]
 
 
@@ -323,9 +323,11 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
 
         p1 = _f(verdict.get("p1_h"))
         chosen = p1 if math.isfinite(p1) else None
-        draw("scan", "1-D period scan: reduced chi-square of the multi-harmonic Fourier fit (per-session "
-             "zero-points) against trial period; the red line is the reported light-curve period P1, dashed "
-             "lines the other ranked minima with their alias relation to the best one.",
+        draw("scan", "1-D period scan: Delta chi-square of the multi-harmonic Fourier fit (per-session zero-points) "
+             "from the deepest minimum, in units of its reduced chi-square, against trial period (the same "
+             "convention as tumble scan --plot); the red line is the reported light-curve period P1, a "
+             "dash-dotted line the deepest minimum when it differs, dashed lines the other ranked minima "
+             "with their alias relation.",
              lambda p: plots.plot_scan(fourier_scan(lc), chosen_period_h=chosen, path=p))
         model = None
         try:
@@ -335,8 +337,11 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
         p2 = _f(verdict.get("p2_h"))
         if two_d and math.isfinite(p1) and math.isfinite(p2):
             draw("map2d", "Two-period scan: Delta chi-square of the two-period Fourier series (Pravec et al. "
-                 "2005) over a (P1, P2) grid around the reported pair (+ marks the best grid pair).",
-                 lambda p: plots.plot_two_period_map(plots.two_period_zoom(lc, p1, p2), path=p))
+                 "2005) over a (P1, P2) grid around the reported pair, symmetric-log colour scale, with the "
+                 "68.3, 95.4 and 99.7 % confidence contours of two parameters; + marks the reported pair "
+                 "(the values in the table), a circle the grid minimum when it differs.",
+                 lambda p: plots.plot_two_period_map(plots.two_period_zoom(lc, p1, p2), reported_pair_h=(p1, p2),
+                                                     path=p))
         if model is not None:
             draw("lightcurve", "Light curve per session (blue, with errors) and the Fourier model at the reported "
                  "periods with each session's zero-point (red).",
@@ -348,6 +353,19 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
             draw("folded", fold_caption, lambda p: plots.plot_folded(lc, model, path=p))
             draw("residuals", "Residuals of the model against time (colour by session) and their distribution "
                  "in units of the quoted errors.", lambda p: plots.plot_residuals(lc, model, path=p))
+            draw("composite", "Composite light curve: the data minus their zero-points folded on the best single "
+                 "period, coloured by session; a session that does not line up with the others shows at once.",
+                 lambda p: plots.plot_composite_fold(lc, model, path=p))
+            p_one = p1 if math.isfinite(p1) else model.rotation_period_h
+            draw("residual_periodogram", "Periodogram (Lomb-Scargle) of the residuals after removing the P1 "
+                 "series and the zero-points: a tumbler's second period stands out here; a principal-axis "
+                 "rotator's residuals are flat.",
+                 lambda p: plots.plot_residual_periodogram(lc, p_one, p2_h=p2 if math.isfinite(p2) else None,
+                                                           path=p))
+            if lc.phase_deg is not None and lc.has_distances and np.any(np.asarray(lc.session) < 0):
+                draw("phase_curve", "Phase curve: reduced magnitude (rotation removed) against solar phase angle "
+                     "with the fitted H,G1,G2 curve (Muinonen et al. 2010).",
+                     lambda p: plots.plot_phase_curve(lc, model, path=p))
     if posterior is not None and np.asarray(posterior.get("samples", [])).ndim == 2 \
             and np.asarray(posterior["samples"]).shape[0] > 1:
         draw("posterior", "Posterior samples of the main parameters of the physical rotation-state fit "
@@ -357,7 +375,58 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
     return figs, notes
 
 
-def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, data_note: str = "") -> str:
+def object_tables(verdict: Mapping, lc=None) -> list[tuple[str, str, str]]:
+    """The diagnostic tables of an object page: (element id, heading, HTML table).
+
+    Cycles covered and phase coverage of each reported period (:func:`tumble.coverage.period_coverage`),
+    the frequency combinations ``j f1 + k f2`` that carry the signal with their amplitudes, and the
+    per-session zero-points (with the photometry only).
+    """
+    from tumble.coverage import period_coverage
+
+    v = _normalise(verdict)
+    out = []
+    if lc is None:
+        return out
+    t = np.asarray(lc.t, float)
+    rows = []
+    for name, label in (("period_h", "P"), ("p_psi_h", "P_psi"), ("p_phi_h", "P_phi"), ("p1_h", "P1"),
+                        ("p2_h", "P2")):
+        if _fin(v.get(name)):
+            c = period_coverage(t, _f(v.get(name)))
+            rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_e(format_period_h(c.period_h))}</td>"
+                        f"<td class=\"num\">{_e(format_sig(c.n_cycles, 3))}</td>"
+                        f"<td class=\"num\">{_e(format_sig(c.phase_coverage, 2))}</td></tr>")
+    if rows:
+        out.append(("coverage", "Cycles covered and phase coverage",
+                    "<table id=\"coverage\"><thead><tr><th>period</th><th>value (h)</th><th>cycles in the span</th>"
+                    "<th>phase coverage (fraction of 20 bins)</th></tr></thead><tbody>" + "".join(rows)
+                    + "</tbody></table>"))
+    try:
+        from tumble import plots
+
+        model = plots.model_from_verdict(lc, v)
+    except (TumbleError, ValueError, np.linalg.LinAlgError):
+        return out
+    terms = plots.frequency_combinations(model)
+    body = "".join(f"<tr><td class=\"num\">{t_.j}</td><td class=\"num\">{t_.k}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.frequency_per_d, 6))}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.period_h, 6))}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.amplitude_mag, 2))}</td></tr>" for t_ in terms)
+    out.append(("combinations", "Frequency combinations that carry the signal",
+                "<table id=\"combinations\"><thead><tr><th>j</th><th>k</th><th>j f1 + k f2 (1/d)</th>"
+                "<th>period (h)</th><th>semi-amplitude (mag)</th></tr></thead><tbody>" + body + "</tbody></table>"))
+    zps = plots.session_zero_points(lc, model)
+    body = "".join(f"<tr><td>{_e(z.title)}</td><td class=\"num\">{_e(format_sig(z.zero_point_mag, 4))}</td></tr>"
+                   for z in zps)
+    out.append(("zero-points", "Per-session zero-points",
+                "<table id=\"zero-points\"><thead><tr><th>session</th><th>zero-point (mag)</th></tr></thead>"
+                "<tbody>" + body + "</tbody></table>"))
+    return out
+
+
+def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, data_note: str = "",
+                 tables=()) -> str:
     rotation = str(v.get("rotation", "") or "")
     status = str(v.get("status", "ok") or "ok")
     parts = []
@@ -410,6 +479,8 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
     if warnings:
         parts.append("<h2>Warnings</h2><ul>" + "".join(f"<li class=\"warn\">{_e(w)}</li>" for w in warnings)
                      + "</ul>")
+    for ident, heading, table in tables:
+        parts.append(f"<h2 id=\"h-{_e(ident)}\">{_e(heading)}</h2>{table}")
     parts.append("<h2>Figures</h2>")
     if data_note:
         parts.append(f"<p class=\"note\">{_e(data_note)}</p>")
@@ -463,7 +534,8 @@ def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mappin
     name = str(v.get("object", "") or "object")
     figures, notes = ([], []) if str(v.get("status", "ok") or "ok") != "ok" else object_figures(
         out_dir, v, lc, posterior=posterior, two_d=two_d, prefix=figure_prefix)
-    body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note)
+    tables = object_tables(v, lc) if str(v.get("status", "ok") or "ok") == "ok" else []
+    body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note, tables=tables)
     path = out_dir / page
     _write_page(path, _page(f"{name}: tumble report", "One object: rotation verdict, periods and figures. "
                                   "Scientific estimates for research use, not operational decisions.", body))
