@@ -90,12 +90,25 @@ def _object_column(browser):
         ".map(function(r){return r.cells[0].textContent.trim();});")
 
 
+#: Where the test's files live: no page may show any of these (outputs name files relative to their folder).
+LOCAL_ROOTS = tuple({str(ROOT), str(Path.home()), "/tmp/", "/work/", "/home/", "/root/"})
+
+
+def _assert_no_local_paths(browser, where):
+    source = browser.page_source
+    text = browser.execute_script("return document.body.innerText;")
+    for root in LOCAL_ROOTS:
+        assert root not in source and root not in text, f"{where}: absolute local path {root!r} shown"
+
+
 def _open_checked(browser, page, shot):
-    """Open a page, take its screenshot, and check it loaded cleanly: no console errors, every image loaded."""
+    """Open a page, take its screenshot, and check it loaded cleanly: no console errors, every image loaded,
+    no absolute local path."""
     browser.get(page.as_uri())
     browser.save_screenshot(str(shot))
     assert shot.stat().st_size > 0
     assert _log_errors(browser) == []
+    _assert_no_local_paths(browser, page.name)
     imgs = _images(browser)
     assert all(ok and width > 0 for _, ok, width in imgs), imgs
     return imgs
@@ -116,6 +129,12 @@ def test_survey_report_loads_sorts_and_filters(browser, reports, tmp_path):
 
     # numeric sort on the points column: expected order from the catalogue, ties kept in input order
     heads = browser.find_elements(By.CSS_SELECTOR, "#objects thead th")
+    # the columns of the one schema, the new ones included
+    from tumble.schema import REPORT_FIELDS
+
+    assert [h.get_attribute("data-col") for h in heads] == [f.name for f in REPORT_FIELDS]
+    assert {"route", "prior_npa", "ln_bayes_factor_err", "screen_flag", "npa_limit_mag"} <= {
+        h.get_attribute("data-col") for h in heads}
     points = next(h for h in heads if h.get_attribute("data-col") == "n_points")
     points.click()
     assert points.get_attribute("aria-sort") == "ascending"
@@ -157,10 +176,15 @@ def test_survey_report_loads_sorts_and_filters(browser, reports, tmp_path):
     for href in links.values():
         browser.get(href)
         assert _log_errors(browser) == [], href
+        _assert_no_local_paths(browser, href)
         assert all(ok and width > 0 for _, ok, width in _images(browser)), href
     ok_name = next(n for n, s in zip(names, table["status"]) if s == "ok")
     browser.get(links[ok_name])
-    assert len(_images(browser)) >= 4  # scan, light curve, folded, residuals
+    srcs = {Path(src).stem for src, _, _ in _images(browser)}
+    # scan, light curve, folded, residuals and the new views
+    assert {"scan", "lightcurve", "folded", "residuals", "composite", "residual_periodogram"} <= srcs, srcs
+    for table_id in ("coverage", "combinations", "zero-points"):
+        assert browser.find_elements(By.CSS_SELECTOR, f"#{table_id} tbody tr"), table_id
     assert ok_name in browser.title
     browser.save_screenshot(str(tmp_path / "survey_object.png"))
 

@@ -152,6 +152,8 @@ def test_relative_paths():
     out = dp.relative_paths(text, "/data/out")
     assert out.startswith("../obs/a/KRN-001.csv: row 3")
     assert "</td> 1/2 and km/s and https://x.org/a/b" in out
+    # far outside the output folder only the file name is shown (no '../../../home/...' chain)
+    assert dp.relative_paths("read /home/u/deep/er/obs/KRN-1.csv: ok", "/srv/a/b/c/d/out") == "read KRN-1.csv: ok"
 
 
 def test_error_kinds_group_like_errors():

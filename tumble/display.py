@@ -193,16 +193,24 @@ def format_value(display: str, value) -> str:
 _ABS_PATH = re.compile(r"(?:(?<=[\s\"'(\[>=,;])|^)/(?:[\w.@+~-]+/)+[\w.@+~-]*")
 
 
+#: A path is shown relative to the output folder when it climbs at most this many levels above it (the
+#: output folder's own tree: report pages sit two levels below the report's root); further away only
+#: its file name is shown, since a long '../../..' chain would spell out the user's folders again.
+MAX_PARENT_LEVELS = 3
+
+
 def relative_paths(text: str, base) -> str:
-    """``text`` with every absolute local path rewritten relative to the folder ``base`` (outputs must
-    not show where the user keeps their files)."""
+    """``text`` with every absolute local path rewritten relative to the folder ``base``, or to its file
+    name when it lies far outside (outputs must not show where the user keeps their files)."""
     base = os.path.abspath(os.fspath(base))
 
     def rel(m: re.Match) -> str:
         path = m.group(0)
         try:
-            return os.path.relpath(path, base)
+            out = os.path.relpath(path, base)
         except ValueError:
             return os.path.basename(path)
+        ups = out.split(os.sep).count("..")
+        return out if ups <= MAX_PARENT_LEVELS else os.path.basename(path.rstrip("/")) or path
 
     return _ABS_PATH.sub(rel, str(text))

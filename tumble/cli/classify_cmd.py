@@ -25,7 +25,7 @@ def add_parser(sub) -> None:
         description="Decide from one object's photometry whether it rotates about its principal axis (PA) "
                     "or tumbles (NPA, SAM or LAM): Bayes factor of shape-free one- and two-period models, "
                     "posterior probability at the given prior, a grade on the Kass & Raftery (1995) scale, "
-                    "periods with 68%% intervals, and the rotation state from a physical ellipsoid fit. "
+                    "periods with 68% intervals, and the rotation state from a physical ellipsoid fit. "
                     "Writes verdict.json, results.ecsv and posterior.npz to --out.",
     )
     p.add_argument("files", nargs="+", metavar="FILE", help="photometry files of one object")

@@ -80,6 +80,8 @@ def _fmt_period(p, err):
 
 
 def _print_table(scan, two, args) -> None:
+    from tumble.display import format_fap
+
     out = sys.stdout
     print(f"object            {scan.object_id}", file=out)
     print(f"points            {scan.n_points}; {len(scan.nuisance_names)} zero-point/phase terms "
@@ -95,14 +97,14 @@ def _print_table(scan, two, args) -> None:
     print(f"  candidates      {cands}", file=out)
     print(f"amplitude         {scan.amplitude_mag:.3f} mag peak to peak", file=out)
     verdict = "confident" if scan.confident else "NOT confident"
-    print(f"significance      false-alarm probability {scan.false_alarm_probability:.3g} "
+    print(f"significance      false-alarm probability {format_fap(scan.false_alarm_probability)} "
           f"({verdict}; threshold {scan.fap_threshold:g}); reduced chi2 {scan.reduced_chi2:.3f}", file=out)
     print("", file=out)
     print(f"{'rank':>4}  {'period (h)':>14}  {'error (h)':>10}  {'freq (1/d)':>12}  {'delta chi2':>11}  "
           f"{'FAP':>9}  alias", file=out)
     for i, p in enumerate(scan.peaks, 1):
         print(f"{i:>4}  {p.period_h:>14.7g}  {p.period_h_err:>10.2g}  {p.frequency_per_d:>12.6f}  "
-              f"{p.delta_chi2:>11.2f}  {p.false_alarm_probability:>9.2g}  {p.alias}", file=out)
+              f"{p.delta_chi2:>11.2f}  {format_fap(p.false_alarm_probability):>9}  {p.alias}", file=out)
     if two is not None:
         print("", file=out)
         print(f"two-period fit    order {two.order} ({two.mode})", file=out)
