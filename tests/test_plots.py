@@ -55,7 +55,24 @@ def _check(fig, path, object_id):
                 assert "(" in label and ")" in label, label
     assert any(ax.get_ylabel() for ax in shown)
     _check_fonts(fig)
+    _check_labels_inside(fig)
     return w, h
+
+
+def _check_labels_inside(fig):
+    # every axis label and title is drawn inside the figure (none cut at the edge)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    width, height = fig.get_size_inches() * fig.dpi
+    for ax in fig.axes:
+        for text in (ax.xaxis.label, ax.yaxis.label, ax.title):
+            if text.get_text() and text.get_visible():
+                box = text.get_window_extent(renderer)
+                assert box.x0 >= -1 and box.x1 <= width + 1 and box.y0 >= -1 and box.y1 <= height + 1, \
+                    text.get_text()
 
 
 def _check_fonts(fig):
@@ -227,6 +244,12 @@ def test_scan_cli_and_report_share_one_y_convention(npa_lc, tmp_path):
     assert not any(t.startswith(("chosen", "best")) for t in legend)
 
 
+def pa_lc_single():
+    from tumble.photometry import read_lightcurve
+
+    return read_lightcurve([CAMPAIGN / "KRN-001__kestrel.csv"])
+
+
 def test_lightcurve_panels_dated_same_range_all_nights(npa_lc, tmp_path):
     model = plots.fit_model(npa_lc, 16.24, 12.567)
     fig = plots.plot_lightcurve(npa_lc, model, path=tmp_path / "lc.png")
@@ -235,7 +258,10 @@ def test_lightcurve_panels_dated_same_range_all_nights(npa_lc, tmp_path):
     assert len(shown) == npa_lc.n_sessions  # every night, not the first twelve
     import re
 
-    assert all(re.match(r"\d{4}-\d{2}-\d{2} UTC, ", ax.get_title()) for ax in shown)
+    assert all(re.match(r"\d{4}-\d{2}-\d{2} UTC", ax.get_title()) for ax in shown)
+    # with one source file per object, the site comes from its name (KRN-001__kestrel.csv -> kestrel)
+    single = plots.session_panels(pa_lc_single())
+    assert all(p.title.split("\n")[0].endswith(", kestrel") for p in single)
     ranges = {round(abs(np.diff(ax.get_ylim())[0]), 9) for ax in shown}
     assert len(ranges) == 1  # one magnitude range for every night
 

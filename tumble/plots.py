@@ -88,7 +88,7 @@ DPI = 100
 CONFIDENCE_LEVELS = (0.6827, 0.9545, 0.9973)
 #: The one y-axis convention of every period-scan figure (CLI and report alike): Delta chi-square from the
 #: deepest minimum in units of its reduced chi-square, minima pointing down, not inverted.
-SCAN_Y_LABEL = r"$\Delta\chi^2$ from the deepest minimum / reduced $\chi^2$ (dimensionless)"
+SCAN_Y_LABEL = r"$\Delta\chi^2$ / reduced $\chi^2$ (dimensionless)"
 #: Columns of the session panels of the light-curve figure.
 LIGHTCURVE_COLUMNS = 4
 
@@ -301,8 +301,9 @@ def _scan_panel(ax, scan, chosen_period_h=None, n_aliases: int = 6) -> None:
     for peak in scan.peaks:
         if shown >= n_aliases:
             break
-        if abs(peak.period_h / reported - 1.0) < 1e-6 or abs(peak.period_h / deepest - 1.0) < 1e-6:
-            continue
+        if (peak.alias == "best" or abs(peak.period_h / reported - 1.0) < 1e-6
+                or abs(peak.period_h / deepest - 1.0) < 1e-6):
+            continue  # the deepest minimum's own peak is drawn above
         ax.axvline(peak.period_h, color="#dd6b20", lw=0.9, ls="--")
         # labels staggered down the axes so that close peaks stay readable
         ax.annotate(f"{peak.alias}: {peak.period_h:.4g} h", xy=(peak.period_h, 0.98 - 0.08 * shown),
@@ -331,8 +332,8 @@ def plot_scan(scan, *, chosen_period_h: float | None = None, n_aliases: int = 6,
         fig = _figure(9.0, 4.4)
         ax = fig.add_subplot()
         _scan_panel(ax, scan, chosen_period_h, n_aliases)
-        ax.set_title(f"{scan.object_id}: 1-D period scan (order-{scan.order} Fourier series, "
-                     f"{scan.n_points} points)")
+        ax.set_title(f"{scan.object_id}: 1-D period scan, " + r"$\Delta\chi^2$" + " from the deepest minimum "
+                     f"(order-{scan.order} Fourier series, {scan.n_points} points)")
     return _finish(fig, path)
 
 
@@ -343,8 +344,8 @@ def plot_scan_summary(scan, two=None, *, path=None):
         fig = _figure(9.0, 4.4 if two is None else 9.4)
         axes = fig.subplots(1 if two is None else 2, 1, squeeze=False)[:, 0]
         _scan_panel(axes[0], scan)
-        axes[0].set_title(f"{scan.object_id}: 1-D period scan (order-{scan.order} Fourier series, "
-                          f"{scan.n_points} points)")
+        axes[0].set_title(f"{scan.object_id}: 1-D period scan, " + r"$\Delta\chi^2$" + " from the deepest "
+                          f"minimum (order-{scan.order} Fourier series, {scan.n_points} points)")
         if two is not None:
             _map_panel(fig, axes[1], two)
     return _finish(fig, path)
@@ -480,18 +481,22 @@ def session_panels(lc) -> list[SessionPanel]:
     s = np.asarray(lc.session, int)
     sites = dict(lc.meta.get("session_sites", {}) or {})
     sources = list(lc.meta.get("sources", []) or [])
-    single = os.path.splitext(os.path.basename(str(sources[0])))[0] if len(sources) == 1 else ""
+    single = ""
+    if len(sources) == 1:
+        # the file name without the object's designation usually names the site or observer
+        stem = os.path.basename(str(sources[0])).split(".")[0]
+        single = stem.replace(str(lc.object_id), "").strip(" _-") or stem
     out = []
     for k in np.unique(s[s >= 0]):
         idx = np.flatnonzero(s == k)
         site = str(sites.get(int(k), sites.get(str(int(k)), single)) or "")
         bands = ",".join(sorted(set(np.asarray(lc.band)[idx].astype(str))))
-        parts = [f"{_utc_date(lc.t_obs[idx[0]])} UTC"] + ([site] if site else []) + [bands, f"{idx.size} points"]
-        out.append(SessionPanel(int(k), idx, ", ".join(p for p in parts if p)))
+        first = ", ".join([f"{_utc_date(lc.t_obs[idx[0]])} UTC"] + ([site] if site else []))
+        out.append(SessionPanel(int(k), idx, f"{first}\n{bands}, {idx.size} points"))
     if np.any(s < 0):
         idx = np.flatnonzero(s < 0)
         out.append(SessionPanel(-1, idx, f"sparse points {_utc_date(lc.t_obs[idx[0]])} to "
-                                         f"{_utc_date(lc.t_obs[idx[-1]])} UTC, {idx.size} points"))
+                                         f"{_utc_date(lc.t_obs[idx[-1]])} UTC\n{idx.size} points"))
     return out
 
 
@@ -551,7 +556,7 @@ def plot_lightcurve(lc, model: LightCurveModel | None = None, *, max_panels: int
                 mid = 0.5 * (np.max(y[idx]) + np.min(y[idx]))
                 ax.set_ylim(mid - half, mid + half)
             ax.invert_yaxis()
-            ax.set_title(g.title, fontsize=MIN_FONT_PT + 0.5)
+            ax.set_title(g.title, fontsize=MIN_FONT_PT + 0.5, linespacing=1.1)
             ax.set_xlabel(f"time - JD {t0:.1f} TDB ({'d' if sparse else 'h'})")
             ax.set_ylabel(mag_label)
         for k in range(len(shown), nrow * ncol):
@@ -667,7 +672,7 @@ def plot_composite_fold(lc, model: LightCurveModel, *, period_h: float | None = 
         for k, g in enumerate(groups):
             colour = cmap((k + 0.5) / max(len(groups), 1))
             ax.plot(phase[g.index], y[g.index], ".", ms=4, color=colour,
-                    label=g.title if len(groups) <= 16 else None)
+                    label=g.title.replace("\n", ", ") if len(groups) <= 16 else None)
         ax.invert_yaxis()
         ax.set_xlim(0, 1)
         ax.set_xlabel(f"rotational phase (cycles of {p:.6g} h)")
@@ -746,6 +751,8 @@ def plot_residual_periodogram(lc, p1_h: float, *, p2_h: float | None = None, pat
                          f"{format_fap(res.peak_fap)})")
         if p2_h is not None and np.isfinite(p2_h):
             ax.axvline(p2_h, color="#c53030", lw=1.5, label=f"reported P2 = {p2_h:.5g} h")
+            # a double-peaked P2 component puts its power at P2/2 in a one-harmonic periodogram
+            ax.axvline(p2_h / 2, color="#c53030", lw=1.0, ls=":", label=f"P2/2 = {p2_h / 2:.5g} h (its harmonic)")
         ax.set_xlabel("trial period (h)")
         ax.set_ylabel("Lomb-Scargle power of the residuals (dimensionless)")
         ax.legend(loc="upper right")
@@ -1001,7 +1008,7 @@ def plot_period_diameter(rows, diameters_km, *, title: str = "sample", taus_gyr=
         ax.set_xlabel("diameter (km)")
         ax.set_ylabel("rotation period (h): P for PA, P_psi for NPA")
         ax.legend(loc="lower right")
-        ax.set_title(f"{title}: period-diameter diagram ({int(ok.sum())} of {len(rows)} objects with a "
+        ax.set_title(f"{title}: period-diameter diagram\n({int(ok.sum())} of {len(rows)} objects have a "
                      "rotation period and a size)")
     return _finish(fig, path)
 
