@@ -98,7 +98,7 @@ VERDICT_STYLES = {
     "PA": ("PA", "o", "#2b6cb0", "#1a365d"),
     "NPA/SAM": ("NPA, SAM", "^", "#c53030", "#742a2a"),
     "NPA/LAM": ("NPA, LAM", "v", "#dd6b20", "#7b341e"),
-    "NPA": ("NPA, mode open", "D", "#805ad5", "#44337a"),
+    "NPA": ("NPA, mode unknown", "D", "#805ad5", "#44337a"),
     "undecided": ("undecided", "s", "none", "#4a5568"),
 }
 

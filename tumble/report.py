@@ -734,11 +734,12 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
         if any(math.isfinite(x) for x in d):
             plots.plot_period_diameter(rows, d, title=results_path.stem, path=out_dir / "sample_period_diameter.png")
             sample_figs.append(("sample_period_diameter.png",
-                                "Period-diameter diagram of the classified objects with lines of constant damping "
-                                "time (Burns & Safronov 1973 form with mu Q = 5e11 Pa, density 2000 kg/m^3 and "
-                                "K3^2 = 0.03, the values behind Harris 1994's constant); "
-                                "symbols: blue circle PA, red up-triangle NPA SAM, orange down-triangle NPA LAM, "
-                                "purple diamond NPA with open mode, open grey square undecided."))
+                                "Rotation period (PA: P; NPA: P_psi) against diameter of the classified objects, "
+                                "with lines of constant damping time (Burns & Safronov 1973 form with mu Q = 5e11 "
+                                "Pa, density 2000 kg/m^3 and K3^2 = 0.03, the values behind Harris 1994's "
+                                "constant); symbols: blue circle PA, red up-triangle NPA SAM, orange down-triangle "
+                                "NPA LAM, purple diamond NPA with the mode unknown. Objects without a rotation "
+                                "period (undecided, screen verdicts, NPA without P_psi) are not plotted."))
         else:
             sample_notes.append("No diameters are known (give the report a size table), so no period-diameter "
                                 "diagram.")
