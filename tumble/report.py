@@ -376,6 +376,14 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
     return figs, notes
 
 
+def _longest_session_h(lc) -> float:
+    """Duration of the longest dense session, hours (inf for sparse data only)."""
+    s = np.asarray(lc.session, int)
+    t = np.asarray(lc.t, float)
+    spans = [np.ptp(t[s == k]) * 24.0 for k in np.unique(s[s >= 0])]
+    return max(spans) if spans else math.inf
+
+
 def object_tables(verdict: Mapping, lc=None) -> list[tuple[str, str, str]]:
     """The diagnostic tables of an object page: (element id, heading, HTML table).
 
@@ -410,16 +418,25 @@ def object_tables(verdict: Mapping, lc=None) -> list[tuple[str, str, str]]:
     except (TumbleError, ValueError, np.linalg.LinAlgError):
         return out
     terms = plots.frequency_combinations(model)
+    night_h = _longest_session_h(lc)
     body = "".join(f"<tr><td class=\"num\">{t_.j}</td><td class=\"num\">{t_.k}</td>"
                    f"<td class=\"num\">{_e(format_sig(t_.frequency_per_d, 6))}</td>"
-                   f"<td class=\"num\">{_e(format_sig(t_.period_h, 6))}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.period_h, 6))}"
+                   f"{' *' if t_.period_h > night_h else ''}</td>"
                    f"<td class=\"num\">{_e(format_sig(t_.amplitude_mag, 2))}</td></tr>" for t_ in terms)
+    long_note = ""
+    if any(t_.period_h > night_h for t_ in terms):
+        long_note = (f"<p class=\"note\">* a period longer than the longest session ({format_sig(night_h, 3)} h): "
+                     "such a term trades against the per-session zero-points, so no single night constrains "
+                     "its amplitude; a large amplitude here with widely spread zero-points means the drawn "
+                     "model is degenerate, not that the body varies by that much.</p>")
     out.append(("combinations", "Frequency combinations that carry the signal",
                 "<table id=\"combinations\"><thead><tr><th>j</th><th>k</th><th>j f1 + k f2 (1/d)</th>"
-                "<th>period (h)</th><th>semi-amplitude (mag)</th></tr></thead><tbody>" + body + "</tbody></table>"))
+                "<th>period (h)</th><th>semi-amplitude (mag)</th></tr></thead><tbody>" + body + "</tbody></table>"
+                + long_note))
     zps = plots.session_zero_points(lc, model)
-    body = "".join(f"<tr><td>{_e(z.title)}</td><td class=\"num\">{_e(format_sig(z.zero_point_mag, 4))}</td></tr>"
-                   for z in zps)
+    body = "".join(f"<tr><td>{_e(z.title.replace(chr(10), ', '))}</td>"
+                   f"<td class=\"num\">{_e(format_sig(z.zero_point_mag, 4))}</td></tr>" for z in zps)
     out.append(("zero-points", "Per-session zero-points",
                 "<table id=\"zero-points\"><thead><tr><th>session</th><th>zero-point (mag)</th></tr></thead>"
                 "<tbody>" + body + "</tbody></table>"))
