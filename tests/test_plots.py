@@ -343,7 +343,7 @@ def test_period_diameter_plain_ticks_and_tau_in_myr(tmp_path):
     ticks = [t.get_text() for t in ax.get_xticklabels() + ax.get_yticklabels() if t.get_text()]
     assert ticks and not any("10^" in t or "times" in t for t in ticks), ticks
     taus = [t.get_text() for t in ax.texts]
-    assert "tau = 4.5 Myr" in taus and not any("0.0045" in t for t in taus)
+    assert "tau = 4.5 Myr" in taus and "tau = 450 Myr" in taus and not any("0.0045" in t or "e+" in t for t in taus)
     assert ax.get_ylabel() == "rotation period (h): P for PA, P_psi for NPA"
 
 

@@ -952,9 +952,12 @@ def _plain_log_ticks(axis) -> None:
 
 def _tau_label(tau_gyr: float) -> str:
     """A damping time in the unit that reads naturally: Myr below 1 Gyr."""
+    def two_figures(x):  # 2 significant figures without exponent notation (450, not 4.5e+02)
+        return f"{float(f'{x:.2g}'):g}"
+
     if tau_gyr < 1.0:
-        return f"tau = {tau_gyr * 1000:.2g} Myr"
-    return f"tau = {tau_gyr:.2g} Gyr"
+        return f"tau = {two_figures(tau_gyr * 1000)} Myr"
+    return f"tau = {two_figures(tau_gyr)} Gyr"
 
 
 def plot_period_diameter(rows, diameters_km, *, title: str = "sample", taus_gyr=(0.0045, 0.045, 0.45, 4.5),
