@@ -35,7 +35,7 @@ from tumble._io import atomic_write_text
 from tumble.display import (DAMPING_DIGITS, format_interval, format_period_h, format_probability, format_sig,
                             format_value_err, relative_paths, unit_label)
 from tumble.exceptions import TumbleError
-from tumble.schema import FIELD_BY_NAME, REPORT_FIELDS, display, normalise
+from tumble.schema import FIELD_BY_NAME, REPORT_FIELDS, display, normalise, pravec2005_code
 
 __all__ = ["ReportError", "CAUTIONS", "GRADE_WORDS", "grade_in_words", "object_figures", "object_tables", "write_object_report",
            "write_survey_report", "write_report", "page_name"]
@@ -443,6 +443,16 @@ def object_tables(verdict: Mapping, lc=None) -> list[tuple[str, str, str]]:
     return out
 
 
+def _p2005_row(v: Mapping) -> str:
+    """The verdict on the NPA reliability scale of Pravec et al. (2005), when it applies."""
+    code = str(v.get("npa_code_p2005") or pravec2005_code(v))
+    if not code:
+        return ""
+    return (f"<tr><th>Pravec et al. (2005) code</th><td>{_e(code)}</td><td>our verdict on the NPA reliability "
+            "scale of Pravec et al. (2005, Icarus 173, 108), for observers who report to it; our grades stay "
+            "our own</td></tr>")
+
+
 def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, data_note: str = "",
                  tables=()) -> str:
     rotation = str(v.get("rotation", "") or "")
@@ -470,7 +480,7 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
                  f"<tr><th>ln B(NPA:PA)</th><td class=\"num\">{display('ln_bayes_factor', v.get('ln_bayes_factor'))}"
                  + (f" &plusmn; {display('ln_bayes_factor_err', ln_err)}" if _fin(ln_err) and _f(ln_err) > 0 else "") +
                  "</td><td>natural log of the Bayes factor (positive favours NPA)</td></tr>"
-                 "</tbody></table>")
+                 + _p2005_row(v) + "</tbody></table>")
     parts.append(f"<p id=\"grade-words\">{_e(grade_in_words(v))}</p>")
     parts.append("<h2>Periods and derived quantities</h2>")
     rows = _periods_rows(v)
