@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import json
 
 import numpy as np
 import pytest
 
 from tumble.cli import main
+from tumble.schema import loads_strict
 from tumble.dynamics import RotationState
 from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve, write_simulation
 
@@ -35,7 +35,7 @@ def test_classify_writes_verdict_results_and_samples(pa_file, tmp_path, capsys):
     assert code == 0
     text = capsys.readouterr().out
     assert "rotation      PA" in text and "grade" in text and " h" in text
-    v = json.loads((out / "verdict.json").read_text())
+    v = loads_strict((out / "verdict.json").read_text())
     for k in REQUIRED:
         assert k in v
     assert v["rotation"] == "PA" and v["mode"] == ""
@@ -61,9 +61,9 @@ def test_same_seed_gives_byte_identical_verdict(pa_file, tmp_path):
 def test_screen_and_json(pa_file, tmp_path, capsys):
     code = main(["classify", str(pa_file), "--out", str(tmp_path / "s"), "--screen", "--json"])
     assert code == 0
-    v = json.loads(capsys.readouterr().out)
+    v = loads_strict(capsys.readouterr().out)
     # a screen speaks as a screen: a flag and a score, no rotation verdict and no grade
-    assert v["screen"] is True and v["screen_flag"] == "quiet" and v["rotation"] == "" and v["grade"] == ""
+    assert v["route"] == "screen" and v["screen_flag"] == "quiet" and not v["rotation"] and not v["grade"]
     assert any("screen" in w for w in v["warnings"])
 
 

@@ -1,12 +1,12 @@
 """`tumble inspect` and the command-line contract: exit codes, one-line errors, JSON."""
 
-import json
 import subprocess
 import sys
 
 import pytest
 
 from tumble.cli import main
+from tumble.schema import loads_strict
 
 from conftest import BAD_DIR
 
@@ -79,7 +79,7 @@ def test_bad_file_in_a_subprocess_has_no_traceback():
 
 def test_inspect_gault_json(gault_csv, capsys):
     assert main(["inspect", str(gault_csv), "--json"]) == 0
-    s = json.loads(capsys.readouterr().out)
+    s = loads_strict(capsys.readouterr().out)
     assert s["n_points"] == 65 and s["bands"] == {"g": 24, "r": 41}
     assert s["time_format"] == "mjd" and s["light_time"].startswith("corrected")
 
@@ -90,7 +90,7 @@ def test_inspect_text_and_write(gault_csv, capsys, tmp_path):
     text = capsys.readouterr().out
     assert "65 kept of 65 read" in text and "phase angle" in text
     assert main(["inspect", str(out), "--json"]) == 0
-    again = json.loads(capsys.readouterr().out)
+    again = loads_strict(capsys.readouterr().out)
     assert again["n_points"] == 65
 
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import math
 
 import numpy as np
@@ -11,6 +10,7 @@ from astropy.table import Table
 
 from tumble import damping as dm
 from tumble.cli import main
+from tumble.schema import loads_strict
 
 KEYS = ("tau_gyr", "tau_gyr_lo", "tau_gyr_hi", "diameter_km", "formula", "p_tau_exceeds_age")
 # mu Q = 5e11 Pa, rho = 2000 kg m^-3, K3^2 = 0.03: the constants behind Harris's C ~ 17 (from memory)
@@ -21,7 +21,7 @@ def _json(capsys, argv):
     rc = main(["relax", *argv, "--json"])
     out = capsys.readouterr().out
     assert rc == 0
-    data = json.loads(out)
+    data = loads_strict(out)
     for key in KEYS:
         assert key in data
     return data
@@ -156,7 +156,7 @@ def test_sample_recovers_known_mu_q(tmp_path, capsys):
     npa = _sample_catalog(path, 7, truth, use_h=True)
     rc = main(["relax", "--sample", str(path), "--walkers", "16", "--steps", "1200", "--seed", "1", "--json"])
     assert rc == 0
-    d = json.loads(capsys.readouterr().out)
+    d = loads_strict(capsys.readouterr().out)
     assert d["n_npa"] == int(npa.sum()) and d["n_pa"] == int((~npa).sum())
     assert d["log10_mu_q_pa_lo95"] < truth < d["log10_mu_q_pa_hi95"]
     assert d["mu_q_pa_lo"] < d["mu_q_pa"] < d["mu_q_pa_hi"]

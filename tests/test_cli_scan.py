@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import json
 
 import numpy as np
 import pytest
 
 from tumble.cli import main
+from tumble.schema import loads_strict
 
 JD0 = 2460300.5
 
@@ -30,7 +30,7 @@ def lc_csv(tmp_path, rng):
 def test_scan_json_keys_and_values(lc_csv, capsys):
     code = main(["scan", str(lc_csv), "--json", "--quiet", "--min-period-h", "1", "--max-period-h", "20"])
     assert code == 0
-    out = json.loads(capsys.readouterr().out)
+    out = loads_strict(capsys.readouterr().out)
     for key in ("best_period_h", "best_period_h_err", "rotation_period_h", "peaks"):
         assert key in out
     # double-peaked curve: dominant period P/2, rotation period P (common practice)
@@ -62,7 +62,7 @@ def test_scan_two_period_json_keys(lc_csv, capsys):
     code = main(["scan", str(lc_csv), "--json", "--quiet", "--two-period", "--min-period-h", "1",
                  "--max-period-h", "20"])
     assert code == 0
-    out = json.loads(capsys.readouterr().out)
+    out = loads_strict(capsys.readouterr().out)
     for key in ("p1_h", "p2_h", "delta_bic"):
         assert key in out
     # a principal-axis rotator: no support for a second period (BIC, Schwarz 1978)
@@ -74,7 +74,7 @@ def test_scan_gault_runs_and_claims_nothing(gault_csv, capsys):
     # error and claims no confident period (common practice for 65 sparse points).
     code = main(["scan", str(gault_csv), "--json", "--quiet"])
     assert code == 0
-    out = json.loads(capsys.readouterr().out)
+    out = loads_strict(capsys.readouterr().out)
     assert out["confident"] is False
     assert all(p["false_alarm_probability"] >= out["fap_threshold"] for p in out["peaks"])
 

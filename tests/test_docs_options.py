@@ -60,3 +60,12 @@ def test_docs_have_a_cautions_section():
     text = _docs_text()
     assert re.search(r"^#+ Cautions", text, flags=re.M)
     assert "not operational decisions" in text
+
+
+def test_help_texts_print_no_doubled_percent():
+    # argparse %-formats help strings but prints descriptions as written (Python's argparse documentation),
+    # so a '%%' in a description reaches the user as '%%'
+    parser, subs = _subparsers()
+    for name, sub in {"tumble": parser, **subs}.items():
+        text = sub.format_help()
+        assert "%%" not in text, f"{name} --help prints '%%'"

@@ -66,3 +66,23 @@ def test_g12_mappings_continuous_enough():
 def test_phase_out_of_range():
     with pytest.raises(ValueError):
         pf.hg_two_term(-1.0, 15, 0.15)
+
+
+def test_fit_hg1g2_recovers_and_agrees_with_scipy_curve_fit():
+    # the linear NNLS fit in flux (Muinonen et al. 2010, eq. 22) against a direct non-linear least-squares
+    # fit in magnitudes by scipy.optimize.curve_fit, the reference optimiser, on noisy data
+    from scipy.optimize import curve_fit
+
+    rng = np.random.default_rng(7)
+    alpha = np.sort(rng.uniform(2.0, 45.0, 120))
+    truth = (16.3, 0.35, 0.30)
+    err = np.full(alpha.size, 0.02)
+    mag = pf.hg1g2(alpha, *truth) + rng.normal(0.0, 0.02, alpha.size)
+    fit = pf.fit_hg1g2(alpha, mag, err)
+    assert fit.n_points == 120 and 0.015 < fit.rms_mag < 0.025
+    ref, _ = curve_fit(lambda a, h, g1, g2: pf.hg1g2(a, h, g1, g2), alpha, mag, p0=(16.0, 0.3, 0.3), sigma=err)
+    assert fit.h_mag == pytest.approx(ref[0], abs=0.01)
+    assert fit.g1 == pytest.approx(ref[1], abs=0.03) and fit.g2 == pytest.approx(ref[2], abs=0.03)
+    assert fit.h_mag == pytest.approx(truth[0], abs=0.05)
+    with pytest.raises(ValueError):
+        pf.fit_hg1g2([5.0, 6.0], [16.0, 16.1])

@@ -18,6 +18,7 @@ from pathlib import Path
 import pytest
 
 from tumble.cli import main
+from tumble.schema import loads_strict
 
 ROOT = Path(__file__).resolve().parents[1]
 CAMPAIGN = ROOT / "catalogs_demo" / "campaign"
@@ -89,12 +90,25 @@ def _object_column(browser):
         ".map(function(r){return r.cells[0].textContent.trim();});")
 
 
+#: Where the test's files live: no page may show any of these (outputs name files relative to their folder).
+LOCAL_ROOTS = tuple({str(ROOT), str(Path.home()), "/tmp/", "/work/", "/home/", "/root/"})
+
+
+def _assert_no_local_paths(browser, where):
+    source = browser.page_source
+    text = browser.execute_script("return document.body.innerText;")
+    for root in LOCAL_ROOTS:
+        assert root not in source and root not in text, f"{where}: absolute local path {root!r} shown"
+
+
 def _open_checked(browser, page, shot):
-    """Open a page, take its screenshot, and check it loaded cleanly: no console errors, every image loaded."""
+    """Open a page, take its screenshot, and check it loaded cleanly: no console errors, every image loaded,
+    no absolute local path."""
     browser.get(page.as_uri())
     browser.save_screenshot(str(shot))
     assert shot.stat().st_size > 0
     assert _log_errors(browser) == []
+    _assert_no_local_paths(browser, page.name)
     imgs = _images(browser)
     assert all(ok and width > 0 for _, ok, width in imgs), imgs
     return imgs
@@ -115,6 +129,12 @@ def test_survey_report_loads_sorts_and_filters(browser, reports, tmp_path):
 
     # numeric sort on the points column: expected order from the catalogue, ties kept in input order
     heads = browser.find_elements(By.CSS_SELECTOR, "#objects thead th")
+    # the columns of the one schema, the new ones included
+    from tumble.schema import REPORT_FIELDS
+
+    assert [h.get_attribute("data-col") for h in heads] == [f.name for f in REPORT_FIELDS]
+    assert {"route", "prior_npa", "ln_bayes_factor_err", "screen_flag", "npa_limit_mag"} <= {
+        h.get_attribute("data-col") for h in heads}
     points = next(h for h in heads if h.get_attribute("data-col") == "n_points")
     points.click()
     assert points.get_attribute("aria-sort") == "ascending"
@@ -156,31 +176,37 @@ def test_survey_report_loads_sorts_and_filters(browser, reports, tmp_path):
     for href in links.values():
         browser.get(href)
         assert _log_errors(browser) == [], href
+        _assert_no_local_paths(browser, href)
         assert all(ok and width > 0 for _, ok, width in _images(browser)), href
     ok_name = next(n for n, s in zip(names, table["status"]) if s == "ok")
     browser.get(links[ok_name])
-    assert len(_images(browser)) >= 4  # scan, light curve, folded, residuals
+    srcs = {Path(src).stem for src, _, _ in _images(browser)}
+    # scan, light curve, folded, residuals and the new views
+    assert {"scan", "lightcurve", "folded", "residuals", "composite", "residual_periodogram"} <= srcs, srcs
+    for table_id in ("coverage", "combinations", "zero-points"):
+        assert browser.find_elements(By.CSS_SELECTOR, f"#{table_id} tbody tr"), table_id
     assert ok_name in browser.title
     browser.save_screenshot(str(tmp_path / "survey_object.png"))
 
 
 def test_object_report_loads_with_all_figures(browser, reports, tmp_path):
-    import json
-
     from selenium.webdriver.common.by import By
 
     page = reports / "object_report" / "index.html"
     imgs = _open_checked(browser, page, tmp_path / "object.png")
     srcs = {Path(s).stem for s, _, _ in imgs}
     assert {"scan", "lightcurve", "folded", "residuals", "posterior"} <= srcs, srcs
-    verdict = json.loads((reports / "c" / "verdict.json").read_text())
+    verdict = loads_strict((reports / "c" / "verdict.json").read_text())
     box = browser.find_element(By.ID, "verdict").text
     assert verdict["rotation"] in box and verdict["grade"] in box
     rows = browser.find_elements(By.CSS_SELECTOR, "#periods tbody tr")
     assert rows, "a periods table"
     if verdict["period_h"] is not None and math.isfinite(verdict["period_h"]):
         first = rows[0].find_elements(By.TAG_NAME, "td")
-        assert abs(float(first[1].text) - verdict["period_h"]) <= 1e-6 * verdict["period_h"]
+        # the period is shown to the digit its error keeps (two significant figures of the error, common
+        # practice), so it agrees with verdict.json to within a twentieth of the error
+        err = verdict["period_h_err"] if verdict["period_h_err"] is not None else 0.0
+        assert abs(float(first[1].text) - verdict["period_h"]) <= max(0.05 * err, 1e-6 * verdict["period_h"])
         assert first[3].text == "h"
     assert "not operational decisions" in browser.find_element(By.ID, "cautions").find_element(
         By.XPATH, "following-sibling::div").text

@@ -10,6 +10,7 @@ from astropy.timeseries import LombScargle
 from tumble import brightness as br
 from tumble import simulate as sim
 from tumble.cli import main
+from tumble.schema import loads_strict
 from tumble.dynamics import RotationState
 from tumble.photometry import read_lightcurve
 
@@ -356,7 +357,7 @@ def test_cli_state_file_json_output_and_errors(tmp_path, capsys):
                                  "l_lon_deg": 10.0, "l_lat_deg": 20.0}))
     out = tmp_path / "s.csv"
     assert main(["simulate", "-o", str(out), "--state", str(state), "--json", "--seed", "1"]) == 0
-    truth = json.loads(capsys.readouterr().out)
+    truth = loads_strict(capsys.readouterr().out)
     assert truth["state"]["mode"] == "LAM"
     assert truth["state"]["p_phi_h"] == pytest.approx(9.0, rel=1e-9)
     # the same seed again gives the same file
@@ -381,5 +382,5 @@ def test_scan_recovers_the_simulated_pa_period(tmp_path, capsys):
     assert main(["simulate", "-o", str(out), "--mode", "pa", "--period", "6.0", "--nights", "3", "--seed", "1",
                  "--quiet"]) == 0
     assert main(["scan", str(out), "--json", "--quiet"]) == 0
-    res = json.loads(capsys.readouterr().out)
+    res = loads_strict(capsys.readouterr().out)
     assert res["rotation_period_h"] == pytest.approx(6.0, abs=max(3 * res["rotation_period_h_err"], 2e-3))

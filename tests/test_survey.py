@@ -1,6 +1,5 @@
 """Survey batch processing: same results on every executor, error rows, journal and resume."""
 
-import json
 import os
 import signal
 import subprocess
@@ -11,6 +10,7 @@ import numpy as np
 import pytest
 
 from tumble.cli import main
+from tumble.schema import loads_strict
 from tumble.results import read_results
 from tumble.survey import SurveyConfig, SurveyError, collect_objects, journal_path, read_journal, run_survey
 
@@ -143,7 +143,7 @@ def test_interrupted_run_resumes_exactly_once(serial_rows, sample, tmp_path):
                          resume=True)
     assert summary.n_done_before == 2 and summary.n_processed == 4
     lines = journal_path(out).read_text().splitlines()
-    assert len(lines) == 6 and len({json.loads(x)["object"] for x in lines}) == 6
+    assert len(lines) == 6 and len({loads_strict(x)["object"] for x in lines}) == 6
     assert _rows(out) == _rows(serial_rows)
 
 

@@ -482,8 +482,9 @@ def plot_completeness(table, path) -> Path:
     """The completeness figure (PNG, written atomically).
 
     Left: detection probability of injected NPA per period x amplitude bin;
-    right: false-NPA rate of injected PA. Each cell is coloured by the fraction
-    classified NPA (colour map 'cividis', 0 to 1) and labelled with the fraction
+    right: false-NPA rate of injected PA. Each cell is coloured by the fraction of right
+    verdicts (injected NPA called NPA; injected PA not called NPA), so a bright cell is good in
+    both panels (colour map 'cividis', 0 to 1), and labelled with the fraction classified NPA
     and ``k/n`` (classified NPA / classified); empty bins are white, marked "-".
     """
     import matplotlib
@@ -501,23 +502,26 @@ def plot_completeness(table, path) -> Path:
     cmap = matplotlib.colormaps["cividis"].with_extremes(bad="white")
     norm = Normalize(0.0, 1.0)
     mesh = None
+    # one colour meaning in both panels: the fraction of right answers (bright = good); the cell text
+    # keeps the fraction classified NPA
     for ax, truth, title in ((axes[0], "NPA", "injected NPA: detection probability"),
                              (axes[1], "PA", "injected PA: false-NPA rate")):
+        right = (lambda f: f) if truth == "NPA" else (lambda f: 1.0 - f)
         sel = bins[bins["truth"] == truth]
         grid = np.full((len(ae) - 1, len(pe) - 1), np.nan)
         for r in sel:
             p = int(np.searchsorted(pe, r["period_h_lo"]))
             a = int(np.searchsorted(ae, r["amplitude_mag_lo"]))
-            grid[a, p] = r["frac_npa"]
+            grid[a, p] = right(r["frac_npa"])
             xc = math.sqrt(r["period_h_lo"] * r["period_h_hi"])
             yc = 0.5 * (r["amplitude_mag_lo"] + r["amplitude_mag_hi"])
             text = (f"{r['frac_npa']:.2f}\n{r['n_npa']}/{r['n_classified']}" if r["n_classified"]
                     else f"-\n0/{r['n_injected']}")
             if np.isfinite(r["frac_npa"]):
-                colour = "black" if r["frac_npa"] > 0.55 else "white"
+                colour = "black" if right(r["frac_npa"]) > 0.55 else "white"
             else:
                 colour = "0.35"  # empty bin, on the white background
-            ax.text(xc, yc, text, ha="center", va="center", fontsize=8, color=colour)
+            ax.text(xc, yc, text, ha="center", va="center", fontsize=9, color=colour)
         mesh = ax.pcolormesh(pe, ae, np.ma.masked_invalid(grid), cmap=cmap, norm=norm, edgecolors="white",
                              linewidth=0.5)
         ax.set_xscale("log")
@@ -531,7 +535,8 @@ def plot_completeness(table, path) -> Path:
                          f"({r['n_npa']}/{r['n_classified']})", fontsize=10)
         ax.set_xlabel("injected period (PA rotation period, NPA P_psi) [h]")
     axes[0].set_ylabel("injected amplitude 2.5 log10(a/b) [mag]")
-    fig.colorbar(mesh, ax=axes, label="fraction classified NPA", shrink=0.9)
+    fig.colorbar(mesh, ax=axes, label="fraction of right verdicts (NPA panel: called NPA; PA panel: not "
+                 "called NPA)", shrink=0.9)
     n = int(np.sum(table["n_injected"][table["scope"] == "all"]))
     fig.suptitle(f"Completeness of the classification for this cadence ({n} injections; cell: fraction, "
                  f"NPA/classified)\nscientific estimate for the stated injected distributions", fontsize=11)

@@ -16,6 +16,8 @@ References
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
@@ -30,6 +32,8 @@ __all__ = [
     "g12_star_to_g1g2",
     "hg_basis",
     "hg1g2_basis",
+    "HG1G2Fit",
+    "fit_hg1g2",
 ]
 
 # Bowell et al. (1989): constants of the two-term approximation ...
@@ -160,3 +164,58 @@ def hg12_star(phase_deg, h_mag, g12_star):
     """H,G12* reduced magnitude (Penttila et al. 2016)."""
     g1, g2 = g12_star_to_g1g2(g12_star)
     return hg1g2(phase_deg, h_mag, g1, g2)
+
+
+@dataclass(frozen=True)
+class HG1G2Fit:
+    """A fitted H,G1,G2 phase curve (Muinonen et al. 2010).
+
+    Attributes
+    ----------
+    h_mag : float
+        Absolute magnitude H, mag.
+    g1, g2 : float
+        The two slope parameters (non-negative, G1 + G2 <= 1 by construction of the fit).
+    rms_mag : float
+        Rms of the residuals, mag.
+    n_points : int
+    """
+
+    h_mag: float
+    g1: float
+    g2: float
+    rms_mag: float
+    n_points: int
+
+    def reduced_mag(self, phase_deg):
+        """The fitted curve at ``phase_deg``, mag."""
+        return hg1g2(phase_deg, self.h_mag, self.g1, self.g2)
+
+
+def fit_hg1g2(phase_deg, reduced_mag, err=None) -> HG1G2Fit:
+    """Fit H, G1, G2 to reduced magnitudes against phase angle.
+
+    The linear form of Muinonen et al. (2010, Icarus 209, 542, eq. 22): in flux,
+    ``10**(-0.4 V) = a1 Phi1 + a2 Phi2 + a3 Phi3`` with non-negative ``a`` (scipy's NNLS), weighted
+    by the flux errors; then ``H = -2.5 log10(a1 + a2 + a3)``, ``G1 = a1 / sum``, ``G2 = a2 / sum``.
+    """
+    from scipy.optimize import nnls
+
+    alpha = np.asarray(phase_deg, float)
+    v = np.asarray(reduced_mag, float)
+    e = np.full(v.shape, 0.05) if err is None else np.asarray(err, float)
+    ok = np.isfinite(alpha) & np.isfinite(v) & np.isfinite(e) & (e > 0)
+    if ok.sum() < 3:
+        raise ValueError("an H,G1,G2 fit needs at least three points with phase angles")
+    alpha, v, e = alpha[ok], v[ok], e[ok]
+    flux = 10.0 ** (-0.4 * v)
+    sigma = 0.4 * np.log(10.0) * flux * e  # error propagation of m -> flux
+    basis = np.column_stack(hg1g2_basis(alpha))
+    a, _ = nnls(basis / sigma[:, None], flux / sigma)
+    total = float(a.sum())
+    if not total > 0:
+        raise ValueError("the H,G1,G2 fit found no positive solution")
+    fit = HG1G2Fit(h_mag=-2.5 * math.log10(total), g1=float(a[0] / total), g2=float(a[1] / total),
+                   rms_mag=math.nan, n_points=int(v.size))
+    rms = float(np.sqrt(np.mean((v - fit.reduced_mag(alpha)) ** 2)))
+    return HG1G2Fit(fit.h_mag, fit.g1, fit.g2, rms, fit.n_points)

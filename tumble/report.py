@@ -32,9 +32,12 @@ from typing import Iterable, Mapping
 import numpy as np
 
 from tumble._io import atomic_write_text
+from tumble.display import (DAMPING_DIGITS, format_interval, format_period_h, format_probability, format_sig,
+                            format_value_err, relative_paths, unit_label)
 from tumble.exceptions import TumbleError
+from tumble.schema import FIELD_BY_NAME, REPORT_FIELDS, display, normalise, pravec2005_code
 
-__all__ = ["ReportError", "CAUTIONS", "grade_in_words", "object_figures", "write_object_report",
+__all__ = ["ReportError", "CAUTIONS", "grade_in_words", "object_figures", "object_tables", "write_object_report",
            "write_survey_report", "write_report", "page_name"]
 
 
@@ -181,6 +184,11 @@ def _page(title: str, subtitle: str, body: str, *, script: bool = False) -> str:
     )
 
 
+def _write_page(path: Path, text: str) -> None:
+    """Write a page atomically, every absolute local path in it made relative to the page's folder."""
+    atomic_write_text(path, relative_paths(text, Path(path).parent))
+
+
 def _cautions_html() -> str:
     items = "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS)
     return f"<h2 id=\"cautions\">Assumptions and cautions</h2>\n<div class=\"caution\"><ul>{items}</ul></div>"
@@ -189,47 +197,60 @@ def _cautions_html() -> str:
 # ---------------------------------------------------------------------------
 # one object
 # ---------------------------------------------------------------------------
-def _triple(v: Mapping, key: str):
-    """(median, lo, hi) of ``key`` from ``key``, ``key_lo``, ``key_hi`` (or an older [median, lo, hi] list)."""
-    x = v.get(key)
-    if isinstance(x, (list, tuple)) and len(x) == 3:
-        return tuple(_f(y) for y in x)
-    return (_f(x), _f(v.get(key + "_lo")), _f(v.get(key + "_hi")))
-
-
 def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
-    """(quantity, value, interval, unit, meaning) rows for the quantities present."""
+    """(quantity, value, interval, unit, meaning) rows for the quantities present, at the precision of
+    :mod:`tumble.display` (periods to the digit their error keeps, ratios without a unit)."""
     rows = []
 
-    def interval(name, lo, hi, value, unit, meaning):
+    def period(name, label, meaning):
+        lo, hi = v.get(f"{name}_lo"), v.get(f"{name}_hi")
         if _fin(v.get(name)):
-            iv = f"{_fmt(v.get(lo), 7)} .. {_fmt(v.get(hi), 7)} (68%)" if _fin(v.get(lo)) else "-"
-            rows.append((value, _fmt(v.get(name), 7), iv, unit, meaning))
+            value = format_period_h(v.get(name), lo=lo, hi=hi)
+            iv = (f"{format_period_h(lo, lo=lo, hi=hi)} .. {format_period_h(hi, lo=lo, hi=hi)} (68%)"
+                  if _fin(lo) and _fin(hi) else "-")
+            rows.append((label, value, iv, "h", meaning))
+
+    def interval(name, label, unit, meaning, digits=3):
+        if _fin(v.get(name)):
+            rows.append((label, format_sig(v.get(name), digits),
+                         format_interval(v.get(f"{name}_lo"), v.get(f"{name}_hi"), digits), unit_label(unit),
+                         meaning))
 
     if _fin(v.get("period_h")):
         err = v.get("period_h_err")
-        rows.append(("rotation period P", _fmt(v.get("period_h"), 8),
-                     f"&plusmn; {_fmt(err, 3)} (1 sigma)" if _fin(err) else "-", "h",
+        text = format_value_err(v.get("period_h"), err)
+        value, _, err_text = text.partition(" +- ")
+        rows.append(("rotation period P", value, f"&plusmn; {_e(err_text)} (1 sigma)" if err_text else "-", "h",
                      "PA rotation period (twice the light-curve period for a double-peaked curve)"))
-    interval("p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "P_psi", "h", "NPA rotation period (median of the posterior)")
-    interval("p_phi_h", "p_phi_h_lo", "p_phi_h_hi", "P_phi", "h", "NPA precession period (median of the posterior)")
+    period("p_psi_h", "P_psi", "NPA rotation period (median of the posterior)")
+    period("p_phi_h", "P_phi", "NPA precession period (median of the posterior)")
     if _fin(v.get("p1_h")):
-        rows.append(("P1", _fmt(v.get("p1_h"), 8), "-", "h", "strongest light-curve period"))
+        rows.append(("P1", format_period_h(v.get("p1_h")), "-", "h", FIELD_BY_NAME["p1_h"].description))
     if _fin(v.get("p2_h")):
-        rows.append(("P2", _fmt(v.get("p2_h"), 8), "-", "h", "second light-curve period (two-period fit)"))
+        rows.append(("P2", format_period_h(v.get("p2_h")), "-", "h", FIELD_BY_NAME["p2_h"].description))
+    if _fin(v.get("period_syn_h")):
+        rows.append(("P_syn", format_period_h(v.get("period_syn_h")), "-", "h",
+                     FIELD_BY_NAME["period_syn_h"].description))
+    for name, label in (("n_cycles", "cycles covered"), ("phase_coverage", "phase coverage")):
+        if _fin(v.get(name)):
+            rows.append((label, display(name, v.get(name)), "-", "", FIELD_BY_NAME[name].description))
     if _fin(v.get("amplitude_mag")):
-        rows.append(("amplitude", _fmt(v.get("amplitude_mag"), 3), "-", "mag", "peak-to-peak, one-period fit"))
-    interval("excitation", "excitation_lo", "excitation_hi", "E/E0", "1",
-             "rotational energy over the PA energy at the same angular momentum")
-    for key, label, unit, meaning in (("a_over_b", "a/b", "1", "long/intermediate axis ratio"),
-                                      ("b_over_c", "b/c", "1", "intermediate/short axis ratio"),
-                                      ("l_lon_deg", "L longitude", "deg", "angular momentum, ecliptic J2000"),
-                                      ("l_lat_deg", "L latitude", "deg", "angular momentum, ecliptic J2000")):
-        med, lo, hi = _triple(v, key)
-        if math.isfinite(med):
-            rows.append((label, _fmt(med, 4), f"{_fmt(lo, 4)} .. {_fmt(hi, 4)} (68%)", unit, meaning))
-    interval("tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "damping time tau", "Gyr",
-             "order-of-magnitude estimate; rests on an assumed mu Q")
+        rows.append(("amplitude", format_sig(v.get("amplitude_mag"), 2), "-", "mag",
+                     FIELD_BY_NAME["amplitude_mag"].description))
+    if _fin(v.get("npa_limit_mag")):
+        rows.append(("NPA detection limit", format_sig(v.get("npa_limit_mag"), 2), "-", "mag",
+                     "tumbling with a second-period signature above this rms would have been detected"))
+    interval("excitation", "E/E0", "", "rotational energy over the PA energy at the same angular momentum")
+    interval("a_over_b", "a/b", "", "long/intermediate axis ratio")
+    interval("b_over_c", "b/c", "", "intermediate/short axis ratio")
+    mirror = "; the mirror solution (lon + 180 deg, -lat) is not excluded by disk-integrated photometry"
+    interval("l_lon_deg", "L longitude", "deg", "angular momentum, ecliptic J2000" + mirror)
+    interval("l_lat_deg", "L latitude", "deg", "angular momentum, ecliptic J2000" + mirror)
+    period("p_orb_h", "P_orb", "orbital period of the binary hypothesis")
+    if _fin(v.get("tau_damp_gyr")):
+        rows.append(("damping time tau", format_sig(v.get("tau_damp_gyr"), DAMPING_DIGITS),
+                     format_interval(v.get("tau_damp_gyr_lo"), v.get("tau_damp_gyr_hi"), DAMPING_DIGITS), "Gyr",
+                     "order-of-magnitude estimate; rests on an assumed mu Q"))
     return rows
 
 
@@ -289,9 +310,11 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
 
         p1 = _f(verdict.get("p1_h"))
         chosen = p1 if math.isfinite(p1) else None
-        draw("scan", "1-D period scan: reduced chi-square of the multi-harmonic Fourier fit (per-session "
-             "zero-points) against trial period; the red line is the reported light-curve period P1, dashed "
-             "lines the other ranked minima with their alias relation to the best one.",
+        draw("scan", "1-D period scan: Delta chi-square of the multi-harmonic Fourier fit (per-session zero-points) "
+             "from the deepest minimum, in units of its reduced chi-square, against trial period (the same "
+             "convention as tumble scan --plot); the red line is the reported light-curve period P1, a "
+             "dash-dotted line the deepest minimum when it differs, dashed lines the other ranked minima "
+             "with their alias relation.",
              lambda p: plots.plot_scan(fourier_scan(lc), chosen_period_h=chosen, path=p))
         model = None
         try:
@@ -301,8 +324,11 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
         p2 = _f(verdict.get("p2_h"))
         if two_d and math.isfinite(p1) and math.isfinite(p2):
             draw("map2d", "Two-period scan: Delta chi-square of the two-period Fourier series (Pravec et al. "
-                 "2005) over a (P1, P2) grid around the reported pair (+ marks the best grid pair).",
-                 lambda p: plots.plot_two_period_map(plots.two_period_zoom(lc, p1, p2), path=p))
+                 "2005) over a (P1, P2) grid around the reported pair, symmetric-log colour scale, with the "
+                 "68.3, 95.4 and 99.7 % confidence contours of two parameters; + marks the reported pair "
+                 "(the values in the table), a circle the grid minimum when it differs.",
+                 lambda p: plots.plot_two_period_map(plots.two_period_zoom(lc, p1, p2), reported_pair_h=(p1, p2),
+                                                     path=p))
         if model is not None:
             draw("lightcurve", "Light curve per session (blue, with errors) and the Fourier model at the reported "
                  "periods with each session's zero-point (red).",
@@ -314,6 +340,19 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
             draw("folded", fold_caption, lambda p: plots.plot_folded(lc, model, path=p))
             draw("residuals", "Residuals of the model against time (colour by session) and their distribution "
                  "in units of the quoted errors.", lambda p: plots.plot_residuals(lc, model, path=p))
+            draw("composite", "Composite light curve: the data minus their zero-points folded on the best single "
+                 "period, coloured by session; a session that does not line up with the others shows at once.",
+                 lambda p: plots.plot_composite_fold(lc, model, path=p))
+            p_one = p1 if math.isfinite(p1) else model.rotation_period_h
+            draw("residual_periodogram", "Periodogram (Lomb-Scargle) of the residuals after removing the P1 "
+                 "series and the zero-points: a tumbler's second period stands out here; a principal-axis "
+                 "rotator's residuals are flat.",
+                 lambda p: plots.plot_residual_periodogram(lc, p_one, p2_h=p2 if math.isfinite(p2) else None,
+                                                           path=p))
+            if lc.phase_deg is not None and lc.has_distances and np.any(np.asarray(lc.session) < 0):
+                draw("phase_curve", "Phase curve: reduced magnitude (rotation removed) against solar phase angle "
+                     "with the fitted H,G1,G2 curve (Muinonen et al. 2010).",
+                     lambda p: plots.plot_phase_curve(lc, model, path=p))
     if posterior is not None and np.asarray(posterior.get("samples", [])).ndim == 2 \
             and np.asarray(posterior["samples"]).shape[0] > 1:
         draw("posterior", "Posterior samples of the main parameters of the physical rotation-state fit "
@@ -323,7 +362,85 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
     return figs, notes
 
 
-def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, data_note: str = "") -> str:
+def _longest_session_h(lc) -> float:
+    """Duration of the longest dense session, hours (inf for sparse data only)."""
+    s = np.asarray(lc.session, int)
+    t = np.asarray(lc.t, float)
+    spans = [np.ptp(t[s == k]) * 24.0 for k in np.unique(s[s >= 0])]
+    return max(spans) if spans else math.inf
+
+
+def object_tables(verdict: Mapping, lc=None) -> list[tuple[str, str, str]]:
+    """The diagnostic tables of an object page: (element id, heading, HTML table).
+
+    Cycles covered and phase coverage of each reported period (:func:`tumble.coverage.period_coverage`),
+    the frequency combinations ``j f1 + k f2`` that carry the signal with their amplitudes, and the
+    per-session zero-points (with the photometry only).
+    """
+    from tumble.coverage import period_coverage
+
+    v = _normalise(verdict)
+    out = []
+    if lc is None:
+        return out
+    t = np.asarray(lc.t, float)
+    rows = []
+    for name, label in (("period_h", "P"), ("p_psi_h", "P_psi"), ("p_phi_h", "P_phi"), ("p1_h", "P1"),
+                        ("p2_h", "P2")):
+        if _fin(v.get(name)):
+            c = period_coverage(t, _f(v.get(name)))
+            rows.append(f"<tr><td>{_e(label)}</td><td class=\"num\">{_e(format_period_h(c.period_h))}</td>"
+                        f"<td class=\"num\">{_e(format_sig(c.n_cycles, 3))}</td>"
+                        f"<td class=\"num\">{_e(format_sig(c.phase_coverage, 2))}</td></tr>")
+    if rows:
+        out.append(("coverage", "Cycles covered and phase coverage",
+                    "<table id=\"coverage\"><thead><tr><th>period</th><th>value (h)</th><th>cycles in the span</th>"
+                    "<th>phase coverage (fraction of 20 bins)</th></tr></thead><tbody>" + "".join(rows)
+                    + "</tbody></table>"))
+    try:
+        from tumble import plots
+
+        model = plots.model_from_verdict(lc, v)
+    except (TumbleError, ValueError, np.linalg.LinAlgError):
+        return out
+    terms = plots.frequency_combinations(model)
+    night_h = _longest_session_h(lc)
+    body = "".join(f"<tr><td class=\"num\">{t_.j}</td><td class=\"num\">{t_.k}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.frequency_per_d, 6))}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.period_h, 6))}"
+                   f"{' *' if t_.period_h > night_h else ''}</td>"
+                   f"<td class=\"num\">{_e(format_sig(t_.amplitude_mag, 2))}</td></tr>" for t_ in terms)
+    long_note = ""
+    if any(t_.period_h > night_h for t_ in terms):
+        long_note = (f"<p class=\"note\">* a period longer than the longest session ({format_sig(night_h, 3)} h): "
+                     "such a term trades against the per-session zero-points, so no single night constrains "
+                     "its amplitude; a large amplitude here with widely spread zero-points means the drawn "
+                     "model is degenerate, not that the body varies by that much.</p>")
+    out.append(("combinations", "Frequency combinations that carry the signal",
+                "<table id=\"combinations\"><thead><tr><th>j</th><th>k</th><th>j f1 + k f2 (1/d)</th>"
+                "<th>period (h)</th><th>semi-amplitude (mag)</th></tr></thead><tbody>" + body + "</tbody></table>"
+                + long_note))
+    zps = plots.session_zero_points(lc, model)
+    body = "".join(f"<tr><td>{_e(z.title.replace(chr(10), ', '))}</td>"
+                   f"<td class=\"num\">{_e(format_sig(z.zero_point_mag, 4))}</td></tr>" for z in zps)
+    out.append(("zero-points", "Per-session zero-points",
+                "<table id=\"zero-points\"><thead><tr><th>session</th><th>zero-point (mag)</th></tr></thead>"
+                "<tbody>" + body + "</tbody></table>"))
+    return out
+
+
+def _p2005_row(v: Mapping) -> str:
+    """The verdict on the NPA reliability scale of Pravec et al. (2005), when it applies."""
+    code = str(v.get("npa_code_p2005") or pravec2005_code(v))
+    if not code:
+        return ""
+    return (f"<tr><th>Pravec et al. (2005) code</th><td>{_e(code)}</td><td>our verdict on the NPA reliability "
+            "scale of Pravec et al. (2005, Icarus 173, 108), for observers who report to it; our grades stay "
+            "our own</td></tr>")
+
+
+def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, data_note: str = "",
+                 tables=()) -> str:
     rotation = str(v.get("rotation", "") or "")
     status = str(v.get("status", "ok") or "ok")
     parts = []
@@ -334,8 +451,8 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
         parts.append("<p>No verdict was made for this object.</p>")
         parts.append(_cautions_html())
         return "\n".join(parts)
-    mode = str(v.get("mode", "") or "none")
-    label = rotation + (f" ({mode})" if rotation == "NPA" and mode not in ("", "none") else "")
+    mode = str(v.get("mode", "") or "")
+    label = rotation + (f" ({mode})" if rotation == "NPA" and mode else "")
     cls = rotation if rotation in ("PA", "NPA", "undecided") else "undecided"
     prior = v.get("prior_npa")
     prior_txt = f" at a prior of {_fmt(prior, 3)}" if _fin(prior) else ""
@@ -344,12 +461,12 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
     parts.append(f"<div class=\"verdict v-{_e(cls)}\" id=\"verdict\">{_e(label or '-')} &mdash; grade "
                  f"<b>{_e(v.get('grade', '') or 'none')}</b></div>")
     parts.append("<table><tbody>"
-                 f"<tr><th>p(NPA)</th><td class=\"num\">{_fmt(v.get('p_npa'), 3)}</td>"
+                 f"<tr><th>p(NPA)</th><td class=\"num\">{_e(format_probability(v.get('p_npa')))}</td>"
                  f"<td>posterior probability of tumbling{_e(prior_txt)}</td></tr>"
-                 f"<tr><th>ln B(NPA:PA)</th><td class=\"num\">{_fmt(v.get('ln_bayes_factor'), 4)}"
-                 + (f" &plusmn; {_fmt(ln_err, 2)}" if _fin(ln_err) and _f(ln_err) > 0 else "") +
+                 f"<tr><th>ln B(NPA:PA)</th><td class=\"num\">{display('ln_bayes_factor', v.get('ln_bayes_factor'))}"
+                 + (f" &plusmn; {display('ln_bayes_factor_err', ln_err)}" if _fin(ln_err) and _f(ln_err) > 0 else "") +
                  "</td><td>natural log of the Bayes factor (positive favours NPA)</td></tr>"
-                 "</tbody></table>")
+                 + _p2005_row(v) + "</tbody></table>")
     parts.append(f"<p id=\"grade-words\">{_e(grade_in_words(v))}</p>")
     parts.append("<h2>Periods and derived quantities</h2>")
     rows = _periods_rows(v)
@@ -376,6 +493,8 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
     if warnings:
         parts.append("<h2>Warnings</h2><ul>" + "".join(f"<li class=\"warn\">{_e(w)}</li>" for w in warnings)
                      + "</ul>")
+    for ident, heading, table in tables:
+        parts.append(f"<h2 id=\"h-{_e(ident)}\">{_e(heading)}</h2>{table}")
     parts.append("<h2>Figures</h2>")
     if data_note:
         parts.append(f"<p class=\"note\">{_e(data_note)}</p>")
@@ -391,7 +510,8 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
 
 
 def _normalise(verdict: Mapping) -> dict:
-    v = dict(verdict)
+    """The schema's keys (``object``, ``_lo``/``_hi`` intervals, mode '' / 'unknown')."""
+    v = normalise(verdict)
     if "object" not in v and "object_id" in v:
         v["object"] = v["object_id"]
     return v
@@ -428,9 +548,10 @@ def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mappin
     name = str(v.get("object", "") or "object")
     figures, notes = ([], []) if str(v.get("status", "ok") or "ok") != "ok" else object_figures(
         out_dir, v, lc, posterior=posterior, two_d=two_d, prefix=figure_prefix)
-    body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note)
+    tables = object_tables(v, lc) if str(v.get("status", "ok") or "ok") == "ok" else []
+    body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note, tables=tables)
     path = out_dir / page
-    atomic_write_text(path, _page(f"{name}: tumble report", "One object: rotation verdict, periods and figures. "
+    _write_page(path, _page(f"{name}: tumble report", "One object: rotation verdict, periods and figures. "
                                   "Scientific estimates for research use, not operational decisions.", body))
     return path
 
@@ -438,14 +559,8 @@ def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mappin
 # ---------------------------------------------------------------------------
 # a survey
 # ---------------------------------------------------------------------------
-#: Columns of the survey table: (results column, header, unit, digits or None for text).
-SURVEY_COLUMNS = (
-    ("object", "object", "", None), ("status", "status", "", None), ("rotation", "rotation", "", None),
-    ("mode", "mode", "", None), ("p_npa", "p(NPA)", "", 3), ("grade", "grade", "", None),
-    ("period_h", "P", "h", 7), ("p_psi_h", "P_psi", "h", 6), ("p_phi_h", "P_phi", "h", 6), ("p1_h", "P1", "h", 7),
-    ("p2_h", "P2", "h", 7), ("amplitude_mag", "amplitude", "mag", 3), ("tau_damp_gyr", "tau", "Gyr", 3),
-    ("n_points", "points", "", None), ("message", "message", "", None),
-)
+#: Columns of the survey table, from the one schema (:data:`tumble.schema.REPORT_FIELDS`).
+SURVEY_COLUMNS = REPORT_FIELDS
 
 
 def _row_dict(table, i) -> dict:
@@ -490,12 +605,12 @@ def _read_sizes(path) -> dict:
     return out
 
 
-def _cell(row: Mapping, col: str, digits, link: str | None) -> str:
+def _cell(row: Mapping, field, link: str | None) -> str:
+    """One cell of the survey table: shown by the schema's display format, sorted by the raw value."""
+    col = field.name
     v = row.get(col)
-    if digits is None:
-        text = "" if v is None else str(v)
-        if col == "n_points":
-            return f"<td class=\"num\" data-sort=\"{_e(text)}\">{_e(text)}</td>"
+    if field.kind in ("str", "bool"):
+        text = display(col, v) if field.kind == "bool" else ("" if v is None else str(v))
         if link is not None:
             return f"<td data-sort=\"{_e(text)}\"><a href=\"{_e(link)}\">{_e(text)}</a></td>"
         if col == "message" and len(text) > 120:
@@ -505,7 +620,7 @@ def _cell(row: Mapping, col: str, digits, link: str | None) -> str:
     x = _f(v)
     if not math.isfinite(x):
         return "<td class=\"num\" data-sort=\"\">-</td>"
-    return f"<td class=\"num\" data-sort=\"{x!r}\">{x:.{digits}g}</td>"
+    return f"<td class=\"num\" data-sort=\"{x!r}\">{_e(display(col, x))}</td>"
 
 
 def _lightcurves(data, read_options):
@@ -633,17 +748,18 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
         if any(math.isfinite(x) for x in d):
             plots.plot_period_diameter(rows, d, title=results_path.stem, path=out_dir / "sample_period_diameter.png")
             sample_figs.append(("sample_period_diameter.png",
-                                "Period-diameter diagram of the classified objects with lines of constant damping "
-                                "time (Burns & Safronov 1973 form with mu Q = 5e11 Pa, density 2000 kg/m^3 and "
-                                "K3^2 = 0.03, the values behind Harris 1994's constant); "
-                                "symbols: blue circle PA, red up-triangle NPA SAM, orange down-triangle NPA LAM, "
-                                "purple diamond NPA with open mode, open grey square undecided."))
+                                "Rotation period (PA: P; NPA: P_psi) against diameter of the classified objects, "
+                                "with lines of constant damping time (Burns & Safronov 1973 form with mu Q = 5e11 "
+                                "Pa, density 2000 kg/m^3 and K3^2 = 0.03, the values behind Harris 1994's "
+                                "constant); symbols: blue circle PA, red up-triangle NPA SAM, orange down-triangle "
+                                "NPA LAM, purple diamond NPA with the mode unknown. Objects without a rotation "
+                                "period (undecided, screen verdicts, NPA without P_psi) are not plotted."))
         else:
             sample_notes.append("No diameters are known (give the report a size table), so no period-diameter "
                                 "diagram.")
     body = _survey_body(rows, links, sample_figs, sample_notes, results_path)
     index = out_dir / "index.html"
-    atomic_write_text(index, _page(title, f"{len(rows)} objects from {_e(results_path.name)}. Scientific "
+    _write_page(index, _page(title, f"{len(rows)} objects from {_e(results_path.name)}. Scientific "
                                    "estimates for research use, not operational decisions.", body, script=True))
     return index
 
@@ -659,19 +775,21 @@ def _survey_body(rows, links, sample_figs, sample_notes, results_path) -> str:
              _counts_html("status", Counter(str(r.get("status", "")) for r in rows)),
              _counts_html("rotation (objects with status ok)", Counter(
                  str(r.get("rotation", "")) + (f" {r.get('mode')}" if str(r.get("rotation")) == "NPA"
-                                               and str(r.get("mode")) not in ("", "none") else "") for r in ok)),
+                                               and str(r.get("mode") or "") not in ("", "none") else "")
+                for r in ok)),
              _counts_html("grade (objects with status ok)", Counter(str(r.get("grade", "")) for r in ok))]
     parts.append("<h2>Objects</h2>")
     parts.append("<p><label for=\"filter\">Filter rows: </label><input id=\"filter\" type=\"search\" "
                  "placeholder=\"text in any column, e.g. NPA or KRN-00\"> <span id=\"shown\" class=\"note\"></span>"
                  "</p><p class=\"note\">Click a column header to sort by it (again to reverse). Periods in hours; "
                  "'-' where a value does not apply.</p>")
-    head = "".join(f"<th data-col=\"{_e(c)}\" title=\"{_e(c)}\">{_e(h)}{(' (' + _e(u) + ')') if u else ''}</th>"
-                   for c, h, u, _ in SURVEY_COLUMNS)
+    head = "".join(f"<th data-col=\"{_e(f.name)}\" title=\"{_e(f.name)}: {_e(f.description)}\">{_e(f.header)}"
+                   f"{(' (' + _e(unit_label(f.unit)) + ')') if unit_label(f.unit) else ''}</th>"
+                   for f in SURVEY_COLUMNS)
     body = []
     for r in rows:
         name = str(r.get("object", ""))
-        cells = "".join(_cell(r, c, dg, links.get(name) if c == "object" else None) for c, _, _, dg in SURVEY_COLUMNS)
+        cells = "".join(_cell(r, f, links.get(name) if f.name == "object" else None) for f in SURVEY_COLUMNS)
         body.append(f"<tr>{cells}</tr>")
     parts.append(f"<div class=\"scroll\"><table id=\"objects\" class=\"sortable\"><thead><tr>{head}</tr></thead>"
                  "<tbody>" + "\n".join(body) + "</tbody></table></div>")

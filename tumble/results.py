@@ -1,6 +1,6 @@
 """The results catalogue: one row per object, stable column names, units in the header.
 
-The schema is the contract between ``tumble classify``, ``tumble survey``,
+The columns are defined once in :mod:`tumble.schema`; the schema is the contract between ``tumble classify``, ``tumble survey``,
 ``tumble relax --sample`` and ``tumble report`` (see ``docs/outputs.md``).
 Rows are plain dicts keyed by column name; missing values are NaN (numbers)
 or empty strings (text).
@@ -9,89 +9,44 @@ or empty strings (text).
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterable, Mapping
 
 import numpy as np
 
 from tumble._io import atomic_path, strip_compression
+from tumble.display import relative_paths
 from tumble.exceptions import TumbleError
+from tumble.schema import RESULT_FIELDS, STATUS_VALUES, Field, SchemaError, coerce, derive, normalise
+from tumble.schema import results_row as schema_results_row
 
 __all__ = ["Column", "RESULT_COLUMNS", "COLUMN_NAMES", "STATUS_VALUES", "results_table", "write_results",
-           "read_results", "empty_row"]
+           "read_results", "empty_row", "results_row"]
 
-
-@dataclass(frozen=True)
-class Column:
-    """One results column: name, kind ('str', 'int' or 'float'), unit (astropy string or ''), meaning."""
-
-    name: str
-    kind: str
-    unit: str
-    description: str
-
-
-RESULT_COLUMNS: tuple[Column, ...] = (
-    Column("object", "str", "", "object designation"),
-    Column("status", "str", "", "ok, error or skipped"),
-    Column("message", "str", "", "one-line error or warning summary"),
-    Column("n_points", "int", "", "points used"),
-    Column("n_sessions", "int", "", "sessions with their own zero-point"),
-    Column("span_d", "float", "d", "time span of the data"),
-    Column("rotation", "str", "", "PA, NPA or undecided"),
-    Column("mode", "str", "", "SAM, LAM or none"),
-    Column("p_npa", "float", "", "posterior probability of NPA rotation"),
-    Column("ln_bayes_factor", "float", "", "natural log of the Bayes factor NPA:PA"),
-    Column("grade", "str", "", "confidence grade of the verdict"),
-    Column("period_h", "float", "h", "PA rotation period"),
-    Column("period_h_err", "float", "h", "1-sigma uncertainty of period_h"),
-    Column("p_psi_h", "float", "h", "NPA rotation period P_psi (median)"),
-    Column("p_psi_h_lo", "float", "h", "P_psi, lower end of the 68% interval"),
-    Column("p_psi_h_hi", "float", "h", "P_psi, upper end of the 68% interval"),
-    Column("p_phi_h", "float", "h", "NPA precession period P_phi (median)"),
-    Column("p_phi_h_lo", "float", "h", "P_phi, lower end of the 68% interval"),
-    Column("p_phi_h_hi", "float", "h", "P_phi, upper end of the 68% interval"),
-    Column("p1_h", "float", "h", "strongest light-curve period"),
-    Column("p2_h", "float", "h", "second light-curve period (two-period fit)"),
-    Column("route", "str", "", "full, evidence or screen"),
-    Column("screen_flag", "str", "", "screen only: candidate, quiet or unknown (a flag for triage, not a verdict)"),
-    Column("screen_score", "float", "", "screen only: -Delta BIC / 2 of two periods over one"),
-    Column("npa_limit_mag", "float", "mag", "PA only: rms of the smallest two-period signature that would have been detected"),
-    Column("amplitude_mag", "float", "mag", "peak-to-peak light-curve amplitude"),
-    Column("tau_damp_gyr", "float", "Gyr", "damping timescale (median; an order-of-magnitude estimate)"),
-    Column("tau_damp_gyr_lo", "float", "Gyr", "damping timescale, lower end of the 68% interval"),
-    Column("tau_damp_gyr_hi", "float", "Gyr", "damping timescale, upper end of the 68% interval"),
-    Column("runtime_s", "float", "s", "wall time spent on the object"),
-)
+# The columns are defined once, in tumble.schema; these names stay for the callers that use them.
+Column = Field
+RESULT_COLUMNS: tuple[Field, ...] = RESULT_FIELDS
 COLUMN_NAMES = tuple(c.name for c in RESULT_COLUMNS)
-STATUS_VALUES = ("ok", "error", "skipped")
 _BY_NAME = {c.name: c for c in RESULT_COLUMNS}
+#: Stored dtype of each column kind (booleans as text so that a missing value stays missing).
+_DTYPES = {"str": str, "bool": str, "int": np.int64, "float": np.float64}
 
 
 def empty_row(object_id: str, status: str = "ok", message: str = "") -> dict:
     """A row with every column present: NaN numbers, empty text, zero counts."""
-    if status not in STATUS_VALUES:
-        raise TumbleError(f"status must be one of {', '.join(STATUS_VALUES)}, not '{status}'")
-    row = {}
-    for c in RESULT_COLUMNS:
-        row[c.name] = "" if c.kind == "str" else (0 if c.kind == "int" else np.nan)
-    row.update(object=str(object_id), status=status, message=" ".join(str(message).split()))
-    return row
-
-
-def _coerce(col: Column, value):
-    if col.kind == "str":
-        return "" if value is None else str(value)
-    if col.kind == "int":
-        try:
-            return int(value)
-        except (TypeError, ValueError):
-            return 0
     try:
-        return float(value)
-    except (TypeError, ValueError):
-        return np.nan
+        return schema_results_row({}, object_id=str(object_id), status=status, message=message)
+    except SchemaError as exc:
+        raise TumbleError(str(exc)) from None
+
+
+def results_row(record: Mapping | None = None, **kw) -> dict:
+    """A results row from any verdict-like mapping (:func:`tumble.schema.results_row`); missing keys are
+    empty cells, a bad status raises :class:`TumbleError`."""
+    try:
+        return schema_results_row(record, **kw)
+    except SchemaError as exc:
+        raise TumbleError(str(exc)) from None
 
 
 def results_table(rows: Iterable[Mapping], extra_columns: Iterable[str] = ()):
@@ -103,18 +58,18 @@ def results_table(rows: Iterable[Mapping], extra_columns: Iterable[str] = ()):
     from astropy.table import Column as TableColumn
     from astropy.table import Table
 
-    rows = list(rows)
+    rows = [derive(normalise(r)) for r in rows]
     extra = [c for c in extra_columns if c not in _BY_NAME]
     table = Table()
     for col in RESULT_COLUMNS:
-        values = [_coerce(col, r.get(col.name)) for r in rows]
-        dtype = {"str": str, "int": np.int64, "float": np.float64}[col.kind]
+        values = [coerce(col, r.get(col.name)) for r in rows]
+        dtype = _DTYPES[col.kind]
         data = np.array(values, dtype=dtype) if values else np.array([], dtype=dtype)
         table[col.name] = TableColumn(data, unit=u.Unit(col.unit) if col.unit else None,
                                       description=col.description)
     for name in extra:
         table[name] = [r.get(name, np.nan) for r in rows]
-    table.meta["schema"] = "tumble results v1"
+    table.meta["schema"] = "tumble results v2"
     table.meta["caution"] = ("Scientific estimates for research use, not operational advice; damping "
                              "timescales rest on an assumed rigidity and quality factor.")
     return table
@@ -135,6 +90,8 @@ def write_results(rows: Iterable[Mapping], path: str | os.PathLike, extra_column
     """Write the results catalogue atomically; the format follows the extension (ECSV by default)."""
     path = Path(path)
     fmt = _table_format(path)
+    # no absolute local path in the catalogue: messages name files relative to its folder
+    rows = [{**r, "message": relative_paths(r.get("message") or "", path.parent)} for r in rows]
     table = results_table(rows, extra_columns)
     with atomic_path(path) as tmp:
         table.write(tmp, format=fmt, overwrite=True)

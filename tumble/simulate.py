@@ -727,6 +727,7 @@ def write_simulation(sim: SimulatedLightCurve, path, *, format: str | None = Non
     """
     from tumble._io import atomic_write_text, strip_compression
     from tumble.photometry import write_lightcurve
+    from tumble.schema import dumps_strict
 
     path = Path(path)
     fmt = format or ("ecsv" if strip_compression(path).lower().endswith(".ecsv") else None)
@@ -739,7 +740,7 @@ def write_simulation(sim: SimulatedLightCurve, path, *, format: str | None = Non
         written.append(write_lightcurve(sim.lightcurve, path, format=fmt))
     if sidecar:
         side = _truth_path(path)
-        atomic_write_text(side, json.dumps(sim.truth, indent=2, sort_keys=True) + "\n", compress=False)
+        atomic_write_text(side, dumps_strict(sim.truth, indent=2, sort_keys=True) + "\n", compress=False)
         written.append(side)
     return written
 

@@ -29,6 +29,7 @@ import ctypes
 import glob
 import json
 import os
+import re
 import threading
 import time
 import zlib
@@ -268,6 +269,8 @@ def _classify_task(task: ObjectTask, config: SurveyConfig) -> dict:
     from tumble.classify import classify, screen
     from tumble.damping import damping_for_classification
     from tumble.photometry import read_lightcurve
+    from tumble.results import results_row
+    from tumble.schema import dumps_strict, verdict_record
 
     lc = task.lightcurve
     if lc is None:
@@ -278,28 +281,26 @@ def _classify_task(task: ObjectTask, config: SurveyConfig) -> dict:
     else:
         verdict = classify(lc, prior_npa=config.prior_npa, rng=rng, n_walkers=config.n_walkers,
                            max_steps=config.max_steps).verdict
-    row = verdict.results_row()
-    row["object"] = task.object_id
+    record = verdict.to_dict()
+    record.setdefault("route", config.route)  # the verdict's own route wins once it carries one
+    record = verdict_record(record)
+    row = results_row(record, object_id=task.object_id)
     d_km, h_mag, albedo = config.sizes.get(task.object_id, (None, None, None))
     damp = None
     if config.route != "screen":  # a screen states no rotation, so no damping time
         damp = damping_for_classification(verdict, diameter_km=d_km, h_mag=h_mag, albedo=albedo,
                                           rng=object_seed(config.seed + 1, task.object_id))
     if damp is not None:
-        row.update(tau_damp_gyr=damp.tau_gyr, tau_damp_gyr_lo=damp.tau_gyr_lo, tau_damp_gyr_hi=damp.tau_gyr_hi)
+        taus = dict(tau_damp_gyr=damp.tau_gyr, tau_damp_gyr_lo=damp.tau_gyr_lo, tau_damp_gyr_hi=damp.tau_gyr_hi)
+        row.update(taus)
+        record = verdict_record(record, **taus)
     if config.keep_objects_dir:
         from tumble._io import atomic_write_text
 
         folder = Path(config.keep_objects_dir) / task.object_id
         folder.mkdir(parents=True, exist_ok=True)
-        atomic_write_text(folder / "verdict.json", json.dumps(verdict.to_dict(), indent=2, default=_json_default) + "\n")
+        atomic_write_text(folder / "verdict.json", dumps_strict(record, indent=2) + "\n")
     return row
-
-
-def _json_default(o):
-    if isinstance(o, np.generic):
-        return o.item()
-    return str(o)
 
 
 # ---------------------------------------------------------------------------
@@ -535,12 +536,30 @@ class SurveySummary:
         return asdict(self)
 
 
+#: Words of an error message kept as its kind in the survey summary.
+ERROR_KIND_WORDS = 8
+
+
 def _error_kind(message: str) -> str:
-    text = str(message)
-    parts = text.split(": ")
-    body = parts[-1] if len(parts) > 1 else text
-    words = [w for w in body.replace("(", " ").split() if not any(ch.isdigit() for ch in w)]
-    return " ".join(words[:4]) or "error"
+    """The kind of an error for the summary: its message without the file/row prefix, the quoted values
+    and the numbers (so that "a.csv: row 3: 'n/a?' is not a number" and "b.csv: row 9: 'x' is not a
+    number" count as one kind, "value is not a number")."""
+    text = " ".join(str(message).split())
+    parts = [p for p in text.split(": ") if p]
+    if "internal error" in parts[1:-1]:
+        i = parts.index("internal error")
+        return f"internal error {parts[i + 1]}" if i + 1 < len(parts) - 1 else "internal error"
+    # the prefix names where (file, row, column); the kind is the last part that has words in it
+    body = next((p for p in reversed(parts) if re.search(r"[A-Za-z]{3,}", _unquote(p))), text)
+    body = _unquote(body)
+    words = [w.strip(",;.()") for w in body.split()]
+    words = [w for w in words if w and not any(ch.isdigit() for ch in w)]
+    return " ".join(words[:ERROR_KIND_WORDS]) or "error"
+
+
+def _unquote(text: str) -> str:
+    """Quoted values replaced by the word 'value'."""
+    return re.sub(r"'[^']*'|\"[^\"]*\"", "value", text)
 
 
 def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = None, *, workers: int | None = None,

@@ -90,7 +90,9 @@ def rule_evidence_defined(d: DecisionInputs) -> list:
 def rule_npa_testable(d: DecisionInputs) -> list:
     """No admissible second frequency (or too few): PA cannot be preferred to an untested alternative."""
     share = d.evidence.f2_admissible_share
-    if not d.evidence.npa_testable or (np.isfinite(share) and share < th.MIN_ADMISSIBLE_F2_SHARE):
+    # the share is that of the dominant PA window: when NPA wins in another window it was tested there
+    pa_untested = d.favour == "PA" and np.isfinite(share) and share < th.MIN_ADMISSIBLE_F2_SHARE
+    if not d.evidence.npa_testable or pa_untested:
         return _undecided(f"{UNTESTABLE_REASON}: every second period the span could resolve is commensurate with "
                           f"the first (admissible share {100 * (share if np.isfinite(share) else 0):.0f} % of the "
                           f"second-frequency range)")
@@ -289,7 +291,7 @@ PERIOD_FIELDS = ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_psi_h
 def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, fit=None, object_id: str = "object",
            n_points: int = 0, n_sessions: int = 0, extra_warnings=(), route: str | None = None, sparse: bool = False,
            period_check=None, adequacy=None, route_name: str = "full", npa_limit_mag: float = math.nan,
-           pa_geometry_fit=None) -> Verdict:
+           pa_geometry_fit=None, calibration_features=None) -> Verdict:
     """Turn the evidence (and the physical fit, significance and adequacy, if any) into a :class:`Verdict`.
 
     Every rule of :data:`RULES` runs; an ``undecided`` finding withholds the verdict (grade

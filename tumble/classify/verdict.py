@@ -8,6 +8,7 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from tumble.classify.thresholds import GRADE_EDGES_2LNB, GRADE_NAMES
+from tumble.display import format_probability
 
 __all__ = ["Verdict", "MIRROR_NOTE", "UNTESTABLE_REASON", "NO_PERIOD_REASON", "grade_sentence",
            "format_probability"]
@@ -18,21 +19,6 @@ MIRROR_NOTE = ("the angular-momentum direction has a mirror solution (lon + 180 
 UNTESTABLE_REASON = "NPA not testable on this span"
 #: Reason given when no period passes the significance, coverage and resolution checks.
 NO_PERIOD_REASON = "no significant period"
-#: Probabilities are shown to this resolution; beyond it as "< 0.001" / "> 0.999".
-PROBABILITY_RESOLUTION = 1e-3
-
-
-def format_probability(p: float) -> str:
-    """A probability at the precision it deserves: ``"< 0.001"``, ``"> 0.999"``, or three decimals."""
-    if p is None or not np.isfinite(p):
-        return "n/a"
-    if p < PROBABILITY_RESOLUTION:
-        return f"< {PROBABILITY_RESOLUTION:g}"
-    if p > 1 - PROBABILITY_RESOLUTION:
-        return f"> {1 - PROBABILITY_RESOLUTION:g}"
-    return f"{p:.3f}"
-
-
 @dataclass(frozen=True)
 class Verdict:
     """The classification of one object.

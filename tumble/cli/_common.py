@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 
 __all__ = ["add_input_options", "read_options", "add_output_options", "print_json", "parse_elements",
@@ -100,15 +99,8 @@ def add_output_options(parser: argparse.ArgumentParser) -> None:
 
 
 def print_json(obj) -> None:
-    """Print ``obj`` as indented JSON (numpy scalars and arrays converted)."""
-    import numpy as np
+    """Print ``obj`` as indented strict JSON (numpy converted; NaN and infinities as null)."""
+    from tumble.schema import dumps_strict
 
-    def default(o):
-        if isinstance(o, np.generic):
-            return o.item()
-        if isinstance(o, np.ndarray):
-            return o.tolist()
-        return str(o)
-
-    json.dump(obj, sys.stdout, indent=2, default=default, allow_nan=True)
+    sys.stdout.write(dumps_strict(obj, indent=2))
     sys.stdout.write("\n")

@@ -3,25 +3,9 @@
 from __future__ import annotations
 
 import argparse
-import json
 import math
 
 from tumble.cli._common import add_input_options, add_output_options, print_json, read_options
-
-#: verdict.json keys, in order (results-column names where DESIGN.md has them).
-VERDICT_KEYS = (
-    "object", "route", "rotation", "mode", "p_npa", "prior_npa", "ln_bayes_factor", "ln_bayes_factor_err", "grade",
-    "grade_uncapped", "grade_reason", "screen_flag", "screen_score",
-    "period_h", "period_h_err", "period_syn_h", "period_fap", "n_cycles", "phase_coverage",
-    "p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "p_phi_h", "p_phi_h_lo", "p_phi_h_hi",
-    "p1_h", "p2_h", "excitation", "excitation_lo", "excitation_hi", "a_over_b", "a_over_b_lo", "a_over_b_hi",
-    "b_over_c", "b_over_c_lo", "b_over_c_hi", "l_lon_deg", "l_lon_deg_lo", "l_lon_deg_hi", "l_lat_deg",
-    "l_lat_deg_lo", "l_lat_deg_hi", "amplitude_mag", "npa_testable", "npa_limit_mag", "chi2_dof_chosen",
-    "chi2_dof_rejected", "error_scale_chosen", "residual_period_h", "residual_fap",
-    "tau_damp_gyr", "tau_damp_gyr_lo", "tau_damp_gyr_hi", "evidence_route",
-    "state_converged", "mode_margin", "n_points", "n_sessions", "span_d", "screen", "seed", "warnings",
-)
-
 
 def add_parser(sub) -> None:
     p = sub.add_parser(
@@ -30,7 +14,7 @@ def add_parser(sub) -> None:
         description="Decide from one object's photometry whether it rotates about its principal axis (PA) "
                     "or tumbles (NPA, SAM or LAM): Bayes factor of shape-free one- and two-period models, "
                     "posterior probability at the given prior, a grade on the Kass & Raftery (1995) scale, "
-                    "periods with 68 %% intervals, and the rotation state from a physical ellipsoid fit. "
+                    "periods with 68% intervals, and the rotation state from a physical ellipsoid fit. "
                     "Writes verdict.json, results.ecsv and posterior.npz to --out.",
     )
     p.add_argument("files", nargs="+", metavar="FILE", help="photometry files of one object")
@@ -61,19 +45,6 @@ def add_parser(sub) -> None:
     p.set_defaults(run=run)
 
 
-def _clean(v):
-    """JSON-safe value: NaN/inf -> None, numpy scalars -> Python, tuples -> lists."""
-    import numpy as np
-
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    if isinstance(v, (np.generic,)):
-        v = v.item()
-    if isinstance(v, float) and not math.isfinite(v):
-        return None
-    return v
-
-
 def _damping(verdict, args, rng):
     from tumble.damping import damping_for_classification
 
@@ -90,6 +61,7 @@ def run(args: argparse.Namespace) -> int:
     from tumble.classify import ClassifyError, classify, screen
     from tumble.photometry import read_lightcurve
     from tumble.results import write_results
+    from tumble.schema import dumps_strict, results_row, verdict_record
 
     if not 0 < args.prior_npa < 1:
         raise ClassifyError(f"--prior-npa must lie strictly between 0 and 1, got {args.prior_npa}")
@@ -107,22 +79,15 @@ def run(args: argparse.Namespace) -> int:
                           p_max_h=args.max_period_h, progress=not args.quiet)
         verdict, fit = result.verdict, result.fit
         damp = _damping(verdict, args, np.random.default_rng(args.seed + 1))
-    d = verdict.to_dict()
-    d["object"] = d.pop("object_id")
-    d["screen"] = bool(args.screen)
-    d["seed"] = int(args.seed)
-    d["tau_damp_gyr"] = damp.tau_gyr if damp else math.nan
-    d["tau_damp_gyr_lo"] = damp.tau_gyr_lo if damp else math.nan
-    d["tau_damp_gyr_hi"] = damp.tau_gyr_hi if damp else math.nan
-    out = {k: _clean(d.get(k)) for k in VERDICT_KEYS}
+    out = verdict_record(verdict.to_dict(), seed=int(args.seed),
+                         tau_damp_gyr=damp.tau_gyr if damp else math.nan,
+                         tau_damp_gyr_lo=damp.tau_gyr_lo if damp else math.nan,
+                         tau_damp_gyr_hi=damp.tau_gyr_hi if damp else math.nan)
     out_dir = Path(args.out or f"{lc.object_id}-classify")
     out_dir.mkdir(parents=True, exist_ok=True)
     # verdict.json holds no wall-clock time, so the same seed gives the same bytes
-    atomic_write_text(out_dir / "verdict.json", json.dumps(out, indent=2, sort_keys=False) + "\n")
-    row = verdict.results_row()
-    row["tau_damp_gyr"], row["tau_damp_gyr_lo"], row["tau_damp_gyr_hi"] = (
-        d["tau_damp_gyr"], d["tau_damp_gyr_lo"], d["tau_damp_gyr_hi"])
-    write_results([row], out_dir / "results.ecsv")
+    atomic_write_text(out_dir / "verdict.json", dumps_strict(out, indent=2) + "\n")
+    write_results([results_row(out)], out_dir / "results.ecsv")
     arrays = {}
     if fit is not None and fit.posterior is not None:
         post = fit.posterior

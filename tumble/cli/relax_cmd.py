@@ -96,10 +96,14 @@ def _run_one(args: argparse.Namespace) -> int:
         out["seed"] = args.seed
         print_json(out)
         return 0
-    g = "{:.3g}".format
+    from tumble.display import DAMPING_DIGITS, format_probability, format_sig
+
+    def g(x):
+        return format_sig(x, DAMPING_DIGITS)
+
     print(f"damping time   tau = {g(est.tau_gyr)} Gyr  (68%: {g(est.tau_gyr_lo)} .. {g(est.tau_gyr_hi)}; "
           f"95%: {g(est.tau_gyr_lo95)} .. {g(est.tau_gyr_hi95)})")
-    print(f"P(tau > {g(est.age_gyr)} Gyr)  {est.p_tau_exceeds_age:.3f}")
+    print(f"P(tau > {est.age_gyr:.3g} Gyr)  {format_probability(est.p_tau_exceeds_age)}")
     print(f"formula        {est.formula_text}")
     print(f"period         {est.period_h:.6g} h")
     if est.diameter_source == "given":

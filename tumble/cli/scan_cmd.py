@@ -80,6 +80,8 @@ def _fmt_period(p, err):
 
 
 def _print_table(scan, two, args) -> None:
+    from tumble.display import format_fap
+
     out = sys.stdout
     print(f"object            {scan.object_id}", file=out)
     print(f"points            {scan.n_points}; {len(scan.nuisance_names)} zero-point/phase terms "
@@ -95,14 +97,14 @@ def _print_table(scan, two, args) -> None:
     print(f"  candidates      {cands}", file=out)
     print(f"amplitude         {scan.amplitude_mag:.3f} mag peak to peak", file=out)
     verdict = "confident" if scan.confident else "NOT confident"
-    print(f"significance      false-alarm probability {scan.false_alarm_probability:.3g} "
+    print(f"significance      false-alarm probability {format_fap(scan.false_alarm_probability)} "
           f"({verdict}; threshold {scan.fap_threshold:g}); reduced chi2 {scan.reduced_chi2:.3f}", file=out)
     print("", file=out)
     print(f"{'rank':>4}  {'period (h)':>14}  {'error (h)':>10}  {'freq (1/d)':>12}  {'delta chi2':>11}  "
           f"{'FAP':>9}  alias", file=out)
     for i, p in enumerate(scan.peaks, 1):
         print(f"{i:>4}  {p.period_h:>14.7g}  {p.period_h_err:>10.2g}  {p.frequency_per_d:>12.6f}  "
-              f"{p.delta_chi2:>11.2f}  {p.false_alarm_probability:>9.2g}  {p.alias}", file=out)
+              f"{p.delta_chi2:>11.2f}  {format_fap(p.false_alarm_probability):>9}  {p.alias}", file=out)
     if two is not None:
         print("", file=out)
         print(f"two-period fit    order {two.order} ({two.mode})", file=out)
@@ -131,49 +133,6 @@ def _write_table(scan, two, path) -> None:
 
 
 def _plot(scan, two, path) -> None:
-    import matplotlib
+    from tumble.plots import plot_scan_summary
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    import numpy as np
-
-    from tumble._io import atomic_path
-
-    nrows = 2 if two is not None else 1
-    fig, axes = plt.subplots(nrows, 1, figsize=(9, 3.6 * nrows), squeeze=False)
-    ax = axes[0, 0]
-    s2 = scan.reduced_chi2 if scan.reduced_chi2 > 0 else 1.0
-    ax.plot(scan.period_h, (scan.chi2 - scan.fit.chi2) / s2, lw=0.6, color="0.2")
-    ax.set_xscale("log")
-    ax.set_xlabel("trial period (h)")
-    ax.set_ylabel(r"$\Delta\chi^2$ / reduced $\chi^2$")
-    ax.axvline(scan.best_period_h, color="C3", lw=1.2, label=f"dominant {scan.best_period_h:.5g} h")
-    ax.axvline(scan.rotation_period_h, color="C0", lw=1.0, ls="--",
-               label=f"rotation {scan.rotation_period_h:.5g} h")
-    for p in scan.peaks[1:]:
-        if p.alias not in ("best", "independent"):
-            ax.axvline(p.period_h, color="C1", lw=0.8, ls=":")
-            ax.annotate(p.alias, (p.period_h, 0.03), xycoords=("data", "axes fraction"), xytext=(2, 0),
-                        textcoords="offset points", fontsize=7, color="C1", rotation=90, va="bottom")
-    ax.invert_yaxis()
-    ax.legend(fontsize=8, loc="lower right")
-    ax.set_title(f"{scan.object_id}: order-{scan.order} Fourier scan ({scan.n_points} points)")
-    if two is not None:
-        ax2 = axes[1, 0]
-        if two.p1_grid_h is None:
-            ax2.plot(two.p2_grid_h, two.delta_chi2_map, lw=0.6, color="0.2")
-            ax2.set_ylabel(r"$\Delta\chi^2$ at fixed P1")
-            ax2.axvline(two.p2_h, color="C3", lw=1.2, label=f"P2 {two.p2_h:.5g} h")
-            ax2.set_xscale("log")
-            ax2.invert_yaxis()
-            ax2.legend(fontsize=8)
-        else:
-            im = ax2.pcolormesh(two.p2_grid_h, two.p1_grid_h, np.asarray(two.delta_chi2_map), shading="auto")
-            fig.colorbar(im, ax=ax2, label=r"$\Delta\chi^2$")
-            ax2.set_ylabel("P1 (h)")
-        ax2.set_xlabel("trial P2 (h)")
-        ax2.set_title(f"{scan.object_id}: two-period scan, P1 = {two.p1_h:.5g} h")
-    fig.tight_layout()
-    with atomic_path(path) as tmp:
-        fig.savefig(str(tmp), dpi=110, format=str(path).rsplit(".", 1)[-1] if "." in str(path) else "png")
-    plt.close(fig)
+    plot_scan_summary(scan, two, path=path)

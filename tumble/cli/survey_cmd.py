@@ -226,6 +226,8 @@ def _f(x, nd=3):
 
 def print_summary(s, n_short: int = 15, file=None) -> None:
     """The end-of-run summary: counts, errors, times and the NPA shortlist."""
+    from tumble.display import format_probability
+
     file = file or sys.stdout
     p = lambda *a: print(*a, file=file)  # noqa: E731
     p(f"objects       {s.n_objects} ({s.n_done_before} from an earlier run, {s.n_processed} processed now)")
@@ -241,9 +243,9 @@ def print_summary(s, n_short: int = 15, file=None) -> None:
         p(f"results       not written yet (run stopped early); finish with --resume (journal {s.journal_path})")
     if s.shortlist:
         p(f"\nNPA candidates ({len(s.shortlist)}; highest p_npa first)")
-        p(f"{'object':14s} {'p_npa':>6s} {'grade':>9s} {'mode':>5s} {'P_psi (h)':>10s} {'P_phi (h)':>10s} "
+        p(f"{'object':14s} {'p_npa':>7s} {'grade':>9s} {'mode':>7s} {'P_psi (h)':>10s} {'P_phi (h)':>10s} "
           f"{'P1 (h)':>9s} {'P2 (h)':>9s}")
         for r in s.shortlist[:n_short]:
-            p(f"{str(r['object']):14s} {_f(r['p_npa']):>6s} {str(r['grade']):>9s} {str(r['mode']):>5s} "
+            p(f"{str(r['object']):14s} {format_probability(r['p_npa']):>7s} {str(r['grade']):>9s} {str(r['mode']):>7s} "
               f"{_f(r['p_psi_h'], 5):>10s} {_f(r['p_phi_h'], 5):>10s} {_f(r['p1_h'], 5):>9s} {_f(r['p2_h'], 5):>9s}")
     p("Verdicts are scientific estimates for research use; damping times rest on an assumed rigidity.")
