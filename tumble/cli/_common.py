@@ -7,7 +7,69 @@ import json
 import sys
 
 __all__ = ["add_input_options", "read_options", "add_output_options", "print_json", "parse_elements",
-           "parse_observatory"]
+           "parse_observatory", "OPTION_CHECKS", "check_options", "printable", "json_safe"]
+
+
+# ---------------------------------------------------------------------------
+# Option checks: one table for every sub-command (the first failing check is a one-line error, exit 2).
+# Each entry: argparse destination -> (test, what the value must be). Options a command does not have
+# are skipped; None (option not given) always passes.
+def _finite(x) -> bool:
+    import math
+
+    return math.isfinite(x)
+
+
+OPTION_CHECKS = {
+    "seed": (lambda x: x >= 0, "a non-negative integer"),
+    "workers": (lambda x: x >= 1, "at least 1"),
+    "dask_local": (lambda x: x >= 1, "at least 1"),
+    "prior_npa": (lambda x: 0 < x < 1, "strictly between 0 and 1"),
+    "object_timeout": (lambda x: _finite(x) and x > 0, "a positive number of seconds"),
+    "max_steps": (lambda x: x >= 0, "0 or more"),
+    "walkers": (lambda x: x >= 1, "at least 1"),
+    "shortlist": (lambda x: x >= 0, "0 or more"),
+    "oversample": (lambda x: _finite(x) and x >= 1, "a finite number of at least 1 (frequency grid oversampling)"),
+    "session_gap_h": (lambda x: _finite(x) and x > 0, "a positive number of hours"),
+    "min_points": (lambda x: x >= 1, "at least 1"),
+    "flux_zero_point": (_finite, "a finite magnitude"),
+    # H of real minor bodies lies within about -1 .. 35 mag (common practice); 1e308 gave tau = nan
+    "h_mag": (lambda x: _finite(x) and -5 <= x <= 40, "a finite absolute magnitude between -5 and 40"),
+    "min_period_h": (lambda x: _finite(x) and x > 0, "a positive, finite period in hours"),
+    "max_period_h": (lambda x: _finite(x) and x > 0, "a positive, finite period in hours"),
+}
+
+
+def check_options(args: argparse.Namespace) -> None:
+    """Check the parsed options against :data:`OPTION_CHECKS` before any work.
+
+    Raises
+    ------
+    tumble.exceptions.TumbleError
+        ``--option: must be ..., got VALUE`` for the first value out of range.
+    """
+    from tumble.exceptions import TumbleError
+
+    for dest, (test, what) in OPTION_CHECKS.items():
+        value = getattr(args, dest, None)
+        if value is None or isinstance(value, (str, list, bool)):
+            continue
+        try:
+            ok = bool(test(value))
+        except (TypeError, ValueError):
+            ok = False
+        if not ok:
+            raise TumbleError(f"--{dest.replace('_', '-')}: must be {what}, got {value}")
+
+
+def printable(text) -> str:
+    """One line of text safe for a terminal: control characters (escape sequences from data) shown
+    as ``\\xNN`` escapes, whitespace runs collapsed."""
+    out = []
+    for ch in " ".join(str(text).split()):
+        code = ord(ch)
+        out.append(ch if code >= 32 and code != 127 and not 0x80 <= code < 0xA0 else f"\\x{code:02x}")
+    return "".join(out)
 
 
 def add_input_options(parser: argparse.ArgumentParser) -> None:
@@ -99,16 +161,28 @@ def add_output_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
-def print_json(obj) -> None:
-    """Print ``obj`` as indented JSON (numpy scalars and arrays converted)."""
+def json_safe(obj):
+    """``obj`` with numpy values made Python and NaN/inf made None (strict JSON has no NaN)."""
+    import math
+
     import numpy as np
 
-    def default(o):
-        if isinstance(o, np.generic):
-            return o.item()
-        if isinstance(o, np.ndarray):
-            return o.tolist()
-        return str(o)
+    if isinstance(obj, dict):
+        return {str(k): json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_safe(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return json_safe(obj.tolist())
+    if isinstance(obj, np.generic):
+        obj = obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if obj is None or isinstance(obj, (bool, int, float, str)):
+        return obj
+    return str(obj)
 
-    json.dump(obj, sys.stdout, indent=2, default=default, allow_nan=True)
+
+def print_json(obj) -> None:
+    """Print ``obj`` as indented, strict JSON (numpy values converted; NaN and inf become null)."""
+    json.dump(json_safe(obj), sys.stdout, indent=2, allow_nan=False)
     sys.stdout.write("\n")

@@ -34,6 +34,12 @@ def run(args: argparse.Namespace) -> int:
     from tumble.photometry import iter_survey, read_lightcurve, write_lightcurve
 
     opts = read_options(args)
+    if args.write:
+        from pathlib import Path
+
+        target = Path(args.write).resolve()
+        if any(Path(f).resolve() == target for f in args.files):
+            raise PhotometryError(f"{args.write}: --write would overwrite its own input; choose another name")
     survey_like = len(args.files) == 1 and opts.object_id is None and _has_object_column(args.files[0], opts)
     if survey_like:
         items = list(iter_survey(args.files[0], options=opts))
