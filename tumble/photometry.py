@@ -752,6 +752,8 @@ def _read_votable(src: str, data: bytes) -> _RawTable:
             for param in vtable.params:
                 value = param.value
                 table.meta[param.name] = value.decode() if isinstance(value, bytes) else str(value)
+            for info in vtable.infos:
+                table.meta[info.name] = str(info.value)
     except Exception as exc:
         raise _fail(src, "", f"unreadable VOTable ({_first_line(exc)})") from None
     return _table_to_raw(src, table, "votable")
@@ -1351,6 +1353,10 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
             object_id = names.pop()
         else:
             object_id = _meta_value(pieces[0].meta, "object") or _object_name_from_path(paths[0])
+            if _truthy(_meta_value(pieces[0].meta, "objquote")):  # a non-ASCII name in a FITS header
+                from urllib.parse import unquote
+
+                object_id = unquote(str(object_id))
     return _assemble(pieces, opts, object_id=object_id)
 
 
@@ -1508,17 +1514,24 @@ def write_lightcurve(lc: LightCurve, path: str | os.PathLike, *, format: str | N
     elif fmt == "fits":
         from astropy.io import fits
 
+        name = str(table.meta.get("OBJECT", ""))
+        if not name.isascii():  # FITS headers hold ASCII only: percent-encode the UTF-8 name and say so
+            from urllib.parse import quote
+
+            table.meta["OBJECT"] = quote(name, safe="")
+            table.meta["OBJQUOTE"] = True
         hdu = fits.table_to_hdu(table)
         fits.HDUList([fits.PrimaryHDU(), hdu]).writeto(buf)
     elif fmt == "votable":
         from astropy.io.votable import from_table, writeto
 
-        from astropy.io.votable.tree import Param
+        from astropy.io.votable.tree import Info
 
         vt = from_table(table)
         vtable = vt.get_first_table()
-        for key, value in table.meta.items():  # keep the metadata as PARAMs
-            vtable.params.append(Param(vt, name=str(key), datatype="char", arraysize="*", value=str(value)))
+        # the metadata as INFO elements: astropy escapes a char PARAM's value twice ('&' -> '&amp;amp;')
+        for key, value in table.meta.items():
+            vtable.infos.append(Info(name=str(key), value=str(value)))
         writeto(vt, buf)
     data = buf.getvalue()
     if compress:

@@ -204,7 +204,7 @@ def _expand(inputs: Iterable[str | os.PathLike]) -> list[Path]:
             files.extend(h for h in hits if h.is_file())
         elif path.is_dir():
             found = sorted(p for p in path.iterdir() if p.is_file() and not p.name.startswith(".")
-                           and not p.name.endswith(".json"))
+                           and not p.name.endswith((".json", ".journal.jsonl")))
             if not found:
                 raise SurveyError(f"{path}: directory holds no photometry files")
             files.extend(found)
@@ -236,6 +236,10 @@ def collect_objects(inputs, read_options=None) -> list[ObjectTask]:
             table_is_survey = "object" in _match_columns(table, opts)
         except PhotometryError:
             pass  # the worker reads it again and reports the error as the object's row
+        else:
+            if str(table.meta.get("schema", "")).startswith("tumble results"):
+                raise SurveyError(f"{path}: a tumble results catalogue, not photometry (the --out of an earlier "
+                                  "run inside the input folder?); move it out of the inputs")
         if table_is_survey:
             for name, item in iter_survey(path, options=opts):
                 if isinstance(item, PhotometryError):
@@ -619,8 +623,8 @@ def _pool_task(task: ObjectTask, config: SurveyConfig, slot: int) -> dict:
 
 def _stop_pool(pool) -> None:
     """Shut a process pool down now: queued tasks cancelled, running workers terminated."""
+    procs = dict(getattr(pool, "_processes", None) or {})  # no public accessor before 3.14; shutdown clears it
     pool.shutdown(wait=False, cancel_futures=True)
-    procs = getattr(pool, "_processes", None) or {}  # no public accessor before Python 3.14
     for proc in list(procs.values()):
         try:
             proc.terminate()
