@@ -90,10 +90,15 @@ _EXT_FORMAT = {
 }
 
 MAG_RANGE = (-5.0, 35.0)
-#: Largest photometry file read, bytes, after decompression (256 MiB, some 4 million text rows): the reader
-#: holds the text and its cells in memory (~10x the file), so this bounds its memory; a gzip bomb stops
-#: here. Override with the environment variable TUMBLE_MAX_INPUT_MB (documented in docs/input-formats.md).
-MAX_INPUT_BYTES = 256 * 1024 * 1024
+#: Largest photometry file read, bytes, after decompression (64 MiB, about a million text rows); a gzip
+#: bomb stops here. Override with the environment variable TUMBLE_MAX_INPUT_MB (docs/input-formats.md).
+MAX_INPUT_BYTES = 64 * 1024 * 1024
+#: Text lines allowed per byte of the cap: a Python string per line costs ~60 bytes whatever its length,
+#: so a file of tiny lines is limited by its line count (2 million lines at the default cap).
+BYTES_PER_LINE_LIMIT = 32
+#: Table cells (rows x columns) allowed per byte of the cap: each cell is a Python string of ~140 bytes
+#: (measured in benchmarks/bench_reader_memory.py), so 4 million cells, ~0.6 GB, at the default cap.
+BYTES_PER_CELL_LIMIT = 16
 #: Decompression works in blocks of this many bytes, so no more than the cap is ever expanded.
 _INFLATE_BLOCK = 1 << 20
 #: Magnitude errors outside this range (mag) are not measurement errors: a subnormal or 1e308 error breaks
@@ -582,6 +587,11 @@ def _parse_bytes(path: Path, src: str, data: bytes) -> _RawTable:
 
 
 def _read_text(src: str, text: str) -> _RawTable:
+    cap = max_input_bytes()
+    if text.count("\n") > cap // BYTES_PER_LINE_LIMIT:  # counted before splitting: lines cost memory
+        raise _fail(src, "", f"more than {cap // BYTES_PER_LINE_LIMIT} lines, the most read from one file "
+                             "(split the file, or raise TUMBLE_MAX_INPUT_MB)")
+    max_cells = cap // BYTES_PER_CELL_LIMIT
     lines = text.splitlines()
     header_idx = None
     last_comment = None
@@ -613,6 +623,9 @@ def _read_text(src: str, text: str) -> _RawTable:
         raise _fail(src, f"line {header_idx + 1}", f"column name '{dup}' appears twice in the header")
     rows, labels = [], []
     for i, fields in _records(src, lines, data_start, delim):
+        if (len(rows) + 1) * len(header) > max_cells:
+            raise _fail(src, f"line {i + 1}", f"more than {max_cells} table cells, the most read from one file "
+                                              "(split the file, or raise TUMBLE_MAX_INPUT_MB)")
         if len(fields) != len(header):
             hint = ""
             if len(fields) == 1 and len(header) > 1:
