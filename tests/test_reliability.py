@@ -646,3 +646,25 @@ def test_simulate_records_the_seed_it_drew(tmp_path, capsys):
     assert rc == 0, capsys.readouterr().err
     truth = json.loads((tmp_path / "s.ecsv.truth.json").read_text())
     assert isinstance(truth["seed"], int)
+
+
+def test_default_output_folder_from_a_hostile_name_stays_here(tmp_path, monkeypatch):
+    # the helper classify's default --out is to use (tumble/cli/classify_cmd.py is wired by the lead)
+    from tumble.cli._common import output_folder
+    from tumble.exceptions import TumbleError
+
+    monkeypatch.chdir(tmp_path)
+    for name in ["../../trav", "/abs/x", "..", "y" * 300]:
+        folder = output_folder(None, name, "-classify")
+        assert len(folder.parts) == 1 and folder.name.endswith("-classify")
+        assert (tmp_path / folder).resolve().parent == tmp_path.resolve()
+    (tmp_path / "afile").write_text("x")
+    with pytest.raises(TumbleError, match="exists and is not a folder"):
+        output_folder("afile", "A", "-classify")
+
+
+def test_report_out_naming_a_file_is_bad_input(tmp_path, capsys):
+    write_results([empty_row("A")], tmp_path / "r.ecsv")
+    (tmp_path / "afile").write_text("x")
+    rc = main(["report", str(tmp_path / "r.ecsv"), "--out", str(tmp_path / "afile"), "--no-figures", "--quiet"])
+    assert rc == 2 and "exists and is not a folder" in capsys.readouterr().err

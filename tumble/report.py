@@ -269,6 +269,16 @@ def _load_posterior(path: Path):
     return post
 
 
+def _make_dir(path: Path) -> None:
+    """Create a report folder; a file in the way or no permission is a one-line ReportError."""
+    if path.exists() and not path.is_dir():
+        raise ReportError(f"{path}: exists and is not a folder; the report needs a folder")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ReportError(f"{path}: cannot create the report folder ({exc.strerror or exc})") from None
+
+
 def _kept_verdict_path(objects_dir: Path | None, name: str) -> Path | None:
     """An object's ``verdict.json`` in a ``--keep-objects`` folder (same safe name as the writer)."""
     if objects_dir is None:
@@ -483,7 +493,7 @@ def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mappin
         Prefix of the figure file names.
     """
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    _make_dir(out_dir)
     v = _normalise(verdict)
     name = str(v.get("object", "") or "object")
     figures, notes = ([], []) if str(v.get("status", "ok") or "ok") != "ok" else object_figures(
@@ -623,7 +633,8 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
     results_path = Path(results_path)
     table = read_results(results_path)
     out_dir = Path(out_dir)
-    (out_dir / "objects").mkdir(parents=True, exist_ok=True)
+    _make_dir(out_dir)
+    _make_dir(out_dir / "objects")
     rows = [_row_dict(table, i) for i in range(len(table))]
     objects_dir = Path(objects_dir) if objects_dir is not None else None
     if objects_dir is not None and not objects_dir.is_dir():

@@ -24,7 +24,7 @@ from tumble.exceptions import TumbleError
 
 __all__ = ["Column", "RESULT_COLUMNS", "COLUMN_NAMES", "STATUS_VALUES", "results_table", "write_results",
            "read_results", "empty_row",
-           "read_provenance", "PROVENANCE_KEY"]
+           "read_provenance", "make_provenance", "PROVENANCE_KEY"]
 
 
 @dataclass(frozen=True)
@@ -102,6 +102,16 @@ _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _CSV_DEFUSE = _FORMULA_START + ("#", "'")
 #: Key of the run's provenance (JSON text: version, route, prior, seed, options) in the table metadata.
 PROVENANCE_KEY = "provenance"
+
+
+def make_provenance(*, route: str, prior_npa: float, seed: int | None, **options) -> dict:
+    """What produced a result, so that ``p_npa`` can be interpreted and the run repeated: the tumble
+    version, the route, the prior, the seed and the options that change results (JSON-safe values).
+    The one definition used by the survey journal, the results metadata and saved verdicts."""
+    from tumble import __version__
+
+    return {"tumble_version": __version__, "route": str(route), "prior_npa": float(prior_npa),
+            "seed": None if seed is None else int(seed), **options}
 
 
 def results_table(rows: Iterable[Mapping], extra_columns: Iterable[str] = (), provenance: Mapping | None = None):

@@ -127,13 +127,13 @@ class SurveyConfig:
     def provenance(self) -> dict:
         """What decides the results of this run: version, route, prior, seed and the options that
         change a row (JSON-safe; recorded in the journal header, the results metadata and verdicts)."""
-        from tumble import __version__
+        from tumble.results import make_provenance
 
-        return {"tumble_version": __version__, "route": self.route, "prior_npa": float(self.prior_npa),
-                "seed": int(self.seed), "max_steps": int(self.max_steps),
-                "n_walkers": None if self.n_walkers is None else int(self.n_walkers),
-                "read_options": _plain(self.read_options),
-                "sizes_sha256": _digest(sorted((str(k), list(v)) for k, v in self.sizes.items()))}
+        return make_provenance(route=self.route, prior_npa=self.prior_npa, seed=self.seed,
+                               max_steps=int(self.max_steps),
+                               n_walkers=None if self.n_walkers is None else int(self.n_walkers),
+                               read_options=_plain(self.read_options),
+                               sizes_sha256=_digest(sorted((str(k), list(v)) for k, v in self.sizes.items())))
 
 
 def _plain(value):

@@ -7,7 +7,7 @@ import json
 import sys
 
 __all__ = ["add_input_options", "read_options", "add_output_options", "print_json", "parse_elements",
-           "parse_observatory", "OPTION_CHECKS", "check_options", "printable", "json_safe"]
+           "parse_observatory", "OPTION_CHECKS", "check_options", "printable", "json_safe", "output_folder"]
 
 
 # ---------------------------------------------------------------------------
@@ -60,6 +60,21 @@ def check_options(args: argparse.Namespace) -> None:
             ok = False
         if not ok:
             raise TumbleError(f"--{dest.replace('_', '-')}: must be {what}, got {value}")
+
+
+def output_folder(given: str | None, object_id: str, suffix: str):
+    """The output folder of a one-object command: ``--out DIR`` as given, else ``<safe name><suffix>``
+    in the working folder (the object name comes from data: it never becomes a path as it is). A file
+    in the way is bad input (TumbleError), found before any work."""
+    from pathlib import Path
+
+    from tumble._io import safe_component
+    from tumble.exceptions import TumbleError
+
+    folder = Path(given) if given else Path(f"{safe_component(object_id)}{suffix}")
+    if folder.exists() and not folder.is_dir():
+        raise TumbleError(f"{folder}: exists and is not a folder; --out names an output folder")
+    return folder
 
 
 def printable(text) -> str:
