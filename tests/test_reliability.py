@@ -668,3 +668,11 @@ def test_report_out_naming_a_file_is_bad_input(tmp_path, capsys):
     (tmp_path / "afile").write_text("x")
     rc = main(["report", str(tmp_path / "r.ecsv"), "--out", str(tmp_path / "afile"), "--no-figures", "--quiet"])
     assert rc == 2 and "exists and is not a folder" in capsys.readouterr().err
+
+
+def test_inspect_prints_names_from_data_without_escapes(tmp_path, capsys):
+    path = tmp_path / "g.csv"
+    path.write_text("# OBJECT: evil\x1b]0;title\x07name\n" + GAULT_CSV.read_text(encoding="utf-8-sig"))
+    rc = main(["inspect", str(path)])
+    out = capsys.readouterr().out
+    assert rc == 0 and "\x1b" not in out and "\x07" not in out and "evil\\x1b]0;title\\x07name" in out
