@@ -102,8 +102,9 @@ BYTES_PER_CELL_LIMIT = 16
 #: Decompression works in blocks of this many bytes, so no more than the cap is ever expanded.
 _INFLATE_BLOCK = 1 << 20
 #: Magnitude errors outside this range (mag) are not measurement errors: a subnormal or 1e308 error breaks
-#: the weights (1/err^2 under- or overflows) downstream; real photometric errors lie far inside (common practice).
-ERR_RANGE_MAG = (1e-6, 10.0)
+#: the weights (1/err^2 over- or underflows) downstream; 1e-10 keeps weights <= 1e20, far from overflow in
+#: sums, and still admits near-noiseless test data; real photometric errors lie far inside (common practice).
+ERR_RANGE_MAG = (1e-10, 10.0)
 #: Times (JD or MJD) beyond this magnitude are not dates astropy can convert (common practice: year < 10000).
 MAX_ABS_TIME_D = 1e7
 _DUP_TOL_D = 1e-8  # about 1 ms: times closer than this are the same instant
