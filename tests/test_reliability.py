@@ -676,3 +676,11 @@ def test_inspect_prints_names_from_data_without_escapes(tmp_path, capsys):
     rc = main(["inspect", str(path)])
     out = capsys.readouterr().out
     assert rc == 0 and "\x1b" not in out and "\x07" not in out and "evil\\x1b]0;title\\x07name" in out
+
+
+def test_resume_with_other_objects_is_refused(five, tmp_path):
+    out = tmp_path / "results.ecsv"
+    files = sorted(five.glob("*.csv"))
+    run_survey(files[:3], out, SurveyConfig(route="screen"), workers=1, progress=False, _stop_after=1)
+    with pytest.raises(SurveyError, match="the input lists other objects than the journal's run"):
+        run_survey(files, out, SurveyConfig(route="screen"), workers=1, progress=False, resume=True)

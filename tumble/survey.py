@@ -985,6 +985,8 @@ def _run_locked(inputs, out, jpath, config, workers, scheduler, dask_local, resu
     journal = load_journal(jpath) if resume else JournalContents(None, {}, 0)
     if resume and journal.header is not None and not force_resume:
         diff = config_difference(journal.header, provenance)
+        if diff is not None and diff.startswith("inputs_sha256"):
+            diff = "the input lists other objects than the journal's run"
         if diff is not None:
             raise SurveyError(f"{jpath}: the journal was written with other settings ({diff}); resume with the "
                               "same settings, or give --force-resume to mix them")
