@@ -498,6 +498,10 @@ def test_out_inside_the_inputs_is_refused_and_old_outputs_are_not_photometry(fiv
     with pytest.raises(SurveyError, match=r"old\.ecsv: a tumble results catalogue, not photometry"):
         run_survey([folder], tmp_path / "r.ecsv", SurveyConfig(route="screen"), workers=1, progress=False)
     (folder / "old.ecsv").unlink()
+    write_results([empty_row("obj000")], folder / "old.csv", provenance={"route": "screen"})
+    with pytest.raises(SurveyError, match=r"old\.csv: a tumble results catalogue"):
+        run_survey([folder], tmp_path / "r.ecsv", SurveyConfig(route="screen"), workers=1, progress=False)
+    (folder / "old.csv").unlink()
     (folder / "r.ecsv.journal.jsonl").write_text("{}\n")  # a journal is never an object
     s = run_survey([folder], tmp_path / "r.ecsv", SurveyConfig(route="screen"), workers=1, progress=False)
     assert s.n_objects == 2

@@ -237,7 +237,8 @@ def collect_objects(inputs, read_options=None) -> list[ObjectTask]:
         except PhotometryError:
             pass  # the worker reads it again and reports the error as the object's row
         else:
-            if str(table.meta.get("schema", "")).startswith("tumble results"):
+            if str(table.meta.get("schema", "")).startswith("tumble results") or (
+                    "provenance" in table.meta and {"status", "rotation"} <= {n.lower() for n in table.names}):
                 raise SurveyError(f"{path}: a tumble results catalogue, not photometry (the --out of an earlier "
                                   "run inside the input folder?); move it out of the inputs")
         if table_is_survey:
