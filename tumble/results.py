@@ -24,7 +24,7 @@ from tumble.exceptions import TumbleError
 
 __all__ = ["Column", "RESULT_COLUMNS", "COLUMN_NAMES", "STATUS_VALUES", "results_table", "write_results",
            "read_results", "empty_row",
-           "read_provenance", "make_provenance", "PROVENANCE_KEY"]
+           "read_provenance", "make_provenance", "plain_record", "PROVENANCE_KEY"]
 
 
 @dataclass(frozen=True)
@@ -102,6 +102,25 @@ _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _CSV_DEFUSE = _FORMULA_START + ("#", "'")
 #: Key of the run's provenance (JSON text: version, route, prior, seed, options) in the table metadata.
 PROVENANCE_KEY = "provenance"
+
+
+def plain_record(value):
+    """A JSON-safe, order-stable rendering of an options record (dataclasses, mappings, numbers)."""
+    import dataclasses
+
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: plain_record(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, dict):
+        return {str(k): plain_record(v) for k, v in sorted(value.items(), key=lambda kv: str(kv[0]))}
+    if isinstance(value, (list, tuple)):
+        return [plain_record(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return str(value)
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    return str(value)
 
 
 def make_provenance(*, route: str, prior_npa: float, seed: int | None, **options) -> dict:

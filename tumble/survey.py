@@ -127,38 +127,21 @@ class SurveyConfig:
     def provenance(self) -> dict:
         """What decides the results of this run: version, route, prior, seed and the options that
         change a row (JSON-safe; recorded in the journal header, the results metadata and verdicts)."""
-        from tumble.results import make_provenance
+        from tumble.results import make_provenance, plain_record
 
         return make_provenance(route=self.route, prior_npa=self.prior_npa, seed=self.seed,
                                max_steps=int(self.max_steps),
                                n_walkers=None if self.n_walkers is None else int(self.n_walkers),
-                               read_options=_plain(self.read_options),
+                               read_options=plain_record(self.read_options),
                                sizes_sha256=_digest(sorted((str(k), list(v)) for k, v in self.sizes.items())))
-
-
-def _plain(value):
-    """A JSON-safe, order-stable rendering of an options record (dataclasses, mappings, numbers)."""
-    import dataclasses
-
-    if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in sorted(value.items(), key=lambda kv: str(kv[0]))}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not np.isfinite(value):
-        return str(value)
-    if value is None or isinstance(value, (bool, int, float, str)):
-        return value
-    return str(value)
 
 
 def _digest(value) -> str:
     import hashlib
 
-    return hashlib.sha256(json.dumps(_plain(value), sort_keys=True).encode("utf-8")).hexdigest()[:16]
+    from tumble.results import plain_record
+
+    return hashlib.sha256(json.dumps(plain_record(value), sort_keys=True).encode("utf-8")).hexdigest()[:16]
 
 
 @dataclass(frozen=True)
