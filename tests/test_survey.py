@@ -142,8 +142,10 @@ def test_interrupted_run_resumes_exactly_once(serial_rows, sample, tmp_path):
     summary = run_survey([sample], out, SurveyConfig(route="screen", seed=3), workers=1, progress=False,
                          resume=True)
     assert summary.n_done_before == 2 and summary.n_processed == 4
-    lines = journal_path(out).read_text().splitlines()
-    assert len(lines) == 6 and len({loads_strict(x)["object"] for x in lines}) == 6
+    lines = [loads_strict(x) for x in journal_path(out).read_text().splitlines()]
+    # the first line records the run configuration; then exactly one row per object
+    assert "tumble_journal" in lines[0] and lines[0]["config"]["seed"] == 3
+    assert len(lines) == 7 and len({x["object"] for x in lines[1:]}) == 6
     assert _rows(out) == _rows(serial_rows)
 
 

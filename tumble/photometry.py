@@ -16,8 +16,10 @@ naming the file, the row or column and the problem.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import gzip
+import hashlib
 import io
 import os
 import re
@@ -88,6 +90,23 @@ _EXT_FORMAT = {
 }
 
 MAG_RANGE = (-5.0, 35.0)
+#: Largest photometry file read, bytes, after decompression (64 MiB, about a million text rows); a gzip
+#: bomb stops here. Override with the environment variable TUMBLE_MAX_INPUT_MB (docs/input-formats.md).
+MAX_INPUT_BYTES = 64 * 1024 * 1024
+#: Text lines allowed per byte of the cap: a Python string per line costs ~60 bytes whatever its length,
+#: so a file of tiny lines is limited by its line count (2 million lines at the default cap).
+BYTES_PER_LINE_LIMIT = 32
+#: Table cells (rows x columns) allowed per byte of the cap: each cell is a Python string of ~140 bytes
+#: (measured in benchmarks/bench_reader_memory.py), so 4 million cells, ~0.6 GB, at the default cap.
+BYTES_PER_CELL_LIMIT = 16
+#: Decompression works in blocks of this many bytes, so no more than the cap is ever expanded.
+_INFLATE_BLOCK = 1 << 20
+#: Magnitude errors outside this range (mag) are not measurement errors: a subnormal or 1e308 error breaks
+#: the weights (1/err^2 over- or underflows) downstream; 1e-10 keeps weights <= 1e20, far from overflow in
+#: sums, and still admits near-noiseless test data; real photometric errors lie far inside (common practice).
+ERR_RANGE_MAG = (1e-10, 10.0)
+#: Times (JD or MJD) beyond this magnitude are not dates astropy can convert (common practice: year < 10000).
+MAX_ABS_TIME_D = 1e7
 _DUP_TOL_D = 1e-8  # about 1 ms: times closer than this are the same instant
 _LT_GIVEN = "input already light-time corrected"
 _BULK_TIME_COLUMNS = ("__jd_utc", "__jd_tdb")
@@ -119,6 +138,8 @@ def parse_column_map(text: str | Mapping[str, str] | None) -> dict[str, str]:
     out = {}
     for key, value in items:
         key_l = key.lower()
+        if key_l in out:
+            raise PhotometryError(f"--columns: '{key}' is given twice ({out[key_l]} and {value}); give it once")
         if key_l not in COLUMN_ALIASES:
             raise PhotometryError(
                 f"--columns: unknown column name '{key}' (known: {', '.join(CANONICAL_COLUMNS)})"
@@ -126,6 +147,12 @@ def parse_column_map(text: str | Mapping[str, str] | None) -> dict[str, str]:
         if not value:
             raise PhotometryError(f"--columns: no file column given for '{key}'")
         out[key_l] = value
+    seen: dict[str, str] = {}
+    for key, value in out.items():
+        if value.lower() in seen:
+            raise PhotometryError(f"--columns: file column '{value}' is given as both {seen[value.lower()]} and {key}; "
+                                  "one column cannot be two quantities")
+        seen[value.lower()] = key
     return out
 
 
@@ -414,6 +441,7 @@ class _RawTable:
     row_labels: list[str] | None
     meta: dict = field(default_factory=dict)
     format: str = "arrays"
+    digest: str = ""  # SHA-256 of the (decompressed) bytes, to catch the same data given twice
 
     def label(self, i: int) -> str:
         if self.row_labels is None:
@@ -441,21 +469,74 @@ def _fail(source, where, problem) -> PhotometryError:
     return PhotometryError(f"{source}:{where} {problem}")
 
 
+def max_input_bytes() -> int:
+    """The largest photometry file read, bytes after decompression (:data:`MAX_INPUT_BYTES`, or
+    the environment variable ``TUMBLE_MAX_INPUT_MB`` when set to a positive number)."""
+    text = os.environ.get("TUMBLE_MAX_INPUT_MB", "").strip()
+    if text:
+        try:
+            mb = float(text)
+        except ValueError:
+            raise PhotometryError(f"TUMBLE_MAX_INPUT_MB: '{text}' is not a number of megabytes") from None
+        if not mb > 0 or not np.isfinite(mb):
+            raise PhotometryError(f"TUMBLE_MAX_INPUT_MB: must be a positive number of megabytes, got '{text}'")
+        return int(mb * 1024 * 1024)
+    return MAX_INPUT_BYTES
+
+
+def _too_big(src: str, cap: int, what: str) -> PhotometryError:
+    return _fail(src, "", f"{what} more than {cap / 1048576:g} MiB, the largest input read "
+                          "(split the file, or raise TUMBLE_MAX_INPUT_MB)")
+
+
+def inflate_capped(data: bytes, cap: int, src: str = "<bytes>") -> bytes:
+    """Decompress gzip ``data`` (one or more members) block by block, refusing to expand past ``cap`` bytes.
+
+    Raises
+    ------
+    PhotometryError
+        Corrupt or truncated data, or more than ``cap`` bytes once expanded (a gzip bomb stops at
+        the cap: memory never exceeds about ``cap`` plus one block).
+    """
+    out = bytearray()
+    rest = data
+    try:
+        while rest:
+            d = zlib.decompressobj(wbits=31)
+            chunk = rest
+            while True:
+                piece = d.decompress(chunk, _INFLATE_BLOCK)
+                out += piece
+                if len(out) > cap:
+                    raise _too_big(src, cap, "expands to")
+                chunk = d.unconsumed_tail
+                if d.eof or (not chunk and not piece):
+                    break
+            if not d.eof:
+                raise EOFError
+            rest = d.unused_data
+            if rest.strip(b"\x00") == b"":  # trailing padding after the last member
+                break
+    except (EOFError, zlib.error):
+        raise _fail(src, "", "truncated or corrupt gzip data") from None
+    return bytes(out)
+
+
 def _load_bytes(path: Path) -> bytes:
     src = str(path)
     if not path.exists():
         raise _fail(src, "", "no such file")
     if path.is_dir():
         raise _fail(src, "", "is a directory, not a photometry file")
+    cap = max_input_bytes()
     try:
+        if path.stat().st_size > cap:
+            raise _too_big(src, cap, "holds")
         data = path.read_bytes()
     except OSError as exc:
         raise _fail(src, "", f"cannot be read ({exc.strerror or exc})") from None
     if data[:2] == b"\x1f\x8b":
-        try:
-            data = gzip.decompress(data)
-        except (EOFError, OSError, zlib.error):
-            raise _fail(src, "", "truncated or corrupt gzip data") from None
+        data = inflate_capped(data, cap, src)
     elif is_gzip_name(path) and data:
         raise _fail(src, "", "name ends in .gz but the content is not gzip-compressed")
     return data
@@ -482,6 +563,12 @@ def read_table(path: str | os.PathLike) -> _RawTable:
     path = Path(path)
     data = _load_bytes(path)
     src = str(path)
+    table = _parse_bytes(path, src, data)
+    table.digest = hashlib.sha256(data).hexdigest()
+    return table
+
+
+def _parse_bytes(path: Path, src: str, data: bytes) -> _RawTable:
     if not data.strip(b"\xef\xbb\xbf \t\r\n"):
         raise _fail(src, "", "file is empty")
     fmt = _sniff_format(path, data)
@@ -501,6 +588,11 @@ def read_table(path: str | os.PathLike) -> _RawTable:
 
 
 def _read_text(src: str, text: str) -> _RawTable:
+    cap = max_input_bytes()
+    if text.count("\n") > cap // BYTES_PER_LINE_LIMIT:  # counted before splitting: lines cost memory
+        raise _fail(src, "", f"more than {cap // BYTES_PER_LINE_LIMIT} lines, the most read from one file "
+                             "(split the file, or raise TUMBLE_MAX_INPUT_MB)")
+    max_cells = cap // BYTES_PER_CELL_LIMIT
     lines = text.splitlines()
     header_idx = None
     last_comment = None
@@ -517,12 +609,12 @@ def _read_text(src: str, text: str) -> _RawTable:
         raise _fail(src, "", "no header line and no data (only comments or blank lines)")
     header_line = lines[header_idx]
     delim = _guess_delimiter(header_line)
-    header = _split(header_line, delim)
+    header = _split(header_line, delim, src)
     data_start = header_idx + 1
     if _looks_numeric(header[0]):
         # no header line: accept the last comment line as the header if it has the same width
-        if last_comment is not None and len(_split(last_comment[1], delim)) == len(header):
-            header = _split(last_comment[1], delim)
+        if last_comment is not None and len(_split(last_comment[1], delim, src)) == len(header):
+            header = _split(last_comment[1], delim, src)
             data_start = header_idx
         else:
             raise _fail(src, f"line {header_idx + 1}", "no header line (the first line holds numbers, not column names)")
@@ -531,11 +623,10 @@ def _read_text(src: str, text: str) -> _RawTable:
         dup = [h for h in header if [x.lower() for x in header].count(h.lower()) > 1][0]
         raise _fail(src, f"line {header_idx + 1}", f"column name '{dup}' appears twice in the header")
     rows, labels = [], []
-    for i in range(data_start, len(lines)):
-        s = lines[i].strip()
-        if not s or s.startswith("#"):
-            continue
-        fields = _split(lines[i], delim)
+    for i, fields in _records(src, lines, data_start, delim):
+        if (len(rows) + 1) * len(header) > max_cells:
+            raise _fail(src, f"line {i + 1}", f"more than {max_cells} table cells, the most read from one file "
+                                              "(split the file, or raise TUMBLE_MAX_INPUT_MB)")
         if len(fields) != len(header):
             hint = ""
             if len(fields) == 1 and len(header) > 1:
@@ -558,6 +649,27 @@ def _read_text(src: str, text: str) -> _RawTable:
     return _RawTable(source=src, names=header, columns=cols, row_labels=labels, meta=meta, format=fmt)
 
 
+def _records(src: str, lines: list[str], start: int, delim) -> Iterator[tuple[int, list[str]]]:
+    """Data records as (0-based line index, fields), skipping blank and ``#`` lines. A quoted field
+    may hold the delimiter or line breaks (RFC 4180); such a record spans several lines."""
+    if delim is None or not any('"' in line for line in lines[start:]):
+        for i in range(start, len(lines)):
+            s = lines[i].strip()
+            if s and not s.startswith("#"):
+                yield i, _split(lines[i], delim, src)
+        return
+    reader = csv.reader(io.StringIO("\n".join(lines[start:])), delimiter=delim)
+    first = start
+    try:
+        for fields in reader:
+            i, first = first, start + reader.line_num
+            if not fields or (not "".join(fields).strip()) or fields[0].lstrip().startswith("#"):
+                continue
+            yield i, fields
+    except csv.Error as exc:
+        raise _fail(src, f"line {first + 1}", f"malformed quoted field ({exc})") from None
+
+
 def _guess_delimiter(header_line: str):
     for d in (",", "\t", ";"):
         if d in header_line:
@@ -565,10 +677,13 @@ def _guess_delimiter(header_line: str):
     return None
 
 
-def _split(line: str, delim):
+def _split(line: str, delim, src: str = "<text>"):
     if delim is None:
         return line.split()
-    return next(csv.reader([line], delimiter=delim))
+    try:
+        return next(csv.reader([line], delimiter=delim), [])
+    except csv.Error as exc:
+        raise _fail(src, "", f"malformed field in {line[:40]!r} ({exc})") from None
 
 
 def _looks_numeric(s: str) -> bool:
@@ -651,6 +766,8 @@ def _read_votable(src: str, data: bytes) -> _RawTable:
             for param in vtable.params:
                 value = param.value
                 table.meta[param.name] = value.decode() if isinstance(value, bytes) else str(value)
+            for info in vtable.infos:
+                table.meta[info.name] = str(info.value)
     except Exception as exc:
         raise _fail(src, "", f"unreadable VOTable ({_first_line(exc)})") from None
     return _table_to_raw(src, table, "votable")
@@ -676,15 +793,22 @@ def _match_columns(table: _RawTable, opts: ReadOptions) -> dict[str, str]:
                         f"given as {canon}={theirs} but not in the file (columns: {', '.join(table.names)})")
         mapping[canon] = hit
     taken = set(mapping.values())
+    for canon, theirs in opts.columns.items():
+        # a mapped column whose own name is another quantity's alias: e.g. err=mag takes the file's 'mag'
+        owner = next((c for c, aliases in COLUMN_ALIASES.items() if mapping[canon].lower() in aliases), None)
+        if owner is not None and owner != canon and owner not in opts.columns:
+            raise _fail(table.source, f"column '{mapping[canon]}'",
+                        f"given as {canon} but its name says {owner}; map {owner} too (--columns {owner}=NAME)")
     for canon, aliases in COLUMN_ALIASES.items():
         if canon in mapping:
             continue
-        for alias in aliases:
-            hit = lower.get(alias)
-            if hit is not None and hit not in taken:
-                mapping[canon] = hit
-                taken.add(hit)
-                break
+        hits = [lower[a] for a in aliases if a in lower and lower[a] not in taken]
+        if len(hits) > 1:
+            raise _fail(table.source, "", f"columns {', '.join(repr(h) for h in hits)} could each be the {canon}; "
+                                          f"choose one with --columns {canon}=NAME")
+        if hits:
+            mapping[canon] = hits[0]
+            taken.add(hits[0])
     return mapping
 
 
@@ -778,6 +902,11 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
         if bad.size:
             raise _fail(src, f"{labels[bad[0]]}, column '{tname}'",
                         f"time is {'NaN' if np.isnan(time[bad[0]]) else 'infinite'} ({_rows(bad.size)} like this)")
+        bad = np.flatnonzero(np.abs(time) > MAX_ABS_TIME_D)
+        if bad.size:
+            raise _fail(src, f"{labels[bad[0]]}, column '{tname}'",
+                        f"time {time[bad[0]]:g} is not a {tfmt.upper()} date (beyond +-{MAX_ABS_TIME_D:g} d; "
+                        f"{_rows(bad.size)} like this)")
 
     # --- magnitudes (or fluxes)
     if have_mag and not (have_flux and "mag" not in opts.columns and "flux" in opts.columns):
@@ -830,6 +959,12 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
                         f"magnitude error is {what} ({_rows(int(bad_err.sum()))} like this); fix them or give --default-err MAG")
         err = np.where(bad_err, opts.default_err, err)
         reductions.append(f"{int(bad_err.sum())} missing or non-positive errors set to {opts.default_err:g} mag")
+    extreme = np.flatnonzero(np.isfinite(mag) & ((err < ERR_RANGE_MAG[0]) | (err > ERR_RANGE_MAG[1])))
+    if extreme.size:
+        i = int(extreme[0])
+        raise _fail(src, f"{labels[i]}, column '{err_name}'",
+                    f"magnitude error {err[i]:g} outside {ERR_RANGE_MAG[0]:g}..{ERR_RANGE_MAG[1]:g} mag "
+                    f"({_rows(extreme.size)} like this)")
     # rows with no usable magnitude are dropped and counted
     nan_mag = ~np.isfinite(mag)
     flux_dropped = dropped.get("non-positive flux", 0)
@@ -905,22 +1040,47 @@ def _bulk_times(table: _RawTable, mapping: dict[str, str], opts: ReadOptions):
         return None
     name = mapping["time"]
     try:
-        fmt = _guess_time_format(table, name, table.columns[name], opts)
-        if fmt == "iso":
-            values = [str(v).strip() for v in table.columns[name]]
-            t = Time(values, format="isot" if "T" in values[0] else "iso", scale=opts.time_scale)
-        else:
-            values = _numeric(table, name, allow_missing=False)
-            if not np.all(np.isfinite(values)):
-                return None
-            t = Time(values, format=fmt, scale=opts.time_scale)
-        utc, tdb = t.utc, t.tdb
-        return utc.jd1 + utc.jd2, tdb.jd1 + tdb.jd2
+        with _quiet_erfa_block():
+            return _bulk_times_loud(table, name, opts, Time)
     except Exception:
         return None
 
 
+def _bulk_times_loud(table: _RawTable, name: str, opts: ReadOptions, Time):
+    fmt = _guess_time_format(table, name, table.columns[name], opts)
+    if fmt == "iso":
+        values = [str(v).strip() for v in table.columns[name]]
+        t = Time(values, format="isot" if "T" in values[0] else "iso", scale=opts.time_scale)
+    else:
+        values = _numeric(table, name, allow_missing=False)
+        if not np.all(np.isfinite(values)):
+            return None
+        t = Time(values, format=fmt, scale=opts.time_scale)
+    utc, tdb = t.utc, t.tdb
+    return utc.jd1 + utc.jd2, tdb.jd1 + tdb.jd2
+
+
+@contextlib.contextmanager
+def _quiet_erfa_block():
+    """Silence ERFA's 'dubious year' warnings: UTC dates past the leap-second table (a few years
+    ahead) are converted assuming no new leap second, at most a second or so off, which the
+    light-curve analysis does not resolve; the raw warning would break the one-line stderr promise."""
+    with warnings.catch_warnings():
+        try:
+            from erfa import ErfaWarning
+
+            warnings.simplefilter("ignore", ErfaWarning)
+        except ImportError:  # pragma: no cover - erfa comes with astropy
+            pass
+        yield
+
+
 def _to_jd_utc_tdb(piece: _Piece, opts: ReadOptions):
+    with _quiet_erfa_block():
+        return _to_jd_utc_tdb_loud(piece, opts)
+
+
+def _to_jd_utc_tdb_loud(piece: _Piece, opts: ReadOptions):
     from astropy.time import Time
 
     if all(name in piece.extra for name in _BULK_TIME_COLUMNS):
@@ -1187,8 +1347,12 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
     opts = _options(options, overrides)
     paths = _as_paths(path_or_paths)
     pieces = []
+    seen: dict[str, str] = {}
     for path in paths:
         table = read_table(path)
+        if table.digest in seen:  # e.g. A.csv and A.csv.gz: merging would count every point twice
+            raise _fail(str(path), "", f"holds the same data as {seen[table.digest]}; give each file once")
+        seen[table.digest] = str(path)
         pieces.append(_extract(table, _match_columns(table, opts), opts))
     object_id = opts.object_id
     if object_id is None:
@@ -1203,6 +1367,10 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
             object_id = names.pop()
         else:
             object_id = _meta_value(pieces[0].meta, "object") or _object_name_from_path(paths[0])
+            if _truthy(_meta_value(pieces[0].meta, "objquote")):  # a non-ASCII name in a FITS header
+                from urllib.parse import unquote
+
+                object_id = unquote(str(object_id))
     return _assemble(pieces, opts, object_id=object_id)
 
 
@@ -1360,17 +1528,24 @@ def write_lightcurve(lc: LightCurve, path: str | os.PathLike, *, format: str | N
     elif fmt == "fits":
         from astropy.io import fits
 
+        name = str(table.meta.get("OBJECT", ""))
+        if not name.isascii():  # FITS headers hold ASCII only: percent-encode the UTF-8 name and say so
+            from urllib.parse import quote
+
+            table.meta["OBJECT"] = quote(name, safe="")
+            table.meta["OBJQUOTE"] = True
         hdu = fits.table_to_hdu(table)
         fits.HDUList([fits.PrimaryHDU(), hdu]).writeto(buf)
     elif fmt == "votable":
         from astropy.io.votable import from_table, writeto
 
-        from astropy.io.votable.tree import Param
+        from astropy.io.votable.tree import Info
 
         vt = from_table(table)
         vtable = vt.get_first_table()
-        for key, value in table.meta.items():  # keep the metadata as PARAMs
-            vtable.params.append(Param(vt, name=str(key), datatype="char", arraysize="*", value=str(value)))
+        # the metadata as INFO elements: astropy escapes a char PARAM's value twice ('&' -> '&amp;amp;')
+        for key, value in table.meta.items():
+            vtable.infos.append(Info(name=str(key), value=str(value)))
         writeto(vt, buf)
     data = buf.getvalue()
     if compress:

@@ -24,7 +24,6 @@ from __future__ import annotations
 import html
 import json
 import math
-import re
 from collections import Counter
 from pathlib import Path
 from typing import Iterable, Mapping
@@ -98,8 +97,11 @@ def grade_in_words(verdict: Mapping) -> str:
 
 
 def page_name(object_id: str, taken: set | None = None) -> str:
-    """A file-system-safe page stem for an object (unique within ``taken``, which is updated)."""
-    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", str(object_id)).strip("._") or "object"
+    """A file-system-safe page stem for an object (:func:`tumble._io.safe_component`; unique
+    within ``taken``, which is updated)."""
+    from tumble._io import safe_component
+
+    stem = safe_component(object_id)
     if taken is not None:
         base, k = stem, 2
         while stem.lower() in taken:
@@ -255,13 +257,67 @@ def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
 
 
 def _load_posterior(path: Path):
+    """Posterior samples from ``posterior.npz``; None when absent or empty. A corrupt file raises
+    ReportError (callers turn it into a note and draw the rest)."""
     if not path.exists():
         return None
-    with np.load(path, allow_pickle=False) as z:
-        if "samples" not in z.files:
-            return None
-        return {"samples": np.array(z["samples"]), "names": [str(x) for x in z["names"]],
-                "units": [str(x) for x in z["units"]]}
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            if "samples" not in z.files:
+                return None
+            post = {"samples": np.array(z["samples"]), "names": [str(x) for x in z["names"]],
+                    "units": [str(x) for x in z["units"]]}
+    except Exception as exc:  # zipfile, pickle refusal, missing key, bad shape: all "unreadable"
+        raise ReportError(f"{path}: unreadable posterior ({type(exc).__name__}: {' '.join(str(exc).split())[:120]})"
+                          ) from None
+    if post["samples"].ndim != 2 or post["samples"].shape[1] != len(post["names"]):
+        raise ReportError(f"{path}: unreadable posterior (samples of shape {post['samples'].shape} for "
+                          f"{len(post['names'])} names)")
+    return post
+
+
+def _make_dir(path: Path) -> None:
+    """Create a report folder; a file in the way or no permission is a one-line ReportError."""
+    if path.exists() and not path.is_dir():
+        raise ReportError(f"{path}: exists and is not a folder; the report needs a folder")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ReportError(f"{path}: cannot create the report folder ({exc.strerror or exc})") from None
+
+
+def _kept_verdict_path(objects_dir: Path | None, name: str) -> Path | None:
+    """An object's ``verdict.json`` in a ``--keep-objects`` folder (same safe name as the writer)."""
+    if objects_dir is None:
+        return None
+    from tumble.survey import object_folder
+
+    return object_folder(objects_dir, name) / "verdict.json"
+
+
+def _read_kept_verdict(path: Path | None) -> tuple[dict, str]:
+    """(verdict, note): the kept verdict, or {} and a note saying why it was skipped."""
+    if path is None or not path.exists():
+        return {}, ""
+    try:
+        value = json.loads(path.read_text(encoding="utf-8"))
+        if not isinstance(value, dict):
+            raise ValueError("not a JSON object")
+    except (OSError, ValueError) as exc:
+        return {}, f"The saved verdict {path.name} of this object could not be read and was skipped ({exc})."
+    return value, ""
+
+
+def _provenance_html(prov: Mapping) -> str:
+    """What produced the results: version, route, prior, seed and options (from the results metadata)."""
+    if not prov:
+        return ("<h2>Provenance</h2><p class=\"note\">The results file records no provenance (written by an "
+                "older version); the prior and seed behind p(NPA) are not known here.</p>")
+    items = "".join(f"<tr><th>{_e(k)}</th><td>{_e(json.dumps(v, sort_keys=True))}</td></tr>"
+                    for k, v in sorted(prov.items()))
+    return ("<h2>Provenance</h2><p class=\"note\">What produced these results: p(NPA) holds at the prior shown; "
+            "the same version, route, seed and options repeat the run.</p>"
+            f"<div class=\"scroll\"><table>{items}</table></div>")
 
 
 def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | None = None, two_d: bool = True,
@@ -543,13 +599,15 @@ def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mappin
         Prefix of the figure file names.
     """
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    _make_dir(out_dir)
     v = _normalise(verdict)
     name = str(v.get("object", "") or "object")
     figures, notes = ([], []) if str(v.get("status", "ok") or "ok") != "ok" else object_figures(
         out_dir, v, lc, posterior=posterior, two_d=two_d, prefix=figure_prefix)
     tables = object_tables(v, lc) if str(v.get("status", "ok") or "ok") == "ok" else []
     body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note, tables=tables)
+    if isinstance(v.get("provenance"), Mapping):
+        body += _provenance_html(v["provenance"])
     path = out_dir / page
     _write_page(path, _page(f"{name}: tumble report", "One object: rotation verdict, periods and figures. "
                                   "Scientific estimates for research use, not operational decisions.", body))
@@ -676,7 +734,8 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
     results_path = Path(results_path)
     table = read_results(results_path)
     out_dir = Path(out_dir)
-    (out_dir / "objects").mkdir(parents=True, exist_ok=True)
+    _make_dir(out_dir)
+    _make_dir(out_dir / "objects")
     rows = [_row_dict(table, i) for i in range(len(table))]
     objects_dir = Path(objects_dir) if objects_dir is not None else None
     if objects_dir is not None and not objects_dir.is_dir():
@@ -688,6 +747,7 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
 
     taken: set = set()
     links = {}
+    side_notes: list[str] = []
     iterator = rows
     bar = None
     if progress:
@@ -700,12 +760,11 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
         stem = page_name(name, taken)
         links[name] = f"objects/{stem}/index.html"
         v = dict(row)
-        vj = objects_dir / name / "verdict.json" if objects_dir is not None else None
-        if vj is not None and vj.exists():
-            try:
-                extra = json.loads(vj.read_text(encoding="utf-8"))
-            except (OSError, ValueError) as exc:
-                raise ReportError(f"{vj}: unreadable verdict ({exc})") from None
+        vj = _kept_verdict_path(objects_dir, name)
+        extra, skipped = _read_kept_verdict(vj)
+        if skipped:
+            side_notes.append(skipped)
+        if extra:
             for k, val in extra.items():
                 # the damping time is the survey's (it knows the sizes); the rest is the richer verdict
                 if k != "object_id" and not k.startswith("tau_damp"):
@@ -729,6 +788,8 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
             note = "Figures were switched off."
         note += (" The survey keeps no posterior samples, so there is no posterior figure here "
                  "(tumble classify --report draws it).") if str(row.get("status")) == "ok" else ""
+        if skipped:
+            note = f"{note} {skipped}"
         write_object_report(out_dir / "objects" / stem, v, lc=lc, page="index.html", back_link="../../index.html",
                             data_note=note.strip())
     if bar is not None:
@@ -757,7 +818,11 @@ def write_survey_report(results_path, out_dir, objects_dir=None, *, data: Iterab
         else:
             sample_notes.append("No diameters are known (give the report a size table), so no period-diameter "
                                 "diagram.")
-    body = _survey_body(rows, links, sample_figs, sample_notes, results_path)
+    sample_notes.extend(side_notes)
+    from tumble.results import read_provenance
+
+    body = _survey_body(rows, links, sample_figs, sample_notes, results_path) + _provenance_html(
+        read_provenance(table))
     index = out_dir / "index.html"
     _write_page(index, _page(title, f"{len(rows)} objects from {_e(results_path.name)}. Scientific "
                                    "estimates for research use, not operational decisions.", body, script=True))
@@ -819,6 +884,8 @@ def write_report(source, out_dir, *, objects_dir=None, data=None, read_options=N
         if vpath.exists():
             try:
                 verdict = json.loads(vpath.read_text(encoding="utf-8"))
+                if not isinstance(verdict, dict):
+                    raise ValueError("not a JSON object")
             except (OSError, ValueError) as exc:
                 raise ReportError(f"{vpath}: unreadable verdict ({exc})") from None
             lc = None
@@ -828,7 +895,11 @@ def write_report(source, out_dir, *, objects_dir=None, data=None, read_options=N
 
                 lc = read_lightcurve([str(p) for p in data], options=read_options)
                 note = ""
-            post = _load_posterior(source / "posterior.npz") if figures else None
+            try:
+                post = _load_posterior(source / "posterior.npz") if figures else None
+            except ReportError as exc:  # the verdict stands; only the pair plot is lost
+                post = None
+                note = f"{note} The posterior samples were skipped: {exc}".strip()
             return write_object_report(out_dir, verdict, lc=lc, posterior=post, data_note=note)
         results = source / "results.ecsv"
         if results.exists():

@@ -34,7 +34,7 @@ import threading
 import time
 import zlib
 from collections import Counter
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Callable, Iterable, Iterator
 
@@ -53,6 +53,15 @@ __all__ = [
     "object_seed",
     "journal_path",
     "read_journal",
+    "load_journal",
+    "JournalContents",
+    "lock_path",
+    "config_difference",
+    "validate_output",
+    "validate_objects_dir",
+    "object_folder",
+    "keep_verdict",
+    "die_with_parent",
 ]
 
 _PHOTOMETRY_SUFFIXES = (".csv", ".tsv", ".tab", ".txt", ".dat", ".ecsv", ".fits", ".fit", ".fts", ".vot",
@@ -107,6 +116,33 @@ class SurveyConfig:
             raise SurveyError(f"route must be full or screen, not '{self.route}'")
         if self.object_timeout_s is not None and not self.object_timeout_s > 0:
             raise SurveyError(f"object time limit must be positive, got {self.object_timeout_s} s")
+        if not 0 < self.prior_npa < 1:  # also refuses NaN
+            raise SurveyError(f"prior probability of NPA must lie strictly between 0 and 1, got {self.prior_npa}")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
+            raise SurveyError(f"seed must be a non-negative integer, got {self.seed}")
+        if self.max_steps < 0:
+            raise SurveyError(f"sampler steps must be 0 or more, got {self.max_steps}")
+        if self.n_walkers is not None and self.n_walkers < 1:
+            raise SurveyError(f"sampler walkers must be at least 1, got {self.n_walkers}")
+
+    def provenance(self) -> dict:
+        """What decides the results of this run: version, route, prior, seed and the options that
+        change a row (JSON-safe; recorded in the journal header, the results metadata and verdicts)."""
+        from tumble.results import make_provenance, plain_record
+
+        return make_provenance(route=self.route, prior_npa=self.prior_npa, seed=self.seed,
+                               max_steps=int(self.max_steps),
+                               n_walkers=None if self.n_walkers is None else int(self.n_walkers),
+                               read_options=plain_record(self.read_options),
+                               sizes_sha256=_digest(sorted((str(k), list(v)) for k, v in self.sizes.items())))
+
+
+def _digest(value) -> str:
+    import hashlib
+
+    from tumble.results import plain_record
+
+    return hashlib.sha256(json.dumps(plain_record(value), sort_keys=True).encode("utf-8")).hexdigest()[:16]
 
 
 @dataclass(frozen=True)
@@ -152,7 +188,7 @@ def _expand(inputs: Iterable[str | os.PathLike]) -> list[Path]:
             files.extend(h for h in hits if h.is_file())
         elif path.is_dir():
             found = sorted(p for p in path.iterdir() if p.is_file() and not p.name.startswith(".")
-                           and not p.name.endswith(".json"))
+                           and not p.name.endswith((".json", ".journal.jsonl")))
             if not found:
                 raise SurveyError(f"{path}: directory holds no photometry files")
             files.extend(found)
@@ -184,6 +220,11 @@ def collect_objects(inputs, read_options=None) -> list[ObjectTask]:
             table_is_survey = "object" in _match_columns(table, opts)
         except PhotometryError:
             pass  # the worker reads it again and reports the error as the object's row
+        else:
+            if str(table.meta.get("schema", "")).startswith("tumble results") or (
+                    "provenance" in table.meta and {"status", "rotation"} <= {n.lower() for n in table.names}):
+                raise SurveyError(f"{path}: a tumble results catalogue, not photometry (the --out of an earlier "
+                                  "run inside the input folder?); move it out of the inputs")
         if table_is_survey:
             for name, item in iter_survey(path, options=opts):
                 if isinstance(item, PhotometryError):
@@ -270,7 +311,7 @@ def _classify_task(task: ObjectTask, config: SurveyConfig) -> dict:
     from tumble.damping import damping_for_classification
     from tumble.photometry import read_lightcurve
     from tumble.results import results_row
-    from tumble.schema import dumps_strict, verdict_record
+    from tumble.schema import verdict_record
 
     lc = task.lightcurve
     if lc is None:
@@ -285,22 +326,49 @@ def _classify_task(task: ObjectTask, config: SurveyConfig) -> dict:
     record.setdefault("route", config.route)  # the verdict's own route wins once it carries one
     record = verdict_record(record)
     row = results_row(record, object_id=task.object_id)
+    side_warnings = []
     d_km, h_mag, albedo = config.sizes.get(task.object_id, (None, None, None))
     damp = None
     if config.route != "screen":  # a screen states no rotation, so no damping time
-        damp = damping_for_classification(verdict, diameter_km=d_km, h_mag=h_mag, albedo=albedo,
-                                          rng=object_seed(config.seed + 1, task.object_id))
+        try:
+            damp = damping_for_classification(verdict, diameter_km=d_km, h_mag=h_mag, albedo=albedo,
+                                              rng=object_seed(config.seed + 1, task.object_id))
+        except (TumbleError, ValueError) as exc:  # a bad size entry costs the damping time, not the verdict
+            side_warnings.append(f"no damping time: {' '.join(str(exc).split())}")
     if damp is not None:
         taus = dict(tau_damp_gyr=damp.tau_gyr, tau_damp_gyr_lo=damp.tau_gyr_lo, tau_damp_gyr_hi=damp.tau_gyr_hi)
         row.update(taus)
         record = verdict_record(record, **taus)
     if config.keep_objects_dir:
-        from tumble._io import atomic_write_text
-
-        folder = Path(config.keep_objects_dir) / task.object_id
-        folder.mkdir(parents=True, exist_ok=True)
-        atomic_write_text(folder / "verdict.json", dumps_strict(record, indent=2) + "\n")
+        try:
+            # the same verdict.json schema as tumble classify writes
+            keep_verdict(config.keep_objects_dir, task.object_id, record, config.provenance())
+        except OSError as exc:  # an unwritable side file costs the side file, not the verdict
+            side_warnings.append(f"verdict file not written ({exc.strerror or exc})")
+    if side_warnings:
+        row["message"] = "; ".join([str(row.get("message") or "")] * bool(row.get("message"))
+                                   + [f"warning: {w}" for w in side_warnings])
     return row
+
+
+def object_folder(objects_dir: str | os.PathLike, object_id: str) -> Path:
+    """The per-object folder of ``--keep-objects`` (written and read through one safe name)."""
+    from tumble._io import safe_component
+
+    return Path(objects_dir) / safe_component(object_id)
+
+
+def keep_verdict(objects_dir: str | os.PathLike, object_id: str, verdict: dict, provenance: dict) -> Path:
+    """Write ``OBJECTS_DIR/<safe name>/verdict.json`` (atomically) with the run's provenance."""
+    from tumble._io import atomic_write_text
+    from tumble.schema import dumps_strict
+
+    folder = object_folder(objects_dir, object_id)
+    folder.mkdir(parents=True, exist_ok=True)
+    body = dict(verdict, provenance=provenance)
+    path = folder / "verdict.json"
+    atomic_write_text(path, dumps_strict(body, indent=2) + "\n")
+    return path
 
 
 # ---------------------------------------------------------------------------
@@ -311,6 +379,18 @@ def journal_path(out: str | os.PathLike) -> Path:
     """The journal beside an output file: ``results.ecsv`` -> ``results.ecsv.journal.jsonl``."""
     out = Path(out)
     return out.with_name(out.name + ".journal.jsonl")
+
+
+def lock_path(out: str | os.PathLike) -> Path:
+    """The lock file of a run writing ``out`` (hidden, beside it): ``.results.ecsv.lock``."""
+    out = Path(out)
+    return out.with_name(f".{out.name}.lock")
+
+
+#: Key of the journal's first line, which records the run configuration (not an object row).
+JOURNAL_HEADER_KEY = "tumble_journal"
+#: Journal format version written in the header line.
+JOURNAL_VERSION = 1
 
 
 def _encode_row(row: dict) -> str:
@@ -324,55 +404,225 @@ def _encode_row(row: dict) -> str:
     return json.dumps(clean, sort_keys=True)
 
 
-def read_journal(path: str | os.PathLike) -> dict[str, dict]:
-    """Rows already finished, by object; a torn last line (killed mid-write) is ignored."""
+@dataclass(frozen=True)
+class JournalContents:
+    """What a journal holds.
+
+    Attributes
+    ----------
+    header : dict or None
+        The run configuration of its header line (None: no header, e.g. an older journal).
+    rows : dict
+        Finished rows by object (the last valid line of each object wins).
+    n_malformed : int
+        Lines that are not a valid row (torn, not JSON, not UTF-8, missing columns); their
+        objects are processed again.
+    """
+
+    header: dict | None
+    rows: dict
+    n_malformed: int
+
+
+def _valid_row(obj) -> bool:
+    from tumble.results import COLUMN_NAMES, STATUS_VALUES
+
+    return (isinstance(obj, dict) and isinstance(obj.get("object"), str) and obj.get("status") in STATUS_VALUES
+            and all(k in obj for k in COLUMN_NAMES))
+
+
+def load_journal(path: str | os.PathLike) -> JournalContents:
+    """Read a journal: header, valid rows by object, and the count of malformed lines (never raises
+    for bad content; an unreadable file raises :class:`SurveyError`)."""
     path = Path(path)
-    rows: dict[str, dict] = {}
+    header, rows, bad = None, {}, 0
     if not path.exists():
-        return rows
-    with open(path, encoding="utf-8") as fh:
-        for line in fh:
-            line = line.strip()
-            if not line:
-                continue
-            try:
-                row = json.loads(line)
-            except json.JSONDecodeError:
-                continue
-            rows[row["object"]] = {k: (np.nan if v is None else v) for k, v in row.items()}
-    return rows
+        return JournalContents(None, rows, 0)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise SurveyError(f"{path}: journal cannot be read ({exc.strerror or exc})") from None
+    for k, line in enumerate(raw.split(b"\n")):
+        if not line.strip():
+            continue
+        try:
+            obj = json.loads(line.decode("utf-8"))
+        except (UnicodeDecodeError, ValueError):
+            bad += 1
+            continue
+        if k == 0 and isinstance(obj, dict) and JOURNAL_HEADER_KEY in obj:
+            header = obj.get("config") if isinstance(obj.get("config"), dict) else {}
+            continue
+        if not _valid_row(obj):
+            bad += 1
+            continue
+        rows[obj["object"]] = {key: (np.nan if v is None else v) for key, v in obj.items()}
+    return JournalContents(header, rows, bad)
+
+
+def read_journal(path: str | os.PathLike) -> dict[str, dict]:
+    """Rows already finished, by object; malformed lines (a torn last line, ...) are ignored."""
+    return load_journal(path).rows
+
+
+def config_difference(old: dict, new: dict) -> str | None:
+    """The first setting in which two journal configurations differ, as ``name: old -> new`` (or None)."""
+    for key in sorted(set(old) | set(new)):
+        a, b = old.get(key, "(absent)"), new.get(key, "(absent)")
+        if a != b:
+            if isinstance(a, dict) and isinstance(b, dict):
+                inner = config_difference(a, b)
+                return f"{key}.{inner}"
+            return f"{key}: {json.dumps(a)} -> {json.dumps(b)}"
+    return None
 
 
 class _Journal:
-    def __init__(self, path: Path):
+    """Append-only JSON-lines journal; the header line is written with the first row, so a run that
+    fails before any object is finished leaves no journal behind."""
+
+    def __init__(self, path: Path, header: dict):
         self.path = path
-        path.parent.mkdir(parents=True, exist_ok=True)
-        self._fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
-        # a torn last line from a killed run must not glue onto the next row
-        if path.stat().st_size:
-            with open(path, "rb") as fh:
+        self._header = header
+        self._fd = None
+
+    def _open(self) -> None:
+        from tumble._io import write_all
+
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+        size = os.fstat(fd).st_size
+        if size == 0:
+            write_all(fd, (json.dumps({JOURNAL_HEADER_KEY: JOURNAL_VERSION, "config": self._header},
+                                      sort_keys=True) + "\n").encode("utf-8"))
+        else:  # a torn last line from a killed run must not glue onto the next row
+            with open(self.path, "rb") as fh:
                 fh.seek(-1, os.SEEK_END)
                 if fh.read(1) != b"\n":
-                    os.write(self._fd, b"\n")
+                    write_all(fd, b"\n")
+        self._fd = fd
 
     def append(self, row: dict) -> None:
-        os.write(self._fd, (_encode_row(row) + "\n").encode("utf-8"))
-        os.fsync(self._fd)
+        from tumble._io import write_all
+
+        if self._fd is None:
+            self._open()
+        try:
+            write_all(self._fd, (_encode_row(row) + "\n").encode("utf-8"))
+            os.fsync(self._fd)
+        except OSError as exc:
+            raise SurveyError(f"{self.path}: cannot write the journal ({exc.strerror or exc}); "
+                              "the rows written so far are kept, finish with --resume") from None
 
     def close(self) -> None:
-        os.close(self._fd)
+        if self._fd is not None:
+            os.close(self._fd)
+            self._fd = None
+
+
+class _OutputLock:
+    """An exclusive advisory lock (``flock``) on the output of a run; released when the process ends,
+    even by SIGKILL, so a killed run never blocks its ``--resume``."""
+
+    def __init__(self, out: Path):
+        self.path = lock_path(out)
+        self._fd = None
+
+    def acquire(self) -> None:
+        import fcntl
+
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(fd)
+            raise SurveyError(f"{self.path.with_name(self.path.name[1:-5])}: another tumble run is writing "
+                              "this output now; wait for it or choose another --out") from None
+        self._fd = fd
+
+    def release(self) -> None:
+        if self._fd is not None:  # the file stays: unlinking it could let two runs lock two inodes
+            os.close(self._fd)
+            self._fd = None
 
 
 # ---------------------------------------------------------------------------
 # Executors
 
 
-def _worker_init():
+#: Linux prctl option that sends a signal to a process when its parent dies (linux/prctl.h).
+_PR_SET_PDEATHSIG = 1
+#: Task states in the shared array of the process pool (which tasks a dead worker held).
+_QUEUED, _RUNNING, _FINISHED = 0, 1, 2
+_TASK_STATE = None  # set in each pool worker by _worker_init
+
+
+def die_with_parent() -> None:
+    """Ask the kernel to SIGKILL this process when its parent dies (Linux; elsewhere nothing), so
+    that killing a survey, even with SIGKILL, leaves no worker behind."""
+    import signal
+    import sys
+
+    if not sys.platform.startswith("linux"):
+        return
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+    except (OSError, AttributeError):
+        return
+    if os.getppid() == 1:  # the parent died before the request took effect
+        os._exit(1)
+
+
+def _worker_init(task_state=None):
+    global _TASK_STATE
+    import signal
+
+    die_with_parent()
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and stops the workers
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    _TASK_STATE = task_state
     _pin_threads()
 
 
+def _pool_task(task: ObjectTask, config: SurveyConfig, slot: int) -> dict:
+    """process_object in a pool worker, marking the task running and finished in the shared array."""
+    if _TASK_STATE is not None:
+        _TASK_STATE[slot] = _RUNNING
+    try:
+        return process_object(task, config)
+    finally:
+        if _TASK_STATE is not None:
+            _TASK_STATE[slot] = _FINISHED
+
+
+def _stop_pool(pool) -> None:
+    """Shut a process pool down now: queued tasks cancelled, running workers terminated."""
+    procs = dict(getattr(pool, "_processes", None) or {})  # no public accessor before 3.14; shutdown clears it
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in list(procs.values()):
+        try:
+            proc.terminate()
+        except (OSError, ValueError, AttributeError):
+            pass
+    for proc in list(procs.values()):
+        try:
+            proc.join(5)
+            if proc.is_alive():
+                proc.kill()
+        except (OSError, ValueError, AttributeError, AssertionError):
+            pass
+
+
 def _iter_process_pool(tasks: list[ObjectTask], config: SurveyConfig, workers: int) -> Iterator[dict]:
-    """Rows as they finish, from a process pool; a pool broken by a dying worker is rebuilt."""
+    """Rows as they finish, from a process pool; a pool broken by a dying worker is rebuilt.
+
+    When a worker dies, only the tasks that were running at that moment are suspects (queued
+    tasks are resubmitted free). With one suspect it is charged an attempt; with several, nobody
+    can tell which worker died first, so they are rerun one at a time ("solo"), where a death is
+    charged to the one task that was running. A task charged twice becomes an error row.
+    """
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
     from concurrent.futures.process import BrokenProcessPool
@@ -380,43 +630,50 @@ def _iter_process_pool(tasks: list[ObjectTask], config: SurveyConfig, workers: i
     from tumble.results import empty_row
 
     ctx = mp.get_context("fork") if hasattr(os, "fork") else mp.get_context()
+    slots = {t.object_id: k for k, t in enumerate(tasks)}
+    state = ctx.Array("b", len(tasks), lock=False)
     pending = list(reversed(tasks))  # pop() from the end keeps input order
+    solo: list[ObjectTask] = []  # suspects of a death with several tasks running, rerun one at a time
     attempts: Counter = Counter()
-    max_in_flight = max(2 * workers, 1)
-    while pending:
-        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_worker_init)
+    while pending or solo:
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_worker_init,
+                                   initargs=(state,))
         in_flight = {}
         broken = False
         try:
-            while pending or in_flight:
-                while pending and len(in_flight) < max_in_flight:
-                    task = pending.pop()
-                    in_flight[pool.submit(process_object, task, config)] = task
+            while pending or solo or in_flight:
+                limit = 1 if solo else max(2 * workers, 1)
+                while (solo or pending) and len(in_flight) < limit:
+                    task = solo.pop() if solo else pending.pop()
+                    state[slots[task.object_id]] = _QUEUED
+                    in_flight[pool.submit(_pool_task, task, config, slots[task.object_id])] = task
                 done, _ = wait(list(in_flight), return_when=FIRST_COMPLETED)
+                rows = []
                 for fut in done:
-                    task = in_flight.pop(fut)
                     try:
-                        yield fut.result()
+                        rows.append(fut.result())
+                        in_flight.pop(fut)
                     except BrokenProcessPool:
                         broken = True
-                        attempts[task.object_id] += 1
-                        if attempts[task.object_id] >= 2:
-                            yield empty_row(task.object_id, "error",
-                                            f"{task.object_id}: the worker died twice while processing it")
-                        else:
-                            pending.append(task)
+                yield from rows
                 if broken:
-                    for fut, task in in_flight.items():
+                    running = [t for t in in_flight.values() if state[slots[t.object_id]] == _RUNNING]
+                    queued = [t for t in in_flight.values() if state[slots[t.object_id]] != _RUNNING]
+                    pending.extend(reversed(queued))
+                    if len(running) == 1:
+                        task = running[0]
                         attempts[task.object_id] += 1
                         if attempts[task.object_id] >= 2:
                             yield empty_row(task.object_id, "error",
                                             f"{task.object_id}: the worker died twice while processing it")
                         else:
-                            pending.append(task)
+                            solo.append(task)
+                    else:
+                        solo.extend(reversed(running))
                     in_flight.clear()
                     break
         finally:
-            pool.shutdown(wait=not broken, cancel_futures=True)
+            _stop_pool(pool)
         if not broken:
             return
 
@@ -517,6 +774,10 @@ class SurveySummary:
     shortlist : list of dict
         NPA candidates (object, p_npa, grade, p_psi_h, p_phi_h), sorted by p_npa, highest first.
     results_path, journal_path : str
+    n_malformed_journal_lines : int
+        Journal lines skipped on ``--resume`` as not a valid row (their objects were redone).
+    provenance : dict
+        The run configuration (version, route, prior, seed, options), as in the journal header.
     """
 
     n_objects: int
@@ -531,6 +792,13 @@ class SurveySummary:
     shortlist: list
     results_path: str
     journal_path: str
+    n_malformed_journal_lines: int = 0
+    provenance: dict = field(default_factory=dict)
+
+    @property
+    def all_failed(self) -> bool:
+        """True when the run is complete and every object is an error row."""
+        return bool(self.results_path) and self.n_objects > 0 and self.status_counts.get("error", 0) == self.n_objects
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -562,11 +830,87 @@ def _unquote(text: str) -> str:
     return re.sub(r"'[^']*'|\"[^\"]*\"", "value", text)
 
 
+def validate_output(out: str | os.PathLike, object_ids: Iterable[str] = ()) -> Path:
+    """Check before any work that the results catalogue can be written at ``out`` and hold these
+    names: known format, not a folder, writable folder (a tiny probe table is written and removed).
+
+    Raises
+    ------
+    SurveyError
+        With a one-line message naming the path and the problem.
+    """
+    import contextlib
+    import tempfile
+
+    from tumble.results import empty_row, write_results
+
+    out = Path(out)
+    if out.is_dir():
+        raise SurveyError(f"{out}: is a folder; --out names the results file (e.g. {out / 'results.ecsv'})")
+    names = list(object_ids)
+    probe_names = names[:1] + [n for n in names[1:] if not n.isascii()][:100]
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=".probe-", suffix=out.name, dir=out.parent)
+        os.close(fd)
+    except OSError as exc:
+        raise SurveyError(f"{out}: the output folder cannot be written ({exc.strerror or exc})") from None
+    try:
+        os.unlink(tmp)
+        write_results([empty_row(n) for n in probe_names or ["probe"]], tmp)
+    except TumbleError as exc:
+        raise SurveyError(str(exc).replace(tmp, str(out))) from None
+    except Exception as exc:  # the format cannot hold the data
+        raise SurveyError(f"{out}: the results cannot be written in this format "
+                          f"({' '.join(str(exc).split())[:200]})") from None
+    finally:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+    return out
+
+
+def validate_objects_dir(objects_dir: str | os.PathLike, object_ids: Iterable[str]) -> Path:
+    """Check before any work that the ``--keep-objects`` folder is writable and that no two object
+    names share a folder (names are made safe by :func:`tumble._io.safe_component`)."""
+    import tempfile
+
+    from tumble._io import safe_component
+
+    folder = Path(objects_dir)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=".probe-", dir=folder)
+        os.close(fd)
+        os.unlink(tmp)
+    except OSError as exc:
+        raise SurveyError(f"{folder}: the --keep-objects folder cannot be written ({exc.strerror or exc})") from None
+    seen: dict[str, str] = {}
+    for name in object_ids:
+        key = safe_component(name).lower()  # case-insensitive file systems
+        if key in seen and seen[key] != name:
+            raise SurveyError(f"{folder}: objects '{seen[key]}' and '{name}' would share the folder "
+                              f"'{safe_component(name)}' on a case-insensitive file system; rename one")
+        seen[key] = name
+    return folder
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    try:
+        path.resolve().relative_to(folder.resolve())
+        return True
+    except ValueError:
+        return False
+
+
 def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = None, *, workers: int | None = None,
                scheduler: str | None = None, dask_local: int | None = None, resume: bool = False,
-               progress: bool = True, chunk: int | None = None, tasks: list[ObjectTask] | None = None,
-               _stop_after: int | None = None) -> SurveySummary:
+               force_resume: bool = False, progress: bool = True, chunk: int | None = None,
+               tasks: list[ObjectTask] | None = None, _stop_after: int | None = None) -> SurveySummary:
     """Process every object of a survey and write the results catalogue.
+
+    Everything that can be checked is checked before the first object is computed: the
+    output (format, folder, names it must hold), the ``--keep-objects`` folder, and on
+    ``resume`` that the journal was written with the same configuration.
 
     Parameters
     ----------
@@ -574,7 +918,8 @@ def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = Non
         Directories, glob patterns or files (see :func:`collect_objects`).
     out : path
         Results catalogue (ECSV by default; FITS or CSV by the extension). The
-        journal is written beside it (:func:`journal_path`).
+        journal is written beside it (:func:`journal_path`); a lock (:func:`lock_path`)
+        refuses a second run on the same output while this one runs.
     config : SurveyConfig
     workers : int, optional
         Local worker processes (default: the number of cores; 1 runs in this process).
@@ -585,6 +930,9 @@ def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = Non
     resume : bool
         Keep the rows of an earlier run's journal and process only the rest.
         Without it an existing journal is an error (nothing is overwritten by accident).
+    force_resume : bool
+        Resume even when the journal's configuration differs from this run's (the rows of
+        both configurations are then mixed; the results metadata records it).
     progress : bool
         tqdm progress bar on stderr (objects done, errors, rate).
     chunk : int, optional
@@ -598,14 +946,46 @@ def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = Non
     config = config or SurveyConfig()
     out = Path(out)
     jpath = journal_path(out)
+    if workers is not None and workers < 1:
+        raise SurveyError(f"workers must be at least 1, got {workers}")
+    if dask_local is not None and dask_local < 1:
+        raise SurveyError(f"Dask local workers must be at least 1, got {dask_local}")
+    for item in inputs or ():
+        if Path(item).is_dir() and _inside(out, Path(item)):
+            raise SurveyError(f"{out}: the output is inside the input folder {item}; the next run would read it "
+                              "back as photometry. Choose --out outside the inputs")
     if jpath.exists() and not resume:
         raise SurveyError(f"{jpath}: a journal of an earlier run exists; use --resume to finish it, "
                           "or remove it to start again")
+    lock = _OutputLock(out)
+    lock.acquire()
+    try:
+        return _run_locked(inputs, out, jpath, config, workers, scheduler, dask_local, resume, force_resume,
+                           progress, chunk, tasks, _stop_after, write_results)
+    finally:
+        lock.release()
+
+
+def _run_locked(inputs, out, jpath, config, workers, scheduler, dask_local, resume, force_resume, progress, chunk,
+                tasks, _stop_after, write_results) -> SurveySummary:
     all_tasks = tasks if tasks is not None else collect_objects(inputs, config.read_options)
     if not all_tasks:
         raise SurveyError("no objects found in the input")
-    done = read_journal(jpath) if resume else {}
-    known = {t.object_id for t in all_tasks}
+    names = [t.object_id for t in all_tasks]
+    validate_output(out, names)
+    if config.keep_objects_dir:
+        validate_objects_dir(config.keep_objects_dir, names)
+    provenance = dict(config.provenance(), inputs_sha256=_digest(names))
+    journal = load_journal(jpath) if resume else JournalContents(None, {}, 0)
+    if resume and journal.header is not None and not force_resume:
+        diff = config_difference(journal.header, provenance)
+        if diff is not None and diff.startswith("inputs_sha256"):
+            diff = "the input lists other objects than the journal's run"
+        if diff is not None:
+            raise SurveyError(f"{jpath}: the journal was written with other settings ({diff}); resume with the "
+                              "same settings, or give --force-resume to mix them")
+    done = dict(journal.rows)
+    known = set(names)
     stale = set(done) - known
     if stale:
         raise SurveyError(f"{jpath}: the journal holds objects not in this input (e.g. '{sorted(stale)[0]}'); "
@@ -625,12 +1005,12 @@ def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = Non
         from tqdm import tqdm
 
         bar = tqdm(total=len(todo), unit="obj", desc="survey", dynamic_ncols=True, leave=True)
-    journal = _Journal(jpath)
+    writer = _Journal(jpath, provenance)
     n_err = 0
     processed = 0
     try:
         for row in rows_iter:
-            journal.append(row)
+            writer.append(row)
             done[row["object"]] = row
             processed += 1
             n_err += row["status"] == "error"
@@ -640,16 +1020,19 @@ def run_survey(inputs, out: str | os.PathLike, config: SurveyConfig | None = Non
             if _stop_after is not None and processed >= _stop_after:
                 break  # for tests of interruption; the journal keeps what was done
     finally:
-        journal.close()
+        writer.close()
         if bar is not None:
             bar.close()
         if hasattr(rows_iter, "close"):
             rows_iter.close()
     wall = time.perf_counter() - t0
     ordered = [done[t.object_id] for t in all_tasks if t.object_id in done]
+    if journal.header is not None and journal.header != provenance:
+        provenance = dict(provenance, mixed_with=journal.header)  # --force-resume over other settings
     if len(ordered) == len(all_tasks):
-        write_results(ordered, out)
-    return _summarise(ordered, len(all_tasks), len(all_tasks) - len(todo), processed, wall, out, jpath)
+        write_results(ordered, out, provenance=provenance)
+    summary = _summarise(ordered, len(all_tasks), len(all_tasks) - len(todo), processed, wall, out, jpath)
+    return replace(summary, n_malformed_journal_lines=journal.n_malformed, provenance=provenance)
 
 
 def _summarise(rows, n_objects, n_before, n_processed, wall, out, jpath) -> SurveySummary:

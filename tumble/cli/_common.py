@@ -6,7 +6,84 @@ import argparse
 import sys
 
 __all__ = ["add_input_options", "read_options", "add_output_options", "print_json", "parse_elements",
-           "parse_observatory"]
+           "parse_observatory", "OPTION_CHECKS", "check_options", "printable", "output_folder"]
+
+
+# ---------------------------------------------------------------------------
+# Option checks: one table for every sub-command (the first failing check is a one-line error, exit 2).
+# Each entry: argparse destination -> (test, what the value must be). Options a command does not have
+# are skipped; None (option not given) always passes.
+def _finite(x) -> bool:
+    import math
+
+    return math.isfinite(x)
+
+
+OPTION_CHECKS = {
+    "seed": (lambda x: x >= 0, "a non-negative integer"),
+    "workers": (lambda x: x >= 1, "at least 1"),
+    "dask_local": (lambda x: x >= 1, "at least 1"),
+    "prior_npa": (lambda x: 0 < x < 1, "strictly between 0 and 1"),
+    "object_timeout": (lambda x: _finite(x) and x > 0, "a positive number of seconds"),
+    "max_steps": (lambda x: x >= 0, "0 or more"),
+    "walkers": (lambda x: x >= 1, "at least 1"),
+    "shortlist": (lambda x: x >= 0, "0 or more"),
+    "oversample": (lambda x: _finite(x) and x >= 1, "a finite number of at least 1 (frequency grid oversampling)"),
+    "session_gap_h": (lambda x: _finite(x) and x > 0, "a positive number of hours"),
+    "min_points": (lambda x: x >= 1, "at least 1"),
+    "flux_zero_point": (_finite, "a finite magnitude"),
+    # H of real minor bodies lies within about -1 .. 35 mag (common practice); 1e308 gave tau = nan
+    "h_mag": (lambda x: _finite(x) and -5 <= x <= 40, "a finite absolute magnitude between -5 and 40"),
+    "min_period_h": (lambda x: _finite(x) and x > 0, "a positive, finite period in hours"),
+    "max_period_h": (lambda x: _finite(x) and x > 0, "a positive, finite period in hours"),
+}
+
+
+def check_options(args: argparse.Namespace) -> None:
+    """Check the parsed options against :data:`OPTION_CHECKS` before any work.
+
+    Raises
+    ------
+    tumble.exceptions.TumbleError
+        ``--option: must be ..., got VALUE`` for the first value out of range.
+    """
+    from tumble.exceptions import TumbleError
+
+    for dest, (test, what) in OPTION_CHECKS.items():
+        value = getattr(args, dest, None)
+        if value is None or isinstance(value, (str, list, bool)):
+            continue
+        try:
+            ok = bool(test(value))
+        except (TypeError, ValueError):
+            ok = False
+        if not ok:
+            raise TumbleError(f"--{dest.replace('_', '-')}: must be {what}, got {value}")
+
+
+def output_folder(given: str | None, object_id: str, suffix: str):
+    """The output folder of a one-object command: ``--out DIR`` as given, else ``<safe name><suffix>``
+    in the working folder (the object name comes from data: it never becomes a path as it is). A file
+    in the way is bad input (TumbleError), found before any work."""
+    from pathlib import Path
+
+    from tumble._io import safe_component
+    from tumble.exceptions import TumbleError
+
+    folder = Path(given) if given else Path(f"{safe_component(object_id)}{suffix}")
+    if folder.exists() and not folder.is_dir():
+        raise TumbleError(f"{folder}: exists and is not a folder; --out names an output folder")
+    return folder
+
+
+def printable(text) -> str:
+    """One line of text safe for a terminal: control characters (escape sequences from data) shown
+    as ``\\xNN`` escapes, whitespace runs collapsed."""
+    out = []
+    for ch in " ".join(str(text).split()):
+        code = ord(ch)
+        out.append(ch if code >= 32 and code != 127 and not 0x80 <= code < 0xA0 else f"\\x{code:02x}")
+    return "".join(out)
 
 
 def add_input_options(parser: argparse.ArgumentParser) -> None:

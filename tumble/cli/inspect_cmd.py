@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from tumble.cli._common import add_input_options, add_output_options, print_json, read_options
+from tumble.cli._common import add_input_options, add_output_options, print_json, printable, read_options
 
 
 def add_parser(sub) -> None:
@@ -34,6 +34,12 @@ def run(args: argparse.Namespace) -> int:
     from tumble.photometry import iter_survey, read_lightcurve, write_lightcurve
 
     opts = read_options(args)
+    if args.write:
+        from pathlib import Path
+
+        target = Path(args.write).resolve()
+        if any(Path(f).resolve() == target for f in args.files):
+            raise PhotometryError(f"{args.write}: --write would overwrite its own input; choose another name")
     survey_like = len(args.files) == 1 and opts.object_id is None and _has_object_column(args.files[0], opts)
     if survey_like:
         items = list(iter_survey(args.files[0], options=opts))
@@ -57,7 +63,7 @@ def run(args: argparse.Namespace) -> int:
     for s in summaries:
         _print_summary(s)
     for name, exc in errors:
-        print(f"object {name}: error: {exc}")
+        print(f"object {printable(name)}: error: {printable(exc)}")
     if args.write:
         print(f"wrote {args.write}")
     return 0
@@ -72,8 +78,8 @@ def _fmt_range(r, unit, fmt="{:.3f}"):
 def _print_summary(s: dict) -> None:
     dropped = ", ".join(f"{v} {k}" for k, v in s["dropped"].items()) or "none"
     bands = ", ".join(f"{b} ({n})" for b, n in s["bands"].items())
-    print(f"object        {s['object']}")
-    print(f"source        {', '.join(s['sources'])}")
+    print(f"object        {printable(s['object'])}")
+    print(f"source        {printable(', '.join(s['sources']))}")
     print(f"points        {s['n_points']} kept of {s['n_read']} read; dropped or merged: {dropped}")
     print(f"sessions      {s['n_sessions']} with own zero-point, {s['n_sparse_points']} sparse points")
     print(f"span          {s['span_d']:.3f} d  (JD {s['t_first_jd_utc']:.5f} .. {s['t_last_jd_utc']:.5f} UTC)")

@@ -90,6 +90,11 @@ def _run_one(args: argparse.Namespace) -> int:
         mu_q_pa=args.mu_q, density_kg_m3=args.density, k3_squared=args.k3_squared,
         shape_coefficient=args.shape_coefficient, harris_c=args.harris_c, age_gyr=args.age_gyr,
         n_samples=args.samples, rng=args.seed)
+    import math
+
+    if not all(math.isfinite(x) for x in (est.tau_gyr, est.tau_gyr_lo, est.tau_gyr_hi)):
+        raise DampingError(f"no finite damping time for these inputs (period {args.period_h:g} h, diameter "
+                           f"{est.diameter_km:.3g} km); check the size and period")
     if args.json:
         out = est.to_dict()
         out["caution"] = CAUTION

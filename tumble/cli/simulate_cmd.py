@@ -36,7 +36,8 @@ def add_parser(sub) -> None:
                    help="output format (default: from the extension)")
     p.add_argument("--no-sidecar", action="store_true", help="ECSV only: keep the truth in the file's metadata only")
     p.add_argument("--object", dest="object_id", default="sim", metavar="NAME", help="designation (default: sim)")
-    p.add_argument("--seed", type=int, default=None, help="random seed (default: fresh randomness)")
+    p.add_argument("--seed", type=int, default=None,
+                   help="random seed (default: fresh randomness; the seed drawn is recorded in the truth)")
     p.add_argument("--json", action="store_true", help="print the truth as JSON")
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
 
@@ -168,6 +169,8 @@ def run(args: argparse.Namespace) -> int:
                        outlier_sigma_mag=args.outlier_sigma)
     if args.no_sidecar and not (args.format == "ecsv" or (args.format is None and ".ecsv" in args.out.lower())):
         raise SimulationError(f"{args.out}: --no-sidecar needs ECSV output (the only format that holds the truth)")
+    if args.seed is None:  # fresh randomness, but recorded, so the simulation can be repeated
+        args.seed = int(np.random.SeedSequence().generate_state(1, dtype=np.uint32)[0])
     sim = simulate_lightcurve(state, axes, plan, parse_elements(args.elements),
                               observatory=parse_observatory(args.observatory), h_mag=args.h_mag, law=args.law,
                               lambert_weight=args.lambert_weight, trend=trend, noise=noise,

@@ -6,7 +6,10 @@ import argparse
 import math
 import sys
 
-from tumble.cli._common import add_input_options, print_json, read_options
+from tumble.cli._common import add_input_options, print_json, printable, read_options
+
+#: Exit code when the run finished but every object is an error row (documented in docs/commands.md).
+EXIT_ALL_FAILED = 3
 
 
 def add_parser(sub) -> None:
@@ -31,6 +34,9 @@ def add_parser(sub) -> None:
     p.add_argument("--dask-local", type=int, metavar="N",
                    help="start a Dask LocalCluster with N workers (needs the 'cluster' extra)")
     p.add_argument("--resume", action="store_true", help="finish an interrupted run from its journal")
+    p.add_argument("--force-resume", action="store_true",
+                   help="with --resume: go on even if the journal was written with other settings (the results "
+                        "metadata then records both configurations)")
     p.add_argument("--object-timeout", type=float, default=900.0, metavar="S",
                    help="per-object time limit in seconds; past it the object becomes an error row (default: 900)")
     p.add_argument("--keep-objects", metavar="DIR", help="also write each object's verdict JSON into DIR/OBJECT/")
@@ -88,9 +94,15 @@ def _read_sizes(path):
         return v if np.isfinite(v) else None
 
     out = {}
-    for row in table:
+    for k, row in enumerate(table):
         d, h, a = get(row, "diameter_km"), get(row, "h_mag"), get(row, "albedo")
-        out[str(row[cols["object"]]).strip()] = (d, None if d is not None else h, None if d is not None else a)
+        name = str(row[cols["object"]]).strip()
+        bad = ("diameter_km", d) if d is not None and not d > 0 else (
+            ("albedo", a) if a is not None and not 0 < a <= 1.5 else None)
+        if bad is not None:  # checked here, before any object is computed
+            raise SurveyError(f"{path}: row {k + 1} ({printable(name)}), column '{bad[0]}': {bad[1]:g} is not a "
+                              f"valid {'diameter' if bad[0] == 'diameter_km' else 'geometric albedo'}")
+        out[name] = (d, None if d is not None else h, None if d is not None else a)
     return out
 
 
@@ -123,6 +135,8 @@ def run(args: argparse.Namespace) -> int:
         raise SurveyError(f"--workers must be at least 1, got {args.workers}")
     if args.scheduler and args.dask_local:
         raise SurveyError("give --scheduler or --dask-local, not both")
+    if args.force_resume and not args.resume:
+        raise SurveyError("--force-resume goes with --resume")
     config = SurveyConfig(
         route="screen" if args.screen else "full", seed=args.seed, prior_npa=args.prior_npa,
         read_options=read_options(args), max_steps=args.max_steps, n_walkers=args.walkers,
@@ -132,7 +146,8 @@ def run(args: argparse.Namespace) -> int:
     if args.inject is not None:
         return _run_inject(args, config)
     summary = run_survey(args.inputs, args.out, config, workers=args.workers, scheduler=args.scheduler,
-                         dask_local=args.dask_local, resume=args.resume, progress=not args.quiet)
+                         dask_local=args.dask_local, resume=args.resume, force_resume=args.force_resume,
+                         progress=not args.quiet)
     if args.json:
         print_json(summary.to_dict())
     else:
@@ -143,6 +158,10 @@ def run(args: argparse.Namespace) -> int:
         index = _write_report(args, summary.results_path)
         if not args.json:
             print(f"report        {index}")
+    if summary.all_failed:
+        print(f"tumble survey: every one of the {summary.n_objects} objects failed (see the errors above and the "
+              f"message column); exit status {EXIT_ALL_FAILED}", file=sys.stderr)
+        return EXIT_ALL_FAILED
     return 0
 
 
@@ -235,7 +254,10 @@ def print_summary(s, n_short: int = 15, file=None) -> None:
     p("rotation      " + (", ".join(f"{k} {v}" for k, v in sorted(s.rotation_counts.items())) or "-"))
     p("grades        " + (", ".join(f"{k} {v}" for k, v in sorted(s.grade_counts.items())) or "-"))
     if s.error_kinds:
-        p("errors        " + "; ".join(f"{k}: {v}" for k, v in sorted(s.error_kinds.items(), key=lambda kv: -kv[1])))
+        p("errors        " + "; ".join(f"{printable(k)}: {v}"
+                                       for k, v in sorted(s.error_kinds.items(), key=lambda kv: -kv[1])))
+    if s.n_malformed_journal_lines:
+        p(f"journal       {s.n_malformed_journal_lines} malformed line(s) skipped; their objects were processed again")
     p(f"time          {s.wall_s:.1f} s wall for this run; {_f(s.cpu_per_object_s)} s per object on average")
     if s.results_path:
         p(f"results       {s.results_path}")
@@ -246,6 +268,6 @@ def print_summary(s, n_short: int = 15, file=None) -> None:
         p(f"{'object':14s} {'p_npa':>7s} {'grade':>9s} {'mode':>7s} {'P_psi (h)':>10s} {'P_phi (h)':>10s} "
           f"{'P1 (h)':>9s} {'P2 (h)':>9s}")
         for r in s.shortlist[:n_short]:
-            p(f"{str(r['object']):14s} {format_probability(r['p_npa']):>7s} {str(r['grade']):>9s} {str(r['mode']):>7s} "
+            p(f"{printable(r['object']):14s} {format_probability(r['p_npa']):>7s} {str(r['grade']):>9s} {str(r['mode']):>7s} "
               f"{_f(r['p_psi_h'], 5):>10s} {_f(r['p_phi_h'], 5):>10s} {_f(r['p1_h'], 5):>9s} {_f(r['p2_h'], 5):>9s}")
     p("Verdicts are scientific estimates for research use; damping times rest on an assumed rigidity.")
