@@ -53,14 +53,14 @@ def _damping(verdict, args, rng):
 
 
 def run(args: argparse.Namespace) -> int:
-    from pathlib import Path
 
     import numpy as np
 
     from tumble._io import atomic_path, atomic_write_text
     from tumble.classify import ClassifyError, classify, screen
     from tumble.photometry import read_lightcurve
-    from tumble.results import write_results
+    from tumble.cli._common import output_folder
+    from tumble.results import make_provenance, plain_record, write_results
     from tumble.schema import dumps_strict, results_row, verdict_record
 
     if not 0 < args.prior_npa < 1:
@@ -68,6 +68,13 @@ def run(args: argparse.Namespace) -> int:
     if args.albedo is not None and args.h_mag is None:
         raise ClassifyError("--albedo needs --h-mag")
     lc = read_lightcurve(args.files, options=read_options(args))
+    # the folder is checked before the work; an object name from data never becomes a path as it is
+    out_dir = output_folder(args.out, lc.object_id, "-classify")
+    out_dir.mkdir(parents=True, exist_ok=True)
+    route = "screen" if args.screen else "full"
+    prov = make_provenance(route=route, prior_npa=args.prior_npa, seed=args.seed, max_steps=args.max_steps,
+                           n_walkers=args.walkers, robust=bool(args.robust), min_period_h=args.min_period_h,
+                           max_period_h=args.max_period_h, read_options=plain_record(read_options(args)))
     rng = np.random.default_rng(args.seed)
     fit = None
     if args.screen:
@@ -83,11 +90,10 @@ def run(args: argparse.Namespace) -> int:
                          tau_damp_gyr=damp.tau_gyr if damp else math.nan,
                          tau_damp_gyr_lo=damp.tau_gyr_lo if damp else math.nan,
                          tau_damp_gyr_hi=damp.tau_gyr_hi if damp else math.nan)
-    out_dir = Path(args.out or f"{lc.object_id}-classify")
-    out_dir.mkdir(parents=True, exist_ok=True)
+    out["provenance"] = prov
     # verdict.json holds no wall-clock time, so the same seed gives the same bytes
     atomic_write_text(out_dir / "verdict.json", dumps_strict(out, indent=2) + "\n")
-    write_results([results_row(out)], out_dir / "results.ecsv")
+    write_results([results_row(out)], out_dir / "results.ecsv", provenance=prov)
     arrays = {}
     if fit is not None and fit.posterior is not None:
         post = fit.posterior
