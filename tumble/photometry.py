@@ -32,6 +32,7 @@ import numpy as np
 from tumble import geometry
 from tumble._io import atomic_path, is_gzip_name, strip_compression
 from tumble.exceptions import PhotometryError
+from tumble.timeformats import implausible_time
 
 __all__ = [
     "LightCurve",
@@ -167,6 +168,8 @@ class ReadOptions:
         the file lacks them.
     observatory : geometry.Observatory or None
         Ground station for topocentric geometry (with ``elements``).
+    encoding : str or None
+        Text encoding of text files (e.g. ``latin-1``); None reads UTF-8 with or without BOM.
     """
 
     columns: Mapping[str, str] = field(default_factory=dict)
@@ -183,6 +186,7 @@ class ReadOptions:
     object_id: str | None = None
     elements: geometry.OrbitalElements | None = None
     observatory: geometry.Observatory | None = None
+    encoding: str | None = None
 
     def __post_init__(self):
         if self.time_format not in (None, "jd", "mjd", "iso"):
@@ -198,6 +202,13 @@ class ReadOptions:
         if int(self.min_points) < 2:
             raise PhotometryError(f"minimum number of points must be at least 2, got {self.min_points}")
         object.__setattr__(self, "columns", parse_column_map(self.columns))
+        if self.encoding is not None:
+            import codecs
+
+            try:
+                codecs.lookup(self.encoding)
+            except LookupError:
+                raise PhotometryError(f"unknown text encoding '{self.encoding}'") from None
 
 
 @dataclass(frozen=True, eq=False)
@@ -372,6 +383,19 @@ class LightCurve:
         opts = options or ReadOptions()
         if option_overrides:
             opts = replace(opts, **option_overrides)
+        from tumble.adapters import has_rich_values
+
+        if has_rich_values(time, mag, err, flux, flux_err, r_au, delta_au, phase_deg):  # Time, Quantity
+            given = {"time": time, "mag": mag, "err": err, "flux": flux, "flux_err": flux_err, "session": session,
+                     "band": band, "r_au": r_au, "delta_au": delta_au, "phase_deg": phase_deg}
+            n = len(time)
+            table = {k: (np.broadcast_to(np.asarray(v), (n,)) if np.ndim(v) == 0 else v)
+                     for k, v in given.items() if v is not None}
+            for prefix, vec in (("sun", sun_dir), ("obs", obs_dir)):
+                if vec is not None:
+                    for k, axis in enumerate("xyz"):
+                        table[f"{prefix}_{axis}"] = np.asarray(vec, dtype=float)[:, k]
+            return cls.from_table(table, object_id=object_id, options=replace(opts, columns={}), source=source)
         if opts.time_format is None:
             opts = replace(opts, time_format="jd")
         n = len(np.atleast_1d(time))
@@ -395,6 +419,41 @@ class LightCurve:
         mapping = {name: name for name in cols}
         piece = _extract(table, mapping, opts)
         return _assemble([piece], opts, object_id=object_id)
+
+    @classmethod
+    def from_table(cls, table, columns=None, *, object_id: str | None = None, options: ReadOptions | None = None,
+                   source: str | None = None, **option_overrides) -> "LightCurve":
+        """Build a light curve from an in-memory table of one object.
+
+        Parameters
+        ----------
+        table : astropy Table or QTable, pandas DataFrame, pyarrow Table, or mapping of name -> array
+            Columns named as in files (aliases, or mapped with ``columns``). An
+            astropy ``Time`` column is taken with its scale; Quantities and columns
+            with units are converted by physical type (angles to deg, lengths to au).
+        columns : str or dict, optional
+            Column map, e.g. ``"time=obs_time,mag=V"``.
+        object_id : str, optional
+            Object name (default: the object column, the table's ``OBJECT`` meta, else ``object``).
+        options : ReadOptions, optional
+            Reading options; keyword arguments override its fields.
+        source : str, optional
+            Name used in error messages (default ``<Table>``, ``<DataFrame>``...).
+
+        Raises
+        ------
+        PhotometryError
+            One line naming the column or row and the problem.
+        """
+        from tumble.adapters import raw_table
+
+        if columns is not None:
+            option_overrides["columns"] = columns
+        if object_id is not None:
+            option_overrides["object_id"] = object_id
+        opts = _options(options, option_overrides)
+        raw, opts = raw_table(table, opts, source=source)
+        return _lightcurve_from_tables([raw], opts, [])
 
 
 # ---------------------------------------------------------------------------
@@ -477,24 +536,29 @@ def _sniff_format(path: Path, data: bytes) -> str:
     return fmt
 
 
-def read_table(path: str | os.PathLike) -> _RawTable:
-    """Read one file into raw columns (strings for text tables), sniffing its format."""
+def read_table(path: str | os.PathLike, encoding: str | None = None) -> _RawTable:
+    """Read one file into raw columns (strings for text tables), sniffing its format.
+
+    ``encoding`` names the text encoding of text files (default UTF-8, BOM allowed).
+    """
+    from tumble.readers import decode_text, find_reader
+
     path = Path(path)
     data = _load_bytes(path)
     src = str(path)
     if not data.strip(b"\xef\xbb\xbf \t\r\n"):
         raise _fail(src, "", "file is empty")
+    extra_format = find_reader(path, data)
+    if extra_format is not None:  # ALCDEF, Parquet (tumble/readers.py)
+        return extra_format.read(src, data, encoding)
     fmt = _sniff_format(path, data)
     if fmt == "fits":
         return _read_fits(src, data)
     if fmt == "votable":
         return _read_votable(src, data)
-    if b"\x00" in data[:65536]:
+    if b"\x00" in data[:65536] and not (encoding or "").lower().startswith("utf-16"):
         raise _fail(src, "", "binary data, not a text table (NUL bytes found)")
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise _fail(src, "", f"not UTF-8 text (undecodable byte at offset {exc.start}); binary file?") from None
+    text = decode_text(src, data, encoding)
     if fmt == "ecsv":
         return _read_ecsv(src, text)
     return _read_text(src, text)
@@ -778,6 +842,9 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
         if bad.size:
             raise _fail(src, f"{labels[bad[0]]}, column '{tname}'",
                         f"time is {'NaN' if np.isnan(time[bad[0]]) else 'infinite'} ({_rows(bad.size)} like this)")
+        implausible = implausible_time(time, tfmt)
+        if implausible is not None:
+            raise _fail(src, f"{labels[implausible[0]]}, column '{tname}'", implausible[1])
 
     # --- magnitudes (or fluxes)
     if have_mag and not (have_flux and "mag" not in opts.columns and "flux" in opts.columns):
@@ -1169,8 +1236,11 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
 
     Parameters
     ----------
-    path_or_paths : path or sequence of paths
+    path_or_paths : path, sequence of paths, or table
         Files of one object; several files are merged, each keeping its own sessions.
+        Or an in-memory table: astropy Table/QTable, pandas DataFrame, pyarrow Table,
+        a mapping of column name -> array (see :mod:`tumble.adapters`: Time columns
+        keep their scale, Quantities are converted by their units).
     columns : str or dict, optional
         Column map, e.g. ``"time=JD,mag=V,err=sigma"``.
     options : ReadOptions, optional
@@ -1185,11 +1255,13 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
     if columns is not None:
         overrides["columns"] = columns
     opts = _options(options, overrides)
-    paths = _as_paths(path_or_paths)
-    pieces = []
-    for path in paths:
-        table = read_table(path)
-        pieces.append(_extract(table, _match_columns(table, opts), opts))
+    tables, opts, paths = _read_inputs(path_or_paths, opts)
+    return _lightcurve_from_tables(tables, opts, paths)
+
+
+def _lightcurve_from_tables(tables: list[_RawTable], opts: ReadOptions, paths: list[Path]) -> LightCurve:
+    """One object's light curve from raw tables (files or one in-memory table)."""
+    pieces = [_extract(table, _match_columns(table, opts), opts) for table in tables]
     object_id = opts.object_id
     if object_id is None:
         names = set()
@@ -1202,8 +1274,20 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
         if names:
             object_id = names.pop()
         else:
-            object_id = _meta_value(pieces[0].meta, "object") or _object_name_from_path(paths[0])
+            object_id = (_meta_value(pieces[0].meta, "object")
+                         or (_object_name_from_path(paths[0]) if paths else "object"))
     return _assemble(pieces, opts, object_id=object_id)
+
+
+def _read_inputs(path_or_paths, opts: ReadOptions):
+    """(raw tables, options, paths) of files or of one in-memory table (paths empty then)."""
+    from tumble.adapters import is_table_like, raw_table
+
+    if is_table_like(path_or_paths):
+        table, opts = raw_table(path_or_paths, opts)
+        return [table], opts, []
+    paths = _as_paths(path_or_paths)
+    return [read_table(path, opts.encoding) for path in paths], opts, paths
 
 
 def _meta_value(meta: Mapping, key: str):
@@ -1229,11 +1313,12 @@ def iter_survey(path_or_paths, columns=None, *, options: ReadOptions | None = No
     if columns is not None:
         overrides["columns"] = columns
     opts = _options(options, overrides)
-    for path in _as_paths(path_or_paths):
-        table = read_table(path)
+    tables, opts, paths = _read_inputs(path_or_paths, opts)
+    for k, table in enumerate(tables):
         mapping = _match_columns(table, opts)
         if "object" not in mapping:
-            name = opts.object_id or _object_name_from_path(path)
+            name = (opts.object_id or _meta_value(table.meta, "object")
+                    or (_object_name_from_path(paths[k]) if paths else "object"))
             try:
                 yield name, _assemble([_extract(table, mapping, opts)], opts, object_id=name)
             except PhotometryError as exc:

@@ -38,6 +38,8 @@ def add_input_options(parser: argparse.ArgumentParser) -> None:
                    help="osculating heliocentric ecliptic J2000 elements (au, deg, JD TDB) to compute the geometry")
     g.add_argument("--observatory", metavar="LON,LAT,HEIGHT_M",
                    help="ground station (deg east, deg, m) for topocentric geometry with --elements")
+    g.add_argument("--encoding", metavar="NAME",
+                   help="text encoding of text files, e.g. latin-1 (default: UTF-8, with or without BOM)")
 
 
 def _floats(text: str, n: int, what: str) -> list[float]:
@@ -90,6 +92,7 @@ def read_options(args: argparse.Namespace):
         flux_zero_point=args.flux_zero_point,
         elements=parse_elements(args.elements),
         observatory=parse_observatory(args.observatory),
+        encoding=args.encoding,
     )
 
 
