@@ -242,13 +242,11 @@ def raw_table(obj, opts, *, source: str | None = None):
         ptype = types.get(name)
         if ptype is None or ptype == "timestamp":
             continue
-        allowed = UNIT_TARGETS[ptype].canonical if ptype in UNIT_TARGETS else ("flux", "flux_err")
-        if canon not in allowed and not (canon in ("flux", "flux_err") and ptype not in UNIT_TARGETS):
-            raise PhotometryError(f"{src}: column '{name}': a {ptype} cannot be our '{canon}' column")
-    for canon in _MAG_COLUMNS:
-        name = mapping.get(canon)
-        if name is not None and types.get(name) not in (None,):
-            raise PhotometryError(f"{src}: column '{name}': unit of a {types[name]}, expected mag for '{canon}'")
+        target = UNIT_TARGETS.get(ptype)
+        allowed = target.canonical if target is not None else ("flux", "flux_err")
+        if canon not in allowed:
+            raise PhotometryError(f"{src}: column '{name}': a unit of {ptype} cannot be our '{canon}' column "
+                                  f"({'mag or no unit' if canon in _MAG_COLUMNS else 'wrong kind of quantity'})")
     tname = mapping.get("time")
     if tname in scales:
         if opts.time_format not in (None, "jd"):

@@ -15,7 +15,7 @@ def add_parser(sub) -> None:
                     "with an object column gives one summary per object) and print what was read, "
                     "what was dropped and which reductions were applied.",
     )
-    p.add_argument("files", nargs="+", metavar="FILE", help="photometry files (CSV, TSV, text, ECSV, FITS, VOTable; .gz)")
+    p.add_argument("files", nargs="+", metavar="FILE", help="photometry files (CSV, TSV, text, ECSV, FITS, VOTable, ALCDEF, Parquet; .gz)")
     p.add_argument("--write", metavar="OUT", help="write the normalised light curve (format from the extension)")
     add_input_options(p)
     add_output_options(p)
@@ -25,7 +25,7 @@ def add_parser(sub) -> None:
 def _has_object_column(path, opts) -> bool:
     from tumble.photometry import _match_columns, read_table
 
-    table = read_table(path)
+    table = read_table(path, opts.encoding)
     return "object" in _match_columns(table, opts)
 
 
