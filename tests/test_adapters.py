@@ -170,3 +170,21 @@ def test_parquet_file(tmp_path, arrays):
     (tmp_path / "bad.parquet").write_text("time,mag\n1,2\n")
     with pytest.raises(PhotometryError, match=r"bad.parquet: unreadable Parquet"):
         read_lightcurve(tmp_path / "bad.parquet")
+
+
+def test_parquet_without_the_extra_is_one_line(tmp_path, monkeypatch, arrays):
+    import importlib.util
+
+    from tumble import _extras
+    from tumble.exceptions import MissingExtraError
+    from tumble.results import write_results
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(_extras.importlib.util, "find_spec", lambda name, *a: None if name == "pyarrow" else real(name, *a))
+    with pytest.raises(MissingExtraError, match=r"x.parquet: writing Parquet needs the optional package 'pyarrow': "
+                                                r"pip install 'tumble\[parquet\]'"):
+        write_results([], tmp_path / "x.parquet")
+    assert not (tmp_path / "x.parquet").exists()
+    (tmp_path / "lc.parquet").write_bytes(b"PAR1" + b"\0" * 20 + b"PAR1")
+    with pytest.raises(PhotometryError, match=r"lc.parquet: reading Parquet needs .*tumble\[parquet\]"):
+        read_lightcurve(tmp_path / "lc.parquet")

@@ -247,6 +247,16 @@ class LightCurve:
         applied, and counts of every point dropped or merged (``meta['dropped']``).
     """
 
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.lightcurve_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.lightcurve_html(self)
+
     object_id: str
     t_obs: np.ndarray
     t: np.ndarray

@@ -13,18 +13,15 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
+import numpy as np
+
 from tumble._io import strip_compression
 from tumble.exceptions import PhotometryError
 
-__all__ = ["ExtraFormat", "EXTRA_FORMATS", "find_reader", "decode_text", "missing_extra"]
+__all__ = ["ExtraFormat", "EXTRA_FORMATS", "find_reader", "decode_text"]
 
 #: Parquet files begin (and end) with these four bytes (Apache Parquet file format specification).
 PARQUET_MAGIC = b"PAR1"
-
-
-def missing_extra(what: str, extra: str, module: str) -> PhotometryError:
-    """The one-line error for a feature whose optional dependency is not installed."""
-    return PhotometryError(f"{what} needs the optional package '{module}': pip install 'tumble[{extra}]'")
 
 
 def decode_text(src: str, data: bytes, encoding: str | None) -> str:
@@ -56,23 +53,46 @@ def _sniff_parquet(path: Path, data: bytes) -> bool:
 
 
 def _read_parquet(src: str, data: bytes, encoding: str | None):
-    try:
-        import pyarrow  # noqa: F401
-    except ImportError:
-        raise missing_extra(f"{src}: reading Parquet", "parquet", "pyarrow") from None
-    from astropy.table import Table
+    from tumble._extras import require
+
+    require("parquet", f"{src}: reading Parquet", PhotometryError)
+    import pyarrow.parquet as pq
 
     from tumble.adapters import raw_table
     from tumble.photometry import ReadOptions
 
     try:
-        table = Table.read(io.BytesIO(data), format="parquet")
+        table = pq.read_table(io.BytesIO(data))
     except Exception as exc:
         msg = (str(exc).strip().splitlines() or [type(exc).__name__])[0][:200]
         raise PhotometryError(f"{src}: unreadable Parquet ({msg})") from None
-    raw, _ = raw_table(table, ReadOptions(), source=src)
+    raw, _ = raw_table(_with_astropy_units(table), ReadOptions(), source=src)
     raw.format = "parquet"
     return raw
+
+
+def _with_astropy_units(pt):
+    """A pyarrow table as an astropy Table, with the units astropy's writer stored (``table_meta_yaml``).
+
+    astropy's own Parquet reader needs pandas; pyarrow alone suffices here.
+    """
+    from astropy.table import Column, Table
+    from astropy.table import meta as table_meta
+
+    md = {k.decode("utf-8"): v.decode("utf-8") for k, v in (pt.schema.metadata or {}).items()}
+    try:
+        header = (table_meta.get_header_from_yaml(md["table_meta_yaml"].split("\n"))
+                  if "table_meta_yaml" in md else {})
+    except Exception:  # a foreign or damaged header: columns without units
+        header = {}
+    info = {c["name"]: c for c in header.get("datatype", [])}
+    table = Table(meta=header.get("meta", {}))
+    for name in pt.column_names:
+        values = pt.column(name).to_numpy(zero_copy_only=False)
+        if values.dtype == object:
+            values = np.array(["" if v is None else str(v) for v in values], dtype=object)
+        table[name] = Column(values, unit=info.get(name, {}).get("unit"))
+    return table
 
 
 @dataclass(frozen=True)

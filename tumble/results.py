@@ -131,6 +131,10 @@ def write_results(rows: Iterable[Mapping], path: str | os.PathLike, extra_column
     """Write the results catalogue atomically; the format follows the extension (ECSV by default)."""
     path = Path(path)
     fmt = _table_format(path)
+    if fmt == "parquet":
+        from tumble._extras import require
+
+        require("parquet", f"{path}: writing Parquet")
     table = results_table(rows, extra_columns)
     with atomic_path(path) as tmp:
         table.write(tmp, format=fmt, overwrite=True)
@@ -171,6 +175,10 @@ def read_results(path: str | os.PathLike):
     if not path.exists():
         raise TumbleError(f"{path}: no such file")
     fmt = _table_format(path)
+    if fmt == "parquet":
+        from tumble._extras import require
+
+        require("parquet", f"{path}: reading Parquet")
     try:
         table = Table.read(path, format=fmt)
     except TumbleError:
