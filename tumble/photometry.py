@@ -170,6 +170,9 @@ class ReadOptions:
         Ground station for topocentric geometry (with ``elements``).
     encoding : str or None
         Text encoding of text files (e.g. ``latin-1``); None reads UTF-8 with or without BOM.
+    orbits : tumble.orbits.OrbitCatalogue or None
+        Orbital elements of many objects, looked up by object name when ``elements``
+        is not given (``--orbits FILE``).
     """
 
     columns: Mapping[str, str] = field(default_factory=dict)
@@ -187,6 +190,7 @@ class ReadOptions:
     elements: geometry.OrbitalElements | None = None
     observatory: geometry.Observatory | None = None
     encoding: str | None = None
+    orbits: object | None = None
 
     def __post_init__(self):
         if self.time_format not in (None, "jd", "mjd", "iso"):
@@ -1134,14 +1138,18 @@ def _assemble(pieces: Sequence[_Piece], opts: ReadOptions, object_id: str) -> Li
         if arr is not None and not np.all(np.isfinite(arr)):
             i = int(np.flatnonzero(~np.isfinite(arr))[0])
             raise _fail(where, f"{labels[i]}", f"missing {name} value")
-    if opts.elements is not None and (sun_dir is None or r_au is None or delta_au is None):
-        geo = geometry.observing_geometry(t_tdb, opts.elements, opts.observatory)
+    elements = opts.elements
+    if elements is None and opts.orbits is not None:  # --orbits: this object's elements, if in the file
+        elements = opts.orbits.lookup(object_id)
+    if elements is not None and (sun_dir is None or r_au is None or delta_au is None):
+        geo = geometry.observing_geometry(t_tdb, elements, opts.observatory)
         r_au = geo.r_au if r_au is None else r_au
         delta_au = geo.delta_au if delta_au is None else delta_au
         sun_dir = geo.sun_dir if sun_dir is None else sun_dir
         obs_dir = geo.obs_dir if obs_dir is None else obs_dir
         reductions.append("distances and directions computed from orbital elements "
-                          f"({'topocentric' if opts.observatory else 'geocentric'}, two-body)")
+                          f"({'topocentric' if opts.observatory else 'geocentric'}, two-body"
+                          f"{'' if opts.elements is not None else ', from ' + str(opts.orbits.source)})")
     if phase is None and sun_dir is not None:
         phase = geometry.phase_angle_deg(sun_dir, obs_dir)
         reductions.append("phase angle computed from the Sun and observer directions")
