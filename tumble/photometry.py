@@ -1301,6 +1301,8 @@ def _read_inputs(path_or_paths, opts: ReadOptions):
     """(raw tables, options, paths) of files or of one in-memory table (paths empty then)."""
     from tumble.adapters import is_table_like, raw_table
 
+    if isinstance(path_or_paths, _RawTable):  # already converted (tumble.catalog names its partition)
+        return [path_or_paths], opts, []
     if is_table_like(path_or_paths):
         table, opts = raw_table(path_or_paths, opts)
         return [table], opts, []
