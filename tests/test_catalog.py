@@ -150,3 +150,22 @@ def test_cli_survey_catalog(built, capsys):
     assert summary["n_objects"] == 4 and summary["status_counts"] == {"ok": 3, "error": 1}
     assert main(["survey", "x.csv", "--catalog", str(cat), "--out", str(out)]) == 2
     assert "not both" in capsys.readouterr().err
+
+
+def test_top_level_survey_chooses_the_route(built):
+    import tumble
+
+    root, cat = built
+    summary = tumble.survey(cat, root / "api", CONFIG, scheduler="sync")  # Norder= folders: a catalogue
+    assert summary.n_objects == 4
+    assert tumble.survey([root / "all.csv"], root / "api.ecsv", CONFIG, workers=1, progress=False).n_objects == 4
+
+
+def test_partition_without_object_column(tmp_path):
+    cat = tmp_path / "cat"
+    cat.mkdir()
+    pd.DataFrame({"time": 2460000.5 + np.arange(20) * 0.01, "mag": 15.0, "err": 0.01}).to_parquet(cat / "p.parquet")
+    summary = run_catalog(cat, tmp_path / "out", CONFIG, scheduler="sync")
+    assert summary.status_counts == {"error": 1}
+    row = read_catalog_results(tmp_path / "out")[0]
+    assert "no object column" in row["message"]

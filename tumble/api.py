@@ -28,7 +28,8 @@ def survey(inputs, out, config=None, *, catalog: bool | None = None, **kwargs):
         What to run per object (default: the screen and classification defaults).
     catalog : bool, optional
         Treat ``inputs`` as a partitioned Parquet catalogue (default: when it is a
-        directory holding ``.parquet`` files and nothing else photometric).
+        directory with Parquet dataset or HATS metadata files, or ``Norder=``
+        partition folders; a plain folder of files is a survey of files).
     **kwargs
         Passed to :func:`tumble.survey.run_survey` (``workers``, ``resume``, ...)
         or :func:`tumble.catalog.run_catalog`.
@@ -54,10 +55,18 @@ def survey(inputs, out, config=None, *, catalog: bool | None = None, **kwargs):
     return run_survey(inputs, out, config, **kwargs)
 
 
+#: Files and folders that mark a partitioned catalogue directory (Parquet dataset metadata, HATS layout).
+CATALOG_MARKERS = ("_metadata", "_common_metadata", "partition_info.csv", "properties", "hats.properties",
+                   "_tumble_catalog.json")
+
+
 def _looks_like_catalog(inputs) -> bool:
+    """A directory with Parquet dataset or HATS metadata, or ``Norder=`` partition folders."""
     if not isinstance(inputs, (str, os.PathLike)):
         return False
     path = Path(inputs)
     if not path.is_dir():
         return False
-    return any(path.rglob("*.parquet"))
+    if any((path / m).exists() for m in CATALOG_MARKERS):
+        return True
+    return any(p.is_dir() and p.name.startswith("Norder=") for p in path.iterdir())

@@ -187,6 +187,11 @@ def classify_frame(frame, config=None, source: str | None = None) -> list[dict]:
     opts = config.read_options or ReadOptions()
     flat = flatten_frame(frame, source or "<frame>")
     raw, opts = raw_table(flat, opts, source=source)
+    from tumble.photometry import _match_columns
+
+    if "object" not in _match_columns(raw, opts):
+        raise PhotometryError(f"{raw.source}: no object column (a catalogue partition holds many objects; "
+                              "map one with --columns object=NAME)")
     rows = []
     for k, (name, item) in enumerate(iter_survey(raw, options=opts)):
         if isinstance(item, PhotometryError):
