@@ -188,3 +188,25 @@ def test_parquet_without_the_extra_is_one_line(tmp_path, monkeypatch, arrays):
     (tmp_path / "lc.parquet").write_bytes(b"PAR1" + b"\0" * 20 + b"PAR1")
     with pytest.raises(PhotometryError, match=r"lc.parquet: reading Parquet needs .*tumble\[parquet\]"):
         read_lightcurve(tmp_path / "lc.parquet")
+
+
+@pytest.mark.parametrize("fmt, ext", [("ascii.ecsv", "ecsv"), ("fits", "fits"), ("votable", "xml")])
+def test_file_units_converted(tmp_path, arrays, fmt, ext):
+    # reference: astropy.units (0.3187 rad = 18.26 deg; 1 au = 149597870.7 km, IAU 2012 B2)
+    jd, mag, err = arrays
+    qt = QTable({"time": jd, "mag": mag, "err": err, "phase": np.full(N, 0.3187) * u.rad,
+                 "r": np.full(N, 149597870.7 * 2.0) * u.km})
+    path = tmp_path / f"lc.{ext}"
+    qt.write(path, format=fmt)
+    lc = read_lightcurve(path)
+    np.testing.assert_allclose(lc.phase_deg, np.degrees(0.3187))
+    np.testing.assert_allclose(lc.r_au, 2.0, rtol=1e-12)
+
+
+def test_unrecognised_units_left_alone(arrays):
+    jd, mag, err = arrays
+    t = Table({"time": jd, "mag": mag, "err": err})
+    t["time"].unit = u.Unit("JD", parse_strict="silent")
+    t["mag"].unit = u.Unit("magnitudes_of_sorts", parse_strict="silent")
+    lc = read_lightcurve(t)
+    np.testing.assert_allclose(lc.t_obs, jd, rtol=0, atol=1e-9)

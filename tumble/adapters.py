@@ -113,6 +113,8 @@ def _unit_values(src: str, name: str, col) -> tuple[np.ndarray, str | None]:
     if str(unit) == "mag" or isinstance(unit, u.MagUnit):
         return values, None
     ptype = str(unit.physical_type)
+    if ptype == "unknown":  # unrecognised or unnamed units (e.g. 'JD', 'adu'): the values as given
+        return values, None
     target = UNIT_TARGETS.get(ptype)
     if target is None:  # fluxes and everything else: values as given (flux units cancel in ratios)
         return values, ptype

@@ -671,6 +671,10 @@ def _table_to_raw(src: str, table, fmt: str) -> _RawTable:
         if values.dtype.kind in "fiub":
             arr = values.astype(float)
             arr[mask] = np.nan
+            if getattr(col, "unit", None) is not None:  # a phase in rad is rad (tumble/adapters.py)
+                from tumble.adapters import _unit_values
+
+                arr = _unit_values(src, name, col)[0]
         else:
             arr = np.array([v.decode() if isinstance(v, bytes) else str(v) for v in values], dtype=object)
             arr[mask] = ""
@@ -709,6 +713,12 @@ def _read_fits(src: str, data: bytes) -> _RawTable:
                 if not table_hdus:
                     raise _fail(src, "", "FITS file has no table extension")
                 table = Table(table_hdus[0].data)
+                for k, name in enumerate(table.colnames, start=1):  # TUNITn: units kept for conversion
+                    unit = table_hdus[0].header.get(f"TUNIT{k}")
+                    if unit:
+                        import astropy.units as u
+
+                        table[name].unit = u.Unit(unit, parse_strict="silent")
                 table.meta.update({k: v for k, v in table_hdus[0].header.items() if k not in ("COMMENT", "HISTORY")})
     except PhotometryError:
         raise
