@@ -210,3 +210,20 @@ def test_unrecognised_units_left_alone(arrays):
     t["mag"].unit = u.Unit("magnitudes_of_sorts", parse_strict="silent")
     lc = read_lightcurve(t)
     np.testing.assert_allclose(lc.t_obs, jd, rtol=0, atol=1e-9)
+
+
+def test_survey_parquet_without_extra_fails_before_the_run(tmp_path, monkeypatch, capsys, arrays):
+    import importlib.util
+
+    from tumble import _extras
+    from tumble.cli import main
+
+    jd, mag, err = arrays
+    path = tmp_path / "lc.csv"
+    Table({"time": jd, "mag": mag, "err": err}).write(path, format="ascii.csv")
+    real = importlib.util.find_spec
+    monkeypatch.setattr(_extras.importlib.util, "find_spec", lambda name, *a: None if name == "pyarrow" else real(name, *a))
+    assert main(["survey", str(path), "--out", str(tmp_path / "r.parquet"), "--screen", "--workers", "1"]) == 2
+    err_lines = capsys.readouterr().err.strip().splitlines()
+    assert len(err_lines) == 1 and "tumble[parquet]" in err_lines[0]
+    assert not list(tmp_path.glob("r.parquet*"))  # nothing run, no journal left behind

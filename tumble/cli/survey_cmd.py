@@ -126,6 +126,10 @@ def run(args: argparse.Namespace) -> int:
         raise SurveyError(f"--workers must be at least 1, got {args.workers}")
     if args.scheduler and args.dask_local:
         raise SurveyError("give --scheduler or --dask-local, not both")
+    if args.out and not args.catalog and str(args.out).lower().endswith(".parquet"):
+        from tumble._extras import require
+
+        require("parquet", f"{args.out}: writing Parquet")  # before the run, not after it
     config = SurveyConfig(
         route="screen" if args.screen else "full", seed=args.seed, prior_npa=args.prior_npa,
         read_options=read_options(args), max_steps=args.max_steps, n_walkers=args.walkers,
