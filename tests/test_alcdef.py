@@ -158,3 +158,13 @@ def test_real_didymos_period():
     lc = read_lightcurve(DIDYMOS, default_err=0.02)
     scan = fourier_scan(lc, order=4, min_period_h=1.5, max_period_h=3.5)
     assert scan.peaks[0].period_h == pytest.approx(2.2593, rel=5e-4)
+
+
+def test_inspect_write_alcdef(tmp_path, capsys):
+    src = _write(tmp_path / "one.alcdef", _block(4321, "Kestrel", "", 2460584.60, 20),
+                 _block(4321, "Kestrel", "", 2460585.60, 20, band="R"))
+    out = tmp_path / "copy.alcdef"
+    assert main(["inspect", str(src), "--write", str(out)]) == 0
+    capsys.readouterr()
+    back = read_lightcurve(out)
+    assert back.n_sessions == 2 and back.bands == ("R", "V") and back.object_id == "4321 Kestrel"

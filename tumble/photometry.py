@@ -72,7 +72,7 @@ COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
 CANONICAL_COLUMNS = tuple(COLUMN_ALIASES)
 
 #: Output/input formats by name; the reader also sniffs the content.
-FORMATS = ("csv", "tsv", "txt", "ecsv", "fits", "votable")
+FORMATS = ("csv", "tsv", "txt", "ecsv", "fits", "votable", "alcdef")
 _EXT_FORMAT = {
     ".csv": "csv",
     ".tsv": "tsv",
@@ -86,6 +86,7 @@ _EXT_FORMAT = {
     ".vot": "votable",
     ".xml": "votable",
     ".votable": "votable",
+    ".alcdef": "alcdef",
 }
 
 MAG_RANGE = (-5.0, 35.0)
@@ -1468,6 +1469,10 @@ def write_lightcurve(lc: LightCurve, path: str | os.PathLike, *, format: str | N
         for row in zip(*cols):
             lines.append(delim.join(repr(float(v)) if isinstance(v, (float, np.floating)) else str(v) for v in row))
         buf.write(("\n".join(lines) + "\n").encode())
+    elif fmt == "alcdef":  # the exchange standard (tumble/alcdef.py): one block per session
+        from tumble.alcdef import format_alcdef
+
+        buf.write(format_alcdef(lc).encode())
     elif fmt == "ecsv":
         sio = io.StringIO()
         table.write(sio, format="ascii.ecsv")
