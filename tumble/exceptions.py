@@ -13,6 +13,7 @@ __all__ = [
     "TumbleWarning",
     "DataWarning",
     "ConvergenceWarning",
+    "MissingExtraError",
 ]
 
 
@@ -42,3 +43,11 @@ class DataWarning(TumbleWarning):
 
 class ConvergenceWarning(TumbleWarning):
     """A numerical method (solver, sampler) did not meet its convergence criteria."""
+
+
+class MissingExtraError(TumbleError):
+    """A feature needs an optional dependency that is not installed.
+
+    The message names the feature and the extra to install, in one line, e.g.
+    ``writing Parquet needs the optional package 'pyarrow': pip install 'tumble[parquet]'``.
+    """

@@ -34,6 +34,7 @@ import numpy as np
 from tumble import geometry
 from tumble._io import atomic_path, is_gzip_name, strip_compression
 from tumble.exceptions import PhotometryError
+from tumble.timeformats import implausible_time
 
 __all__ = [
     "LightCurve",
@@ -73,7 +74,7 @@ COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
 CANONICAL_COLUMNS = tuple(COLUMN_ALIASES)
 
 #: Output/input formats by name; the reader also sniffs the content.
-FORMATS = ("csv", "tsv", "txt", "ecsv", "fits", "votable")
+FORMATS = ("csv", "tsv", "txt", "ecsv", "fits", "votable", "alcdef")
 _EXT_FORMAT = {
     ".csv": "csv",
     ".tsv": "tsv",
@@ -87,6 +88,7 @@ _EXT_FORMAT = {
     ".vot": "votable",
     ".xml": "votable",
     ".votable": "votable",
+    ".alcdef": "alcdef",
 }
 
 MAG_RANGE = (-5.0, 35.0)
@@ -194,6 +196,11 @@ class ReadOptions:
         the file lacks them.
     observatory : geometry.Observatory or None
         Ground station for topocentric geometry (with ``elements``).
+    encoding : str or None
+        Text encoding of text files (e.g. ``latin-1``); None reads UTF-8 with or without BOM.
+    orbits : tumble.orbits.OrbitCatalogue or None
+        Orbital elements of many objects, looked up by object name when ``elements``
+        is not given (``--orbits FILE``).
     """
 
     columns: Mapping[str, str] = field(default_factory=dict)
@@ -210,6 +217,8 @@ class ReadOptions:
     object_id: str | None = None
     elements: geometry.OrbitalElements | None = None
     observatory: geometry.Observatory | None = None
+    encoding: str | None = None
+    orbits: object | None = None
 
     def __post_init__(self):
         if self.time_format not in (None, "jd", "mjd", "iso"):
@@ -225,6 +234,13 @@ class ReadOptions:
         if int(self.min_points) < 2:
             raise PhotometryError(f"minimum number of points must be at least 2, got {self.min_points}")
         object.__setattr__(self, "columns", parse_column_map(self.columns))
+        if self.encoding is not None:
+            import codecs
+
+            try:
+                codecs.lookup(self.encoding)
+            except LookupError:
+                raise PhotometryError(f"unknown text encoding '{self.encoding}'") from None
 
 
 @dataclass(frozen=True, eq=False)
@@ -262,6 +278,16 @@ class LightCurve:
         Provenance: source files, column map, time format and scale, reductions
         applied, and counts of every point dropped or merged (``meta['dropped']``).
     """
+
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.lightcurve_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.lightcurve_html(self)
 
     object_id: str
     t_obs: np.ndarray
@@ -399,6 +425,19 @@ class LightCurve:
         opts = options or ReadOptions()
         if option_overrides:
             opts = replace(opts, **option_overrides)
+        from tumble.adapters import has_rich_values
+
+        if has_rich_values(time, mag, err, flux, flux_err, r_au, delta_au, phase_deg):  # Time, Quantity
+            given = {"time": time, "mag": mag, "err": err, "flux": flux, "flux_err": flux_err, "session": session,
+                     "band": band, "r_au": r_au, "delta_au": delta_au, "phase_deg": phase_deg}
+            n = len(time)
+            table = {k: (np.broadcast_to(np.asarray(v), (n,)) if np.ndim(v) == 0 else v)
+                     for k, v in given.items() if v is not None}
+            for prefix, vec in (("sun", sun_dir), ("obs", obs_dir)):
+                if vec is not None:
+                    for k, axis in enumerate("xyz"):
+                        table[f"{prefix}_{axis}"] = np.asarray(vec, dtype=float)[:, k]
+            return cls.from_table(table, object_id=object_id, options=replace(opts, columns={}), source=source)
         if opts.time_format is None:
             opts = replace(opts, time_format="jd")
         n = len(np.atleast_1d(time))
@@ -422,6 +461,41 @@ class LightCurve:
         mapping = {name: name for name in cols}
         piece = _extract(table, mapping, opts)
         return _assemble([piece], opts, object_id=object_id)
+
+    @classmethod
+    def from_table(cls, table, columns=None, *, object_id: str | None = None, options: ReadOptions | None = None,
+                   source: str | None = None, **option_overrides) -> "LightCurve":
+        """Build a light curve from an in-memory table of one object.
+
+        Parameters
+        ----------
+        table : astropy Table or QTable, pandas DataFrame, pyarrow Table, or mapping of name -> array
+            Columns named as in files (aliases, or mapped with ``columns``). An
+            astropy ``Time`` column is taken with its scale; Quantities and columns
+            with units are converted by physical type (angles to deg, lengths to au).
+        columns : str or dict, optional
+            Column map, e.g. ``"time=obs_time,mag=V"``.
+        object_id : str, optional
+            Object name (default: the object column, the table's ``OBJECT`` meta, else ``object``).
+        options : ReadOptions, optional
+            Reading options; keyword arguments override its fields.
+        source : str, optional
+            Name used in error messages (default ``<Table>``, ``<DataFrame>``...).
+
+        Raises
+        ------
+        PhotometryError
+            One line naming the column or row and the problem.
+        """
+        from tumble.adapters import raw_table
+
+        if columns is not None:
+            option_overrides["columns"] = columns
+        if object_id is not None:
+            option_overrides["object_id"] = object_id
+        opts = _options(options, option_overrides)
+        raw, opts = raw_table(table, opts, source=source)
+        return _lightcurve_from_tables([raw], opts, [])
 
 
 # ---------------------------------------------------------------------------
@@ -558,30 +632,35 @@ def _sniff_format(path: Path, data: bytes) -> str:
     return fmt
 
 
-def read_table(path: str | os.PathLike) -> _RawTable:
-    """Read one file into raw columns (strings for text tables), sniffing its format."""
+def read_table(path: str | os.PathLike, encoding: str | None = None) -> _RawTable:
+    """Read one file into raw columns (strings for text tables), sniffing its format.
+
+    ``encoding`` names the text encoding of text files (default UTF-8, BOM allowed).
+    """
     path = Path(path)
     data = _load_bytes(path)
     src = str(path)
-    table = _parse_bytes(path, src, data)
+    table = _parse_bytes(path, src, data, encoding)
     table.digest = hashlib.sha256(data).hexdigest()
     return table
 
 
-def _parse_bytes(path: Path, src: str, data: bytes) -> _RawTable:
+def _parse_bytes(path: Path, src: str, data: bytes, encoding: str | None = None) -> _RawTable:
+    from tumble.readers import decode_text, find_reader
+
     if not data.strip(b"\xef\xbb\xbf \t\r\n"):
         raise _fail(src, "", "file is empty")
+    extra_format = find_reader(path, data)
+    if extra_format is not None:  # ALCDEF, Parquet (tumble/readers.py)
+        return extra_format.read(src, data, encoding)
     fmt = _sniff_format(path, data)
     if fmt == "fits":
         return _read_fits(src, data)
     if fmt == "votable":
         return _read_votable(src, data)
-    if b"\x00" in data[:65536]:
+    if b"\x00" in data[:65536] and not (encoding or "").lower().startswith("utf-16"):
         raise _fail(src, "", "binary data, not a text table (NUL bytes found)")
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise _fail(src, "", f"not UTF-8 text (undecodable byte at offset {exc.start}); binary file?") from None
+    text = decode_text(src, data, encoding)
     if fmt == "ecsv":
         return _read_ecsv(src, text)
     return _read_text(src, text)
@@ -708,6 +787,10 @@ def _table_to_raw(src: str, table, fmt: str) -> _RawTable:
         if values.dtype.kind in "fiub":
             arr = values.astype(float)
             arr[mask] = np.nan
+            if getattr(col, "unit", None) is not None:  # a phase in rad is rad (tumble/adapters.py)
+                from tumble.adapters import _unit_values
+
+                arr = _unit_values(src, name, col)[0]
         else:
             arr = np.array([v.decode() if isinstance(v, bytes) else str(v) for v in values], dtype=object)
             arr[mask] = ""
@@ -746,6 +829,12 @@ def _read_fits(src: str, data: bytes) -> _RawTable:
                 if not table_hdus:
                     raise _fail(src, "", "FITS file has no table extension")
                 table = Table(table_hdus[0].data)
+                for k, name in enumerate(table.colnames, start=1):  # TUNITn: units kept for conversion
+                    unit = table_hdus[0].header.get(f"TUNIT{k}")
+                    if unit:
+                        import astropy.units as u
+
+                        table[name].unit = u.Unit(unit, parse_strict="silent")
                 table.meta.update({k: v for k, v in table_hdus[0].header.items() if k not in ("COMMENT", "HISTORY")})
     except PhotometryError:
         raise
@@ -907,6 +996,9 @@ def _extract(table: _RawTable, mapping: dict[str, str], opts: ReadOptions) -> _P
             raise _fail(src, f"{labels[bad[0]]}, column '{tname}'",
                         f"time {time[bad[0]]:g} is not a {tfmt.upper()} date (beyond +-{MAX_ABS_TIME_D:g} d; "
                         f"{_rows(bad.size)} like this)")
+        implausible = implausible_time(time, tfmt)
+        if implausible is not None:
+            raise _fail(src, f"{labels[implausible[0]]}, column '{tname}'", implausible[1])
 
     # --- magnitudes (or fluxes)
     if have_mag and not (have_flux and "mag" not in opts.columns and "flux" in opts.columns):
@@ -1217,14 +1309,18 @@ def _assemble(pieces: Sequence[_Piece], opts: ReadOptions, object_id: str) -> Li
         if arr is not None and not np.all(np.isfinite(arr)):
             i = int(np.flatnonzero(~np.isfinite(arr))[0])
             raise _fail(where, f"{labels[i]}", f"missing {name} value")
-    if opts.elements is not None and (sun_dir is None or r_au is None or delta_au is None):
-        geo = geometry.observing_geometry(t_tdb, opts.elements, opts.observatory)
+    elements = opts.elements
+    if elements is None and opts.orbits is not None:  # --orbits: this object's elements, if in the file
+        elements = opts.orbits.lookup(object_id)
+    if elements is not None and (sun_dir is None or r_au is None or delta_au is None):
+        geo = geometry.observing_geometry(t_tdb, elements, opts.observatory)
         r_au = geo.r_au if r_au is None else r_au
         delta_au = geo.delta_au if delta_au is None else delta_au
         sun_dir = geo.sun_dir if sun_dir is None else sun_dir
         obs_dir = geo.obs_dir if obs_dir is None else obs_dir
         reductions.append("distances and directions computed from orbital elements "
-                          f"({'topocentric' if opts.observatory else 'geocentric'}, two-body)")
+                          f"({'topocentric' if opts.observatory else 'geocentric'}, two-body"
+                          f"{'' if opts.elements is not None else ', from ' + str(opts.orbits.source)})")
     if phase is None and sun_dir is not None:
         phase = geometry.phase_angle_deg(sun_dir, obs_dir)
         reductions.append("phase angle computed from the Sun and observer directions")
@@ -1329,8 +1425,11 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
 
     Parameters
     ----------
-    path_or_paths : path or sequence of paths
+    path_or_paths : path, sequence of paths, or table
         Files of one object; several files are merged, each keeping its own sessions.
+        Or an in-memory table: astropy Table/QTable, pandas DataFrame, pyarrow Table,
+        a mapping of column name -> array (see :mod:`tumble.adapters`: Time columns
+        keep their scale, Quantities are converted by their units).
     columns : str or dict, optional
         Column map, e.g. ``"time=JD,mag=V,err=sigma"``.
     options : ReadOptions, optional
@@ -1345,15 +1444,13 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
     if columns is not None:
         overrides["columns"] = columns
     opts = _options(options, overrides)
-    paths = _as_paths(path_or_paths)
-    pieces = []
-    seen: dict[str, str] = {}
-    for path in paths:
-        table = read_table(path)
-        if table.digest in seen:  # e.g. A.csv and A.csv.gz: merging would count every point twice
-            raise _fail(str(path), "", f"holds the same data as {seen[table.digest]}; give each file once")
-        seen[table.digest] = str(path)
-        pieces.append(_extract(table, _match_columns(table, opts), opts))
+    tables, opts, paths = _read_inputs(path_or_paths, opts)
+    return _lightcurve_from_tables(tables, opts, paths)
+
+
+def _lightcurve_from_tables(tables: list[_RawTable], opts: ReadOptions, paths: list[Path]) -> LightCurve:
+    """One object's light curve from raw tables (files or one in-memory table)."""
+    pieces = [_extract(table, _match_columns(table, opts), opts) for table in tables]
     object_id = opts.object_id
     if object_id is None:
         names = set()
@@ -1366,12 +1463,34 @@ def read_lightcurve(path_or_paths, columns=None, *, options: ReadOptions | None 
         if names:
             object_id = names.pop()
         else:
-            object_id = _meta_value(pieces[0].meta, "object") or _object_name_from_path(paths[0])
+            object_id = (_meta_value(pieces[0].meta, "object")
+                         or (_object_name_from_path(paths[0]) if paths else "object"))
             if _truthy(_meta_value(pieces[0].meta, "objquote")):  # a non-ASCII name in a FITS header
                 from urllib.parse import unquote
 
                 object_id = unquote(str(object_id))
     return _assemble(pieces, opts, object_id=object_id)
+
+
+def _read_inputs(path_or_paths, opts: ReadOptions):
+    """(raw tables, options, paths) of files or of one in-memory table (paths empty then)."""
+    from tumble.adapters import is_table_like, raw_table
+
+    if isinstance(path_or_paths, _RawTable):  # already converted (tumble.catalog names its partition)
+        return [path_or_paths], opts, []
+    if is_table_like(path_or_paths):
+        table, opts = raw_table(path_or_paths, opts)
+        return [table], opts, []
+    paths = _as_paths(path_or_paths)
+    tables = []
+    seen: dict[str, str] = {}
+    for path in paths:
+        table = read_table(path, opts.encoding)
+        if table.digest and table.digest in seen:  # e.g. A.csv and A.csv.gz: merging would count every point twice
+            raise _fail(str(path), "", f"holds the same data as {seen[table.digest]}; give each file once")
+        seen[table.digest] = str(path)
+        tables.append(table)
+    return tables, opts, paths
 
 
 def _meta_value(meta: Mapping, key: str):
@@ -1397,11 +1516,12 @@ def iter_survey(path_or_paths, columns=None, *, options: ReadOptions | None = No
     if columns is not None:
         overrides["columns"] = columns
     opts = _options(options, overrides)
-    for path in _as_paths(path_or_paths):
-        table = read_table(path)
+    tables, opts, paths = _read_inputs(path_or_paths, opts)
+    for k, table in enumerate(tables):
         mapping = _match_columns(table, opts)
         if "object" not in mapping:
-            name = opts.object_id or _object_name_from_path(path)
+            name = (opts.object_id or _meta_value(table.meta, "object")
+                    or (_object_name_from_path(paths[k]) if paths else "object"))
             try:
                 yield name, _assemble([_extract(table, mapping, opts)], opts, object_id=name)
             except PhotometryError as exc:
@@ -1521,6 +1641,10 @@ def write_lightcurve(lc: LightCurve, path: str | os.PathLike, *, format: str | N
         for row in zip(*cols):
             lines.append(delim.join(repr(float(v)) if isinstance(v, (float, np.floating)) else str(v) for v in row))
         buf.write(("\n".join(lines) + "\n").encode())
+    elif fmt == "alcdef":  # the exchange standard (tumble/alcdef.py): one block per session
+        from tumble.alcdef import format_alcdef
+
+        buf.write(format_alcdef(lc).encode())
     elif fmt == "ecsv":
         sio = io.StringIO()
         table.write(sio, format="ascii.ecsv")

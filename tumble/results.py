@@ -166,6 +166,10 @@ def write_results(rows: Iterable[Mapping], path: str | os.PathLike, extra_column
     """
     path = Path(path)
     fmt = _table_format(path)
+    if fmt == "parquet":
+        from tumble._extras import require
+
+        require("parquet", f"{path}: writing Parquet")
     # no absolute local path in the catalogue: messages name files relative to its folder
     rows = [{**r, "message": relative_paths(r.get("message") or "", path.parent)} for r in rows]
     table = _portable(results_table(rows, extra_columns, provenance), fmt)
@@ -251,6 +255,10 @@ def read_results(path: str | os.PathLike):
     if not path.exists():
         raise TumbleError(f"{path}: no such file")
     fmt = _table_format(path)
+    if fmt == "parquet":
+        from tumble._extras import require
+
+        require("parquet", f"{path}: reading Parquet")
     try:
         table = Table.read(path, format=fmt, **({"comment": "#"} if fmt == "ascii.csv" else {}))
     except TumbleError:

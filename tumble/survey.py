@@ -65,7 +65,7 @@ __all__ = [
 ]
 
 _PHOTOMETRY_SUFFIXES = (".csv", ".tsv", ".tab", ".txt", ".dat", ".ecsv", ".fits", ".fit", ".fts", ".vot",
-                        ".xml", ".votable")
+                        ".xml", ".votable", ".alcdef", ".parquet", ".parq", ".pq")
 
 
 class SurveyError(TumbleError):
@@ -216,7 +216,7 @@ def collect_objects(inputs, read_options=None) -> list[ObjectTask]:
     for path in _expand(inputs):
         table_is_survey = False
         try:
-            table = read_table(path)
+            table = read_table(path, opts.encoding)
             table_is_survey = "object" in _match_columns(table, opts)
         except PhotometryError:
             pass  # the worker reads it again and reports the error as the object's row

@@ -6,7 +6,7 @@ import argparse
 import sys
 
 __all__ = ["add_input_options", "read_options", "add_output_options", "print_json", "parse_elements",
-           "parse_observatory", "OPTION_CHECKS", "check_options", "printable", "output_folder"]
+           "parse_observatory", "parse_orbits", "OPTION_CHECKS", "check_options", "printable", "output_folder"]
 
 
 # ---------------------------------------------------------------------------
@@ -114,6 +114,11 @@ def add_input_options(parser: argparse.ArgumentParser) -> None:
                    help="osculating heliocentric ecliptic J2000 elements (au, deg, JD TDB) to compute the geometry")
     g.add_argument("--observatory", metavar="LON,LAT,HEIGHT_M",
                    help="ground station (deg east, deg, m) for topocentric geometry with --elements")
+    g.add_argument("--orbits", metavar="FILE",
+                   help="orbital elements of many objects (MPC export format or a table), matched by object name, "
+                        "to compute each object's geometry")
+    g.add_argument("--encoding", metavar="NAME",
+                   help="text encoding of text files, e.g. latin-1 (default: UTF-8, with or without BOM)")
 
 
 def _floats(text: str, n: int, what: str) -> list[float]:
@@ -148,6 +153,18 @@ def parse_observatory(text: str | None):
     return Observatory(lon, lat, h)
 
 
+def parse_orbits(path: str | None, elements: str | None):
+    """``--orbits FILE`` -> OrbitCatalogue (or None); giving ``--elements`` too is an error."""
+    if not path:
+        return None
+    from tumble.exceptions import GeometryError
+    from tumble.orbits import read_orbits
+
+    if elements:
+        raise GeometryError("--orbits and --elements: give one (--elements applies one orbit to every object)")
+    return read_orbits(path)
+
+
 def read_options(args: argparse.Namespace):
     """A ReadOptions from the parsed input options."""
     from tumble.photometry import ReadOptions
@@ -166,6 +183,8 @@ def read_options(args: argparse.Namespace):
         flux_zero_point=args.flux_zero_point,
         elements=parse_elements(args.elements),
         observatory=parse_observatory(args.observatory),
+        encoding=args.encoding,
+        orbits=parse_orbits(args.orbits, args.elements),
     )
 
 

@@ -15,7 +15,7 @@ def add_parser(sub) -> None:
                     "with an object column gives one summary per object) and print what was read, "
                     "what was dropped and which reductions were applied.",
     )
-    p.add_argument("files", nargs="+", metavar="FILE", help="photometry files (CSV, TSV, text, ECSV, FITS, VOTable; .gz)")
+    p.add_argument("files", nargs="+", metavar="FILE", help="photometry files (CSV, TSV, text, ECSV, FITS, VOTable, ALCDEF, Parquet; .gz)")
     p.add_argument("--write", metavar="OUT", help="write the normalised light curve (format from the extension)")
     add_input_options(p)
     add_output_options(p)
@@ -25,7 +25,7 @@ def add_parser(sub) -> None:
 def _has_object_column(path, opts) -> bool:
     from tumble.photometry import _match_columns, read_table
 
-    table = read_table(path)
+    table = read_table(path, opts.encoding)
     return "object" in _match_columns(table, opts)
 
 
@@ -55,15 +55,22 @@ def run(args: argparse.Namespace) -> int:
             raise PhotometryError(f"{args.write}: --write takes one object, the input holds {len(lcs)}")
         write_lightcurve(lcs[0], args.write)
     summaries = [lc.summary() for lc in lcs]
+    # objects whose distances are unknown: no r, Delta in the file and none from --elements/--orbits
+    without = [s["object"] for s in summaries if s["r_au_range"] is None or s["delta_au_range"] is None]
     if args.json:
         out = summaries[0] if len(summaries) == 1 and not errors else {
-            "objects": summaries, "errors": [{"object": n, "message": str(e)} for n, e in errors]}
+            "objects": summaries, "errors": [{"object": n, "message": str(e)} for n, e in errors],
+            "without_geometry": without}
         print_json(out)
         return 0
     for s in summaries:
         _print_summary(s)
     for name, exc in errors:
         print(f"object {printable(name)}: error: {printable(exc)}")
+    if without and (len(summaries) > 1 or opts.orbits is not None):
+        shown = ", ".join(without[:20]) + (f", ... ({len(without) - 20} more)" if len(without) > 20 else "")
+        where = f"not in {opts.orbits.source}" if opts.orbits is not None else "no r, delta columns; see --orbits"
+        print(f"without geometry: {len(without)} of {len(summaries)} objects ({where}): {shown}")
     if args.write:
         print(f"wrote {args.write}")
     return 0

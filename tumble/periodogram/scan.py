@@ -260,6 +260,16 @@ class ScanResult:
         Sum engine used ('nufft', 'direct' or 'reference').
     """
 
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.scan_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.scan_html(self)
+
     object_id: str
     frequency_per_d: np.ndarray
     chi2: np.ndarray

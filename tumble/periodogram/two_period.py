@@ -123,6 +123,16 @@ class TwoPeriodResult:
         The 1-D scan that gave P1 (None when P1 was given).
     """
 
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.two_period_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.two_period_html(self)
+
     object_id: str
     order: int
     order_1d: int
