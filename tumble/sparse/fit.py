@@ -74,6 +74,10 @@ FINE_HALF_STEPS = 2
 FINE_SUBSTEPS = 4
 #: Two refined candidates closer than this many coarse grid steps are the same solution.
 SAME_SOLUTION_STEPS = 2.0
+#: Extra starts (spread over the sphere) of the pole refinement at the best period.
+POLE_STARTS = 10
+#: Two pole solutions closer than this are the same (degrees).
+SAME_POLE_DEG = 15.0
 #: Alias family: candidates within this Delta chi2 of the best (after scaling by the best
 #: fit's reduced chi-square, when above 1): 9 is the 3-sigma level of one parameter
 #: (chi-square law with one degree of freedom; common practice).
@@ -126,8 +130,8 @@ class PoleSolution:
     delta_chi2_scaled : float
         Difference from the best pole's chi-square, divided by the reduced chi-square (>= 0).
     kind : str
-        'best' or 'mirror' (longitude + 180 deg: the ambiguity of near-ecliptic geometry,
-        Kaasalainen & Lamberg 2006).
+        'best', 'mirror' (near longitude + 180 deg: the ambiguity of near-ecliptic geometry,
+        Kaasalainen & Lamberg 2006) or 'other' (another acceptable pole).
     """
 
     lon_deg: float
@@ -693,19 +697,21 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
     n = ell.n_points
     k = ell.n_nonlinear + ell.n_groups
     dof = max(n - k, 1)
-    mirror = _refine(pb, np.r_[best.x[0], (best.x[1] + 180.0) % 360.0, best.x[2:]], best.x[0])
-    if mirror.chi2 < best.chi2:
-        best, mirror = mirror, best
-        sols[0] = best
+    best, pole_sols = _pole_family(pb, best)
+    sols[0] = best
     s2 = max(1.0, best.chi2 / dof)
     family = [s for s in sols if (s.chi2 - best.chi2) / s2 <= ALIAS_DELTA_CHI2]
     chi2_null = _null_chi2(pb)
     delta_bic = (chi2_null - best.chi2) / s2 - N_ROTATION_PARAMS * math.log(n)
-    poles = (PoleSolution(float(best.x[1]), float(best.x[2]), best.chi2, 0.0, "best"),
-             PoleSolution(float(mirror.x[1]), float(mirror.x[2]), mirror.chi2, (mirror.chi2 - best.chi2) / s2,
-                          "mirror"))
+    poles = tuple(PoleSolution(float(p.x[1]), float(p.x[2]), p.chi2, (p.chi2 - best.chi2) / s2, kind)
+                  for p, kind in pole_sols if (p.chi2 - best.chi2) / s2 <= ALIAS_DELTA_CHI2 or kind == "mirror")
     post = _posterior(pb, best, s2, int(n_steps), rng) if sample else None
     p_lo, p_hi = _period_interval(best, post, s2, n)
+    # the other acceptable poles give other sidereal periods: the interval covers them
+    for p in poles:
+        if p.delta_chi2_scaled <= ALIAS_DELTA_CHI2:
+            p_other = next(HOURS_PER_DAY / q.x[0] for q, _ in pole_sols if q.chi2 == p.chi2)
+            p_lo, p_hi = min(p_lo, p_other), max(p_hi, p_other)
     status, message = _decide(delta_bic, family, pb, best.chi2 / dof)
     _, zp = profiled_chi2(ell, best.x[None])
     g1, g2 = (float(v[0]) for v in ell.phase.g1g2(best.x[None, N_SHAPE_PARAMS:]))
@@ -736,6 +742,36 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
         scan_frequency_per_d=pb.f0 + pb.df * np.arange(pb.n_freq), scan_chi2=best_scan,
         warnings=tuple(warnings),
     )
+
+
+def _angle_deg(x1, x2) -> float:
+    a, b = KR.pole_vectors(x1[1], x1[2]), KR.pole_vectors(x2[1], x2[2])
+    return math.degrees(math.acos(max(-1.0, min(1.0, float(a @ b)))))
+
+
+def _pole_family(pb: _Problem, best: _Solution):
+    """Refine the best period from the mirror pole and from POLE_STARTS spread poles.
+
+    Returns the (possibly improved) best solution and the list of distinct pole
+    solutions ``(solution, kind)``: 'best', 'mirror' (longitude + 180 deg), 'other'.
+    """
+    found = [(best, "best")]
+    mirror = _refine(pb, np.r_[best.x[0], (best.x[1] + 180.0) % 360.0, best.x[2:]], best.x[0])
+    found.append((mirror, "mirror"))
+    lon, lat = KR.fibonacci_poles(POLE_STARTS)
+    for lo_, la_ in zip(lon, lat):
+        x0 = _linear_start(pb, float(best.x[0]), float(lo_), float(la_))
+        x0[4:] = best.x[4:]
+        found.append((_refine(pb, x0, best.x[0]), "other"))
+    top = min(found, key=lambda item: item[0].chi2)[0]
+    out = []
+    for sol, kind in sorted(found, key=lambda item: item[0].chi2):
+        if all(_angle_deg(sol.x, o.x) > SAME_POLE_DEG for o, _ in out):
+            out.append((sol, kind))
+    # label: the best, then whichever is nearest to its mirror direction
+    out = [(s_, "best" if s_ is top else ("mirror" if _angle_deg(s_.x, np.r_[0, top.x[1] + 180.0, top.x[2]]) <
+                                            SAME_POLE_DEG else "other")) for s_, _ in out]
+    return top, out
 
 
 def _distinct(sols, df):
