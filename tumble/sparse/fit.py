@@ -13,9 +13,10 @@ The driver is a flat sequence of steps over one frozen problem
 4. **Refinement**: the closed-form ellipsoid model with the phase function
    (:mod:`tumble.sparse.model`) fitted by least squares from the best fine
    poles of each candidate; the mirror pole (longitude + 180 deg) of the best.
-5. **Alias family**: every refined candidate within :data:`ALIAS_DELTA_CHI2`
-   (scaled by the reduced chi-square) of the best; more than one member means
-   the period is undecided.
+5. **Alias family**: every refined candidate within ``max(ALIAS_DELTA_CHI2, 2 ln N)``
+   (N independent frequencies; chi-squares scaled by the reduced chi-square) of the
+   best; more than one member, a best period at the edge of the range, a poor fit or
+   no detected rotation means the period is undecided.
 6. **Posterior**: an emcee ensemble around the best solution gives the 68 %
    intervals (conditional on that solution's mode).
 """
@@ -79,9 +80,13 @@ POLE_STARTS = 10
 #: Two pole solutions closer than this are the same (degrees).
 SAME_POLE_DEG = 15.0
 #: Alias family: candidates within this Delta chi2 of the best (after scaling by the best
-#: fit's reduced chi-square, when above 1): 9 is the 3-sigma level of one parameter
-#: (chi-square law with one degree of freedom; common practice).
+#: fit's reduced chi-square, when above 1), at least: 9 is the 3-sigma level of one parameter
+#: (chi-square law with one degree of freedom; common practice). Wide scans raise it to
+#: 2 ln N for N independent frequencies (see _alias_threshold).
 ALIAS_DELTA_CHI2 = 9.0
+#: A best period within this fraction of either end of the searched range is not called unique
+#: (its minimum may lie outside the range; issue 14's "not at the edge of the grid").
+EDGE_FRACTION = 0.01
 #: Rotation counts as detected when the ellipsoid beats the no-rotation model (a sphere:
 #: phase curve only) by a Delta BIC above this ("very strong", Kass & Raftery 1995).
 DETECTION_DELTA_BIC = 10.0
@@ -700,19 +705,20 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
     best, pole_sols = _pole_family(pb, best)
     sols[0] = best
     s2 = max(1.0, best.chi2 / dof)
-    family = [s for s in sols if (s.chi2 - best.chi2) / s2 <= ALIAS_DELTA_CHI2]
+    alias_dchi2 = _alias_threshold(pb)
+    family = [s for s in sols if (s.chi2 - best.chi2) / s2 <= alias_dchi2]
     chi2_null = _null_chi2(pb)
     delta_bic = (chi2_null - best.chi2) / s2 - N_ROTATION_PARAMS * math.log(n)
     poles = tuple(PoleSolution(float(p.x[1]), float(p.x[2]), p.chi2, (p.chi2 - best.chi2) / s2, kind)
-                  for p, kind in pole_sols if (p.chi2 - best.chi2) / s2 <= ALIAS_DELTA_CHI2 or kind == "mirror")
+                  for p, kind in pole_sols if (p.chi2 - best.chi2) / s2 <= alias_dchi2 or kind == "mirror")
     post = _posterior(pb, best, s2, int(n_steps), rng) if sample else None
     p_lo, p_hi = _period_interval(best, post, s2, n)
     # the other acceptable poles give other sidereal periods: the interval covers them
     for p in poles:
-        if p.delta_chi2_scaled <= ALIAS_DELTA_CHI2:
+        if p.delta_chi2_scaled <= alias_dchi2:
             p_other = next(HOURS_PER_DAY / q.x[0] for q, _ in pole_sols if q.chi2 == p.chi2)
             p_lo, p_hi = min(p_lo, p_other), max(p_hi, p_other)
-    status, message = _decide(delta_bic, family, pb, best.chi2 / dof)
+    status, message = _decide(delta_bic, family, pb, best.chi2 / dof, alias_dchi2, float(best.x[0]))
     _, zp = profiled_chi2(ell, best.x[None])
     g1, g2 = (float(v[0]) for v in ell.phase.g1g2(best.x[None, N_SHAPE_PARAMS:]))
     warnings = []
@@ -737,7 +743,7 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
         n_points=n, chi2_null=chi2_null, delta_bic_rotation=float(delta_bic),
         alias_family=tuple(AliasMember(HOURS_PER_DAY / float(s.x[0]), (s.chi2 - best.chi2) / s2, float(s.x[1]),
                                        float(s.x[2])) for s in family),
-        alias_delta_chi2=ALIAS_DELTA_CHI2, geometry_fixed=pb.geometry_fixed, geometry_note=pb.geometry_note,
+        alias_delta_chi2=alias_dchi2, geometry_fixed=pb.geometry_fixed, geometry_note=pb.geometry_note,
         parameters=best.x, parameter_names=_names(ell), posterior=post,
         scan_frequency_per_d=pb.f0 + pb.df * np.arange(pb.n_freq), scan_chi2=best_scan,
         warnings=tuple(warnings),
@@ -796,7 +802,20 @@ def _period_interval(sol: _Solution, post, s2, n):
     return HOURS_PER_DAY / (f + sf), HOURS_PER_DAY / max(f - sf, 1e-12)
 
 
-def _decide(delta_bic, family, pb, reduced_chi2):
+def _alias_threshold(pb: _Problem) -> float:
+    """Delta chi2 of the alias family: ALIAS_DELTA_CHI2, raised to 2 ln N for N independent trials.
+
+    The rotation's main (second) harmonic has about ``N = 2 (f_hi - f_lo) span`` independent
+    frequencies in the searched band; among N noise-only minima the deepest beats a given one by
+    about ``2 ln N`` in chi-square (a Bonferroni-type look-elsewhere allowance: N exp(-D/2) = 1),
+    so a period is unique only when the runner-up is worse by more than that.
+    """
+    span = float(pb.scan.t[-1] - pb.scan.t[0])
+    n_indep = max(2.0, 2.0 * pb.df * (pb.n_freq - 1) * span)
+    return float(max(ALIAS_DELTA_CHI2, 2.0 * math.log(n_indep)))
+
+
+def _decide(delta_bic, family, pb, reduced_chi2, alias_dchi2, f_best):
     """Status and message (the decision rule of docs/methods-sparse.md)."""
     if reduced_chi2 > MAX_REDUCED_CHI2:
         return ("undecided",
@@ -806,11 +825,16 @@ def _decide(delta_bic, family, pb, reduced_chi2):
         return ("no rotation detected",
                 f"the rotating ellipsoid does not beat a constant body with the same phase curve "
                 f"(Delta BIC {delta_bic:.1f} < {DETECTION_DELTA_BIC:g}): no period from these data")
+    f_lo, f_hi = pb.f0, pb.f0 + pb.df * (pb.n_freq - 1)
+    if min(f_best - f_lo, f_hi - f_best) < EDGE_FRACTION * f_best:
+        return ("undecided",
+                f"undecided period: the best period {HOURS_PER_DAY / f_best:.6g} h lies at the edge of the searched "
+                f"range ({HOURS_PER_DAY / f_hi:.4g}-{HOURS_PER_DAY / f_lo:.4g} h); widen period_range_h")
     if len(family) > 1:
         periods = ", ".join(f"{HOURS_PER_DAY / s.x[0]:.6g}" for s in family[:6])
         more = "" if len(family) <= 6 else f" and {len(family) - 6} more"
         return ("undecided",
-                f"undecided period: {len(family)} periods fit within Delta chi2 {ALIAS_DELTA_CHI2:g} of the best "
+                f"undecided period: {len(family)} periods fit within Delta chi2 {alias_dchi2:.3g} of the best "
                 f"({periods}{more} h)")
     kind = "sidereal" if not pb.geometry_fixed else "apparent (no geometry)"
-    return "unique", f"one {kind} period stands out by more than Delta chi2 {ALIAS_DELTA_CHI2:g}"
+    return "unique", f"one {kind} period stands out by more than Delta chi2 {alias_dchi2:.3g}"
