@@ -207,7 +207,8 @@ class GeometricPAFit:
     period_h : float
         Sidereal rotation period, hours, when the status is 'unique'; nan otherwise.
     period_h_lo, period_h_hi : float
-        68 % interval of the sidereal period (posterior percentiles 16 and 84), hours.
+        68 % interval of the best sidereal period (posterior percentiles 16 and 84, widened to
+        cover the periods of the other acceptable poles), hours.
     best_period_h : float
         Period of the best fit whatever the status, hours.
     period_syn_h : float
@@ -215,7 +216,8 @@ class GeometricPAFit:
     pole_lon_deg, pole_lat_deg : float
         Best spin axis, ecliptic J2000, degrees (nan when the geometry was not in the data).
     poles : tuple of PoleSolution
-        Best pole and its mirror.
+        The best pole, the mirror solution, and every other distinct pole (restarts over the
+        sphere at the best period) within ``alias_delta_chi2`` of the best.
     b_over_a, c_over_b : float
         Axis ratios of the ellipsoid (<= 1).
     h_mag : dict
@@ -239,7 +241,7 @@ class GeometricPAFit:
     alias_family : tuple of AliasMember
         Every refined period within ``alias_delta_chi2`` of the best (the best first).
     alias_delta_chi2 : float
-        The threshold used.
+        The threshold used: ``max(ALIAS_DELTA_CHI2, 2 ln N)`` for N independent frequencies.
     geometry_fixed : bool
         True when the data held no Sun/observer directions (period then close to synodic,
         pole meaningless).
