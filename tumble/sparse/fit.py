@@ -605,6 +605,12 @@ def _posterior(pb: _Problem, sol: _Solution, s2: float, n_steps: int, rng) -> Po
     x0 = sol.x[None] + 0.5 * width[None] * rng.standard_normal((n_walkers, d))
     x0 = np.clip(x0, lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
     args = (ell, lo, hi, s2)
+    bad = ~np.isfinite(_log_posterior(x0, *args))
+    for shrink in (0.1, 0.01, 0.0):  # walkers started outside the support move towards the optimum
+        if not np.any(bad):
+            break
+        x0[bad] = sol.x[None] + shrink * (x0[bad] - sol.x[None])
+        bad = ~np.isfinite(_log_posterior(x0, *args))
     sampler = emcee.EnsembleSampler(n_walkers, d, _log_posterior, args=args, vectorize=True)
     sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
     sampler.run_mcmc(x0, n_steps, progress=False)
@@ -628,11 +634,11 @@ def _posterior(pb: _Problem, sol: _Solution, s2: float, n_steps: int, rng) -> Po
 def _log_posterior(x, ell, lo, hi, s2):
     x = np.atleast_2d(x)
     inside = np.all((x >= lo) & (x <= hi), axis=1)
-    if ell.phase.name == "hg1g2":
-        inside &= x[:, N_SHAPE_PARAMS] + x[:, N_SHAPE_PARAMS + 1] <= 1.0
     out = np.full(x.shape[0], -np.inf)
     if np.any(inside):
         chi2, _ = profiled_chi2(ell, x[inside])
+        if ell.phase.name == "hg1g2":  # the least-squares fit's stiff penalty on G1 + G2 > 1
+            chi2 = chi2 + (1e3 * np.maximum(0.0, x[inside, N_SHAPE_PARAMS] + x[inside, N_SHAPE_PARAMS + 1] - 1.0)) ** 2
         # isotropic prior on the spin axis: cos(latitude)
         out[inside] = -0.5 * chi2 / s2 + np.log(np.maximum(np.cos(np.radians(x[inside, 2])), 1e-300))
     return out
