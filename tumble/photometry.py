@@ -38,6 +38,8 @@ from tumble.timeformats import implausible_time
 
 __all__ = [
     "LightCurve",
+    "is_sparse_sessions",
+    "SPARSE_FRACTION",
     "ReadOptions",
     "CANONICAL_COLUMNS",
     "COLUMN_ALIASES",
@@ -243,6 +245,23 @@ class ReadOptions:
                 raise PhotometryError(f"unknown text encoding '{self.encoding}'") from None
 
 
+#: Data count as sparse when more than this fraction of the points share the per-band sparse
+#: zero-point (session -1) instead of a session's own.
+SPARSE_FRACTION = 0.5
+
+
+def is_sparse_sessions(session) -> bool:
+    """The one definition of sparse data: more than :data:`SPARSE_FRACTION` of the points have session < 0.
+
+    Parameters
+    ----------
+    session : array_like of int, shape (n,)
+        Session index of each point (-1 for sparse points).
+    """
+    s = np.asarray(session)
+    return bool(s.size and np.mean(s < 0) > SPARSE_FRACTION)
+
+
 @dataclass(frozen=True, eq=False)
 class LightCurve:
     """Photometry of one object, validated, sorted in time, with sessions assigned.
@@ -335,6 +354,11 @@ class LightCurve:
     def n_sessions(self) -> int:
         """Number of distinct sessions with their own zero-point (sparse points not counted)."""
         return int(len(np.unique(self.session[self.session >= 0])))
+
+    @property
+    def is_sparse(self) -> bool:
+        """True when most points are sparse (session -1): the one definition, :func:`is_sparse_sessions`."""
+        return is_sparse_sessions(self.session)
 
     @property
     def span_d(self) -> float:

@@ -92,6 +92,16 @@ class Classification:
     adequacy: ModelAdequacy | None
     detection_limit: DetectionLimit | None
 
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.classification_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.classification_html(self)
+
     def __iter__(self):
         """Unpacking as ``verdict, evidence, fit`` (the return value of earlier versions)."""
         return iter((self.verdict, self.evidence, self.fit))

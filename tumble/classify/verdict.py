@@ -178,6 +178,16 @@ class Verdict:
                 row[k] = d[k]
         return row
 
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.verdict_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.verdict_html(self)
+
     def grade_sentence(self) -> str:
         """One sentence on the grade that is true of the numbers shown (see :func:`grade_sentence`)."""
         return grade_sentence(self.to_dict())

@@ -27,6 +27,7 @@ import numpy as np
 
 from tumble.exceptions import TumbleError
 from tumble.periodogram._kernels import NuisanceGroup
+from tumble.photometry import is_sparse_sessions
 
 __all__ = ["ScanData", "prepare", "PHASE_TERM_MIN_RANGE_DEG", "PeriodSearchError"]
 
@@ -167,7 +168,7 @@ def prepare(lc, *, sessions: bool = True, phase_term: bool | None = None) -> Sca
         yw = sw[idx] * y[idx]
         y_res[idx] = y[idx] - (q @ (q.T @ yw)) / sw[idx]
     z = np.hstack(zcols)
-    sparse = bool(np.mean(session < 0) > 0.5)
+    sparse = is_sparse_sessions(session)
     return ScanData(t=t, y=y, w=w, y_res=y_res, z=z, nuisance_names=tuple(names), groups=tuple(groups),
                     epoch_jd=epoch, span_d=float(t_abs[-1] - t_abs[0]), sparse=sparse,
                     phase_terms=tuple(phase_groups))

@@ -43,6 +43,11 @@ MAP_COND_FACTOR = 1e-5
 #: (predicted relative accuracy ~4e-13 / factor, i.e. ~1e-6), and every candidate is then
 #: evaluated exactly (docs/methods-period-search.md, section 8).
 SCAN_COND_FACTOR = 4e-7
+#: Working memory aimed at by one call of the map kernel (rows x P2 block), bytes: the
+#: map's memory does not grow with the span or the grid length beyond the output itself.
+MAP_BLOCK_BYTES = 50_000_000
+#: Fewest P2 frequencies per block (below this the per-call overhead dominates).
+MAP_MIN_BLOCK = 4096
 #: Oversampling factor of the automatic P2 grid of the 'refine' search (step 1 / (q m T)); the
 #: candidates are then examined on the step of the 1-D scan's oversampling factor.
 P2_OVERSAMPLE = 2.0
@@ -252,31 +257,41 @@ def two_period_chi2_reference(lc, p1_h, p2_h, *, order: int = 2, sessions: bool 
 
 def _map_chi2(data: ScanData, basis, f1: np.ndarray, f2: np.ndarray, *, method="auto", progress=None,
               cond_factor: float = MAP_COND_FACTOR):
+    """Chi-square map (len(f1), len(f2)), computed in blocks of rows and of P2 frequencies.
+
+    Both the number of rows and the number of P2 frequencies per call are chosen
+    so that the per-call working memory stays near :data:`MAP_BLOCK_BYTES`,
+    whatever the span and the grid length (only the output map grows with them).
+    """
     jm, km = basis
     n_b = jm.size
-    engine = K.make_engine(f2, "direct" if method == "direct" else "nufft")
-    paired, explicit = K.split_groups(data.groups, f2.size, n_b)
-    n_pairs = sum(g.index.size ** 2 for g in paired)
-    # rows per batch: keep the per-call strengths and the (p+1)^2 matrices near 50 MB
-    per_row = 25 * (data.n_points + n_pairs) * 16 + (2 * n_b + 1) ** 2 * f2.size * 8 * 2 \
-        + 2 * n_b * (n_b + 1) * f2.size * 16
-    rows = int(max(1, min(64, 5e7 // per_row)))
     chi2 = np.empty((f1.size, f2.size))
     chi2_0 = data.chi2_nuisance
-    for lo in range(0, f1.size, rows):
-        fb = f1[lo:lo + rows]
-        c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine, f1=fb,
-                                   paired=paired, explicit=explicit)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            risk = cond_factor * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
-        flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
-        if np.any(flag):
-            # all flagged pairs of the batch in one batched QR call
-            r_idx, c_idx = np.nonzero(flag)
-            c[r_idx, c_idx] = K.exact_evaluator(data, jm, km)(f2[c_idx], f1=fb[r_idx])
-        chi2[lo:lo + rows] = c
-        if progress is not None:
-            progress(fb.size)
+    n_pairs = sum(g.index.size ** 2 for g in data.groups)
+    # per row: the strengths; per (row, frequency): the (2 n_b + 1)^2 normal matrix (twice) and the sums
+    per_row = 25 * (data.n_points + n_pairs) * 16
+    per_cell = (2 * n_b + 1) ** 2 * 8 * 2 + 2 * n_b * (n_b + 1) * 16
+    f2_block = int(min(f2.size, max(MAP_MIN_BLOCK, MAP_BLOCK_BYTES // (per_row + per_cell))))
+    f2_block = max(1, f2_block)
+    for c_lo in range(0, f2.size, f2_block):
+        fc = f2[c_lo:c_lo + f2_block]
+        engine = K.make_engine(fc, "direct" if method == "direct" else "nufft")
+        paired, explicit = K.split_groups(data.groups, fc.size, n_b)
+        rows = int(max(1, min(64, MAP_BLOCK_BYTES // (per_row + per_cell * fc.size))))
+        for lo in range(0, f1.size, rows):
+            fb = f1[lo:lo + rows]
+            c, piv = K.scan_basis_chi2(data.t, data.w, data.y_res, data.groups, jm, km, engine, f1=fb,
+                                       paired=paired, explicit=explicit)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                risk = cond_factor * engine.risk_scale * (chi2_0 / data.n_points) * (chi2_0 / c) / piv
+            flag = ~np.isfinite(c) | (c <= 0) | ~(risk <= 1.0)
+            if np.any(flag):
+                # all flagged pairs of the batch in one batched QR call
+                r_idx, c_idx = np.nonzero(flag)
+                c[r_idx, c_idx] = K.exact_evaluator(data, jm, km)(fc[c_idx], f1=fb[r_idx])
+            chi2[lo:lo + rows, c_lo:c_lo + fc.size] = c
+            if progress is not None and c_lo + fc.size >= f2.size:
+                progress(fb.size)
     return chi2
 
 
