@@ -52,6 +52,7 @@ from tumble.classify.screen import ScreenResult, screen
 from tumble.classify.significance import PeriodCheck, check_period
 from tumble.classify.thresholds import DEFAULT_PRIOR_NPA, GRADE_NAMES, MIN_CYCLES
 from tumble.classify.verdict import Verdict, format_probability, grade_sentence
+from tumble.exceptions import TumbleError
 from tumble.model import ModelError
 
 __all__ = [
@@ -60,13 +61,41 @@ __all__ = [
     "npa_candidates", "Verdict", "decide", "RULES", "classify", "Classification", "screen", "ScreenResult",
     "PA_VARIANTS", "pa_variants", "NPA_COMBO_ORDERS", "geometry_change_deg", "geometry_error_floor",
     "error_scale_floor", "robust_weights", "grade_sentence", "format_probability", "PeriodCheck", "ModelAdequacy",
-    "DetectionLimit", "is_sparse",
+    "DetectionLimit", "is_sparse", "resolve_route", "ROUTE_CHOICES",
 ]
 
 
+#: How a light curve is classified: ``auto`` picks ``sparse`` for sparse data (the package's one
+#: rule, :func:`tumble.photometry.is_sparse_sessions`) and ``dense`` otherwise.
+ROUTE_CHOICES = ("auto", "dense", "sparse")
+
+
 def is_sparse(lc) -> bool:
-    """Most points are sparse (no nightly session): the survey rule of the package."""
-    return bool(np.mean(np.asarray(lc.session) < 0) > 0.5)
+    """Most points are sparse (no nightly session): the package's one rule."""
+    from tumble.photometry import is_sparse_sessions
+
+    return is_sparse_sessions(lc.session)
+
+
+def resolve_route(lc, route: str) -> str:
+    """``dense`` or ``sparse`` for a light curve and a requested route (:data:`ROUTE_CHOICES`)."""
+    if route not in ROUTE_CHOICES:
+        raise ClassifyError(f"route must be one of {', '.join(ROUTE_CHOICES)}, not '{route}'")
+    if route == "auto":
+        return "sparse" if is_sparse(lc) else "dense"
+    return route
+
+
+def _geometric_pa(lc, period_hint_h, rng, warnings_out: list):
+    """The geometry-aware PA fit (:func:`tumble.sparse.fit_pa_geometry`), or None with a warning when it cannot run."""
+    from tumble.sparse import fit_pa_geometry
+    from tumble.sparse.fit import SparseFitError
+
+    try:
+        return fit_pa_geometry(lc, period_hint_h=period_hint_h, rng=rng)
+    except (SparseFitError, TumbleError, ValueError, np.linalg.LinAlgError) as exc:
+        warnings_out.append(f"geometry-aware PA fit not made: {' '.join(str(exc).split())}")
+        return None
 
 
 @dataclass(frozen=True)
@@ -141,7 +170,8 @@ def _features(lc, ev: EvidenceResult) -> np.ndarray:
 
 def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: int | None = None,
              max_steps: int = 1500, fit_state: bool = True, student_t: bool = False, p_min_h: float = 0.5,
-             p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True) -> Classification:
+             p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True,
+             route: str = "auto", sidereal: bool = True) -> Classification:
     """Classify one light curve: evidence, checks, verdict, physical rotation state.
 
     Parameters
@@ -164,6 +194,12 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
         tqdm progress bar during sampling.
     detection_limit : bool
         Compute the NPA detection limit of a PA verdict (a few evidence evaluations by injection).
+    route : {'auto', 'dense', 'sparse'}
+        ``sparse`` adds the geometry-aware PA fit (:mod:`tumble.sparse`): the sidereal period, the
+        NPA veto and the "no observing geometry" rule; the physical tumbling fit is not made.
+    sidereal : bool
+        Dense route: replace a PA verdict's synodic period by the geometry-aware fit's sidereal one
+        (kept as ``period_syn_h``) when that fit is unique and agrees within 1 %.
 
     Returns
     -------
@@ -182,13 +218,18 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     except ModelError as exc:
         raise ClassifyError(str(exc)) from None
     sparse = is_sparse(lc)
+    resolved = resolve_route(lc, route)
     testable = bool(ev.npa_testable and np.isfinite(ev.ln_bayes_factor))
     favour = "NPA" if testable and ev.ln_bayes_factor > 0 else "PA"
     period_check = _check_periods(lc, ev, problem, favour, sparse)
+    geometric = None
+    if resolved == "sparse":
+        geometric = _geometric_pa(lc, None, rng, extra)
+        period_check = None  # the sparse period comes from the geometry-aware fit and its alias family
     adequacy = model_adequacy(lc, ev, favour, f_lo=problem.f_lo, f_hi=problem.f_hi)
     fit = None
-    worth_fitting = (testable and period_check.significant and abs(2 * ev.ln_bayes_factor) >= 2
-                     and not (favour == "NPA" and not np.isfinite(ev.f2_per_d)))
+    worth_fitting = (testable and resolved == "dense" and period_check.significant
+                     and abs(2 * ev.ln_bayes_factor) >= 2 and not (favour == "NPA" and not np.isfinite(ev.f2_per_d)))
     if fit_state and worth_fitting:
         fit = fit_rotation_state(lc, ev, favour, rng=rng, n_walkers=n_walkers, max_steps=max_steps,
                                  progress=progress, student_t=student_t)
@@ -196,12 +237,17 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     if fit is not None and favour == "NPA" and fit.mode in ("SAM", "LAM"):
         # the veto: the physical PA ellipsoid with the real geometry must also fail (optimisation only)
         pa_geometry = fit_rotation_state(lc, ev, "PA", rng=rng, max_steps=0, student_t=student_t)
+    if resolved == "dense" and sidereal and favour == "PA" and period_check.significant:
+        mult = 1.0 if ev.second_harmonic_dominates else 2.0
+        geometric = _geometric_pa(lc, 24.0 / ev.f1_per_d * mult, rng, extra)
     limit = None
-    if detection_limit and testable and favour == "PA" and period_check.significant:
+    if detection_limit and testable and favour == "PA" and (period_check is None or period_check.significant):
         limit = npa_detection_limit(problem, lc, ev.f1_per_d, prior_npa=prior_npa, weights=weights)
     verdict = decide(ev, span_d=lc.span_d, prior_npa=prior_npa, fit=fit, object_id=lc.object_id,
                      n_points=lc.n_points, n_sessions=lc.n_sessions, extra_warnings=extra, sparse=sparse,
-                     period_check=period_check, adequacy=adequacy, route_name="full" if fit_state else "evidence",
+                     period_check=period_check, adequacy=adequacy,
+                     route_name="sparse" if resolved == "sparse" else "full" if fit_state else "evidence",
+                     geometric_pa=geometric,
                      npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
                      calibration_features=_features(lc, ev))
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))

@@ -61,6 +61,11 @@ class DecisionInputs:
         The longest period the verdict would claim, hours.
     pa_geometry_fit : RotationFit or None
         The physical PA ellipsoid fit with the real geometry (made before an NPA verdict).
+    geometric_pa : tumble.sparse.GeometricPAFit or None
+        The geometry-aware PA fit (ellipsoid + phase curve, sidereal period): on the sparse route
+        always, on dense PA verdicts for the sidereal period.
+    sparse_route : bool
+        The verdict is made on the sparse route.
     """
 
     evidence: object
@@ -74,6 +79,8 @@ class DecisionInputs:
     adequacy: object
     longest_h: float
     pa_geometry_fit: object = None
+    geometric_pa: object = None
+    sparse_route: bool = False
 
 
 def _undecided(reason):
@@ -237,11 +244,39 @@ def rule_geometry_aware_pa(d: DecisionInputs) -> list:
     return []
 
 
+def rule_observing_geometry(d: DecisionInputs) -> list:
+    """Sparse data need the observing geometry: without it aspect changes are indistinguishable from tumbling."""
+    g = d.geometric_pa
+    if d.sparse_route and g is not None and g.geometry_fixed:
+        return _undecided("no observing geometry: sparse data without Sun and observer directions cannot tell a "
+                          "period from aspect changes (give --elements, --orbits or geometry columns)")
+    return []
+
+
+def rule_sparse_geometric_pa(d: DecisionInputs) -> list:
+    """Sparse route: NPA needs the geometry-aware PA fit to fail; PA needs its period to be unique."""
+    g = d.geometric_pa
+    if d.sparse_route and g is None:
+        return _undecided("the geometry-aware PA fit could not be made, so the sparse data cannot be judged")
+    if not d.sparse_route or g.geometry_fixed:
+        return []
+    if d.favour == "NPA" and np.isfinite(g.reduced_chi2) and g.reduced_chi2 <= th.GEOMETRIC_PA_ADEQUATE_CHI2:
+        return _undecided(f"a PA ellipsoid with the real geometry and a phase curve fits the sparse data "
+                          f"(reduced chi-square {g.reduced_chi2:.2f} <= {th.GEOMETRIC_PA_ADEQUATE_CHI2:g})")
+    if d.favour == "PA" and g.status == "no rotation detected":
+        return _undecided(f"{NO_PERIOD_REASON}: {g.message}")
+    if d.favour == "PA" and g.status != "unique":
+        family = ", ".join(f"{m.period_h:.5g}" for m in g.alias_family[:5])
+        return _undecided(f"undecided period: {len(g.alias_family)} sidereal periods fit within "
+                          f"delta chi2 {g.alias_delta_chi2:.3g} of the best ({family} h)")
+    return []
+
+
 #: The rules, in the order they are applied (all run; every finding is reported).
-RULES = (rule_evidence_defined, rule_npa_testable, rule_significant_period, rule_weak_evidence, rule_npa_probability,
+RULES = (rule_evidence_defined, rule_observing_geometry, rule_npa_testable, rule_significant_period, rule_weak_evidence, rule_npa_probability,
          rule_calibration_agrees,
          rule_window_disagreement, rule_window_mass, rule_quadrature_error, rule_daily_alias,
-         rule_sparse_modulated_alias, rule_coverage, rule_geometry_aware_pa, rule_state_posterior, rule_mode_margin,
+         rule_sparse_modulated_alias, rule_coverage, rule_geometry_aware_pa, rule_sparse_geometric_pa, rule_state_posterior, rule_mode_margin,
          rule_adequacy)
 
 
@@ -283,6 +318,23 @@ def _npa_periods(ev, fit) -> dict:
     return v
 
 
+def _sidereal_period(g, values: dict, warn: list, sparse_route: bool) -> dict:
+    """The sidereal period of the geometry-aware fit in place of the synodic one, when it may stand there."""
+    if g.geometry_fixed or g.status != "unique" or not np.isfinite(g.period_h):
+        if not sparse_route:
+            warn.append("the period is synodic: the geometry-aware fit could not give a unique sidereal period"
+                        + (" (no observing geometry)" if g.geometry_fixed else ""))
+        return {}
+    syn = values.get("period_syn_h", math.nan)
+    if not sparse_route and not (np.isfinite(syn) and abs(g.period_h - syn) <= th.SIDEREAL_SYNODIC_MAX_REL * syn):
+        warn.append(f"the geometry-aware fit's period {g.period_h:.6g} h differs from the synodic {syn:.6g} h by "
+                    "more than a synodic drift: the period given is synodic")
+        return {}
+    warn.append("sidereal period from the geometry-aware PA ellipsoid fit (the pole has a mirror solution)")
+    return dict(period_h=float(g.period_h), period_h_err=0.5 * float(g.period_h_hi - g.period_h_lo),
+                period_syn_h=float(syn) if np.isfinite(syn) else float(g.period_h))
+
+
 #: Period fields emptied when no significant period exists.
 PERIOD_FIELDS = ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_psi_h_lo", "p_psi_h_hi", "p_phi_h",
                  "p_phi_h_lo", "p_phi_h_hi", "p1_h", "p2_h", "excitation", "excitation_lo", "excitation_hi")
@@ -291,7 +343,7 @@ PERIOD_FIELDS = ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_psi_h
 def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, fit=None, object_id: str = "object",
            n_points: int = 0, n_sessions: int = 0, extra_warnings=(), route: str | None = None, sparse: bool = False,
            period_check=None, adequacy=None, route_name: str = "full", npa_limit_mag: float = math.nan,
-           pa_geometry_fit=None, calibration_features=None) -> Verdict:
+           pa_geometry_fit=None, calibration_features=None, geometric_pa=None) -> Verdict:
     """Turn the evidence (and the physical fit, significance and adequacy, if any) into a :class:`Verdict`.
 
     Every rule of :data:`RULES` runs; an ``undecided`` finding withholds the verdict (grade
@@ -317,8 +369,9 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     claimed = [values.get(k, math.nan) for k in ("period_h", "p1_h", "p2_h", "p_psi_h", "p_phi_h")]
     claimed = [p for p in claimed if np.isfinite(p)]
     longest = max(claimed) if claimed else math.nan
+    sparse_route = route_name == "sparse"
     inputs = DecisionInputs(ev, span_d, sparse, prior_npa, p_npa, favour, fit, period_check, adequacy, longest,
-                            pa_geometry_fit)
+                            pa_geometry_fit, geometric_pa, sparse_route)
     findings = [f for rule in RULES for f in rule(inputs)]
     warn = list(extra_warnings) + [f.reason for f in findings]
     undecided = any(f.effect == "undecided" for f in findings)
@@ -341,6 +394,8 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
         mode = "unknown" if any(f.effect == "mode_unknown" for f in findings) else fit.mode
     if period_check is not None and not period_check.significant:
         values = {k: v for k, v in values.items() if k not in PERIOD_FIELDS}
+    if rotation == "PA" and geometric_pa is not None:
+        values.update(_sidereal_period(geometric_pa, values, warn, sparse_route))
     if rotation != "PA":
         values.pop("period_h", None)
         values.pop("period_h_err", None)

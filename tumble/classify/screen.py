@@ -163,7 +163,7 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
     dbic = -2.0 * (loglik(res.chi2_2d) - loglik(res.chi2_1d)) + (res.n_params_2d - res.n_params_1d) * math.log(n)
     score = -0.5 * dbic
     fa, fb = res.f1_per_d, res.f2_per_d
-    sparse = bool(lc.is_sparse) if hasattr(lc, "is_sparse") else bool(np.mean(lc.session < 0) > 0.5)
+    sparse = bool(lc.is_sparse)
     warn = []
     fap = float(scan1.false_alarm_probability)
     significant = fap < PERIOD_FAP_MAX

@@ -81,6 +81,14 @@ DETECTION_2LNB = GRADE_EDGES_2LNB[0]
 #: Schwarz 1978): a tumbler must not be what changing geometry makes of a PA body.
 GEOMETRY_VETO_2LNB = GRADE_EDGES_2LNB[0]
 
+# --- the geometry-aware PA model (tumble.sparse) ----------------------------------------------
+#: The geometry-aware PA ellipsoid "describes" the data at a reduced chi-square up to this (the
+#: sparse fit's own adequacy limit, tumble.sparse.fit): a sparse NPA claim needs it to fail.
+GEOMETRIC_PA_ADEQUATE_CHI2 = 3.0
+#: A sidereal period replaces the synodic one only when they agree to this fraction (a larger
+#: difference is a different solution - e.g. half or double the period - not the synodic drift).
+SIDEREAL_SYNODIC_MAX_REL = 0.01
+
 # --- the screen -------------------------------------------------------------------------------
 #: Screen: ``-Delta BIC / 2`` above this flags a tumbling candidate.
 SCREEN_CANDIDATE_SCORE = 5.0

@@ -22,6 +22,9 @@ def add_parser(sub) -> None:
     p.add_argument("--screen", action="store_true",
                    help="fast triage from the 1-D and 2-D scans only: a flag (candidate, quiet, unknown) and a "
                         "score (-Delta BIC / 2), not a verdict")
+    p.add_argument("--route", choices=("auto", "dense", "sparse"), default="auto",
+                   help="auto (default): the sparse route for sparse data (most points without a nightly session), "
+                        "else dense; sparse adds the geometry-aware PA fit (sidereal period, pole, phase curve)")
     p.add_argument("--seed", type=int, default=0, metavar="N", help="random seed (default: 0)")
     p.add_argument("--walkers", type=int, metavar="W", help="emcee walkers per ensemble (default: 4 x parameters)")
     p.add_argument("--max-steps", type=int, default=1500, metavar="S",
@@ -71,7 +74,7 @@ def run(args: argparse.Namespace) -> int:
     # the folder is checked before the work; an object name from data never becomes a path as it is
     out_dir = output_folder(args.out, lc.object_id, "-classify")
     out_dir.mkdir(parents=True, exist_ok=True)
-    route = "screen" if args.screen else "full"
+    route = "screen" if args.screen else args.route
     prov = make_provenance(route=route, prior_npa=args.prior_npa, seed=args.seed, max_steps=args.max_steps,
                            n_walkers=args.walkers, robust=bool(args.robust), min_period_h=args.min_period_h,
                            max_period_h=args.max_period_h, read_options=plain_record(read_options(args)))
@@ -83,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
     else:
         result = classify(lc, prior_npa=args.prior_npa, rng=rng, n_walkers=args.walkers,
                           max_steps=args.max_steps, student_t=args.robust, p_min_h=args.min_period_h,
-                          p_max_h=args.max_period_h, progress=not args.quiet)
+                          p_max_h=args.max_period_h, progress=not args.quiet, route=args.route)
         verdict, fit = result.verdict, result.fit
         damp = _damping(verdict, args, np.random.default_rng(args.seed + 1))
     out = verdict_record(verdict.to_dict(), seed=int(args.seed),
