@@ -62,11 +62,12 @@ def test_reprs_are_short():
     scan = tumble.scan(lc)
     assert repr(scan).startswith("<ScanResult object='K-1'") and len(repr(scan)) < 250
     assert "peak 1" in scan._repr_html_()
-    verdict = tumble.screen(lc)
-    from tumble._repr import verdict_html, verdict_repr
-
-    assert verdict_repr(verdict).startswith("<Verdict object='K-1', rotation=") and len(verdict_repr(verdict)) < 300
-    assert "research use" in verdict_html(verdict)
+    flagged = tumble.screen(lc)  # a screen states a flag, not a verdict
+    assert repr(flagged).startswith("<ScreenResult object='K-1', flag=") and len(repr(flagged)) < 300
+    assert "research use" in flagged._repr_html_()
+    verdict = tumble.classify(lc, fit_state=False, detection_limit=False, sidereal=False).verdict
+    assert repr(verdict).startswith("<Verdict object='K-1', rotation=") and len(repr(verdict)) < 300
+    assert "research use" in verdict._repr_html_()
 
 
 def test_html_escapes_names():
@@ -87,9 +88,12 @@ def test_notebook_three_lines():
     table = pd.read_csv(UD2005)
     lc = tumble.read_lightcurve(table, columns="time=jd_utc_mid,mag=mag_Rc,err=mag_err")
     result = tumble.classify(lc, rng=1, max_steps=0)  # the docs' line; max_steps=0 (no sampler) keeps the suite short
-    verdict = result.verdict if hasattr(result, "verdict") else result[0]  # Classification record or old tuple
-    assert verdict.rotation == "PA"
-    assert abs(verdict.period_h - 5.2340) < 2 * verdict.period_h_err
+    verdict = result.verdict
+    # two nights over 1.33 d (about six rotations): every second period the span could resolve is
+    # commensurate with the first, so tumbling cannot be tested and no PA grade is given (issue 14's
+    # untestable rule); the light-curve period is still reported, within 1 % of the published one
+    assert verdict.rotation == "undecided" and not verdict.npa_testable
+    assert abs(verdict.period_syn_h - 5.2340) < 0.01 * 5.2340
 
 
 def test_citation_and_license_files():

@@ -154,6 +154,25 @@ def verdict_html(v) -> str:
     return _table("Verdict", rows)
 
 
+def _screen_rows(s) -> list[tuple[str, str]]:
+    rows = [("object", repr(s.object_id)), ("flag", str(s.screen_flag)), ("score", _num(s.screen_score, ".3g"))]
+    if math.isfinite(float(getattr(s, "period_h", math.nan))):
+        rows.append(("P", _pm(s.period_h, s.period_h_err)))
+    return rows
+
+
+def screen_repr(s) -> str:
+    """``<ScreenResult object='X', flag=quiet, score=-40.6, P=...>``: a flag and a score, never a verdict."""
+    return _line("ScreenResult", _screen_rows(s))
+
+
+def screen_html(s) -> str:
+    """HTML table of the screen's flag, score and notes."""
+    rows = _screen_rows(s) + [("note", str(w)) for w in getattr(s, "warnings", ())[:5]]
+    rows.append(("note", "a flag for triage, not a verdict; a scientific estimate for research use"))
+    return _table("ScreenResult", rows)
+
+
 def classification_repr(c) -> str:
     """A ``Classification`` record (verdict, scan, evidence, fit): its verdict's line, named so."""
     return verdict_repr(c.verdict).replace("<Verdict ", "<Classification ", 1)

@@ -88,6 +88,16 @@ class ScreenResult:
     grade = ""
     mode = ""
 
+    def __repr__(self) -> str:
+        from tumble import _repr
+
+        return _repr.screen_repr(self)
+
+    def _repr_html_(self) -> str:
+        from tumble import _repr
+
+        return _repr.screen_html(self)
+
     def to_dict(self) -> dict:
         out = {f.name: getattr(self, f.name) for f in fields(self)}
         out.update(rotation=self.rotation, grade=self.grade, mode=self.mode)
