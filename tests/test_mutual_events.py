@@ -108,3 +108,17 @@ def test_simulated_edge_on_binary_has_two_events_per_orbit():
     np.testing.assert_allclose(np.diff(centres) * 24.0, p_orb_h / 2, rtol=0.03)
     # outside the events the satellite adds its light: q^2 of the primary's at this phase
     assert np.median(r.model_mag) - np.median(base.model_mag) == pytest.approx(-expected, abs=2e-3)
+
+
+def test_cli_simulate_binary(tmp_path, capsys):
+    # the binary option from the command line: the truth holds the orbit, a bad orbit exits 2
+    from tumble.cli import main
+    from tumble.simulate import read_truth
+
+    out = tmp_path / "bin.csv"
+    assert main(["simulate", "-o", str(out), "--period", "2.26", "--binary-orbit", "11.9", "--size-ratio", "0.25",
+                 "--orbit-radius", "3", "--nights", "2", "--seed", "3"]) == 0
+    assert "binary: P_orb = 11.9 h" in capsys.readouterr().out
+    assert read_truth(out)["binary"]["size_ratio"] == 0.25
+    assert main(["simulate", "-o", str(tmp_path / "bad.csv"), "--binary-orbit", "11.9", "--orbit-radius", "1.1"]) == 2
+    assert "contact" in capsys.readouterr().err
