@@ -44,7 +44,7 @@ from tumble.classify.prior import log_uniform_logpdf
 from tumble.classify.quadrature import integrate_peak, logsumexp, peak_indices
 from tumble.model import FourierBasis, fit_linear, linear_log_evidence
 
-__all__ = ["EVENT_WIDTHS", "EVENT_SIGMA_MAG", "EventBasis", "BinaryResult", "EventIndicator", "event_profile",
+__all__ = ["BINARY_COMPARABLE_2LNB", "EVENT_WIDTHS", "EVENT_SIGMA_MAG", "EventBasis", "BinaryResult", "EventIndicator", "event_profile",
            "event_scan", "event_scan_reference", "binary_evidence", "binary_log_density", "event_indicator", "orbit_peaks"]
 
 #: Full event durations in orbital phase (mutual events of known binaries last about 0.05-0.15 of the
@@ -64,6 +64,9 @@ MAX_ORB_GRID = 60_000
 SCAN_STEP_FRACTION = 1.0 / 3.0
 #: Event indicator: the two-dip model must gain at least this chi-square (a 5-sigma dip pair).
 INDICATOR_MIN_CHI2 = 25.0
+#: The decision: a binary whose evidence is within this of the NPA family's (``2 ln Z`` units, the
+#: lowest Kass & Raftery 1995 band edge) or better is a live alternative to tumbling.
+BINARY_COMPARABLE_2LNB = 2.0
 
 
 def event_profile(x, width: float):
