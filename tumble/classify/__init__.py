@@ -29,6 +29,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from tumble.classify.adequacy import ModelAdequacy, model_adequacy
+from tumble.classify.binary import BinaryResult, binary_evidence
 from tumble.classify.detection import DetectionLimit, npa_detection_limit
 from tumble.classify.evidence import (
     ClassifyError,
@@ -91,6 +92,7 @@ class Classification:
     period_check: PeriodCheck | None
     adequacy: ModelAdequacy | None
     detection_limit: DetectionLimit | None
+    binary: BinaryResult | None = None
 
     def __iter__(self):
         """Unpacking as ``verdict, evidence, fit`` (the return value of earlier versions)."""
@@ -121,7 +123,8 @@ def _check_periods(lc, ev: EvidenceResult, problem: EvidenceProblem, favour: str
 
 def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: int | None = None,
              max_steps: int = 1500, fit_state: bool = True, student_t: bool = False, p_min_h: float = 0.5,
-             p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True) -> Classification:
+             p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True,
+             binary: bool = True) -> Classification:
     """Classify one light curve: evidence, checks, verdict, physical rotation state.
 
     Parameters
@@ -144,6 +147,8 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
         tqdm progress bar during sampling.
     detection_limit : bool
         Compute the NPA detection limit of a PA verdict (a few evidence evaluations by injection).
+    binary : bool
+        Before an NPA verdict, weigh the binary family (mutual events, :mod:`.binary`).
 
     Returns
     -------
@@ -172,6 +177,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     if fit_state and worth_fitting:
         fit = fit_rotation_state(lc, ev, favour, rng=rng, n_walkers=n_walkers, max_steps=max_steps,
                                  progress=progress, student_t=student_t)
+    binary_result = binary_evidence(problem, ev) if binary and favour == "NPA" else None
     pa_geometry = None
     if fit is not None and favour == "NPA" and fit.mode in ("SAM", "LAM"):
         # the veto: the physical PA ellipsoid with the real geometry must also fail (optimisation only)
@@ -182,6 +188,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     verdict = decide(ev, span_d=lc.span_d, prior_npa=prior_npa, fit=fit, object_id=lc.object_id,
                      n_points=lc.n_points, n_sessions=lc.n_sessions, extra_warnings=extra, sparse=sparse,
                      period_check=period_check, adequacy=adequacy, route_name="full" if fit_state else "evidence",
-                     npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry)
+                     npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
+                     binary=binary_result)
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))
-    return Classification(verdict, ev, fit, period_check, adequacy, limit)
+    return Classification(verdict, ev, fit, period_check, adequacy, limit, binary_result)
