@@ -148,6 +148,6 @@ def test_didymos_is_not_called_a_tumbler():
     if not DIDYMOS.exists():
         pytest.skip(f"{DIDYMOS} not available")
     lc = read_alcdef_blocks(DIDYMOS)
-    assert lc.n_points == 1574  # the README counts 1581 DATA lines; the light-curve constructor drops 7
+    assert lc.n_points == 1574  # of the 1581 DATA lines the README counts, as the light-curve constructor keeps them
     c = classify(lc, fit_state=False, detection_limit=False)
     assert c.verdict.rotation != "NPA"

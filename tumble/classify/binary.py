@@ -54,6 +54,9 @@ EVENT_WIDTHS = (0.04, 0.07, 0.11, 0.16)
 EVENT_SIGMA_MAG = 0.1
 #: Orbital-frequency peaks of the scan integrated per f1 window.
 N_ORB_PEAKS = 3
+#: Aliases of the best scan peak also integrated (ratios of f_orb): one event per period (1/2), and the
+#: 2/3, 3/2 and 2 aliases that nightly gaps make of events every third or half orbit.
+ORBIT_ALIAS_RATIOS = (0.5, 2.0 / 3.0, 1.5, 2.0)
 #: f1 windows of the evidence (best PA windows first) given the binary integration.
 BINARY_MAX_WINDOWS = 3
 #: Phase bins of the box scan (even: the second event sits K/2 bins from the first).
@@ -224,7 +227,7 @@ def _orbit_grid(problem, f1: float):
 
 
 def orbit_peaks(problem, f1: float, n_peaks: int = N_ORB_PEAKS) -> tuple:
-    """The strongest peaks of the event scan at ``f1`` (plus half the best frequency: one event per period)."""
+    """The strongest peaks of the event scan at ``f1``, plus the aliases :data:`ORBIT_ALIAS_RATIOS` of the best."""
     grid, step = _orbit_grid(problem, f1)
     if len(grid) < 3:
         return (), step
@@ -232,10 +235,15 @@ def orbit_peaks(problem, f1: float, n_peaks: int = N_ORB_PEAKS) -> tuple:
     gain, phase, width = event_scan(problem.data.t_d, resid, weight, grid)
     peaks = [OrbitPeak(float(grid[i]), float(phase[i]), float(width[i]), float(gain[i]))
              for i in peak_indices(gain, n_peaks, 3)]
-    half = 0.5 * peaks[0].f_orb_per_d if peaks else math.nan
-    if peaks and half >= grid[0] and all(abs(half - p.f_orb_per_d) > 3 * step for p in peaks):
-        j = int(np.argmin(np.abs(grid - half)))
-        peaks.append(OrbitPeak(float(grid[j]), float(phase[j]), float(width[j]), float(gain[j])))
+    if not peaks:
+        return (), step
+    for ratio in ORBIT_ALIAS_RATIOS:
+        fa = ratio * peaks[0].f_orb_per_d
+        if grid[0] <= fa <= grid[-1] and all(abs(fa - p.f_orb_per_d) > 3 * step for p in peaks):
+            j = int(np.argmin(np.abs(grid - fa)))
+            lo, hi = max(j - 3, 0), min(j + 4, len(grid))
+            j = lo + int(np.argmax(gain[lo:hi]))
+            peaks.append(OrbitPeak(float(grid[j]), float(phase[j]), float(width[j]), float(gain[j])))
     return tuple(peaks), step
 
 
