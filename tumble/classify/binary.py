@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 
@@ -264,14 +265,14 @@ class PeakIntegralSet:
 def _integrate_orbit_peak(problem, f1c: float, peak: OrbitPeak, width: float, step: float) -> PeakIntegralSet:
     """Separable product rule over (phi, f_orb, f1) around a scan peak at one event width."""
     half_f = max(2 * step, 0.5 * width / problem.span_d)
-    dens_phi = lambda ph, fo: binary_log_density(problem, f1c, fo, ph, width)  # noqa: E731
-    ip = integrate_peak(lambda ph: dens_phi(ph, peak.f_orb_per_d), peak.phase, width, peak.phase - 0.25,
-                        peak.phase + 0.25)
-    io = integrate_peak(lambda fo: binary_log_density(problem, f1c, fo, ip.best, width), peak.f_orb_per_d, half_f,
-                        problem.f2_lo, 0.5 * f1c)
-    ip2 = integrate_peak(lambda ph: dens_phi(ph, io.best), ip.best, 0.5 * width, ip.best - 0.25, ip.best + 0.25)
-    i1 = integrate_peak(lambda f: binary_log_density(problem, f, io.best, ip2.best, width), f1c, 2 * problem.step,
-                        problem.f_lo, problem.f_hi)
+    along_phase = partial(binary_log_density, problem, f1c, peak.f_orb_per_d, width=width)
+    ip = integrate_peak(along_phase, peak.phase, width, peak.phase - 0.25, peak.phase + 0.25)
+    along_f_orb = partial(binary_log_density, problem, f1c, phase=ip.best, width=width)
+    io = integrate_peak(along_f_orb, peak.f_orb_per_d, half_f, problem.f2_lo, 0.5 * f1c)
+    along_phase = partial(binary_log_density, problem, f1c, io.best, width=width)
+    ip2 = integrate_peak(along_phase, ip.best, 0.5 * width, ip.best - 0.25, ip.best + 0.25)
+    along_f1 = partial(binary_log_density, problem, f_orb=io.best, phase=ip2.best, width=width)
+    i1 = integrate_peak(along_f1, f1c, 2 * problem.step, problem.f_lo, problem.f_hi)
     vstar = ip2.best_value
     n = ip.n_evaluations + io.n_evaluations + ip2.n_evaluations + i1.n_evaluations
     if not np.isfinite(vstar):
@@ -345,8 +346,8 @@ def binary_evidence(problem, evidence, *, n_windows: int = BINARY_MAX_WINDOWS, f
     problem : tumble.classify.evidence.EvidenceProblem
         From :func:`tumble.classify.evidence.build_problem` (the same data, floor and error-scale
         bound as ``evidence``).
-    evidence : tumble.classify.evidence.EvidenceResult
-        Its PA windows give the f1 centres.
+    evidence : tumble.classify.evidence.EvidenceResult or None
+        Its PA windows give the f1 centres (None when ``f1_centres`` is given).
     n_windows : int
         f1 windows integrated (best PA windows first).
     f1_centres : sequence of float, optional
