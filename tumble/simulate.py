@@ -56,6 +56,7 @@ __all__ = [
     "simulate_lightcurve",
     "write_simulation",
     "read_truth",
+    "binary_event_factors",
     "state_to_dict",
     "state_from_dict",
 ]
@@ -460,7 +461,7 @@ def _axes_tuple(axes) -> np.ndarray:
 
 def model_magnitudes(state, axes, t_tdb_jd, sun_dir, obs_dir, *, r_au=None, delta_au=None, phase_deg=None,
                      h_mag: float = 0.0, law: str = "lommel-seeliger", lambert_weight: float = 0.1,
-                     trend: brightness.PhaseTrend | None = None, order: int = 24) -> np.ndarray:
+                     trend: brightness.PhaseTrend | None = None, order: int = 24, binary=None) -> np.ndarray:
     """Noise-free model magnitudes of a rotating ellipsoid (no per-night offsets).
 
     ``m = H - 2.5 log10(I / I_sphere(0)) + 5 log10(r Delta) + trend(alpha)``;
@@ -487,6 +488,11 @@ def model_magnitudes(state, axes, t_tdb_jd, sun_dir, obs_dir, *, r_au=None, delt
         Scattering law (see :func:`tumble.brightness.ellipsoid_brightness`).
     trend : tumble.brightness.PhaseTrend, optional
         Phase-angle trend.
+    binary : tumble.mutual_events.BinaryOrbit, optional
+        A spherical satellite: its flux (``size_ratio^2`` times the Lommel-Seeliger sphere phase
+        function, times its own rotation) is added to the primary's, and both lose light in mutual
+        eclipses and occultations computed for two spheres (the primary as its equal-volume sphere;
+        :func:`binary_event_factors`). ``H`` stays the primary's.
 
     Returns
     -------
@@ -504,11 +510,30 @@ def model_magnitudes(state, axes, t_tdb_jd, sun_dir, obs_dir, *, r_au=None, delt
     o_body = np.einsum("nji,nj->ni", rot, o)
     if phase_deg is None:
         phase_deg = geometry.phase_angle_deg(s, o)
-    mag = h_mag + brightness.ellipsoid_magnitude(s_body, o_body, ax, law=law, lambert_weight=lambert_weight,
-                                                 phase_deg=phase_deg, trend=trend, order=order)
+    rel = brightness.ellipsoid_magnitude(s_body, o_body, ax, law=law, lambert_weight=lambert_weight, order=order)
+    if binary is not None:
+        f_primary, f_satellite = binary_event_factors(binary, t, s, o, phase_deg)
+        rel = -2.5 * np.log10(f_primary * 10.0 ** (-0.4 * rel) + f_satellite)
+    mag = h_mag + rel + (trend.magnitude(phase_deg) if trend is not None else 0.0)
     if r_au is not None and delta_au is not None:
         mag = mag + 5.0 * np.log10(np.asarray(r_au, dtype=float) * np.asarray(delta_au, dtype=float))
     return mag
+
+
+def binary_event_factors(binary, t_tdb_jd, sun_dir, obs_dir, phase_deg) -> tuple:
+    """Mutual-event factors of a binary: ``(f_p, F_s)`` with the system flux ``F = f_p F_primary + F_s``.
+
+    ``f_p`` is the share of the primary's flux left by the events and ``F_s`` the satellite's flux in
+    units of the primary's equal-volume sphere at zero phase (``size_ratio^2`` times the
+    Lommel-Seeliger sphere phase function, Muinonen & Lumme 2015, times its own rotation and its
+    event share); the events of two spheres come from :func:`tumble.mutual_events.mutual_event_fractions`.
+    """
+    from tumble.mutual_events import mutual_event_fractions
+
+    t = np.atleast_1d(np.asarray(t_tdb_jd, float))
+    ev = mutual_event_fractions(binary.satellite_position(t), sun_dir, obs_dir, binary.size_ratio)
+    sat = binary.size_ratio**2 * brightness.sphere_ls_phase_function(phase_deg) * binary.satellite_modulation(t)
+    return ev.primary, sat * ev.satellite
 
 
 @dataclass(frozen=True, eq=False)
@@ -592,7 +617,7 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
                         observatory: geometry.Observatory | None = None, h_mag: float = 15.0,
                         law: str = "lommel-seeliger", lambert_weight: float = 0.1,
                         trend: brightness.PhaseTrend | None = None, noise: NoiseModel | None = None,
-                        object_id: str = "sim", rng=None) -> SimulatedLightCurve:
+                        object_id: str = "sim", rng=None, binary=None) -> SimulatedLightCurve:
     """Simulate the light curve of a rotating ellipsoid under an observing plan.
 
     Parameters
@@ -620,6 +645,9 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
         Designation written with the data.
     rng : numpy.random.Generator, int or None
         Random source (night choice of a sparse plan, zero points, noise).
+    binary : tumble.mutual_events.BinaryOrbit, optional
+        A spherical satellite with mutual eclipses and occultations (see :func:`model_magnitudes`);
+        its description goes into the truth under ``binary``.
 
     Returns
     -------
@@ -652,7 +680,7 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
     t_model = t_tdb - geo.light_time_d  # emission times (light time)
     model = model_magnitudes(state, ax, t_model, geo.sun_dir, geo.obs_dir, r_au=geo.r_au, delta_au=geo.delta_au,
                              phase_deg=geo.phase_deg, h_mag=h_mag, law=law, lambert_weight=lambert_weight,
-                             trend=trend)
+                             trend=trend, binary=binary)
     zp_sigma = getattr(plan, "zero_point_sigma_mag", 0.0)
     n_zp = int(times.night.max()) + 1 if times.night.size else 0
     night_zp = zp_sigma * g.standard_normal(n_zp) if zp_sigma > 0 else np.zeros(n_zp)
@@ -698,6 +726,7 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
         "n_nights": n_nights_observed,
         "n_dropped_elongation": n_dropped,
         "n_outliers": int(outlier.sum()),
+        "binary": None if binary is None else binary.to_dict(),
         "magnitude_model": "m = H - 2.5 log10(I/I_sphere(0)) + 5 log10(r Delta) + trend(alpha) + night offset + noise",
     }
     return SimulatedLightCurve(lightcurve=lc, model_mag=model, night_offset_mag=offset, noise_mag=noise_mag,

@@ -29,6 +29,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from tumble.classify.adequacy import ModelAdequacy, model_adequacy
+from tumble.classify.binary import BinaryResult, binary_evidence
 from tumble.classify.detection import DetectionLimit, npa_detection_limit
 from tumble.classify.evidence import (
     ClassifyError,
@@ -120,6 +121,7 @@ class Classification:
     period_check: PeriodCheck | None
     adequacy: ModelAdequacy | None
     detection_limit: DetectionLimit | None
+    binary: BinaryResult | None = None
 
     def __repr__(self) -> str:
         from tumble import _repr
@@ -171,7 +173,7 @@ def _features(lc, ev: EvidenceResult) -> np.ndarray:
 def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: int | None = None,
              max_steps: int = 1500, fit_state: bool = True, student_t: bool = False, p_min_h: float = 0.5,
              p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True,
-             route: str = "auto", sidereal: bool = True) -> Classification:
+             route: str = "auto", sidereal: bool = True, binary: bool = True) -> Classification:
     """Classify one light curve: evidence, checks, verdict, physical rotation state.
 
     Parameters
@@ -200,6 +202,8 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     sidereal : bool
         Dense route: replace a PA verdict's synodic period by the geometry-aware fit's sidereal one
         (kept as ``period_syn_h``) when that fit is unique and agrees within 1 %.
+    binary : bool
+        Before an NPA verdict, weigh the binary family (mutual events, :mod:`.binary`).
 
     Returns
     -------
@@ -233,6 +237,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
     if fit_state and worth_fitting:
         fit = fit_rotation_state(lc, ev, favour, rng=rng, n_walkers=n_walkers, max_steps=max_steps,
                                  progress=progress, student_t=student_t)
+    binary_result = binary_evidence(problem, ev) if binary and favour == "NPA" else None
     pa_geometry = None
     if fit is not None and favour == "NPA" and fit.mode in ("SAM", "LAM"):
         # the veto: the physical PA ellipsoid with the real geometry must also fail (optimisation only)
@@ -249,6 +254,6 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
                      route_name="sparse" if resolved == "sparse" else "full" if fit_state else "evidence",
                      geometric_pa=geometric,
                      npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
-                     calibration_features=_features(lc, ev))
+                     calibration_features=_features(lc, ev), binary=binary_result)
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))
-    return Classification(verdict, ev, fit, period_check, adequacy, limit)
+    return Classification(verdict, ev, fit, period_check, adequacy, limit, binary_result)

@@ -81,6 +81,7 @@ class DecisionInputs:
     pa_geometry_fit: object = None
     geometric_pa: object = None
     sparse_route: bool = False
+    binary: object = None
 
 
 def _undecided(reason):
@@ -272,12 +273,27 @@ def rule_sparse_geometric_pa(d: DecisionInputs) -> list:
     return []
 
 
+def rule_binary_alternative(d: DecisionInputs) -> list:
+    """NPA favoured over PA, but a binary with mutual events explains the data as well or better."""
+    from tumble.classify.binary import BINARY_COMPARABLE_2LNB
+
+    b, ev = d.binary, d.evidence
+    if d.favour != "NPA" or b is None or not (np.isfinite(b.ln_z_binary) and np.isfinite(ev.ln_z_npa)):
+        return []
+    two = 2.0 * (b.ln_z_binary - ev.ln_z_npa)
+    if two < -BINARY_COMPARABLE_2LNB:
+        return []
+    return _undecided(f"a binary with mutual events at P_orb = {b.p_orb_h:.4g} h (event depths "
+                      f"{max(b.event_depth_mag):.2g} mag) explains the data as well as tumbling or better "
+                      f"(2 ln Z_binary - 2 ln Z_NPA = {two:.1f})")
+
+
 #: The rules, in the order they are applied (all run; every finding is reported).
 RULES = (rule_evidence_defined, rule_observing_geometry, rule_npa_testable, rule_significant_period, rule_weak_evidence, rule_npa_probability,
          rule_calibration_agrees,
          rule_window_disagreement, rule_window_mass, rule_quadrature_error, rule_daily_alias,
          rule_sparse_modulated_alias, rule_coverage, rule_geometry_aware_pa, rule_sparse_geometric_pa, rule_state_posterior, rule_mode_margin,
-         rule_adequacy)
+         rule_adequacy, rule_binary_alternative)
 
 
 def _period_from_frequency(f, sf):
@@ -343,7 +359,7 @@ PERIOD_FIELDS = ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_psi_h
 def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, fit=None, object_id: str = "object",
            n_points: int = 0, n_sessions: int = 0, extra_warnings=(), route: str | None = None, sparse: bool = False,
            period_check=None, adequacy=None, route_name: str = "full", npa_limit_mag: float = math.nan,
-           pa_geometry_fit=None, calibration_features=None, geometric_pa=None) -> Verdict:
+           pa_geometry_fit=None, calibration_features=None, geometric_pa=None, binary=None) -> Verdict:
     """Turn the evidence (and the physical fit, significance and adequacy, if any) into a :class:`Verdict`.
 
     Every rule of :data:`RULES` runs; an ``undecided`` finding withholds the verdict (grade
@@ -371,7 +387,7 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     longest = max(claimed) if claimed else math.nan
     sparse_route = route_name == "sparse"
     inputs = DecisionInputs(ev, span_d, sparse, prior_npa, p_npa, favour, fit, period_check, adequacy, longest,
-                            pa_geometry_fit, geometric_pa, sparse_route)
+                            pa_geometry_fit, geometric_pa, sparse_route, binary)
     findings = [f for rule in RULES for f in rule(inputs)]
     warn = list(extra_warnings) + [f.reason for f in findings]
     undecided = any(f.effect == "undecided" for f in findings)
@@ -412,6 +428,9 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
             warn.append(MIRROR_NOTE)
         if not fit.converged:
             warn.append("physical-model posterior not converged or multimodal: " + "; ".join(fit.reasons))
+    if any(f.reason.startswith("a binary with mutual events") for f in findings):
+        extra.update(p_orb_h=binary.p_orb_h, p_orb_h_lo=binary.p_orb_h_lo, p_orb_h_hi=binary.p_orb_h_hi,
+                     event_depth_mag=float(max(binary.event_depth_mag)), event_width_phase=binary.event_width_phase)
     pc = period_check
     ad = adequacy
     return Verdict(

@@ -85,6 +85,13 @@ class Verdict:
         Error scale the chosen model needs at the quoted errors (``sqrt(chi2/dof)``).
     residual_period_h, residual_fap : float
         Strongest period in the chosen model's residuals and its false-alarm probability.
+    p_orb_h, p_orb_h_lo, p_orb_h_hi : float
+        Orbital period of the binary family (mutual events) and its 68 % interval, hours (NaN unless the
+        binary alternative was weighed and named in the verdict).
+    event_depth_mag : float
+        Depth of the deeper mutual event of the binary family, mag (NaN unless named).
+    event_width_phase : float
+        Full event duration of the binary family, orbital phase (NaN unless named).
     evidence_route : str
         How the Bayes factor was computed.
     route : str
@@ -140,6 +147,11 @@ class Verdict:
     error_scale_chosen: float = math.nan
     residual_period_h: float = math.nan
     residual_fap: float = math.nan
+    p_orb_h: float = math.nan
+    p_orb_h_lo: float = math.nan
+    p_orb_h_hi: float = math.nan
+    event_depth_mag: float = math.nan
+    event_width_phase: float = math.nan
     evidence_route: str = ""
     route: str = "full"
     state_converged: bool = False

@@ -92,6 +92,23 @@ def add_parser(sub) -> None:
                         "at opposition at the start")
     g.add_argument("--observatory", metavar="LON,LAT,HEIGHT_M", help="ground station (default: geocentre)")
 
+    g = p.add_argument_group("binary (mutual events)")
+    g.add_argument("--binary-orbit", type=float, metavar="H",
+                   help="add a spherical satellite on a circular orbit of this period, hours (mutual eclipses and "
+                        "occultations; default: none)")
+    g.add_argument("--size-ratio", type=float, default=0.3, metavar="Q",
+                   help="binary: satellite-to-primary radius ratio (default: 0.3)")
+    g.add_argument("--orbit-radius", type=float, default=4.0, metavar="A",
+                   help="binary: orbit radius in primary radii (default: 4)")
+    g.add_argument("--orbit-pole", metavar="LON,LAT",
+                   help="binary: orbit pole, ecliptic J2000 degrees (default: the spin direction --spin)")
+    g.add_argument("--orbit-phase", type=float, default=0.0, metavar="DEG",
+                   help="binary: satellite's orbital longitude from the ascending node at the epoch (default 0)")
+    g.add_argument("--satellite-amplitude", type=float, default=0.0, metavar="MAG",
+                   help="binary: peak-to-peak amplitude of the satellite's own rotation, mag of its flux (default 0)")
+    g.add_argument("--satellite-period", type=float, metavar="H",
+                   help="binary: satellite rotation period, hours (default: synchronous, the orbit period)")
+
     g = p.add_argument_group("noise")
     g.add_argument("--sigma", type=float, default=0.01, metavar="MAG", help="Gaussian noise, mag (0.01)")
     g.add_argument("--outlier-fraction", type=float, default=0.0, metavar="F", help="fraction of outliers (0)")
@@ -141,6 +158,21 @@ def _state(args, axes, start_tdb):
                                       args.psi0, epoch)
 
 
+def _binary(args, start_tdb):
+    """The BinaryOrbit of --binary-orbit (None without it)."""
+    import math
+
+    from tumble.mutual_events import BinaryOrbit
+
+    if args.binary_orbit is None:
+        return None
+    lon, lat = _pair(args.orbit_pole or args.spin, "orbit-pole")
+    epoch = args.epoch if args.epoch is not None else start_tdb
+    return BinaryOrbit(args.binary_orbit, args.size_ratio, args.orbit_radius, lon, lat, args.orbit_phase, epoch,
+                       args.satellite_amplitude,
+                       math.nan if args.satellite_period is None else args.satellite_period)
+
+
 def run(args: argparse.Namespace) -> int:
     import numpy as np
 
@@ -167,6 +199,7 @@ def run(args: argparse.Namespace) -> int:
         trend = PhaseTrend()
     noise = NoiseModel(sigma_mag=args.sigma, outlier_fraction=args.outlier_fraction,
                        outlier_sigma_mag=args.outlier_sigma)
+    binary = _binary(args, start_tdb)
     if args.no_sidecar and not (args.format == "ecsv" or (args.format is None and ".ecsv" in args.out.lower())):
         raise SimulationError(f"{args.out}: --no-sidecar needs ECSV output (the only format that holds the truth)")
     if args.seed is None:  # fresh randomness, but recorded, so the simulation can be repeated
@@ -174,7 +207,7 @@ def run(args: argparse.Namespace) -> int:
     sim = simulate_lightcurve(state, axes, plan, parse_elements(args.elements),
                               observatory=parse_observatory(args.observatory), h_mag=args.h_mag, law=args.law,
                               lambert_weight=args.lambert_weight, trend=trend, noise=noise,
-                              object_id=args.object_id, rng=args.seed)
+                              object_id=args.object_id, rng=args.seed, binary=binary)
     written = write_simulation(sim, args.out, format=args.format, sidecar=not args.no_sidecar)
     if args.json:
         print_json(sim.truth)
@@ -185,6 +218,9 @@ def run(args: argparse.Namespace) -> int:
                    else f"P_psi = {s['p_psi_h']:.6g} h, P_phi = {s['p_phi_h']:.6g} h, E/E0 = {s['excitation_e_over_e0']:.6g}")
         print(f"wrote {written[0]}: {lc.n_points} points on {sim.truth['n_nights']} nights over {lc.span_d:.2f} d, "
               f"{s['mode']} ({periods}), phase {lc.phase_deg.min():.1f}-{lc.phase_deg.max():.1f} deg")
+        if binary is not None:
+            print(f"  binary: P_orb = {binary.p_orb_h:.6g} h, R2/R1 = {binary.size_ratio:g}, "
+                  f"a = {binary.orbit_radius:g} R1 (mutual events of two spheres)")
         for extra in written[1:]:
             print(f"wrote {extra}: truth")
     return 0
