@@ -1405,13 +1405,15 @@ def _assign_sessions(t: np.ndarray, band: np.ndarray, sess_raw: np.ndarray, opts
             splits = np.concatenate([[0], np.cumsum(np.diff(t[idx]) > gap_d)])
             for j, s in zip(idx, splits):
                 key[j] = ("auto", int(tag), str(b), int(s))
-    # order sessions by their first time; small ones become sparse (-1)
+    # order sessions by their first time; small automatic ones become sparse (-1). A session the data
+    # give (a column, an ALCDEF block) stays its own calibration however few its points: merging
+    # differential blocks of different nights under one zero-point would invent a variation.
     first: dict = {}
     count: dict = {}
     for i, k in enumerate(key):
         first.setdefault(k, t[i])
         count[k] = count.get(k, 0) + 1
-    ordered = sorted((k for k in first if k is not None and count[k] >= opts.min_session_points),
+    ordered = sorted((k for k in first if k is not None and (count[k] >= opts.min_session_points or k[0] == "given")),
                      key=lambda k: (first[k], str(k)))
     index = {k: i for i, k in enumerate(ordered)}
     return np.array([index.get(k, -1) for k in key], dtype=int)

@@ -61,6 +61,23 @@ class ClassifyError(TumbleError, ValueError):
     """The classification cannot run on these data or with these settings."""
 
 
+def observable_amplitude(fourier_mag, session) -> float:
+    """Peak-to-peak (mag) of a fitted Fourier part after removing its mean in each session.
+
+    With a free zero-point per session, the level of a slow Fourier term from night to night trades
+    with the zero-points and is not measured; only its variation within the sessions is. The raw
+    peak-to-peak of such a fit can reach magnitudes (a slow term against the nightly offsets of
+    differential photometry), which must not set a model-error floor or be reported as an amplitude.
+    Sparse points (session -1) form one group.
+    """
+    y = np.asarray(fourier_mag, float).copy()
+    s = np.asarray(session)
+    for k in np.unique(s):
+        m = s == k
+        y[m] -= y[m].mean()
+    return float(np.ptp(y)) if y.size else math.nan
+
+
 @dataclass(frozen=True)
 class EvidenceResult:
     """Bayes factor NPA:PA of the shape-free models and the frequencies behind it.
@@ -262,7 +279,8 @@ def build_problem(lc, *, p_min_h: float, p_max_h: float, oversample: float, weig
     coarse = np.where(daily_alias_mask(grid, span, nightly), -np.inf, coarse)
     if auto_floor:
         best = grid[peak_indices(coarse, 1, 3)[0]]
-        amp0 = float(np.ptp(fit_linear(data, FourierBasis.build([FourierVariant(4, False)]), 0, best).fourier_mag))
+        amp0 = observable_amplitude(fit_linear(data, FourierBasis.build([FourierVariant(4, False)]), 0, best).fourier_mag,
+                                    lc.session)
         error_floor_mag = geometry_error_floor(lc, amp0)
     kappa_min = error_scale_floor(lc, error_floor_mag)
     data = prepare_linear(lc, weights=weights, error_floor_mag=error_floor_mag, kappa_min=kappa_min)
@@ -415,7 +433,7 @@ def ascent_windows(problem: EvidenceProblem, f2_best: float, known_f1) -> list:
             if all(abs(g1[j] - f) > 3 * problem.step for f in known_f1)]
 
 
-def _best_fit_diagnostics(problem: EvidenceProblem, f1: float, nw: NpaWindow) -> dict:
+def _best_fit_diagnostics(problem: EvidenceProblem, f1: float, nw: NpaWindow, session) -> dict:
     """Variant labels, error scales, amplitude, harmonic dominance and Delta BIC at the best frequencies."""
     data, pa_b, npa_b = problem.data, problem.pa_basis, problem.npa_basis
     vpa = int(np.argmax(linear_log_evidence(data, pa_b, [f1])[0]))
@@ -425,7 +443,7 @@ def _best_fit_diagnostics(problem: EvidenceProblem, f1: float, nw: NpaWindow) ->
     per = 2 * (1 + pa_b.variants[vpa].drift)
     p1 = float(np.sum(coef[0:2] ** 2))
     p2 = float(np.sum(coef[per:per + 2] ** 2)) if len(coef) >= per + 2 else 0.0
-    out = dict(pa_variant=pa_b.variants[vpa].label, kappa_pa=float(fit_pa.kappa), amplitude_mag=float(np.ptp(fit_pa.fourier_mag)),
+    out = dict(pa_variant=pa_b.variants[vpa].label, kappa_pa=float(fit_pa.kappa), amplitude_mag=observable_amplitude(fit_pa.fourier_mag, session),
                second_harmonic_dominates=bool(p2 >= p1), npa_variant="", kappa_npa=math.nan, delta_bic=math.inf)
     if np.isfinite(nw.f2):
         vnpa = int(np.argmax(linear_log_evidence(data, npa_b, [nw.f1], [nw.f2])[0]))
@@ -525,7 +543,7 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
     pa_mass = float(np.exp(ln_pa_k.max() - ln_z_pa))
     npa_mass = float(np.exp(ln_npa_k.max() - ln_z_npa)) * npa[inpa].mass if testable else 1.0
     r = npa[inpa]
-    diag = _best_fit_diagnostics(problem, f1, r)
+    diag = _best_fit_diagnostics(problem, f1, r, lc.session)
     windows = tuple(dict(f1_per_d=float(pa_windows[i].best), ln_pa=float(pa_windows[i].ln_integral),
                          ln_npa=float(npa[i].ln), f2_per_d=float(npa[i].f2)) for i in keep)
     route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
