@@ -94,7 +94,57 @@ def test_design_matches_direct_trigonometry(rng):
         ph = 2 * np.pi * (j * f1 + k * f2) * t
         cols += [np.cos(ph), np.sin(ph)]
     np.testing.assert_allclose(x, np.stack(cols, axis=1), atol=1e-9)
-    assert not np.any(basis.combos[:, 0] == 0)  # no pure second-frequency terms by design
+    # the pure second-frequency terms k f2 (j = 0, k = 1..m) of the two-dimensional series of
+    # Pravec et al. (2005, Icarus 173, 108) are in the basis
+    assert {(0, 1), (0, 2)} <= {tuple(c) for c in basis.combos}
+
+
+# Toutatis (REFERENCES section 8): LAM with P_psi = 5.41 d, P_phi = 7.35 d (Hudson & Ostro 1995,
+# Science 270, 84); its light curve holds the frequencies 0.135, 0.271 and 0.643 c/d (Mueller et al.
+# 2000, DPS), i.e. f_phi, 2 f_phi and 2 (f_phi + f_psi) (Kaasalainen 2001, A&A 376, 302).
+TOUTATIS_P_PSI_D = 5.41
+TOUTATIS_P_PHI_D = 7.35
+
+
+def _toutatis_like(rng, noise_mag=0.01):
+    f_phi, f_psi = 1 / TOUTATIS_P_PHI_D, 1 / TOUTATIS_P_PSI_D
+    # three months of dense nightly photometry, calibrated to one zero-point; amplitudes invented
+    nights = np.arange(90)
+    t = np.concatenate([n + np.linspace(0.0, 0.3, 25) for n in nights]) + 2460000.0
+    tt = t - t[0]
+    y = (0.35 * np.cos(2 * np.pi * f_phi * tt + 0.4) + 0.25 * np.cos(2 * np.pi * 2 * f_phi * tt + 1.9)
+         + 0.40 * np.cos(2 * np.pi * 2 * (f_phi + f_psi) * tt + 2.7))
+    y = y + noise_mag * rng.standard_normal(len(t))
+    lc = LightCurve.from_arrays(t, y, np.full(len(t), noise_mag), session=np.zeros(len(t), int),
+                                light_time_corrected=True)
+    return lc, f_phi, f_psi
+
+
+def test_npa_family_fits_a_toutatis_like_light_curve_to_the_noise(rng):
+    # On the basis pair f1 = f_phi + f_psi, f2 = f_phi (f2 < f1/2, the admissible set of the evidence)
+    # Toutatis's frequencies are f2, 2 f2 and 2 f1: the j = 0 terms carry two of the three. With them the
+    # family fits to the noise (reduced chi-square ~ 1); without them (the basis before) it cannot.
+    from tumble.classify.families import npa_basis
+
+    lc, f_phi, f_psi = _toutatis_like(rng)
+    data = prepare_linear(lc)
+    basis = npa_basis(data.span_d)
+    f1, f2 = f_phi + f_psi, f_phi
+    assert f2 < f1 / 2
+    best = min(fit_linear(data, basis, v, f1, f2).kappa for v in range(len(basis.variants)))
+    assert best == pytest.approx(1.0, abs=0.05)  # kappa = sqrt(chi2/dof)
+    # the same fit without the pure second-frequency columns
+    x = basis.design(data, [f1], [f2])[0]
+    no_j0 = np.ones(basis.n_columns, bool)
+    start = basis.n_columns - 2 * len(basis.combos)
+    for i, (j, _) in enumerate(basis.combos):
+        if j == 0:
+            no_j0[start + 2 * i:start + 2 * i + 2] = False
+    xs = x[:, no_j0]
+    xp = xs - data.qz @ (data.qz.T @ xs)
+    beta = np.linalg.lstsq(xp, data.y_proj, rcond=None)[0]
+    kappa_old = math.sqrt(np.sum((data.y_proj - xp @ beta) ** 2) / (data.nu - xs.shape[1]))
+    assert kappa_old > 5.0
 
 
 def test_fit_linear_recovers_offsets_and_signal(rng):

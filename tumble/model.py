@@ -13,13 +13,18 @@ Two families live here (the decision logic is in :mod:`tumble.classify`):
      coefficient may drift across the data span as a polynomial of degree
      ``d`` in time (Legendre polynomials of the scaled time), to absorb the
      slow change of viewing and illumination geometry over a long campaign;
-   - ``NPA(H, d, m)``: ``PA(H, d)`` plus the combination terms
-     ``j f1 + k f2`` with ``k = 1..m`` and ``j = -m..-1, 1..m`` of the
-     two-dimensional Fourier series of Pravec et al. (2005, Icarus 173, 108).
-     The pure ``k f2`` terms (``j = 0``) are left out on purpose: tumbling
-     *modulates* the rotation signal, whereas an additive signal at a second
-     frequency alone (a slow brightness trend, activity, a blended star or a
-     companion) is not evidence of non-principal-axis rotation.
+   - ``NPA(H, d, m)``: ``PA(H, d)`` plus the terms ``j f1 + k f2`` with
+     ``k = 1..m`` and ``j = -m..m`` of the two-dimensional Fourier series of
+     Pravec et al. (2005, Icarus 173, 108), the pure second-frequency terms
+     ``k f2`` (``j = 0``) included. A real tumbler needs them whenever the basis
+     pair is not (f_phi, f_psi) itself: Toutatis's light curve holds
+     ``f_phi, 2 f_phi, 2 (f_phi + f_psi)`` (Mueller et al. 2000; Hudson & Ostro
+     1995), which on the lattice basis ``f1 = f_phi + f_psi``, ``f2 = f_phi``
+     (``f2 < f1 / 2``, the admissible set of the evidence) are ``f2, 2 f2, 2 f1``.
+     An additive signal at a second frequency alone (a slow trend, a blended
+     star) can now also raise the NPA evidence; the decision guards against
+     that separately (significance, adequacy and alias rules of
+     :mod:`tumble.classify`).
 
    Every Fourier coefficient has a zero-mean Gaussian prior whose width is
    ``kappa * sigma`` (``sigma`` shrinking with harmonic order), session
@@ -314,7 +319,7 @@ class FourierVariant:
         ``True``/``False`` mean 1/0.
     combo_order : int
         ``m`` of the two-dimensional series (``0`` for PA): terms ``j f1 + k f2``,
-        ``k = 1..m``, ``0 < |j| <= m``.
+        ``k = 1..m``, ``|j| <= m`` (the pure ``k f2`` terms, ``j = 0``, included).
     """
 
     n_harmonics: int
@@ -386,7 +391,7 @@ class FourierBasis:
         for r in range(1, mmax + 1):
             for k in range(1, r + 1):
                 for j in range(-r, r + 1):
-                    if max(abs(j), k) == r and j != 0:
+                    if max(abs(j), k) == r:
                         combos.append((j, k))
         combo_start = col
         for j, k in combos:
