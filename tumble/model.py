@@ -14,17 +14,17 @@ Two families live here (the decision logic is in :mod:`tumble.classify`):
      ``d`` in time (Legendre polynomials of the scaled time), to absorb the
      slow change of viewing and illumination geometry over a long campaign;
    - ``NPA(H, d, m)``: ``PA(H, d)`` plus the terms ``j f1 + k f2`` with
-     ``k = 1..m`` and ``j = -m..m`` of the two-dimensional Fourier series of
-     Pravec et al. (2005, Icarus 173, 108), the pure second-frequency terms
-     ``k f2`` (``j = 0``) included. A real tumbler needs them whenever the basis
-     pair is not (f_phi, f_psi) itself: Toutatis's light curve holds
-     ``f_phi, 2 f_phi, 2 (f_phi + f_psi)`` (Mueller et al. 2000; Hudson & Ostro
-     1995), which on the lattice basis ``f1 = f_phi + f_psi``, ``f2 = f_phi``
-     (``f2 < f1 / 2``, the admissible set of the evidence) are ``f2, 2 f2, 2 f1``.
-     An additive signal at a second frequency alone (a slow trend, a blended
-     star) can now also raise the NPA evidence; the decision guards against
-     that separately (significance, adequacy and alias rules of
-     :mod:`tumble.classify`).
+     ``k = 1..m`` and ``0 < |j| <= m`` of the two-dimensional Fourier series of
+     Pravec et al. (2005, Icarus 173, 108); with ``pure_f2`` also the pure
+     second-frequency terms ``k f2`` (``j = 0``), which complete the series. A
+     real tumbler needs them whenever the basis pair is not (f_phi, f_psi)
+     itself: Toutatis's light curve holds ``f_phi, 2 f_phi, 2 (f_phi + f_psi)``
+     (Mueller et al. 2000; Hudson & Ostro 1995), which on the lattice basis
+     ``f1 = f_phi + f_psi``, ``f2 = f_phi`` (``f2 < f1 / 2``, the admissible set
+     of the evidence) are ``f2, 2 f2, 2 f1``. They are optional because with
+     them a signal at ``f2`` alone (a slow trend, a blended star, or the
+     dominant series itself) fits for any ``f1``, which the decision rules that
+     test ``f1`` as the light-curve period must allow for first.
 
    Every Fourier coefficient has a zero-mean Gaussian prior whose width is
    ``kappa * sigma`` (``sigma`` shrinking with harmonic order), session
@@ -319,20 +319,30 @@ class FourierVariant:
         ``True``/``False`` mean 1/0.
     combo_order : int
         ``m`` of the two-dimensional series (``0`` for PA): terms ``j f1 + k f2``,
-        ``k = 1..m``, ``|j| <= m`` (the pure ``k f2`` terms, ``j = 0``, included).
+        ``k = 1..m``, ``0 < |j| <= m``.
+    pure_f2 : bool
+        Also the pure second-frequency terms ``k f2`` (``j = 0``, ``k = 1..m``) of the series
+        of Pravec et al. (2005), which a tumbler needs when the basis pair is not
+        (f_phi, f_psi) itself (Toutatis, see the module notes). Off by default: with them the
+        family fits a signal at ``f2`` alone for any ``f1``, so the decision rules that test
+        ``f1`` as the light-curve period must first allow for that.
     """
 
     n_harmonics: int
     drift: int
     combo_order: int = 0
+    pure_f2: bool = False
 
     def __post_init__(self):
         object.__setattr__(self, "drift", int(self.drift))
+        object.__setattr__(self, "pure_f2", bool(self.pure_f2) and self.combo_order > 0)
 
     @property
     def label(self) -> str:
         base = f"H={self.n_harmonics}{f'+drift{self.drift}' if self.drift else ''}"
-        return base if self.combo_order == 0 else f"{base}, 2-D order {self.combo_order}"
+        if self.combo_order == 0:
+            return base
+        return f"{base}, 2-D order {self.combo_order}{' with k f2' if self.pure_f2 else ''}"
 
 
 @dataclass(frozen=True, eq=False)
@@ -373,6 +383,7 @@ class FourierBasis:
         hmax = max(v.n_harmonics for v in variants)
         drift = max(v.drift for v in variants)
         mmax = max(v.combo_order for v in variants)
+        any_pure = any(v.pure_f2 for v in variants)
         sig = []
         harm_cols = {}
         col = 0
@@ -391,7 +402,7 @@ class FourierBasis:
         for r in range(1, mmax + 1):
             for k in range(1, r + 1):
                 for j in range(-r, r + 1):
-                    if max(abs(j), k) == r:
+                    if max(abs(j), k) == r and (j != 0 or any_pure):
                         combos.append((j, k))
         combo_start = col
         for j, k in combos:
@@ -403,8 +414,9 @@ class FourierBasis:
                 idx += harm_cols[j][0]
                 for dcols in harm_cols[j][1][:v.drift]:
                     idx += dcols
-            n_c = sum(1 for j, k in combos if max(abs(j), k) <= v.combo_order)
-            idx += list(range(combo_start, combo_start + 2 * n_c))
+            for i, (j, k) in enumerate(combos):
+                if max(abs(j), k) <= v.combo_order and (j != 0 or v.pure_f2):
+                    idx += [combo_start + 2 * i, combo_start + 2 * i + 1]
             columns.append(np.array(idx, dtype=np.intp))
         return cls(hmax, drift, mmax, variants, np.array(combos, dtype=np.intp).reshape(-1, 2),
                    np.array(sig), tuple(columns))
