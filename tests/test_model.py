@@ -19,6 +19,7 @@ from tumble.model import (
     prepare_linear,
     viewing_geometry,
 )
+from tumble.exceptions import TumbleError
 from tumble.photometry import LightCurve
 
 
@@ -258,3 +259,60 @@ def test_physical_likelihood_peaks_at_truth(rng):
     ll_t = model(xt[None])[0]
     assert ll_t > np.max(model(others))
     assert ll_t > np.max(model(model.space.wrap(near)))
+
+
+@pytest.mark.parametrize("law", ["ls-lambert", "lambert"])
+@pytest.mark.parametrize("mode", ["PA", "SAM"])
+def test_physical_model_takes_its_law_from_the_registry(rng, law, mode):
+    # The physical model's magnitudes under each registered law against the law's slow surface
+    # quadrature (tumble.brightness.ellipsoid_quadrature) on the direct attitude, point by point.
+    from tumble.brightness import scattering_law
+
+    lc = _lc(rng, n=8, directions=True)
+    model = PhysicalModel(lc, mode, period_range_h=(1.0, 100.0), law=law, lambert_weight=0.25)
+    assert model.law == scattering_law(law, 0.25)
+    x = model.space.sample_prior(2, rng)
+    fast = model.shape_magnitudes(x)
+    for k in range(2):
+        st = model.rotation_states(x[k][None])[0]
+        sun = np.asarray(st.to_body(lc.t, model.geometry.sun_dir, method="direct")).reshape(-1, 3)
+        obs = np.asarray(st.to_body(lc.t, model.geometry.obs_dir, method="direct")).reshape(-1, 3)
+        _, axes = model.state_arrays(x[k][None])
+        ref = -2.5 * np.log10(model.law.reference_brightness(sun, obs, axes[0]))
+        np.testing.assert_allclose(fast[k], ref, atol=2e-5)
+    with pytest.raises(TumbleError, match="unknown scattering law"):
+        PhysicalModel(lc, mode, law="hapke")
+
+
+def test_physical_model_with_inertia_free_of_the_shape(rng):
+    # A SAM whose inertia is not that of its shape (Apophis-like ratios 0.64 : 0.97 : 1, Lee et al. 2022,
+    # A&A 661, L3, on a 1.5 : 1.2 : 1 ellipsoid), simulated with LS + 0.1 Lambert (Kaasalainen et al. 2001):
+    # the free-inertia model with the same law puts the truth above nearby and random vectors, keeps
+    # P_phi of the state, and gives -inf outside I1 < I2 < I3, I1 + I2 >= I3.
+    from tumble.dynamics import RotationState
+    from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve
+
+    st = RotationState.from_periods(0.64, 0.97, 60.0, 6.0, "SAM", l_lon_deg=40, l_lat_deg=-30)
+    axes = (1.5, 1.2, 1.0)
+    sim = simulate_lightcurve(st, axes, DenseCampaign(2460000.5, n_nights=3, hours_per_night=5, cadence_min=20),
+                              noise=NoiseModel(0.01), law="ls-lambert", lambert_weight=0.1, rng=rng)
+    lc = sim.lightcurve
+    model = PhysicalModel(lc, "SAM", p_psi_range_h=(1.0, 200.0), epoch_jd=st.epoch_jd, law="ls-lambert",
+                          lambert_weight=0.1, free_inertia=True)
+    assert {"i1_i3", "i2_i3"} <= set(model.space.names)
+    truth = {"p_psi_h": 60.0, "excitation_u": (1.0 - st.id_i3) / (1.0 - st.i2_i3), "l_lon_rad": math.radians(40),
+             "l_lat_rad": math.radians(-30), "phi0_rad": 0.0, "psi0_rad": 0.0, "a_over_b": 1.25, "b_over_c": 1.2,
+             "ln_jitter_mag": math.log(1e-3), "i1_i3": 0.64, "i2_i3": 0.97}
+    xt = model.space.to_vector(truth)
+    assert model.derived(xt[None])["p_phi_h"][0] == pytest.approx(6.0, rel=1e-9)
+    ll_t = model(xt[None])[0]
+    assert ll_t > np.max(model(model.space.sample_prior(16, rng)))
+    near = xt + 0.02 * rng.standard_normal((4, len(xt)))
+    assert ll_t > np.max(model(model.space.wrap(near)))
+    bad = xt.copy()
+    bad[model.space.index("i1_i3")], bad[model.space.index("i2_i3")] = 0.3, 0.6  # I1 + I2 < I3: no real body
+    swapped = xt.copy()
+    swapped[model.space.index("i1_i3")], swapped[model.space.index("i2_i3")] = 0.97, 0.64  # I1 > I2
+    assert np.all(model(np.stack([bad, swapped])) == -np.inf)
+    tied = PhysicalModel(lc, "SAM", p_psi_range_h=(1.0, 200.0), epoch_jd=st.epoch_jd)
+    assert "i1_i3" not in tied.space.names

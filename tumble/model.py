@@ -49,8 +49,10 @@ Two families live here (the decision logic is in :mod:`tumble.classify`):
 2. **Physical models** (the rotation state). :class:`PhysicalModel` maps the
    parameters of a PA, SAM or LAM rotator with a homogeneous triaxial
    ellipsoid shape (inertia tied to the shape, Landau & Lifshitz,
-   *Mechanics*, section 32) and Lommel-Seeliger scattering (Muinonen & Lumme
-   2015, A&A 584, A23) to magnitudes, through the closed-form free rotation of
+   *Mechanics*, section 32, or free of it as an option) and a scattering law
+   from the registry :data:`tumble.brightness.SCATTERING_LAWS` (default
+   Lommel-Seeliger, Muinonen & Lumme 2015, A&A 584, A23) to magnitudes,
+   through the closed-form free rotation of
    :mod:`tumble.dynamics`. Session zero-points and per-band phase slopes are
    marginalised analytically per walker (flat priors: weighted least squares
    plus the log-determinant term); a jitter added in quadrature to the errors
@@ -93,6 +95,10 @@ __all__ = [
 DEFAULT_PHASE_DEG = 20.0
 #: A band's sparse points get a linear phase-angle term when they span at least this range (deg).
 PHASE_SLOPE_MIN_RANGE_DEG = 2.0
+#: Box of the free inertia ratios I1/I3, I2/I3 (the triangle inequality cuts I1 + I2 < 1 out of it).
+FREE_INERTIA_RANGE = (0.05, 1.0)
+#: Smallest gap kept between I1 and I2 and between I2 and I3 (the closed form needs distinct moments).
+FREE_INERTIA_GAP = 1e-3
 #: Prior width (mag, times the error scale) of the first-harmonic Fourier coefficients.
 COEFFICIENT_SIGMA_MAG = 0.2
 
@@ -720,8 +726,19 @@ class PhysicalModel:
         for LAM; the separatrix and PA ends are cut by 1e-3), ``l_lon_rad``,
         ``l_lat_rad``, ``phi0_rad``, ``psi0_rad`` (uniform, periodic), ``a_over_b``,
         ``b_over_c``, ``ln_jitter_mag``. Inertia ratios are tied to the
-        ellipsoid (homogeneous body). ``P_phi`` follows from the state
+        ellipsoid (homogeneous body); with ``free_inertia`` they are the two
+        extra parameters ``i1_i3``, ``i2_i3`` (flat over
+        :data:`FREE_INERTIA_RANGE`, cut to ``I1 < I2 < I3`` and
+        ``I1 + I2 >= I3``), and the shape only sets the brightness (a body of
+        non-uniform density, or one whose shape is not its dynamically
+        equivalent ellipsoid). ``P_phi`` follows from the state
         (closed form of :func:`tumble.dynamics.periods_unit_momentum`).
+
+    Other options: ``law`` (a name of :data:`tumble.brightness.SCATTERING_LAWS` or a
+    :class:`tumble.brightness.ScatteringLaw`; default ``lommel-seeliger``, closed form) and
+    ``lambert_weight`` (the ``c`` of ``ls-lambert``). A law with a Lambert part is evaluated
+    by quadrature (24 x 24 nodes per point) and makes each likelihood call several times
+    slower than the closed form.
 
     The likelihood marginalises the nuisance zero-points and phase slopes
     (flat priors) for each walker: Gaussian with ``sigma^2 = err^2 + jitter^2``,
@@ -733,13 +750,20 @@ class PhysicalModel:
 
     def __init__(self, lc, mode: str, *, period_range_h=(0.5, 2000.0), p_psi_range_h=None,
                  student_t: bool = False, nu_t: float = 4.0, geometry: ViewingGeometry | None = None,
-                 epoch_jd: float | None = None):
+                 epoch_jd: float | None = None, law="lommel-seeliger", lambert_weight: float | None = None,
+                 free_inertia: bool = False):
+        from tumble.brightness import scattering_law
         from tumble.inference import IsotropicLatitude, LogUniform, Parameter, PeriodicUniform, Uniform
 
         mode = str(mode).upper()
         if mode not in ("PA", "SAM", "LAM"):
             raise ModelError(f"mode must be PA, SAM or LAM, not {mode!r}")
         self.mode = mode
+        try:
+            self.law = scattering_law(law, lambert_weight)
+        except TumbleError as exc:
+            raise ModelError(str(exc)) from None
+        self.free_inertia = bool(free_inertia) and mode != "PA"
         self.geometry = geometry or viewing_geometry(lc)
         self.t = np.asarray(lc.t, float)
         self.epoch_jd = float(epoch_jd if epoch_jd is not None else 0.5 * (self.t[0] + self.t[-1]))
@@ -772,6 +796,11 @@ class PhysicalModel:
                 Parameter("phi0_rad", PeriodicUniform(), "rad", "Euler angle phi at the epoch"),
                 Parameter("psi0_rad", PeriodicUniform(), "rad", "Euler angle psi at the epoch"),
             ]
+            if self.free_inertia:
+                params += [
+                    Parameter("i1_i3", Uniform(*FREE_INERTIA_RANGE), "", "inertia ratio I1/I3 (free of the shape)"),
+                    Parameter("i2_i3", Uniform(*FREE_INERTIA_RANGE), "", "inertia ratio I2/I3 (free of the shape)"),
+                ]
         self.space = _space_class()(params + common_tail)
 
     # -- parameters -> state arrays --------------------------------------------
@@ -781,7 +810,10 @@ class PhysicalModel:
         x = np.atleast_2d(np.asarray(x, float))
         sp = self.space
         ab, bc = x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")]
-        i1, i2 = _inertia_from_ratios(ab, bc)
+        if self.free_inertia:
+            i1, i2 = x[:, sp.index("i1_i3")], x[:, sp.index("i2_i3")]
+        else:
+            i1, i2 = _inertia_from_ratios(ab, bc)
         axes = _ellipsoid_axes(ab, bc)
         lon = np.degrees(x[:, sp.index("l_lon_rad")])
         lat = np.degrees(x[:, sp.index("l_lat_rad")])
@@ -811,16 +843,28 @@ class PhysicalModel:
             out.append(RotationState(*vals))
         return out
 
+    def inertia_admissible(self, x) -> np.ndarray:
+        """Free inertia: ``I1 <= I2 <= I3`` and the triangle inequality ``I1 + I2 >= I3`` (a real body), shape (K,).
+
+        With the free-inertia option the ratios are drawn from a box and these conditions
+        cut it (flat prior on the admissible region); tied to the shape they always hold.
+        The mode's own range of the dynamic inertia follows from ``excitation_u``.
+        """
+        x = np.atleast_2d(np.asarray(x, float))
+        if not self.free_inertia:
+            return np.ones(len(x), bool)
+        i1, i2 = x[:, self.space.index("i1_i3")], x[:, self.space.index("i2_i3")]
+        return (i1 + FREE_INERTIA_GAP <= i2) & (i2 <= 1.0 - FREE_INERTIA_GAP) & (i1 + i2 >= 1.0)
+
     def shape_magnitudes(self, x, t=None, vectors=None):
-        """Model magnitudes without nuisance terms, ``-2.5 log10 I_LS``, shape ``(K, n)``."""
-        from tumble.brightness import lommel_seeliger_ellipsoid
+        """Model magnitudes without nuisance terms, ``-2.5 log10 I``, shape ``(K, n)``; ``I`` from :attr:`law`."""
         from tumble.dynamics import ecliptic_to_body
 
         args, axes = self.state_arrays(x)
         t = self.t if t is None else t
         v = self._vectors if vectors is None else vectors
         body = ecliptic_to_body(*args, t, v)  # (2, K, n, 3)
-        flux = lommel_seeliger_ellipsoid(body[0], body[1], axes[:, None, :])
+        flux = self.law.brightness(body[0], body[1], axes[:, None, :])
         with np.errstate(divide="ignore"):
             return -2.5 * np.log10(np.maximum(flux, 1e-300))
 
@@ -843,6 +887,12 @@ class PhysicalModel:
 
     def __call__(self, x):
         x = np.atleast_2d(np.asarray(x, float))
+        good = self.inertia_admissible(x)
+        if not np.all(good):
+            out = np.full(len(x), -np.inf)
+            if np.any(good):
+                out[good] = self(x[good])
+            return out
         try:
             resid, var, a, _, _ = self._profiled(x)
         except TumbleError:
