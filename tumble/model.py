@@ -737,8 +737,9 @@ class PhysicalModel:
     Other options: ``law`` (a name of :data:`tumble.brightness.SCATTERING_LAWS` or a
     :class:`tumble.brightness.ScatteringLaw`; default ``lommel-seeliger``, closed form) and
     ``lambert_weight`` (the ``c`` of ``ls-lambert``). A law with a Lambert part is evaluated
-    by quadrature (24 x 24 nodes per point) and makes each likelihood call several times
-    slower than the closed form.
+    by quadrature (24 x 24 nodes per point) and makes each likelihood call about 20 times
+    slower than the closed form (32 walkers x 300 points: 0.63 s against 0.028 s, measured
+    side by side on a shared 2-core machine).
 
     The likelihood marginalises the nuisance zero-points and phase slopes
     (flat priors) for each walker: Gaussian with ``sigma^2 = err^2 + jitter^2``,
