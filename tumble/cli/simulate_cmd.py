@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from tumble.brightness import DEFAULT_LAMBERT_WEIGHT, LAWS
+from tumble.laws import DEFAULT_LAMBERT_WEIGHT, LAWS
 from tumble.cli._common import parse_elements, parse_observatory, print_json
 
 DEFAULT_START_JD_UTC = 2461000.5  # 2025-11-21 00:00 UTC
