@@ -447,18 +447,105 @@ def test_sample_from_results_table():
         "status": ["ok", "ok", "ok", "error", "ok", "ok", "ok"],
         "rotation": ["PA", "NPA", "undecided", "PA", "NPA", "PA", "pa"],
         "period_h": [5.0, np.nan, 7.0, 3.0, 200.0, np.nan, 8.0],
+        "mode": ["none", "SAM", "none", "none", "LAM", "none", "none"],
         "p1_h": [np.nan, 30.56, np.nan, np.nan, np.nan, np.nan, np.nan],
-        "p_phi_h": [np.nan, 27.38, np.nan, np.nan, 150.0, np.nan, np.nan],
+        "p_psi_h": [np.nan, 264.178, np.nan, np.nan, np.nan, np.nan, np.nan],
+        "p_phi_h": [np.nan, 27.38547, np.nan, np.nan, 150.0, np.nan, np.nan],
+        "i1_i3": [np.nan, 0.64, np.nan, np.nan, np.nan, np.nan, np.nan],
+        "i2_i3": [np.nan, 0.97, np.nan, np.nan, np.nan, np.nan, np.nan],
         "diameter_km": [1.0, np.nan, 2.0, 1.0, 3.0, 1.0, np.nan],
         "h_mag": [np.nan, 18.0, np.nan, np.nan, np.nan, np.nan, 15.0],
         "albedo": [np.nan, 0.14, np.nan, np.nan, np.nan, np.nan, np.nan],
     })
     s = dm.sample_from_table(t)
-    assert list(s.object_id) == ["A1", "A2", "A5", "A7"]
-    np.testing.assert_allclose(s.period_h, [5.0, 30.56, 150.0, 8.0])  # NPA: p1_h first, then p_phi_h
-    np.testing.assert_allclose(s.diameter_km, [1.0, 0.89220, 3.0, dm.diameter_from_h(15.0, 0.14)], atol=5e-5)
-    assert list(s.is_npa) == [False, True, True, False]
-    assert dict(s.n_skipped) == {"status not ok": 1, "rotation not PA/NPA": 1, "no usable period": 1}
+    # A2: Apophis as published by Lee et al. (2022, A&A 661, L3): SAM, P_psi 264.178 h, P_phi 27.38547 h,
+    # inertia 0.64 : 0.97 : 1; its spin period is 2 pi/<|omega|> of that state (numerically integrated
+    # here), never the light-curve period p1_h. A5 has P_phi but no P_psi: no state, skipped.
+    from tumble.dynamics import RotationState
+
+    apophis = RotationState.from_periods(0.64, 0.97, 264.178, 27.38547, "SAM")
+    assert list(s.object_id) == ["A1", "A2", "A7"]
+    np.testing.assert_allclose(s.period_h, [5.0, dm.mean_spin_period_reference_h(apophis), 8.0], rtol=3e-4)
+    assert abs(s.period_h[1] - 30.56) > 0.1
+    np.testing.assert_allclose(s.diameter_km, [1.0, 0.89220, dm.diameter_from_h(15.0, 0.14)], atol=5e-5)
+    assert list(s.is_npa) == [False, True, False]
+    assert dict(s.n_skipped) == {"status not ok": 1, "rotation not PA/NPA": 1, "no usable period": 2}
+
+
+# SAM: Apophis (Lee et al. 2022, A&A 661, L3); LAM: Toutatis's periods (Hudson & Ostro 1995, Science 270,
+# 84) with the homogeneous-ellipsoid inertia of its principal-axis dimensions (REFERENCES section 8);
+# and the SAM test state of REFERENCES section 2 (I = 0.5, 0.8, 1; I_d = 0.9).
+SPIN_STATES = [(0.64, 0.97, 264.178, 27.38547, "SAM"), (0.3509, 0.9230, 5.41 * 24, 7.35 * 24, "LAM"),
+               (0.5, 0.8, 14.938922, 4.242455, "SAM")]
+
+
+@pytest.mark.parametrize("i1,i2,p_psi,p_phi,mode", SPIN_STATES)
+def test_mean_spin_period_matches_numerically_averaged_omega(i1, i2, p_psi, p_phi, mode):
+    # 2 pi/<|omega|> from the closed-form angular velocity (tumble.dynamics) against |omega| of Euler's
+    # equations integrated numerically (scipy DOP853, tumble.dynamics_reference) and averaged over
+    # 10.3 cycles (a non-whole number: the residual is the part cycle, ~1e-4 at most).
+    from tumble.dynamics import RotationState
+
+    st = RotationState.from_periods(i1, i2, p_psi, p_phi, mode)
+    fast = dm.mean_spin_period_h(st)
+    assert fast == pytest.approx(dm.mean_spin_period_reference_h(st), rel=3e-4)
+    # the spin period is neither P_psi nor P_phi
+    assert abs(fast / p_phi - 1) > 0.01 and abs(fast / p_psi - 1) > 0.01
+
+
+def test_mean_spin_period_limits():
+    # PA: the rotation period itself; near-PA SAM: |omega| -> L/I3, the PA spin rate (Landau & Lifshitz
+    # 1976, Mechanics, section 37: omega = L/I3 along axis 3 at I_d = I3).
+    from tumble.dynamics import RotationState
+
+    assert dm.mean_spin_period_h(RotationState.principal_axis(7.5, 0.0, 90.0)) == 7.5
+    st = RotationState.excited(0.5, 0.8, 0.9999, 10.0, 0.0, 90.0)
+    assert dm.mean_spin_period_h(st) == pytest.approx(2 * math.pi / st.angular_momentum_i3_rad_h, rel=1e-3)
+
+
+def test_classify_and_relax_use_the_same_spin_period():
+    # One spin rate for damping (docs/damping.md): the verdict route (classify, survey) and the catalogue
+    # route (relax --sample) give the same 2 pi/<|omega|> for the same fitted state, and the PA period for PA.
+    from tumble.brightness import inertia_ratios_from_axes
+    from tumble.classify.verdict import Verdict
+    from tumble.dynamics import RotationState
+
+    ab, bc = 1.6, 1.3
+    i1, i2 = (float(x) for x in inertia_ratios_from_axes([ab * bc, bc, 1.0]))
+    st = RotationState.from_periods(i1, i2, 60.0, 11.0, "SAM")
+    v = Verdict(object_id="X", rotation="NPA", mode="SAM", p_npa=0.999, ln_bayes_factor=20.0,
+                ln_bayes_factor_err=0.1, grade="firm", prior_npa=0.5, p_psi_h=60.0, p_psi_h_lo=59.0,
+                p_psi_h_hi=61.0, p_phi_h=11.0, p_phi_h_lo=10.99, p_phi_h_hi=11.01, p1_h=7.0,
+                excitation=st.excitation, a_over_b=(ab, ab, ab), b_over_c=(bc, bc, bc))
+    est = dm.damping_for_classification(v, diameter_km=1.0, rng=3)
+    truth = dm.mean_spin_period_reference_h(st)
+    assert est.period_h == pytest.approx(truth, rel=2e-3)
+    assert any("2 pi/<|omega|>" in a for a in est.assumptions)
+    t = Table({"object": ["X"], "status": ["ok"], "rotation": ["NPA"], "mode": ["SAM"], "p1_h": [7.0],
+               "p_psi_h": [60.0], "p_phi_h": [11.0], "a_over_b": [ab], "b_over_c": [bc], "diameter_km": [1.0]})
+    assert dm.sample_from_table(t).period_h[0] == pytest.approx(dm.mean_spin_period_h(st), rel=1e-9)
+    assert dm.sample_from_table(t).period_h[0] == pytest.approx(truth, rel=3e-4)
+    pa = Verdict(object_id="Y", rotation="PA", mode="none", p_npa=0.01, ln_bayes_factor=-9.0,
+                 ln_bayes_factor_err=0.1, grade="firm", prior_npa=0.5, period_h=5.2, period_h_err=0.001,
+                 period_syn_h=5.21)
+    assert dm.damping_for_classification(pa, diameter_km=1.0, rng=3).period_h == pytest.approx(5.2, rel=1e-3)
+    no_sid = dataclasses.replace(pa, period_h=math.nan)
+    assert dm.spin_period_for_verdict(no_sid).source == "synodic"
+
+
+def test_spin_period_without_inertia_spans_the_shape_prior():
+    # A tumbler with only P_psi, P_phi and mode: 2 pi/<|omega|> over the physical model's shape prior. Its
+    # draws must span the spin period of a state of that prior with these periods (Apophis, Lee et al. 2022).
+    from tumble.dynamics import RotationState
+
+    sp = dm.spin_period_for_damping("NPA", mode="SAM", p_psi_h=264.178, p_phi_h=27.38547, rng=5)
+    assert sp.source == "shape-prior"
+    lo, hi = sp.period_h_samples.min(), sp.period_h_samples.max()
+    truth = dm.mean_spin_period_h(RotationState.from_periods(0.64, 0.97, 264.178, 27.38547, "SAM"))
+    assert lo < truth < hi
+    with pytest.raises(TumbleError):
+        dm.spin_period_for_damping("NPA", mode="SAM", p_phi_h=27.0)  # no P_psi: no state
+
 
 
 def test_sample_table_errors(tmp_path):

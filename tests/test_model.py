@@ -19,6 +19,7 @@ from tumble.model import (
     prepare_linear,
     viewing_geometry,
 )
+from tumble.exceptions import TumbleError
 from tumble.photometry import LightCurve
 
 
@@ -49,7 +50,8 @@ def test_linear_evidence_matches_brute_force_integral(rng, sparse, phase, kappa_
     # kappa_min = 3 puts the bound far above the fitted scale (the series branch of the log).
     lc = _lc(rng, sparse=sparse, phase=phase)
     data = prepare_linear(lc, kappa_min=kappa_min)
-    basis = FourierBasis.build([FourierVariant(2, True), FourierVariant(1, False), FourierVariant(2, False, 1)])
+    basis = FourierBasis.build([FourierVariant(2, True), FourierVariant(1, False), FourierVariant(2, False, 1),
+                                FourierVariant(1, False, 2, pure_f2=True)])
     f = np.array([1 / 0.3, 1.1 / 0.3])
     fast = linear_log_evidence(data, basis, f, np.array([0.7, 0.9]))
     for i, (ff, f2) in enumerate(zip(f, [0.7, 0.9])):
@@ -94,7 +96,59 @@ def test_design_matches_direct_trigonometry(rng):
         ph = 2 * np.pi * (j * f1 + k * f2) * t
         cols += [np.cos(ph), np.sin(ph)]
     np.testing.assert_allclose(x, np.stack(cols, axis=1), atol=1e-9)
-    assert not np.any(basis.combos[:, 0] == 0)  # no pure second-frequency terms by design
+    assert not np.any(basis.combos[:, 0] == 0)  # no pure second-frequency terms unless asked for
+    # with pure_f2, the pure second-frequency terms k f2 (j = 0, k = 1..m) of the two-dimensional series of
+    # Pravec et al. (2005, Icarus 173, 108) join the basis, and only the variants that ask for them use them
+    both = FourierBasis.build([FourierVariant(3, 0, 2), FourierVariant(3, 0, 2, pure_f2=True)])
+    assert {(0, 1), (0, 2)} <= {tuple(c) for c in both.combos}
+    assert len(both.columns[1]) == len(both.columns[0]) + 4
+    x = both.design(data, [f1], [f2])[0] / data.sw[:, None]
+    i = [tuple(c) for c in both.combos].index((0, 2))
+    col = both.n_columns - 2 * len(both.combos) + 2 * i
+    np.testing.assert_allclose(x[:, col], np.cos(2 * np.pi * 2 * f2 * t), atol=1e-9)
+
+
+# Toutatis (REFERENCES section 8): LAM with P_psi = 5.41 d, P_phi = 7.35 d (Hudson & Ostro 1995,
+# Science 270, 84); its light curve holds the frequencies 0.135, 0.271 and 0.643 c/d (Mueller et al.
+# 2000, DPS), i.e. f_phi, 2 f_phi and 2 (f_phi + f_psi) (Kaasalainen 2001, A&A 376, 302).
+TOUTATIS_P_PSI_D = 5.41
+TOUTATIS_P_PHI_D = 7.35
+
+
+def _toutatis_like(rng, noise_mag=0.01):
+    f_phi, f_psi = 1 / TOUTATIS_P_PHI_D, 1 / TOUTATIS_P_PSI_D
+    # three months of dense nightly photometry, calibrated to one zero-point; amplitudes invented
+    nights = np.arange(90)
+    t = np.concatenate([n + np.linspace(0.0, 0.3, 25) for n in nights]) + 2460000.0
+    tt = t - t[0]
+    y = (0.35 * np.cos(2 * np.pi * f_phi * tt + 0.4) + 0.25 * np.cos(2 * np.pi * 2 * f_phi * tt + 1.9)
+         + 0.40 * np.cos(2 * np.pi * 2 * (f_phi + f_psi) * tt + 2.7))
+    y = y + noise_mag * rng.standard_normal(len(t))
+    lc = LightCurve.from_arrays(t, y, np.full(len(t), noise_mag), session=np.zeros(len(t), int),
+                                light_time_corrected=True)
+    return lc, f_phi, f_psi
+
+
+def test_npa_family_fits_a_toutatis_like_light_curve_to_the_noise(rng):
+    # On the basis pair f1 = f_phi + f_psi, f2 = f_phi (f2 < f1/2, the admissible set of the evidence)
+    # Toutatis's frequencies are f2, 2 f2 and 2 f1: the j = 0 terms carry two of the three. With them the
+    # family fits to the noise (reduced chi-square ~ 1); without them it cannot.
+    from tumble.classify.families import npa_variants, pa_variants
+
+    lc, f_phi, f_psi = _toutatis_like(rng)
+    data = prepare_linear(lc)
+    family = npa_variants(pa_variants(data.span_d))
+    without = FourierBasis.build(family)
+    with_j0 = FourierBasis.build([FourierVariant(v.n_harmonics, v.drift, v.combo_order, pure_f2=True)
+                                  for v in family])
+    f1, f2 = f_phi + f_psi, f_phi
+    assert f2 < f1 / 2
+    kappa = [min(fit_linear(data, b, v, f1, f2).kappa for v in range(len(b.variants))) for b in (with_j0, without)]
+    assert kappa[0] == pytest.approx(1.0, abs=0.05)  # kappa = sqrt(chi2/dof)
+    assert kappa[1] > 5.0
+    # and the evidence agrees: the completed series is decisively better on these data
+    lz = [linear_log_evidence(data, b, [f1], [f2]).max() for b in (with_j0, without)]
+    assert lz[0] - lz[1] > 100.0
 
 
 def test_fit_linear_recovers_offsets_and_signal(rng):
@@ -205,3 +259,60 @@ def test_physical_likelihood_peaks_at_truth(rng):
     ll_t = model(xt[None])[0]
     assert ll_t > np.max(model(others))
     assert ll_t > np.max(model(model.space.wrap(near)))
+
+
+@pytest.mark.parametrize("law", ["ls-lambert", "lambert"])
+@pytest.mark.parametrize("mode", ["PA", "SAM"])
+def test_physical_model_takes_its_law_from_the_registry(rng, law, mode):
+    # The physical model's magnitudes under each registered law against the law's slow surface
+    # quadrature (tumble.brightness.ellipsoid_quadrature) on the direct attitude, point by point.
+    from tumble.brightness import scattering_law
+
+    lc = _lc(rng, n=8, directions=True)
+    model = PhysicalModel(lc, mode, period_range_h=(1.0, 100.0), law=law, lambert_weight=0.25)
+    assert model.law == scattering_law(law, 0.25)
+    x = model.space.sample_prior(2, rng)
+    fast = model.shape_magnitudes(x)
+    for k in range(2):
+        st = model.rotation_states(x[k][None])[0]
+        sun = np.asarray(st.to_body(lc.t, model.geometry.sun_dir, method="direct")).reshape(-1, 3)
+        obs = np.asarray(st.to_body(lc.t, model.geometry.obs_dir, method="direct")).reshape(-1, 3)
+        _, axes = model.state_arrays(x[k][None])
+        ref = -2.5 * np.log10(model.law.reference_brightness(sun, obs, axes[0]))
+        np.testing.assert_allclose(fast[k], ref, atol=2e-5)
+    with pytest.raises(TumbleError, match="unknown scattering law"):
+        PhysicalModel(lc, mode, law="hapke")
+
+
+def test_physical_model_with_inertia_free_of_the_shape(rng):
+    # A SAM whose inertia is not that of its shape (Apophis-like ratios 0.64 : 0.97 : 1, Lee et al. 2022,
+    # A&A 661, L3, on a 1.5 : 1.2 : 1 ellipsoid), simulated with LS + 0.1 Lambert (Kaasalainen et al. 2001):
+    # the free-inertia model with the same law puts the truth above nearby and random vectors, keeps
+    # P_phi of the state, and gives -inf outside I1 < I2 < I3, I1 + I2 >= I3.
+    from tumble.dynamics import RotationState
+    from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve
+
+    st = RotationState.from_periods(0.64, 0.97, 60.0, 6.0, "SAM", l_lon_deg=40, l_lat_deg=-30)
+    axes = (1.5, 1.2, 1.0)
+    sim = simulate_lightcurve(st, axes, DenseCampaign(2460000.5, n_nights=3, hours_per_night=5, cadence_min=20),
+                              noise=NoiseModel(0.01), law="ls-lambert", lambert_weight=0.1, rng=rng)
+    lc = sim.lightcurve
+    model = PhysicalModel(lc, "SAM", p_psi_range_h=(1.0, 200.0), epoch_jd=st.epoch_jd, law="ls-lambert",
+                          lambert_weight=0.1, free_inertia=True)
+    assert {"i1_i3", "i2_i3"} <= set(model.space.names)
+    truth = {"p_psi_h": 60.0, "excitation_u": (1.0 - st.id_i3) / (1.0 - st.i2_i3), "l_lon_rad": math.radians(40),
+             "l_lat_rad": math.radians(-30), "phi0_rad": 0.0, "psi0_rad": 0.0, "a_over_b": 1.25, "b_over_c": 1.2,
+             "ln_jitter_mag": math.log(1e-3), "i1_i3": 0.64, "i2_i3": 0.97}
+    xt = model.space.to_vector(truth)
+    assert model.derived(xt[None])["p_phi_h"][0] == pytest.approx(6.0, rel=1e-9)
+    ll_t = model(xt[None])[0]
+    assert ll_t > np.max(model(model.space.sample_prior(16, rng)))
+    near = xt + 0.02 * rng.standard_normal((4, len(xt)))
+    assert ll_t > np.max(model(model.space.wrap(near)))
+    bad = xt.copy()
+    bad[model.space.index("i1_i3")], bad[model.space.index("i2_i3")] = 0.3, 0.6  # I1 + I2 < I3: no real body
+    swapped = xt.copy()
+    swapped[model.space.index("i1_i3")], swapped[model.space.index("i2_i3")] = 0.97, 0.64  # I1 > I2
+    assert np.all(model(np.stack([bad, swapped])) == -np.inf)
+    tied = PhysicalModel(lc, "SAM", p_psi_range_h=(1.0, 200.0), epoch_jd=st.epoch_jd)
+    assert "i1_i3" not in tied.space.names

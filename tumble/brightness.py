@@ -23,6 +23,13 @@ Scattering laws
   parameters aligned with the lit-and-visible region
   (:func:`ellipsoid_quadrature`), or summed over a triangulated surface
   (:class:`FacetShape`).
+- ``'lambert'``: ``S = mu mu0`` alone, by the same quadrature.
+
+All three are entries of the registry :data:`SCATTERING_LAWS` (records
+:class:`ScatteringLaw`, looked up with :func:`scattering_law`; defined in the
+numpy-free :mod:`tumble.laws` and re-exported here); the simulator,
+the physical model (:class:`tumble.model.PhysicalModel`) and the CLI choices
+read it.
 
 The phase-angle dependence of the scattering (the ``f(alpha)`` of Kaasalainen et
 al. 2001) is left to a separate, simple :class:`PhaseTrend`: linear in phase
@@ -43,9 +50,14 @@ from functools import lru_cache
 import numpy as np
 
 from tumble.exceptions import GeometryError
+from tumble.laws import DEFAULT_LAMBERT_WEIGHT, LAMBERT_ORDER, LAWS, SCATTERING_LAWS, ScatteringLaw, scattering_law
 
 __all__ = [
     "LAWS",
+    "ScatteringLaw",
+    "SCATTERING_LAWS",
+    "DEFAULT_LAMBERT_WEIGHT",
+    "scattering_law",
     "lommel_seeliger_ellipsoid",
     "lommel_seeliger_ellipsoid_reference",
     "ellipsoid_quadrature",
@@ -62,8 +74,6 @@ __all__ = [
     "axes_from_inertia_ratios",
 ]
 
-#: Scattering laws understood by :func:`ellipsoid_brightness`.
-LAWS = ("lommel-seeliger", "ls-lambert")
 
 _TINY = 1e-300
 
@@ -487,44 +497,27 @@ def lambert_ellipsoid(sun_dir, obs_dir, axes, *, order: int = 24):
 # Convenience: laws, normalisation, magnitudes
 
 
-def zero_phase_sphere_brightness(axes, *, law: str = "lommel-seeliger", lambert_weight: float = 0.1):
-    """Brightness integral of the equal-volume sphere at zero phase (the magnitude zero point).
-
-    For a sphere of radius R = (abc)^(1/3): the Lommel-Seeliger part is
-    ``pi R^2/2`` (half the projected area, Muinonen & Lumme 2015) and the Lambert
-    part ``c * 2 pi R^2/3`` (integral of cos^2 over the visible hemisphere).
-    """
-    ax = _axes(axes)
-    r2 = np.cbrt(ax[..., 0] * ax[..., 1] * ax[..., 2]) ** 2
-    if law == "lommel-seeliger":
-        return 0.5 * np.pi * r2
-    if law == "ls-lambert":
-        return np.pi * r2 * (0.5 + 2.0 * lambert_weight / 3.0)
-    raise GeometryError(f"unknown scattering law '{law}' (choose from {', '.join(LAWS)})")
+def zero_phase_sphere_brightness(axes, *, law="lommel-seeliger", lambert_weight: float = DEFAULT_LAMBERT_WEIGHT):
+    """Brightness integral of the equal-volume sphere at zero phase (:meth:`ScatteringLaw.sphere_zero_phase`)."""
+    return scattering_law(law, lambert_weight).sphere_zero_phase(axes)
 
 
-def ellipsoid_brightness(sun_dir, obs_dir, axes, *, law: str = "lommel-seeliger",
-                         lambert_weight: float = 0.1, order: int = 24):
-    """Disk-integrated brightness integral of an ellipsoid under one of :data:`LAWS`.
+def ellipsoid_brightness(sun_dir, obs_dir, axes, *, law="lommel-seeliger",
+                         lambert_weight: float = DEFAULT_LAMBERT_WEIGHT, order: int = LAMBERT_ORDER):
+    """Disk-integrated brightness integral of an ellipsoid under a law of :data:`SCATTERING_LAWS`.
 
     ``'lommel-seeliger'`` uses the closed form (:func:`lommel_seeliger_ellipsoid`);
     ``'ls-lambert'`` (Kaasalainen et al. 2001) adds ``c`` times the Lambert
-    integral from :func:`ellipsoid_quadrature` with ``order`` nodes per
-    coordinate (:func:`lambert_ellipsoid`; order 24 gives about 1e-6 of the
-    Lambert term, 1e-7 of the total for c = 0.1). Units: axes squared.
+    integral (:func:`lambert_ellipsoid`, ``order`` nodes per coordinate; order 24
+    gives about 1e-6 of the Lambert term, 1e-7 of the total for c = 0.1);
+    ``'lambert'`` is that integral alone. Units: axes squared.
     """
-    if law == "lommel-seeliger":
-        return lommel_seeliger_ellipsoid(sun_dir, obs_dir, axes)
-    if law == "ls-lambert":
-        ls = lommel_seeliger_ellipsoid(sun_dir, obs_dir, axes)
-        if not lambert_weight:
-            return ls
-        return ls + lambert_weight * lambert_ellipsoid(sun_dir, obs_dir, axes, order=order)
-    raise GeometryError(f"unknown scattering law '{law}' (choose from {', '.join(LAWS)})")
+    return scattering_law(law, lambert_weight).brightness(sun_dir, obs_dir, axes, order=order)
 
 
-def ellipsoid_magnitude(sun_dir, obs_dir, axes, *, law: str = "lommel-seeliger", lambert_weight: float = 0.1,
-                        phase_deg=None, trend: "PhaseTrend | None" = None, order: int = 24):
+def ellipsoid_magnitude(sun_dir, obs_dir, axes, *, law="lommel-seeliger",
+                        lambert_weight: float = DEFAULT_LAMBERT_WEIGHT,
+                        phase_deg=None, trend: "PhaseTrend | None" = None, order: int = LAMBERT_ORDER):
     """Magnitude of the ellipsoid relative to its equal-volume sphere seen at zero phase.
 
     ``m = -2.5 log10(I / I_sphere(0)) + trend(phase)``: 0 mag for a sphere at
@@ -532,8 +525,9 @@ def ellipsoid_magnitude(sun_dir, obs_dir, axes, *, law: str = "lommel-seeliger",
     apparent magnitude. The trend needs ``phase_deg`` (the true solar phase angle,
     degrees); without it, or with ``trend=None``, no trend is added.
     """
-    flux = ellipsoid_brightness(sun_dir, obs_dir, axes, law=law, lambert_weight=lambert_weight, order=order)
-    ref = zero_phase_sphere_brightness(axes, law=law, lambert_weight=lambert_weight)
+    obj = scattering_law(law, lambert_weight)
+    flux = obj.brightness(sun_dir, obs_dir, axes, order=order)
+    ref = obj.sphere_zero_phase(axes)
     with np.errstate(divide="ignore"):
         mag = -2.5 * np.log10(flux / ref)
     if trend is not None and phase_deg is not None:

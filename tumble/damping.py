@@ -30,6 +30,7 @@ Nothing here prints; errors are :class:`DampingError` (a
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import warnings
@@ -42,6 +43,11 @@ from tumble.exceptions import ConvergenceWarning, TumbleError
 
 __all__ = [
     "DampingError",
+    "SpinPeriod",
+    "mean_spin_period_h",
+    "mean_spin_period_reference_h",
+    "spin_period_for_damping",
+    "spin_period_for_verdict",
     "FORMULAS",
     "SECONDS_PER_GYR",
     "HARRIS_C",
@@ -905,9 +911,10 @@ class RelaxSample:
         return int(np.sum(~np.asarray(self.is_npa)))
 
 
-#: Column preference for a tumbler's period: dominant light-curve period first
-#: (Pravec et al. 2005 compare their main period with the iso-tau lines), then P_phi.
-NPA_PERIOD_COLUMNS = ("p1_h", "p_phi_h", "period_h")
+#: Seed of the shape-prior draws of :func:`sample_from_table` (the point values are reproducible).
+TABLE_SPIN_SEED = 20261204
+#: Shape draws per tumbler without inertia columns in a catalogue (only the median is used there).
+TABLE_SHAPE_DRAWS = 64
 
 
 def _column(table, name: str) -> np.ndarray | None:
@@ -933,13 +940,17 @@ def _float_column(table, name: str, source: str) -> np.ndarray | None:
         raise DampingError(f"{source}: column '{name}' is not numeric") from None
 
 
-def sample_from_table(table, *, source: str = "table", albedo_default: float = 0.14,
-                      npa_period_columns: Sequence[str] = NPA_PERIOD_COLUMNS) -> RelaxSample:
+def sample_from_table(table, *, source: str = "table", albedo_default: float = 0.14) -> RelaxSample:
     """Pick the rows of a results catalog that can constrain mu Q.
 
     The table follows the results-catalog columns (``object``, ``status``, ``rotation``,
-    ``period_h``, ``p1_h``, ``p_phi_h``, ...) plus a size: ``diameter_km``, or ``h_mag``
+    ``period_h``, ``p_psi_h``, ``p_phi_h``, ...) plus a size: ``diameter_km``, or ``h_mag``
     with ``albedo`` (missing albedos take ``albedo_default``; D from Pravec & Harris 2007).
+    The period is the spin period of :func:`spin_period_for_damping` (median of its draws):
+    ``period_h`` (else ``period_syn_h``) for PA; ``2 pi / <|omega|>`` from ``mode``,
+    ``p_psi_h`` and ``p_phi_h`` for tumblers, with the inertia from ``i1_i3``/``i2_i3`` or
+    ``a_over_b``/``b_over_c`` and ``excitation`` columns when present, else over the shape
+    prior. A light-curve basis period (``p1_h``) is never used.
     Rows with ``status`` other than ``ok``, an undecided rotation, or no usable period or
     size are skipped and counted.
 
@@ -950,8 +961,6 @@ def sample_from_table(table, *, source: str = "table", albedo_default: float = 0
         Name used in error messages.
     albedo_default : float
         Albedo for rows with H but no albedo (default 0.14).
-    npa_period_columns : sequence of str
-        Columns tried, in order, for a tumbler's period.
 
     Returns
     -------
@@ -967,18 +976,11 @@ def sample_from_table(table, *, source: str = "table", albedo_default: float = 0
     obj = _column(table, "object")
     obj = np.array([f"row {i + 1}" for i in range(n)]) if obj is None else np.asarray(obj, dtype=str)
 
-    period_pa = _float_column(table, "period_h", source)
-    period_npa = np.full(n, np.nan)
-    for name in npa_period_columns:
-        col = _float_column(table, name, source)
-        if col is not None:
-            period_npa = np.where(np.isfinite(period_npa) & (period_npa > 0), period_npa, col)
-    if period_pa is None:
-        period_pa = np.full(n, np.nan)
     is_npa = rotation == "NPA"
-    period = np.where(is_npa, period_npa, period_pa)
-
-    notes = [f"tumbler period from the first usable of {', '.join(npa_period_columns)}; PA period from period_h"]
+    period, n_prior = _table_spin_periods(table, rotation, source)
+    notes = ["spin period for damping: the PA rotation period (period_h, else period_syn_h); for tumblers "
+             "2 pi/<|omega|> of the state with the catalogued P_psi, P_phi and mode"
+             + (f" ({n_prior} tumblers without inertia columns: median over the shape prior)" if n_prior else "")]
     diam = _float_column(table, "diameter_km", source)
     if diam is None:
         diam = np.full(n, np.nan)
@@ -1008,6 +1010,41 @@ def sample_from_table(table, *, source: str = "table", albedo_default: float = 0
         keep &= ~bad
     return RelaxSample(object_id=obj[keep], period_h=period[keep], diameter_km=diam[keep],
                        is_npa=is_npa[keep], n_skipped=tuple(reasons), notes=tuple(notes))
+
+
+def _table_spin_periods(table, rotation, source: str):
+    """Spin period of every row (NaN when unusable) and the number of tumblers done over the shape prior."""
+    n = len(table)
+    cols = {}
+    for name in ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_phi_h", "p_phi_h_lo", "p_phi_h_hi",
+                 "i1_i3", "i2_i3", "a_over_b", "b_over_c", "excitation"):
+        col = _float_column(table, name, source)
+        cols[name] = np.full(n, np.nan) if col is None else col
+    mode = _column(table, "mode")
+    mode = np.full(n, "") if mode is None else np.char.upper(np.char.strip(np.asarray(mode, dtype=str)))
+    gen = np.random.default_rng(TABLE_SPIN_SEED)
+    out = np.full(n, np.nan)
+    n_prior = 0
+    for i in range(n):
+        if rotation[i] not in ("PA", "NPA"):
+            continue
+        i1, i2 = cols["i1_i3"][i], cols["i2_i3"][i]
+        ab, bc = cols["a_over_b"][i], cols["b_over_c"][i]
+        if not (_ok(i1) and _ok(i2)) and _ok(ab) and _ok(bc) and ab >= 1 and bc >= 1:
+            a2, b2 = (ab * bc) ** 2, bc**2
+            i1, i2 = (b2 + 1.0) / (a2 + b2), (a2 + 1.0) / (a2 + b2)
+        try:
+            spin = spin_period_for_damping(
+                rotation[i], period_h=cols["period_h"][i], period_h_err=cols["period_h_err"][i],
+                period_syn_h=cols["period_syn_h"][i], mode=mode[i], p_psi_h=cols["p_psi_h"][i],
+                p_phi_h=cols["p_phi_h"][i], p_phi_h_err=0.5 * (cols["p_phi_h_hi"][i] - cols["p_phi_h_lo"][i]),
+                i1_i3=i1, i2_i3=i2, excitation=cols["excitation"][i], n_samples=256,
+                n_shape_draws=TABLE_SHAPE_DRAWS, rng=gen)
+        except DampingError:
+            continue
+        out[i] = spin.period_h
+        n_prior += spin.source == "shape-prior"
+    return out, n_prior
 
 
 def read_relax_sample(path: str | os.PathLike, **kwargs) -> RelaxSample:
@@ -1294,22 +1331,258 @@ def damping_for_classification(verdict, *, diameter_km=None, h_mag=None, albedo=
                                rng: np.random.Generator | int | None = None, n_samples: int = 4000):
     """Damping estimate for a :class:`tumble.classify.Verdict`, or None when it has no usable period or size.
 
-    The period is the verdict's PA rotation period, or for a tumbler its precession
-    period P_phi (the period closest to the spin rate that the damping formulas
-    use), else the strongest light-curve period; its uncertainty is drawn as a
-    normal with the verdict's 1-sigma error (half the 68% interval for P_phi).
+    The spin period is :func:`spin_period_for_damping` of the verdict: the sidereal (else
+    synodic) rotation period for PA, ``2 pi / <|omega|>`` of the fitted state for a tumbler.
+    Its draws (period errors, and the shape prior when the inertia is unknown) are the
+    period input of the Monte Carlo.
     """
     if diameter_km is None and h_mag is None:
         return None
-    if verdict.rotation == "PA":
-        p, e = verdict.period_h, verdict.period_h_err
-    elif verdict.rotation == "NPA" and math.isfinite(verdict.p_phi_h):
-        p, e = verdict.p_phi_h, 0.5 * (verdict.p_phi_h_hi - verdict.p_phi_h_lo)
-    else:
-        p, e = verdict.p1_h, math.nan
-    if not (isinstance(p, float) and math.isfinite(p) and p > 0):
-        return None
-    e = e if math.isfinite(e) and e > 0 else 1e-3 * p
     g = np.random.default_rng(rng)
-    samples = np.abs(p + e * g.standard_normal(n_samples))
-    return damping_for_verdict(samples, diameter_km=diameter_km, h_mag=h_mag, albedo=albedo, rng=g)
+    spin = spin_period_for_verdict(verdict, n_samples=n_samples, rng=g)
+    if spin is None:
+        return None
+    est = damping_for_verdict(spin.period_h_samples, diameter_km=diameter_km, h_mag=h_mag, albedo=albedo, rng=g)
+    return dataclasses.replace(est, assumptions=est.assumptions + (spin.note,))
+
+
+def spin_period_for_verdict(verdict, *, n_samples: int = 4000, rng=None):
+    """:func:`spin_period_for_damping` with the fields of a :class:`tumble.classify.Verdict` (None if unusable)."""
+    ab = _first(getattr(verdict, "a_over_b", math.nan))
+    bc = _first(getattr(verdict, "b_over_c", math.nan))
+    i1 = i2 = math.nan
+    if math.isfinite(ab) and math.isfinite(bc) and ab >= 1 and bc >= 1:
+        from tumble.brightness import inertia_ratios_from_axes
+
+        r1, r2 = inertia_ratios_from_axes([ab * bc, bc, 1.0])
+        i1, i2 = float(r1), float(r2)
+    try:
+        return spin_period_for_damping(
+            verdict.rotation, period_h=verdict.period_h, period_h_err=verdict.period_h_err,
+            period_syn_h=getattr(verdict, "period_syn_h", math.nan), mode=verdict.mode,
+            p_psi_h=verdict.p_psi_h, p_phi_h=verdict.p_phi_h,
+            p_phi_h_err=0.5 * (verdict.p_phi_h_hi - verdict.p_phi_h_lo),
+            i1_i3=i1, i2_i3=i2, excitation=verdict.excitation, n_samples=n_samples, rng=rng)
+    except DampingError:
+        return None
+
+
+def _first(x) -> float:
+    """The median of a (median, lo, hi) tuple, or the number itself."""
+    if isinstance(x, (tuple, list, np.ndarray)):
+        x = x[0] if len(x) else math.nan
+    try:
+        return float(x)
+    except (TypeError, ValueError):
+        return math.nan
+
+
+# --------------------------------------------------------------------------------------------
+# One spin rate for damping: 2 pi / <|omega|>
+# --------------------------------------------------------------------------------------------
+
+#: Points per P_psi cycle of the time average of |omega|: the integrand is smooth and periodic, so
+#: the uniform (trapezoid) rule converges geometrically; 256 is at 1e-10 away from the separatrix.
+SPIN_AVERAGE_POINTS = 256
+#: Shape-prior draws used for a tumbler whose inertia is not known (enough for a 68 % interval).
+SPIN_SHAPE_DRAWS = 256
+#: Nodes of the dynamic-inertia grid on which each shape draw's period ratio is solved.
+SPIN_ROOT_GRID = 96
+#: Shape prior of those draws: log-uniform a/b and b/c ranges of the physical model
+#: (:class:`tumble.model.PhysicalModel`), homogeneous ellipsoid inertia.
+SPIN_SHAPE_A_OVER_B = (1.0, 4.0)
+SPIN_SHAPE_B_OVER_C = (1.0, 2.5)
+#: Relative period error assumed when none is given (a point value; only the draws' spread).
+SPIN_DEFAULT_REL_ERR = 1e-3
+
+
+@dataclass(frozen=True)
+class SpinPeriod:
+    """The spin period that the damping formulas use, with its draws.
+
+    Attributes
+    ----------
+    period_h : float
+        Central value, h: the spin period at the given periods (over the shape prior: its median).
+    period_h_samples : numpy.ndarray, shape (n,)
+        Draws of the spin period, h (period errors and, without a fitted inertia, the shape prior).
+    source : str
+        ``sidereal``, ``synodic`` (PA), ``state`` (tumbler with fitted inertia and excitation) or
+        ``shape-prior`` (tumbler, inertia marginalised over the shape prior).
+    note : str
+        One sentence for the estimate's assumptions.
+    """
+
+    period_h: float
+    period_h_samples: np.ndarray = field(repr=False, compare=False)
+    source: str = ""
+    note: str = ""
+
+
+def mean_spin_period_h(state) -> float:
+    """``2 pi / <|omega|>`` of a :class:`tumble.dynamics.RotationState`, hours.
+
+    ``<|omega|>`` is the time average of the angular speed over one rotation cycle P_psi of
+    the torque-free motion (the body-frame components are periodic with P_psi, Landau &
+    Lifshitz 1976, *Mechanics*, section 37), from the closed form
+    :func:`tumble.dynamics.angular_velocity_body` on a uniform grid. For PA it is the
+    rotation period itself. This is the spin rate ``Omega`` of the damping formulas
+    (Burns & Safronov 1973 write them for a body spinning at ``Omega``; for a tumbler the
+    mean angular speed is the rate at which the body's material is strained).
+    """
+    from tumble.dynamics import angular_velocity_body
+
+    if state.mode == "PA":
+        return float(state.p_psi_h)
+    t = state.epoch_jd + np.arange(SPIN_AVERAGE_POINTS) / SPIN_AVERAGE_POINTS * state.p_psi_h / 24.0
+    w = angular_velocity_body(state, t)
+    return float(2.0 * math.pi / np.mean(np.linalg.norm(w, axis=1)))
+
+
+def mean_spin_period_reference_h(state, n_cycles: float = 10.3, n_points: int = 20001) -> float:
+    """Slow reference of :func:`mean_spin_period_h`: ``|omega|`` numerically integrated and averaged.
+
+    Euler's equations are integrated (:func:`tumble.dynamics_reference.integrate_state`, DOP853) over
+    ``n_cycles`` P_psi (not a whole number, so the average does not lean on periodicity) and
+    ``|omega|`` is averaged by the trapezoid rule.
+    """
+    from scipy import integrate
+
+    from tumble.dynamics_reference import integrate_state
+
+    t_jd = state.epoch_jd + np.linspace(0.0, n_cycles * state.p_psi_h / 24.0, n_points)
+    sol = integrate_state(state, t_jd)
+    speed = np.linalg.norm(sol.omega_body_rad_h, axis=1)
+    mean = integrate.trapezoid(speed, sol.t_h) / (sol.t_h[-1] - sol.t_h[0])
+    return float(2.0 * math.pi / mean)
+
+
+def _spin_ratio_draws(mode: str, p_psi_h: float, p_phi_h: float, n: int, gen) -> np.ndarray:
+    """``(2 pi/<|omega|>) / P_phi`` over the shape prior for a tumbler of unknown inertia.
+
+    For each shape draw the dynamic inertia with ``P_phi/P_psi`` equal to the observed ratio is
+    found on a grid of ``I_d`` (vectorised :func:`tumble.dynamics.periods_unit_momentum`, root
+    by linear interpolation between the bracketing nodes, clustered towards both ends of the
+    mode's range); draws whose mode cannot produce the ratio are dropped.
+    """
+    from tumble.dynamics import SEPARATRIX_TOLERANCE, RotationState, RotationStateError, periods_unit_momentum
+
+    modes = (mode,) if mode in ("SAM", "LAM") else ("SAM", "LAM")
+    k = 2 * n
+    ab = np.exp(gen.uniform(*np.log(SPIN_SHAPE_A_OVER_B), k))
+    bc = np.exp(gen.uniform(*np.log(SPIN_SHAPE_B_OVER_C), k))
+    a2, b2 = (ab * bc) ** 2, bc**2
+    i1, i2 = (b2 + 1.0) / (a2 + b2), (a2 + 1.0) / (a2 + b2)
+    which = np.array(modes)[gen.integers(len(modes), size=k)]
+    s = 0.5 * (1.0 - np.cos(np.pi * np.linspace(0.0, 1.0, SPIN_ROOT_GRID)))
+    target = p_phi_h / p_psi_h
+    out = []
+    for m in modes:
+        sel = np.flatnonzero((which == m) & (i2 - i1 > 4 * SEPARATRIX_TOLERANCE))
+        if m == "SAM":
+            lo, hi = i2[sel] + 2 * SEPARATRIX_TOLERANCE, np.full(len(sel), 1.0 - 1e-9)
+        else:
+            lo, hi = i1[sel] + 1e-9, i2[sel] - 2 * SEPARATRIX_TOLERANCE
+        ok = lo < hi
+        sel, lo, hi = sel[ok], lo[ok], hi[ok]
+        if len(sel) == 0:
+            continue
+        idd = lo[:, None] + s[None, :] * (hi - lo)[:, None]
+        pp, pf = periods_unit_momentum(i1[sel, None], i2[sel, None], idd)
+        g = pf / pp - target
+        cross = np.signbit(g[:, :-1]) != np.signbit(g[:, 1:])
+        for r in np.flatnonzero(cross.any(axis=1)):
+            c = int(np.argmax(cross[r]))
+            w = g[r, c] / (g[r, c] - g[r, c + 1])
+            root = idd[r, c] + w * (idd[r, c + 1] - idd[r, c])
+            try:
+                st = RotationState(i1[sel[r]], i2[sel[r]], root, p_psi_h, 0.0, 90.0)
+            except RotationStateError:
+                continue
+            out.append(mean_spin_period_h(st) / st.p_phi_h)
+    return np.array(out[:n]) if len(out) > n else np.array(out)
+
+
+def spin_period_for_damping(rotation: str, *, period_h: float = math.nan, period_h_err: float = math.nan,
+                            period_syn_h: float = math.nan, mode: str = "", p_psi_h: float = math.nan,
+                            p_phi_h: float = math.nan, p_phi_h_err: float = math.nan, i1_i3: float = math.nan,
+                            i2_i3: float = math.nan, excitation: float = math.nan, n_samples: int = 4000,
+                            n_shape_draws: int = SPIN_SHAPE_DRAWS,
+                            rng: np.random.Generator | int | None = None) -> SpinPeriod:
+    """The one spin period used for damping, for PA rotators and tumblers alike.
+
+    - **PA**: the sidereal rotation period ``period_h`` (the verdict's PA period), else the
+      synodic ``period_syn_h``; draws normal with ``period_h_err``.
+    - **NPA**: ``2 pi / <|omega|>`` (:func:`mean_spin_period_h`) of the state with the fitted
+      P_psi, P_phi and mode: with the inertia ratios (``i1_i3``, ``i2_i3``, from the fitted
+      ellipsoid) the dynamic inertia follows from the period ratio
+      (:meth:`tumble.dynamics.RotationState.from_periods`), else from ``excitation``
+      (E/E0 = I3/I_d); without inertia the ratio ``(2 pi / <|omega|>) / P_phi`` is
+      marginalised over the physical model's shape prior (log-uniform a/b in 1-4, b/c in
+      1-2.5, homogeneous ellipsoid; both modes if the mode is unknown; ``n_shape_draws``
+      shapes). The draws scale with
+      P_phi's error. A light-curve basis period (``p1_h``) is never used.
+
+    Raises
+    ------
+    DampingError
+        No usable period for this rotation.
+    """
+    from tumble.dynamics import RotationState, RotationStateError
+
+    gen = _rng(rng)
+    rotation = str(rotation).upper()
+    mode = str(mode).upper()
+    if rotation == "PA":
+        if _ok(period_h):
+            p, src = float(period_h), "sidereal"
+        elif _ok(period_syn_h):
+            p, src = float(period_syn_h), "synodic"
+        else:
+            raise DampingError("PA rotator without a rotation period")
+        e = period_h_err if (_ok(period_h_err) and src == "sidereal") else SPIN_DEFAULT_REL_ERR * p
+        draws = np.abs(p + e * gen.standard_normal(n_samples))
+        return SpinPeriod(p, draws, src, f"spin period: the {src} PA rotation period {p:.6g} h")
+    if rotation != "NPA":
+        raise DampingError(f"no spin period for rotation {rotation!r}")
+    if not (_ok(p_psi_h) and _ok(p_phi_h)):
+        raise DampingError("tumbler without both P_psi and P_phi")
+    e = p_phi_h_err if _ok(p_phi_h_err) else SPIN_DEFAULT_REL_ERR * p_phi_h
+    p_phi = np.abs(p_phi_h + e * gen.standard_normal(n_samples))
+    state = None
+    if _ok(i1_i3) and _ok(i2_i3) and mode in ("SAM", "LAM"):
+        try:
+            state = RotationState.from_periods(i1_i3, i2_i3, p_psi_h, p_phi_h, mode)
+        except RotationStateError:
+            state = None
+        if state is None and _ok(excitation):
+            try:
+                state = RotationState.excited(i1_i3, i2_i3, 1.0 / excitation, p_psi_h, 0.0, 90.0)
+            except RotationStateError:
+                state = None
+    if state is not None:
+        ratio = mean_spin_period_h(state) / state.p_phi_h
+        draws = ratio * p_phi
+        central = ratio * p_phi_h
+        src = "state"
+        note = (f"spin period 2 pi/<|omega|> = {ratio * p_phi_h:.6g} h of the fitted {state.mode} state "
+                f"(P_psi {p_psi_h:.6g} h, P_phi {p_phi_h:.6g} h, E/E0 {state.excitation:.4g})")
+    else:
+        ratios = _spin_ratio_draws(mode, p_psi_h, p_phi_h, int(n_shape_draws), gen)
+        if len(ratios) == 0:
+            raise DampingError(f"no {mode or 'SAM/LAM'} state of the shape prior has P_psi {p_psi_h:.6g} h "
+                               f"and P_phi {p_phi_h:.6g} h")
+        draws = ratios[gen.integers(len(ratios), size=n_samples)] * p_phi
+        central = float(np.median(ratios)) * p_phi_h
+        src = "shape-prior"
+        note = (f"spin period 2 pi/<|omega|> from P_psi {p_psi_h:.6g} h and P_phi {p_phi_h:.6g} h with the "
+                f"inertia unknown: marginalised over the shape prior (median {central:.6g} h)")
+    return SpinPeriod(float(central), draws, src, note)
+
+
+def _ok(x) -> bool:
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return False
+    return math.isfinite(x) and x > 0

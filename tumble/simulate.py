@@ -658,8 +658,10 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
     g = _rng(rng)
     seed_used = rng if isinstance(rng, (int, np.integer)) else None
     ax = _axes_tuple(axes)
-    if law not in brightness.LAWS:
-        raise SimulationError(f"unknown scattering law '{law}' (choose from {', '.join(brightness.LAWS)})")
+    try:
+        law_obj = brightness.scattering_law(law, lambert_weight)
+    except TumbleError as exc:
+        raise SimulationError(str(exc)) from None
     noise = NoiseModel() if noise is None else noise
     trend = brightness.PhaseTrend() if trend is None else trend
     times = plan.times(g)
@@ -713,8 +715,8 @@ def simulate_lightcurve(state, axes, plan, elements: geometry.OrbitalElements | 
         "shape": {"axes": [float(v) for v in ax], "a_over_b": float(ax[0] / ax[1]), "b_over_c": float(ax[1] / ax[2]),
                   "i1_i3_homogeneous": float(i1), "i2_i3_homogeneous": float(i2)},
         "h_mag": float(h_mag),
-        "law": law,
-        "lambert_weight": float(lambert_weight) if law == "ls-lambert" else 0.0,
+        "law": law_obj.name,
+        "lambert_weight": float(law_obj.lambert_weight),
         "trend": trend.to_dict(),
         "plan": plan.to_dict(),
         "elements": {k: float(v) for k, v in asdict(elements).items()},

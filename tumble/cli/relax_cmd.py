@@ -48,8 +48,9 @@ def add_parser(sub) -> None:
                      help="Monte Carlo draws (default: 20000)")
     smp = p.add_argument_group("sample")
     smp.add_argument("--sample", metavar="RESULTS",
-                     help="results catalog (ECSV) with PA/NPA verdicts, periods and diameter_km "
-                          "(or h_mag and albedo): fit mu Q")
+                     help="results catalog (ECSV) with PA/NPA verdicts, periods (period_h for PA; mode, "
+                          "p_psi_h, p_phi_h for tumblers, whose spin period is 2 pi/<|omega|>) and "
+                          "diameter_km (or h_mag and albedo): fit mu Q")
     smp.add_argument("--walkers", type=int, default=24, metavar="N", help="emcee walkers (default: 24)")
     smp.add_argument("--steps", type=int, default=3000, metavar="N", help="emcee steps (default: 3000)")
     smp.add_argument("--misclassification", type=float, default=0.02, metavar="EPS",

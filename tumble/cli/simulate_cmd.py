@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 
+from tumble.laws import DEFAULT_LAMBERT_WEIGHT, LAWS
 from tumble.cli._common import parse_elements, parse_observatory, print_json
 
 DEFAULT_START_JD_UTC = 2461000.5  # 2025-11-21 00:00 UTC
@@ -62,10 +63,11 @@ def add_parser(sub) -> None:
     g.add_argument("--axes", default="2.0,1.4,1.0", metavar="A,B,C", help="semi-axes a >= b >= c (default: 2,1.4,1)")
     g.add_argument("--h-mag", type=float, default=15.0, metavar="MAG",
                    help="magnitude of the equal-volume sphere at 1 au, zero phase (default: 15)")
-    g.add_argument("--law", choices=["lommel-seeliger", "ls-lambert"], default="lommel-seeliger",
-                   help="scattering law (default: lommel-seeliger closed form)")
-    g.add_argument("--lambert-weight", type=float, default=0.1, metavar="C",
-                   help="Lambert weight c of ls-lambert (default: 0.1)")
+    g.add_argument("--law", choices=LAWS, default="lommel-seeliger",
+                   help="scattering law from the registry (default: lommel-seeliger closed form; "
+                        "see docs/methods-brightness.md)")
+    g.add_argument("--lambert-weight", type=float, default=DEFAULT_LAMBERT_WEIGHT, metavar="C",
+                   help=f"Lambert weight c of ls-lambert (default: {DEFAULT_LAMBERT_WEIGHT:g})")
     tr = g.add_mutually_exclusive_group()
     tr.add_argument("--phase-slope", type=float, metavar="MAG_PER_DEG", help="linear phase trend, mag/deg")
     tr.add_argument("--hg", type=float, metavar="G", help="H,G phase trend with slope parameter G")
