@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import gzip
 import json
+from types import SimpleNamespace
 import os
 import signal
 import subprocess
@@ -114,7 +115,7 @@ def test_keep_objects_never_writes_outside_its_folder(tmp_path):
     assert not Path("/abs/path").exists()
     for name in names:
         v = json.loads((object_folder(keep, name) / "verdict.json").read_text())
-        assert v["object_id"] == name
+        assert v["object"] == name  # the verdict.json schema of tumble classify (tumble.schema)
         # provenance travels with every verdict (issue 17 item 4)
         assert v["provenance"]["route"] == "screen" and v["provenance"]["seed"] == 0
     # the report finds the kept verdicts by the same safe names, and writes nothing outside its folder
@@ -292,10 +293,19 @@ def test_side_file_failure_is_a_warning_that_keeps_the_verdict(five, tmp_path, m
     def bad_size(*a, **k):
         raise tumble.damping.DampingError("diameter must be positive")
 
+    import tumble.classify
+    from tumble.classify import Verdict
+
+    def quick_classify(lc, **kw):  # the survey's side-file handling is under test here, not the science
+        v = Verdict(object_id=lc.object_id, rotation="PA", mode="", p_npa=0.01, ln_bayes_factor=-10.0,
+                    ln_bayes_factor_err=0.1, grade="firm", prior_npa=0.1, period_h=5.0, period_h_err=0.01)
+        return SimpleNamespace(verdict=v)
+
     monkeypatch.setattr(survey, "keep_verdict", refuse)
     monkeypatch.setattr(tumble.damping, "damping_for_classification", bad_size)
+    monkeypatch.setattr(tumble.classify, "classify", quick_classify)
     out = tmp_path / "r.ecsv"
-    run_survey([five], out, SurveyConfig(route="screen", keep_objects_dir=str(tmp_path / "keep")), workers=1,
+    run_survey([five], out, SurveyConfig(route="full", keep_objects_dir=str(tmp_path / "keep")), workers=1,
                progress=False)
     t = read_results(out)
     assert all(t["status"] == "ok") and all(np.isfinite(t["p_npa"]))
