@@ -100,7 +100,7 @@ class CalibrationMap:
         return cls(tuple(d["features"]), np.asarray(d["centre"], float), np.asarray(d["scale"], float),
                    np.asarray(d["fill"], float), np.asarray(d["coefficients"], float), float(d["intercept"]),
                    float(d["n_fit_npa"]) / float(d["n_fit"]),
-                   f"{d.get('library', '?')}, route {d.get('route', '?')}, commit {d.get('commit', '?')}")
+                   f"{d.get('library', '?')}, route {d.get('route', '?')}, commit {d.get('code_commit', '?')}")
 
     def probability(self, x: np.ndarray) -> float:
         """The map's P(NPA) at the library's base rate."""
