@@ -326,7 +326,7 @@ def cmd_calibrate(args) -> int:
     if not rows:
         print(f"{args.table}: no rows", file=sys.stderr)
         return 2
-    model, text = calibration.fit_and_evaluate(rows)
+    model, text = calibration.fit_and_evaluate(rows, Path(args.figure) if args.figure else None)
     print(text)
     import subprocess
 
@@ -470,6 +470,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("calibrate", help="fit the calibration map on a results table")
     p.add_argument("table")
     p.add_argument("--out", default=str(CACHE_DIR / "calibration.json"), help="JSON of the fitted map")
+    p.add_argument("--figure", default=None, help="held-out reliability diagram PNG")
     p = sub.add_parser("timing", parents=[common], help="wall time per object of the routes, one core")
     p.add_argument("--routes", nargs="+", choices=sorted(ROUTES), default=["screen", "evidence"])
     sub.add_parser("perf", help="wall time of the default classify and the sampler's overhead, one core")

@@ -252,8 +252,12 @@ def _scores(p, y) -> dict:
             "log_loss": float(-np.mean(y * np.log(p) + (1 - y) * np.log(1 - p)))}
 
 
-def fit_and_evaluate(rows) -> tuple:
-    """Fit on the calibration half, score on the held-out half; (map, printed text)."""
+def fit_and_evaluate(rows, figure_path=None) -> tuple:
+    """Fit on the calibration half, score on the held-out half; (map, printed text).
+
+    With ``figure_path``, the held-out reliability diagram of the classifier's ``p_npa`` and of the
+    calibrated probability is written there (PNG).
+    """
     cmap = fit_calibration(rows)
     held = [r for r in rows if r.get("status") == "ok" and r.get("true.split") == "heldout"]
     lines = [f"calibration map fitted on {cmap.n_fit} objects ({cmap.n_fit_npa} NPA) of the calibration half, "
@@ -277,6 +281,11 @@ def fit_and_evaluate(rows) -> tuple:
         rec = int(np.sum((p > 0.5) & ~pa))
         lines.append(f"   {label:17s} ECE {s['ece']:.3f}  Brier {s['brier']:.3f}  log loss {s['log_loss']:.3f}  "
                      f"p>0.5 on non-NPA {k}/{int(pa.sum())} (95 % upper {hi:.3f})  on NPA {rec}/{int((~pa).sum())}")
+    if figure_path is not None:
+        scoring.plot_reliability({"classifier p_npa": scoring.reliability_table(p_raw_f, y),
+                                  "calibrated": scoring.reliability_table(p_cal, y)}, figure_path,
+                                 f"held-out reliability, route {cmap.route}")
+        lines.append(f"   figure: {figure_path}")
     lines.append("   reliability of the calibrated probability (held-out):")
     for b in scoring.reliability_table(p_cal, y):
         lines.append(f"      [{b.lo:.1f}, {b.hi:.1f}) n={b.n:4d} mean p {b.mean_p:.3f} observed {b.observed:.3f} "

@@ -404,7 +404,7 @@ def draw_short_dense_plan(rng) -> DensePlan:
     return draw_dense_plan(rng, n_nights=(2, 6), span_d=(2.0, 7.0))
 
 
-def _observable_nights(plan_start_jd, span_d, orbit: Orbit, min_elongation_deg):
+def observable_nights(plan_start_jd, span_d, orbit: Orbit, min_elongation_deg):
     """Night indices (days from the start) when the object is observable, and the phase angle then."""
     from tumble import geometry
     from tumble.simulate import solar_elongation_deg
@@ -444,7 +444,7 @@ def draw_sparse_plan(rng) -> SparsePlan:
                                  days_before=float(rng.uniform(-60.0, 150.0)))
         orbit = Orbit(el.a_au, el.e, el.i_deg, el.node_deg, el.peri_deg, el.mean_anomaly_deg, el.epoch_jd)
         min_el = float(rng.uniform(60.0, 100.0))
-        nights, phase = _observable_nights(start, span, orbit, min_el)
+        nights, phase = observable_nights(start, span, orbit, min_el)
         n_app = count_apparitions(nights)
         n_target = int(rng.integers(60, 401))
         if n_app >= 2 and len(nights) * 2.5 >= n_target and np.ptp(phase) >= 3.0:

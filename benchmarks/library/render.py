@@ -32,7 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
-from library.population import ObjectSpec, count_apparitions, spec_from_dict, _observable_nights
+from library.population import ObjectSpec, count_apparitions, observable_nights, spec_from_dict
 
 __all__ = ["ObjectTruth", "RenderedObject", "render", "one_period_misfit_mag", "close_approach_elements",
            "TIME_BUILDERS", "ATTITUDE_PATHS", "load_or_render", "cache_paths"]
@@ -214,7 +214,7 @@ def sparse_times(spec: ObjectSpec, rng) -> PlanTimes:
     from tumble import geometry
 
     p = spec.plan
-    nights, _ = _observable_nights(p.start_jd, p.span_d, p.orbit, p.min_elongation_deg)
+    nights, _ = observable_nights(p.start_jd, p.span_d, p.orbit, p.min_elongation_deg)
     per_night = rng.integers(1, p.max_points_per_night + 1, size=len(nights))
     order = rng.permutation(len(nights))
     cum = np.cumsum(per_night[order])

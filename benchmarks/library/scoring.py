@@ -48,7 +48,7 @@ RECALL_EDGES = (0.0, 0.5, 1.0, 3.0, 10.0, math.inf)
 N_RELIABILITY_BINS = 10
 #: Relative tolerances of the period-accuracy figures (issue 14: within 1 % and 2 %).
 PERIOD_TOLERANCES = (0.01, 0.02)
-#: |ln B| at or above this is the classifier's stand-in weight for an excluded alternative (issue 14), counted apart.
+#: ln B at or below minus this is the classifier's stand-in weight for an excluded alternative (issue 14), counted apart.
 LN_B_STAND_IN = 1000.0
 #: Plans reported separately.
 PLANS = ("dense", "sparse", "close")
@@ -344,12 +344,12 @@ def report_text(rows, *, split: str = "all", figure_path=None, p_field: str = "p
             if r1.n:
                 w(f"   {label} ({plan}): {r1.k}/{r1.n} = {r1.value:.3f} within 1 %, {r2.k}/{r2.n} = {r2.value:.3f} within 2 %")
 
-    big = [r for r in good if abs(_num(get(r, "ln_b"))) >= LN_B_STAND_IN]
+    big = [r for r in good if _num(get(r, "ln_b")) <= -LN_B_STAND_IN]
     if big:
         per = {}
         for r in big:
             per[r.get("true.category", "?")] = per.get(r.get("true.category", "?"), 0) + 1
-        w(f"\n|ln B| >= {LN_B_STAND_IN:g} (a stand-in exclusion weight, not evidence) on {len(big)} objects: "
+        w(f"\nln B <= -{LN_B_STAND_IN:g} (the stand-in exclusion weight or -inf, not evidence) on {len(big)} objects: "
           + ", ".join(f"{k} {v}" for k, v in sorted(per.items())))
 
     w("\nCases the data cannot decide (targets: no period and no grade on flat/noise; no PA grade above the lowest "
