@@ -35,7 +35,8 @@ def add_parser(sub) -> None:
                         "spanning at least 2 deg of phase angle)")
     p.add_argument("--peaks", type=int, default=10, metavar="N", help="number of ranked periods (default: 10)")
     p.add_argument("--plot", metavar="OUT.png", help="write a figure of the scan")
-    p.add_argument("--out", metavar="SCAN.ecsv", help="write the scan (period, frequency, chi2) as a table")
+    p.add_argument("--out", metavar="SCAN.ecsv", help="write the scan (period, frequency, chi2) as a table; the "
+                                                     "format follows the ending (.ecsv, .csv, .fits, .vot, .parquet)")
     add_input_options(p)
     add_output_options(p)
     p.set_defaults(run=run)
@@ -121,15 +122,36 @@ def _print_table(scan, two, args) -> None:
         print(f"wrote {args.plot}", file=out)
 
 
-def _write_table(scan, two, path) -> None:
-    from tumble._io import atomic_path
+#: ``--out`` formats by file ending (astropy writers); the metadata of a flat format goes in as JSON text.
+SCAN_FORMATS = {".ecsv": "ascii.ecsv", ".csv": "ascii.csv", ".fits": "fits", ".fit": "fits", ".vot": "votable",
+                ".xml": "votable", ".parquet": "parquet"}
 
+
+def _write_table(scan, two, path) -> None:
+    import json
+    import warnings
+    from pathlib import Path
+
+    from tumble._io import atomic_path
+    from tumble.exceptions import TumbleError
+    from tumble.schema import json_safe
+
+    suffix = Path(path).suffix.lower()
+    fmt = SCAN_FORMATS.get(suffix)
+    if fmt is None:
+        raise TumbleError(f"{path}: --out must end in one of {', '.join(sorted(SCAN_FORMATS))} (the table format)")
+    if fmt == "parquet":
+        from tumble._extras import require
+
+        require("parquet", f"{path}: writing Parquet")
     tab = scan.to_table()
     if two is not None:
         tab.meta["two_period"] = two.to_dict()
-    tab.meta = {k: v for k, v in tab.meta.items()}
-    with atomic_path(path) as tmp:
-        tab.write(str(tmp), format="ascii.ecsv", overwrite=True)
+    if fmt != "ascii.ecsv":  # flat formats keep scalar metadata only: the rest as JSON text
+        tab.meta = {k: (v if isinstance(v, (str, int, float)) else json.dumps(json_safe(v))) for k, v in tab.meta.items()}
+    with atomic_path(path) as tmp, warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # FITS: long keys become HIERARCH cards
+        tab.write(str(tmp), format=fmt, overwrite=True)
 
 
 def _plot(scan, two, path) -> None:
