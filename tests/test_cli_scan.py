@@ -89,16 +89,16 @@ def test_scan_bad_input_is_exit_2(lc_csv, capsys):
 
 
 @pytest.mark.parametrize("ext", ["ecsv", "csv", "fits", "vot"])
-def test_scan_out_format_follows_the_ending(tmp_path, ext, pa_file):
+def test_scan_out_format_follows_the_ending(tmp_path, ext, lc_csv):
     # astropy.table.Table.read is the reference reader: each file is the format its ending names
     from astropy.table import Table
 
     out = tmp_path / f"scan.{ext}"
-    assert main(["scan", str(pa_file), "--out", str(out), "--quiet"]) == 0
+    assert main(["scan", str(lc_csv), "--out", str(out), "--quiet"]) == 0
     t = Table.read(out, format={"ecsv": "ascii.ecsv", "csv": "ascii.csv", "fits": "fits", "vot": "votable"}[ext])
     assert len(t) > 10 and "period_h" in t.colnames
 
 
-def test_scan_out_unknown_ending_is_bad_input(tmp_path, pa_file, capsys):
-    assert main(["scan", str(pa_file), "--out", str(tmp_path / "scan.txtx")]) == 2
+def test_scan_out_unknown_ending_is_bad_input(tmp_path, lc_csv, capsys):
+    assert main(["scan", str(lc_csv), "--out", str(tmp_path / "scan.txtx")]) == 2
     assert "--out must end in one of" in capsys.readouterr().err
