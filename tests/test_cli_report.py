@@ -5,6 +5,8 @@ from __future__ import annotations
 import html.parser
 from pathlib import Path
 
+import pytest
+
 from tumble.cli import main
 
 CAMPAIGN = Path(__file__).resolve().parents[1] / "catalogs_demo" / "campaign"
@@ -80,3 +82,23 @@ def test_classify_folder_report_with_data(tmp_path, capsys):
     assert {"scan.png", "lightcurve.png", "folded.png", "residuals.png"} <= set(imgs)
     text = " ".join(page.text)
     assert "KRN-001" in text and "Assumptions and cautions" in text and "not operational decisions" in text
+
+
+@pytest.mark.parametrize("ln_b,grade,uncapped,rotation,reason", [
+    (-235.5, "tentative", "firm", "PA", "the PA model leaves a periodic residual at 3.1 h"),
+    (4.9, "tentative", "sound", "NPA", "the period posterior is multimodal"),
+    (-0.4, "none", "none", "undecided", "weak evidence: |2 ln B| = 0.80 < 2"),
+])
+def test_object_page_grade_sentence_agrees_with_its_numbers(tmp_path, ln_b, grade, uncapped, rotation, reason):
+    # the page states the one sentence of tumble.classify.grade_sentence for the numbers it shows
+    # (Kass & Raftery 1995 bands), capped grades included
+    import html
+
+    from tumble.classify import grade_sentence
+    from tumble.report import write_object_report
+
+    v = dict(object="X-1", rotation=rotation, mode="", p_npa=0.5, ln_bayes_factor=ln_b, grade=grade,
+             grade_uncapped=uncapped, grade_reason=reason, prior_npa=0.1, warnings=[])
+    page = write_object_report(tmp_path / "r", v).read_text()
+    assert html.escape(grade_sentence(v), quote=True) in page
+    assert f"{abs(2 * ln_b):.1f}" in page
