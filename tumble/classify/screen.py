@@ -105,14 +105,10 @@ class ScreenResult:
         return out
 
     def results_row(self) -> dict:
-        from tumble.results import empty_row
+        """One row of the results catalogue, through the one schema (:func:`tumble.schema.results_row`)."""
+        from tumble.schema import results_row
 
-        row = empty_row(self.object_id, "ok", "; ".join(self.warnings))
-        d = self.to_dict()
-        for k in row:
-            if k in d and k not in ("object", "status", "message"):
-                row[k] = d[k]
-        return row
+        return results_row(self.to_dict())
 
 
 def _alias_reason(f1, f2, span_d, sparse) -> str:
