@@ -241,7 +241,9 @@ def test_clear_sam_is_called_npa(rng):
     # two-period family must win decisively, whatever the physical fit does.
     st, lc = _npa_lc(rng, "SAM", 40.0, 9.0, n_nights=10, cadence=10.0)
     v, ev, _ = classify(lc, fit_state=False)
-    assert v.rotation == "NPA" and v.p_npa > 0.99
+    # the models' own probability is decisive; the calibrated one (fitted on the simulated library, which
+    # holds large-ln-B objects that are not tumblers) is lower but still calls NPA
+    assert v.rotation == "NPA" and v.p_npa_model > 0.99 and v.p_npa > 0.5
     assert 2 * ev.ln_bayes_factor > 10  # beyond "very strong" on the Kass & Raftery (1995) scale
 
 
@@ -254,7 +256,7 @@ def test_clear_sam_recovers_mode_and_periods(rng):
     assert v.rotation == "NPA" and v.mode == "SAM"
     assert v.p_psi_h == pytest.approx(st.p_psi_h, rel=0.02)
     assert v.p_phi_h == pytest.approx(st.p_phi_h, rel=0.02)
-    assert v.p_npa > 0.99
+    assert v.p_npa_model > 0.99 and v.p_npa > 0.5
 
 
 @pytest.mark.slow
