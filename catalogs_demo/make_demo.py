@@ -180,6 +180,15 @@ def make_sparse(rng, truth_rows, n_objects=240):
     (out / "svs_sample.csv.gz").write_bytes(gzip.compress((text + "\n" + buf.getvalue()).encode(), mtime=0))
 
 
+#: Census tumblers: P_psi / P_phi of their (invented) SAM states.
+CENSUS_PSI_OVER_PHI = 5.0
+
+
+def make_census_only(seed: int = 0) -> None:
+    """Rewrite only the census (the campaign and the sparse sample stay as they are)."""
+    make_census(np.random.default_rng([SEED, seed]))
+
+
 def make_census(rng, n=300, log10_mu_q_true=11.3, age_gyr=4.5):
     """An earlier census of verdicts (invented) whose tumblers follow a known rigidity.
 
@@ -204,8 +213,12 @@ def make_census(rng, n=300, log10_mu_q_true=11.3, age_gyr=4.5):
         p_npa = 0.02 + (0.85 - 0.02) / (1 + np.exp(-x))
         npa = rng.random() < p_npa
         row = empty_row(f"KRN-C{k + 1:03d}")
-        row.update(rotation="NPA" if npa else "PA", mode="SAM" if npa else "none",
+        # a tumbler's verdict carries P_psi and P_phi (its spin rate for damping is 2 pi / <|omega|>,
+        # docs/damping.md): P_phi near the drawn spin period and P_psi a few times longer (SAM)
+        row.update(rotation="NPA" if npa else "PA", mode="SAM" if npa else "",
                    period_h=np.nan if npa else p_h, p1_h=p_h, n_points=int(rng.integers(200, 2000)))
+        if npa:
+            row.update(p_phi_h=p_h, p_psi_h=CENSUS_PSI_OVER_PHI * p_h)
         row["diameter_km"] = d_km
         rows.append(row)
     write_results(rows, out / "krn_census.ecsv", extra_columns=["diameter_km"])
@@ -230,4 +243,6 @@ def main():
 
 
 if __name__ == "__main__":
-    main()
+    import sys
+
+    make_census_only() if sys.argv[1:] == ["--census-only"] else main()
