@@ -199,6 +199,12 @@ def test_object_report_loads_with_all_figures(browser, reports, tmp_path):
     verdict = loads_strict((reports / "c" / "verdict.json").read_text())
     box = browser.find_element(By.ID, "verdict").text
     assert verdict["rotation"] in box and verdict["grade"] in box
+    # the grade sentence on the page is the one that is true of the verdict's numbers (Kass & Raftery
+    # 1995 bands; tumble.classify.grade_sentence), capped grades included
+    from tumble.report import grade_in_words
+
+    assert browser.find_element(By.ID, "grade-words").text == grade_in_words(verdict)
+    assert f"{abs(2 * verdict['ln_bayes_factor']):.1f}" in browser.find_element(By.ID, "grade-words").text
     rows = browser.find_elements(By.CSS_SELECTOR, "#periods tbody tr")
     assert rows, "a periods table"
     if verdict["period_h"] is not None and math.isfinite(verdict["period_h"]):
