@@ -195,3 +195,19 @@ def test_probability_display_precision():
     assert format_probability(1e-305) == "< 0.001"
     assert format_probability(1 - 1e-12) == "> 0.999"
     assert format_probability(0.25) == "0.250"
+
+
+def test_screen_without_a_testable_second_period_is_unknown_not_an_error(rng, monkeypatch):
+    # on close approaches every P2 of the two-period grid can be commensurate with P1 (seen on the
+    # library): the screen cannot tell, which is its 'unknown' flag with the reason, not an error row
+    import tumble.periodogram
+    from tumble.periodogram import PeriodSearchError
+
+    def no_second_period(*a, **k):
+        raise PeriodSearchError("sim: every P2 of the grid is commensurate with P1")
+
+    monkeypatch.setattr(tumble.periodogram, "two_period_scan", no_second_period)
+    s = screen(_clear_pa(rng))
+    assert s.screen_flag == "unknown" and math.isnan(s.screen_score)
+    assert any("no second period can be tested" in w for w in s.warnings)
+    assert s.period_h == pytest.approx(7.3, rel=5e-3)  # the one-period scan still gives its period

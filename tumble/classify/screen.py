@@ -153,12 +153,26 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
     t0 = time.perf_counter()
     try:
         scan1 = fourier_scan(lc, order=order)
-        floor = geometry_error_floor(lc, float(scan1.amplitude_mag))
-        kmin = error_scale_floor(lc, floor)
-        lc_eff = replace(lc, err=np.sqrt(np.asarray(lc.err, float) ** 2 + floor**2))
-        res = two_period_scan(lc_eff, order=order)
     except PeriodSearchError as exc:
         raise ClassifyError(str(exc)) from None
+    floor = geometry_error_floor(lc, float(scan1.amplitude_mag))
+    kmin = error_scale_floor(lc, floor)
+    lc_eff = replace(lc, err=np.sqrt(np.asarray(lc.err, float) ** 2 + floor**2))
+    try:
+        res = two_period_scan(lc_eff, order=order)
+    except PeriodSearchError as exc:
+        # no second period can be tested on these data (e.g. every P2 commensurate with P1): the
+        # screen cannot tell, which is a flag, not an error
+        fap = float(scan1.false_alarm_probability)
+        out = ScreenResult(
+            object_id=lc.object_id, screen_flag="unknown", screen_score=math.nan,
+            period_h=float(scan1.rotation_period_h) if fap < PERIOD_FAP_MAX else math.nan,
+            period_h_err=float(scan1.rotation_period_h_err) if fap < PERIOD_FAP_MAX else math.nan,
+            period_fap=fap, amplitude_mag=float(scan1.amplitude_mag),
+            warnings=("screen only: a flag for triage, not a verdict",
+                      f"no second period can be tested: {' '.join(str(exc).split())}"),
+            n_points=lc.n_points, n_sessions=lc.n_sessions, span_d=float(lc.span_d), prior_npa=float(prior_npa))
+        return replace(out, runtime_s=float(time.perf_counter() - t0))
     n = res.n_points
 
     def loglik(chi2):
