@@ -204,8 +204,6 @@ def classify_frame(frame, config=None, source: str | None = None) -> list[dict]:
 
 def results_frame(rows):
     """Results rows as a pandas DataFrame in the results schema (for ``map_partitions``; ``rows=[]`` gives the meta)."""
-    import pandas as pd
-
     from tumble.results import results_table
 
     return results_table(rows).to_pandas()
