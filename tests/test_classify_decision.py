@@ -211,3 +211,24 @@ def test_screen_without_a_testable_second_period_is_unknown_not_an_error(rng, mo
     assert s.screen_flag == "unknown" and math.isnan(s.screen_score)
     assert any("no second period can be tested" in w for w in s.warnings)
     assert s.period_h == pytest.approx(7.3, rel=5e-3)  # the one-period scan still gives its period
+
+
+def test_a_probability_below_the_lowest_grade_is_no_verdict(rng, monkeypatch):
+    # a stated rotation carries at least the lowest grade (Kass & Raftery 1995 band 2 ln B >= 2, as a
+    # probability 0.731 at even odds); a calibrated P(PA) of 0.6 states none
+    from dataclasses import replace
+
+    import tumble.classify.calibration as cal
+    from scipy import special
+
+    lc = _clear_pa(rng)
+    ev = classify(lc, fit_state=False, detection_limit=False, sidereal=False).evidence
+    ev = replace(ev, ln_bayes_factor=-30.0, ln_bayes_factor_err=0.1, pa_window_mass=1.0, window_disagreement=False,
+                 npa_testable=True, f2_admissible_share=1.0)
+    flat_map = cal.CalibrationMap(cal.FEATURES, np.zeros(5), np.ones(5), np.zeros(5), np.zeros(5),
+                                  float(special.logit(0.4)), 0.1, "test")
+    monkeypatch.setattr(cal, "load_calibration", lambda: flat_map)
+    v = decide(ev, span_d=lc.span_d, prior_npa=0.1, calibration_features=np.zeros(5))
+    assert v.calibrated and v.p_npa == pytest.approx(0.4)
+    assert v.rotation == "undecided" and v.grade == "none"
+    assert any("below the lowest grade" in w for w in v.warnings)

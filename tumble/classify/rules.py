@@ -397,6 +397,12 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
         uncapped = grade_from_probability(p_npa if favour == "NPA" else 1.0 - p_npa)
     else:
         uncapped = grade_from_ln_b(ln_b)
+    if testable and uncapped == "none" and not any(f.effect == "undecided" for f in findings):
+        # a stated rotation needs at least the lowest grade: a calibrated probability below it is no verdict
+        p_fav = p_npa if favour == "NPA" else 1.0 - p_npa
+        findings.append(Finding("undecided", f"the probability of {favour} ({p_fav:.2f}) is below the lowest grade"))
+        warn.append(findings[-1].reason)
+        undecided = True
     caps = [f.reason for f in findings if f.effect == "cap"]
     grade, grade_reason = uncapped, ""
     if caps and th.GRADE_NAMES.index(uncapped) > th.GRADE_NAMES.index("tentative"):
