@@ -22,11 +22,11 @@ from tumble.classify.thresholds import (
     MIN_PHASE_COVERAGE,
     MIN_RESOLVED_CYCLES,
     PERIOD_FAP_MAX,
-    PHASE_COVERAGE_BINS,
 )
+from tumble.coverage import period_coverage
 from tumble.model import FourierBasis, FourierVariant, fit_linear, prepare_linear
 
-__all__ = ["PeriodCheck", "check_period", "phase_coverage", "SIGNIFICANCE_ORDER_DENSE", "SIGNIFICANCE_ORDER_SPARSE"]
+__all__ = ["PeriodCheck", "check_period", "SIGNIFICANCE_ORDER_DENSE", "SIGNIFICANCE_ORDER_SPARSE"]
 
 #: Fourier order of the significance test on dense data (the order of the period scan).
 SIGNIFICANCE_ORDER_DENSE = 4
@@ -47,7 +47,8 @@ class PeriodCheck:
     n_cycles : float
         Cycles of the period ``period_h`` in the span.
     phase_coverage : float
-        Share of :data:`PHASE_COVERAGE_BINS` phase bins of the fold on ``period_h`` holding data.
+        Share of the phase bins of the fold on the longest period holding data
+        (:func:`tumble.coverage.period_coverage`).
     at_edge : bool
         The frequency lies at an end of the searched range.
     resolved : bool
@@ -66,14 +67,6 @@ class PeriodCheck:
     @property
     def significant(self) -> bool:
         return not self.reasons
-
-
-def phase_coverage(t_d, period_h: float, n_bins: int = PHASE_COVERAGE_BINS) -> float:
-    """Share of ``n_bins`` phase bins of the fold of the times on ``period_h`` that hold a point."""
-    if not (np.isfinite(period_h) and period_h > 0):
-        return math.nan
-    phase = np.mod(np.asarray(t_d, float) * 24.0 / period_h, 1.0)
-    return float(np.unique(np.minimum((phase * n_bins).astype(int), n_bins - 1)).size / n_bins)
 
 
 def _fap_at(lc, f_per_d: float, f_lo: float, f_hi: float, sparse: bool) -> float:
@@ -115,10 +108,10 @@ def check_period(lc, f_per_d: float, period_h: float, *, f_lo: float, f_hi: floa
     if not fap < PERIOD_FAP_MAX:
         reasons.append(f"the period's false-alarm probability is {fap:.2g} (needs < {PERIOD_FAP_MAX:g})")
     longest = longest_h if longest_h is not None else period_h
-    n_cycles = lc.span_d * 24.0 / longest if np.isfinite(longest) and longest > 0 else math.nan
+    cov = period_coverage(lc.t, longest)  # the one definition of cycles covered and phase coverage
+    n_cycles, cover = cov.n_cycles, cov.phase_coverage
     if not n_cycles >= MIN_CYCLES:
         reasons.append(f"the data cover {n_cycles:.2g} cycles of {longest:.4g} h (needs {MIN_CYCLES})")
-    cover = phase_coverage(lc.t - lc.t[0], longest)
     if not cover >= MIN_PHASE_COVERAGE:
         reasons.append(f"the fold on {longest:.4g} h covers {100 * cover:.0f} % of the phase "
                        f"(needs {100 * MIN_PHASE_COVERAGE:.0f} %)")

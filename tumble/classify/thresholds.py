@@ -54,8 +54,6 @@ SIDEREAL_DAY_D = 0.99726958
 PERIOD_FAP_MAX = 1e-3
 #: A reported period needs at least this share of its phase (in 20 bins) covered by data.
 MIN_PHASE_COVERAGE = 0.6
-#: Number of phase bins for the phase-coverage figure.
-PHASE_COVERAGE_BINS = 20
 #: Two periods are resolved only when their frequencies differ by more than this many 1/span.
 MIN_RESOLVED_CYCLES = 1.0
 
