@@ -48,7 +48,7 @@ from tumble.classify.noise import (
     robust_weights,
 )
 from tumble.classify.rotation import RotationFit, fit_rotation_state, npa_candidates
-from tumble.classify.rules import RULES, decide, grade_from_ln_b
+from tumble.classify.rules import RULES, decide, favoured, grade_from_ln_b
 from tumble.classify.screen import ScreenResult, screen
 from tumble.classify.significance import PeriodCheck, check_period
 from tumble.classify.thresholds import DEFAULT_PRIOR_NPA, GRADE_NAMES, MIN_CYCLES
@@ -223,8 +223,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
         raise ClassifyError(str(exc)) from None
     sparse = is_sparse(lc)
     resolved = resolve_route(lc, route)
-    testable = bool(ev.npa_testable and np.isfinite(ev.ln_bayes_factor))
-    favour = "NPA" if testable and ev.ln_bayes_factor > 0 else "PA"
+    testable, favour = favoured(ev)
     period_check = _check_periods(lc, ev, problem, favour, sparse)
     geometric = None
     if resolved == "sparse":

@@ -94,6 +94,36 @@ def _ln_b_injected(problem, lc, f1: float, signature, amp: float, weights) -> fl
     return float(ln_npa - ln_pa)
 
 
+def _detected(problem, lc, f1, signature, amp, threshold, weights) -> bool:
+    return 2.0 * _ln_b_injected(problem, lc, f1, signature, amp, weights) >= threshold
+
+
+def _smallest_detected(problem, lc, f1, signature, start, threshold, weights) -> float:
+    """Smallest detected rms (mag) of one signature: a ladder of factors LADDER_FACTOR from ``start`` until
+    the detection changes, then N_BISECT log bisections; inf when none is detected within the ladder."""
+    lo, hi, a = None, None, start
+    for _ in range(MAX_LADDER_STEPS):
+        if _detected(problem, lc, f1, signature, a, threshold, weights):
+            hi = a
+            if lo is not None:
+                break
+            a /= LADDER_FACTOR
+        else:
+            lo = a
+            if hi is not None:
+                break
+            a *= LADDER_FACTOR
+    if hi is None or lo is None:
+        return math.inf if hi is None else hi
+    for _ in range(N_BISECT):
+        mid = math.sqrt(lo * hi)
+        if _detected(problem, lc, f1, signature, mid, threshold, weights):
+            hi = mid
+        else:
+            lo = mid
+    return hi
+
+
 def npa_detection_limit(problem, lc, f1: float, *, prior_npa: float, weights=None) -> DetectionLimit:
     """The rms (mag) of the smallest two-period signature that would have given an NPA verdict.
 
@@ -116,38 +146,7 @@ def npa_detection_limit(problem, lc, f1: float, *, prior_npa: float, weights=Non
     err = float(np.median(np.hypot(np.asarray(lc.err, float), problem.error_floor_mag)))
     start = err * math.sqrt(START_DCHI2 / lc.n_points)
     t = np.asarray(lc.t, float) - float(np.mean(lc.t))
-    per = []
-    for f2 in trials:
-        sig = injection_signature(t, f1, f2, rng)
-
-        def detected(a, sig=sig):
-            return 2.0 * _ln_b_injected(problem, lc, f1, sig, a, weights) >= threshold
-
-        lo, hi = None, None
-        a = start
-        for _ in range(MAX_LADDER_STEPS):
-            if detected(a):
-                hi = a
-                if lo is not None:
-                    break
-                a /= LADDER_FACTOR
-            else:
-                lo = a
-                if hi is not None:
-                    break
-                a *= LADDER_FACTOR
-        if hi is None:
-            per.append((f2, math.inf))
-            continue
-        if lo is None:
-            per.append((f2, hi))
-            continue
-        for _ in range(N_BISECT):
-            mid = math.sqrt(lo * hi)
-            if detected(mid):
-                hi = mid
-            else:
-                lo = mid
-        per.append((f2, hi))
+    per = [(f2, _smallest_detected(problem, lc, f1, injection_signature(t, f1, f2, rng), start, threshold, weights))
+           for f2 in trials]
     vals = np.array([v for _, v in per], float)
     return DetectionLimit(float(np.median(vals)), tuple((float(f), float(v)) for f, v in per), threshold)

@@ -18,9 +18,16 @@ import math
 
 import numpy as np
 
-from tumble.classify.thresholds import DENSE_ALIAS_K_MAX, MIN_CYCLES, SIDEREAL_DAY_D
+from tumble.classify.thresholds import (
+    DENSE_ALIAS_K_MAX,
+    MIN_CYCLES,
+    SIDEREAL_DAY_D,
+    SPARSE_ALIAS_K_MAX,
+    SPARSE_ALIAS_TOL_PER_D,
+)
 
-__all__ = ["COMMENSURATE_WIDTH", "COMMENSURATE_QS", "near_daily_alias", "daily_alias_mask", "commensurate_mask",
+__all__ = ["COMMENSURATE_WIDTH", "COMMENSURATE_QS", "near_daily_alias", "daily_alias_mask", "daily_alias_reason",
+           "modulated_alias_reason", "commensurate_mask",
            "admissible_f2_intervals", "admissible_f2_log_mass", "admissible_f2_share", "f2_log_prior",
            "log_uniform_logpdf", "frequency_limits"]
 
@@ -46,6 +53,37 @@ def near_daily_alias(f_per_d, tol_per_d, k_max: int = DENSE_ALIAS_K_MAX):
         for day in (1.0, 1.0 / SIDEREAL_DAY_D):
             bad |= np.abs(f - k * day) < tol_per_d
     return bad if bad.ndim else bool(bad)
+
+
+def daily_alias_reason(f1, f2, span_d: float, sparse: bool, sigma1: float = math.nan,
+                       sigma2: float = math.nan) -> str:
+    """Why a pair of light-curve frequencies (c/d) is a daily alias, or '' when neither is.
+
+    A frequency within ``0.5/span`` (or 3 sigma; sparse data: :data:`SPARSE_ALIAS_TOL_PER_D`) of k
+    cycles per solar or sidereal day, k <= 3 (sparse data: k <= :data:`SPARSE_ALIAS_K_MAX`, since nightly
+    sparse sampling aliases a slow variation to every k/day), is a calibration or window alias.
+    Used by the decision rules and by the screen.
+    """
+    k_max = SPARSE_ALIAS_K_MAX if sparse else DENSE_ALIAS_K_MAX
+    for name, f, sf in (("first", f1, sigma1), ("second", f2, sigma2)):
+        tol = max(0.5 / span_d, 3 * (sf if np.isfinite(sf) else 0.0), SPARSE_ALIAS_TOL_PER_D if sparse else 0.0)
+        if np.isfinite(f) and near_daily_alias(f, tol, k_max=k_max):
+            return f"{name} light-curve period {24.0 / f:.4g} h lies at a 1/day alias"
+    return ""
+
+
+def modulated_alias_reason(f1, f2, span_d: float) -> str:
+    """Sparse data: why ``f1 -+ f2`` sits within ``MIN_CYCLES/span`` of 1, 2 or 3 c/d, or ''.
+
+    The second period then only modulates a daily alias of the first, as the slow change of a PA light
+    curve with geometry does through nightly sampling.
+    """
+    for label, c in (("f1 - f2", f1 - f2), ("f1 + f2", f1 + f2)):
+        if np.isfinite(c) and near_daily_alias(c, MIN_CYCLES / span_d, k_max=DENSE_ALIAS_K_MAX):
+            return (f"{label} = {c:.5f} c/d lies within {MIN_CYCLES}/span of a 1, 2 or 3 c/d alias: the second "
+                    "period only modulates a daily alias of the first, as a PA light curve changing with geometry "
+                    "does in sparse nightly data")
+    return ""
 
 
 def daily_alias_mask(f_per_d, span_d: float, nightly: bool):

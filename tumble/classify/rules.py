@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from tumble.classify import thresholds as th
-from tumble.classify.prior import near_daily_alias
+from tumble.classify.prior import daily_alias_reason, modulated_alias_reason
 from tumble.classify.verdict import MIRROR_NOTE, NO_PERIOD_REASON, UNTESTABLE_REASON, Verdict
 
 __all__ = ["Finding", "DecisionInputs", "RULES", "decide", "grade_from_ln_b"]
@@ -163,26 +163,17 @@ def rule_daily_alias(d: DecisionInputs) -> list:
     if d.favour != "NPA":
         return []
     ev = d.evidence
-    for name, f, sf in (("first", ev.f1_npa_per_d, ev.f1_npa_sigma_per_d), ("second", ev.f2_per_d, ev.f2_sigma_per_d)):
-        tol = max(0.5 / d.span_d, 3 * (sf if np.isfinite(sf) else 0.0), th.SPARSE_ALIAS_TOL_PER_D if d.sparse else 0.0)
-        # sparse nightly sampling aliases a slow variation to any k cycles/day, not only k <= 3
-        k_max = th.SPARSE_ALIAS_K_MAX if d.sparse else th.DENSE_ALIAS_K_MAX
-        if np.isfinite(f) and near_daily_alias(f, tol, k_max=k_max):
-            return _undecided(f"{name} light-curve period {24.0 / f:.4g} h lies at a 1/day alias")
-    return []
+    reason = daily_alias_reason(ev.f1_npa_per_d, ev.f2_per_d, d.span_d, d.sparse, ev.f1_npa_sigma_per_d,
+                                ev.f2_sigma_per_d)
+    return _undecided(reason) if reason else []
 
 
 def rule_sparse_modulated_alias(d: DecisionInputs) -> list:
     """Sparse NPA whose f1 -+ f2 sits at 1-3 c/d: the second period only modulates a daily alias of the first."""
     if d.favour != "NPA" or not d.sparse:
         return []
-    f1n, f2n = d.evidence.f1_npa_per_d, d.evidence.f2_per_d
-    for label, c in (("f1 - f2", f1n - f2n), ("f1 + f2", f1n + f2n)):
-        if np.isfinite(c) and near_daily_alias(c, th.MIN_CYCLES / d.span_d, k_max=th.DENSE_ALIAS_K_MAX):
-            return _undecided(f"{label} = {c:.5f} c/d lies within {th.MIN_CYCLES}/span of a 1, 2 or 3 c/d alias: the "
-                              "second period only modulates a daily alias of the first, as a PA light curve "
-                              "changing with geometry does in sparse nightly data")
-    return []
+    reason = modulated_alias_reason(d.evidence.f1_npa_per_d, d.evidence.f2_per_d, d.span_d)
+    return _undecided(reason) if reason else []
 
 
 def rule_coverage(d: DecisionInputs) -> list:
@@ -198,14 +189,28 @@ def rule_state_posterior(d: DecisionInputs) -> list:
     return []
 
 
+def favoured(evidence) -> tuple:
+    """``(testable, favour)``: whether the evidence tested NPA at all, and the hypothesis ln B favours
+    ('PA' when NPA was not testable)."""
+    testable = bool(evidence.npa_testable) and bool(np.isfinite(evidence.ln_bayes_factor))
+    return testable, ("NPA" if testable and evidence.ln_bayes_factor > 0 else "PA")
+
+
+def mode_margin(fit) -> float:
+    """ln L(best NPA mode) - ln L(the other mode) of the physical fits, nats (NaN when not compared)."""
+    if fit is None or fit.mode not in ("SAM", "LAM"):
+        return math.nan
+    others = [v for k, v in fit.max_log_likelihood.items() if k != fit.mode]
+    return fit.max_log_likelihood[fit.mode] - max(others) if others else math.nan
+
+
 def rule_mode_margin(d: DecisionInputs) -> list:
     fit = d.fit
     if d.favour != "NPA":
         return []
     if fit is None or fit.mode not in ("SAM", "LAM"):
         return [Finding("mode_unknown", "no physical fit: the mode is unknown")]
-    others = [v for k, v in fit.max_log_likelihood.items() if k != fit.mode]
-    margin = fit.max_log_likelihood[fit.mode] - max(others) if others else math.nan
+    margin = mode_margin(fit)
     if np.isfinite(margin) and margin < th.MODE_MARGIN_NATS:
         return [Finding("mode_unknown", f"SAM and LAM fit almost equally well (margin {margin:.2f} nats): mode not decided")]
     return []
@@ -375,12 +380,11 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
 
     ev = evidence
     ln_b = ev.ln_bayes_factor
-    testable = bool(ev.npa_testable) and np.isfinite(ln_b)
+    testable, favour = favoured(ev)
     p_model = float(posterior_probability(np.clip(ln_b, -700, 700), prior_npa)) if testable else math.nan
     cmap = load_calibration() if calibration_features is not None else None
     calibrated = bool(testable and cmap is not None)
     p_npa = calibrated_p_npa(cmap, calibration_features, prior_npa) if calibrated else p_model
-    favour = "NPA" if testable and ln_b > 0 else "PA"
     values = _pa_periods(ev) if favour == "PA" else _npa_periods(ev, fit)
     claimed = [values.get(k, math.nan) for k in ("period_h", "p1_h", "p2_h", "p_psi_h", "p_phi_h")]
     claimed = [p for p in claimed if np.isfinite(p)]
@@ -429,12 +433,11 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
         if fit.geometry_note.startswith("no Sun"):
             warn.append(fit.geometry_note)
         if favour == "NPA" and fit.mode in ("SAM", "LAM"):
-            others = [v for k, v in fit.max_log_likelihood.items() if k != fit.mode]
-            margin = fit.max_log_likelihood[fit.mode] - max(others) if others else math.nan
+            margin = mode_margin(fit)
             warn.append(MIRROR_NOTE)
         if not fit.converged:
             warn.append("physical-model posterior not converged or multimodal: " + "; ".join(fit.reasons))
-    if any(f.reason.startswith("a binary with mutual events") for f in findings):
+    if binary is not None and rule_binary_alternative(inputs):  # the binary was named: its figures go out
         extra.update(p_orb_h=binary.p_orb_h, p_orb_h_lo=binary.p_orb_h_lo, p_orb_h_hi=binary.p_orb_h_hi,
                      event_depth_mag=float(max(binary.event_depth_mag)), event_width_phase=binary.event_width_phase)
     pc = period_check

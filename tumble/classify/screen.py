@@ -18,16 +18,13 @@ import numpy as np
 
 from tumble.classify.evidence import ClassifyError
 from tumble.classify.noise import error_scale_floor, geometry_error_floor
-from tumble.classify.prior import near_daily_alias
+from tumble.classify.prior import daily_alias_reason, modulated_alias_reason
 from tumble.classify.thresholds import (
-    DENSE_ALIAS_K_MAX,
     MIN_CYCLES,
     MIN_RESOLVED_CYCLES,
     PERIOD_FAP_MAX,
     SCREEN_CANDIDATE_SCORE,
     SCREEN_QUIET_SCORE,
-    SPARSE_ALIAS_K_MAX,
-    SPARSE_ALIAS_TOL_PER_D,
 )
 
 __all__ = ["ScreenResult", "screen", "SCREEN_FLAGS"]
@@ -112,15 +109,11 @@ class ScreenResult:
 
 
 def _alias_reason(f1, f2, span_d, sparse) -> str:
-    tol = max(0.5 / span_d, SPARSE_ALIAS_TOL_PER_D if sparse else 0.0)
-    k_max = SPARSE_ALIAS_K_MAX if sparse else DENSE_ALIAS_K_MAX
-    for name, f in (("first", f1), ("second", f2)):
-        if np.isfinite(f) and near_daily_alias(f, tol, k_max=k_max):
-            return f"the {name} period {24.0 / f:.4g} h lies at a 1/day alias"
-    if sparse:
-        for label, c in (("f1 - f2", f1 - f2), ("f1 + f2", f1 + f2)):
-            if np.isfinite(c) and near_daily_alias(c, MIN_CYCLES / span_d, k_max=DENSE_ALIAS_K_MAX):
-                return f"{label} lies at a 1-3 c/d alias"
+    """Why the screen's pair cannot be a tumbling candidate (the decision layer's alias rule, plus
+    resolution and coverage of the second period), or ''."""
+    reason = daily_alias_reason(f1, f2, span_d, sparse) or (modulated_alias_reason(f1, f2, span_d) if sparse else "")
+    if reason:
+        return reason
     if np.isfinite(f1) and np.isfinite(f2) and abs(f1 - f2) <= MIN_RESOLVED_CYCLES / span_d:
         return "the two periods are not resolved"
     if np.isfinite(f2) and 24.0 / f2 * MIN_CYCLES > span_d * 24.0:

@@ -137,25 +137,21 @@ def _print_header(v: dict) -> None:
 
 def _print_screen(v: dict) -> None:
     from tumble.classify.screen import SCREEN_FLAGS
+    from tumble.display import format_fap
 
     _print_header(v)
     print(f"screen        {v['screen_flag']}: {SCREEN_FLAGS[v['screen_flag']]}")
     print(f"score         -Delta BIC / 2 = {_fmt(v['screen_score'], 3)} (two periods over one)")
     if v["period_h"] is not None:
         print(f"period        {_fmt(v['period_h'], 6)} h (one-period scan; false-alarm probability "
-              f"{_fmt_fap(v['period_fap'])})")
+              f"{format_fap(v['period_fap'])})")
     for w in v["warnings"]:
         print(f"note          {w}")
 
 
-def _fmt_fap(p) -> str:
-    if p is None:
-        return "-"
-    return "< 1e-10" if p < 1e-10 else f"{p:.2g}"
-
-
 def _print_verdict(v: dict, damp) -> None:
     from tumble.classify import format_probability, grade_sentence
+    from tumble.display import format_fap
 
     _print_header(v)
     print(f"rotation      {v['rotation']}" + (f"  (mode {v['mode']})" if v["rotation"] == "NPA" else ""))
@@ -166,7 +162,7 @@ def _print_verdict(v: dict, damp) -> None:
     if v["period_h"] is not None:
         print(f"period        {_fmt(v['period_h'], 8)} +- {_fmt(v['period_h_err'], 2)} h  "
               f"({_fmt(v['n_cycles'], 3)} cycles, {_fmt(100 * v['phase_coverage'], 3)} % of the phase covered, "
-              f"false-alarm probability {_fmt_fap(v['period_fap'])})")
+              f"false-alarm probability {format_fap(v['period_fap'])})")
     elif v["p1_h"] is not None and v["rotation"] == "undecided":
         print(f"light curve   P1 = {_fmt(v['p1_h'], 7)} h (no rotation verdict)")
     if v["npa_limit_mag"] is not None:
