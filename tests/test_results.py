@@ -8,13 +8,14 @@ from tumble.results import COLUMN_NAMES, RESULT_COLUMNS, empty_row, read_results
 
 # The column list of the results catalogue, fixed in the project's design (issue 19 added route, prior,
 # ln B error, convergence, mode margin, detection limit, screen flag/score, the Pravec et al. 2005 code,
-# synodic period, coverage, rotation-state intervals, the binary hypothesis and their _lo/_hi pairs).
+# synodic period, coverage, rotation-state intervals, the binary hypothesis and their _lo/_hi pairs; issue 15 the period kind,
+# sidereal or synodic).
 DESIGN_COLUMNS = (
     "object, status, message, route, n_points, n_sessions, span_d, rotation, mode, p_npa, prior_npa, "
     "ln_bayes_factor, ln_bayes_factor_err, p_npa_model, calibrated, npa_testable, grade, grade_uncapped, "
     "converged, mode_margin, npa_limit_mag, screen_flag, screen_score, npa_code_p2005, period_h, "
     "period_h_err, p_psi_h, p_psi_h_lo, p_psi_h_hi, p_phi_h, p_phi_h_lo, p_phi_h_hi, p1_h, p2_h, "
-    "period_syn_h, period_fap, n_cycles, phase_coverage, amplitude_mag, error_scale_chosen, residual_fap, "
+    "period_syn_h, period_kind, period_fap, n_cycles, phase_coverage, amplitude_mag, error_scale_chosen, residual_fap, "
     "excitation, excitation_lo, excitation_hi, a_over_b, a_over_b_lo, a_over_b_hi, b_over_c, b_over_c_lo, "
     "b_over_c_hi, l_lon_deg, l_lon_deg_lo, l_lon_deg_hi, l_lat_deg, l_lat_deg_lo, l_lat_deg_hi, p_orb_h, "
     "p_orb_h_lo, p_orb_h_hi, event_depth_mag, event_width_phase, tau_damp_gyr, tau_damp_gyr_lo, "

@@ -32,6 +32,8 @@ __all__ = [
     "reduced_magnitude",
     "phase_angle_deg",
     "phase_angle_bisector",
+    "bisector_longitude_rate_deg_per_d",
+    "synodic_sidereal_difference_h",
     "solve_kepler",
     "OrbitalElements",
     "Observatory",
@@ -100,6 +102,34 @@ def phase_angle_deg(sun_dir, obs_dir):
 def phase_angle_bisector(sun_dir, obs_dir):
     """Unit phase-angle bisector, the normalised sum of the Sun and observer unit vectors."""
     return _unit(_unit(sun_dir) + _unit(obs_dir))
+
+
+def bisector_longitude_rate_deg_per_d(t_d, sun_dir, obs_dir) -> float:
+    """Mean rate of the phase-angle bisector's ecliptic longitude over the data, deg/day (signed).
+
+    The net change of the unwrapped longitude of :func:`phase_angle_bisector` between the first and
+    the last point, divided by the span. NaN for fewer than two points or a zero span.
+    """
+    t = np.asarray(t_d, float)
+    if t.size < 2 or not np.ptp(t) > 0:
+        return float("nan")
+    order = np.argsort(t)
+    b = phase_angle_bisector(np.asarray(sun_dir, float)[order], np.asarray(obs_dir, float)[order])
+    lon = np.unwrap(np.arctan2(b[:, 1], b[:, 0]))
+    return float(np.degrees(lon[-1] - lon[0]) / (t[order][-1] - t[order][0]))
+
+
+def synodic_sidereal_difference_h(period_h: float, rate_deg_per_d: float) -> float:
+    """Expected ``|P_syn - P_sid|`` of a rotation period from the bisector's motion, hours.
+
+    The phase-angle-bisector rule of thumb (Harris et al. 1984, Icarus 57, 251; in this form
+    ``P_syn - P_sid = omega_PAB P^2`` in Pravec et al. 2005, Icarus 173, 108, from memory): the
+    synodic frequency differs from the sidereal one by the bisector's angular rate in cycles per
+    day, ``|f_syn - f_sid| = |rate| / 360``, so ``|Delta P| = P^2 |rate| / 360 / 24`` (P in
+    hours). The rate is the ecliptic-longitude rate: exact for a pole at the ecliptic pole, an
+    approximation for others.
+    """
+    return float(period_h) ** 2 * abs(float(rate_deg_per_d)) / 360.0 / 24.0
 
 
 def solve_kepler(mean_anomaly, eccentricity, *, tol=1e-15, max_iter=60):

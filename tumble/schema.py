@@ -149,6 +149,9 @@ FIELDS: tuple[Field, ...] = (
     _f("p2_h", "h", "light-curve period of the second component (two-period fit)", "P2", "period"),
     _f("period_syn_h", "h", "synodic light-curve period as observed (before any sidereal correction)",
        "P_syn", "period"),
+    Field("period_kind", "str", "", "what period_h is: sidereal (geometry-aware fit) or synodic (its error "
+          "includes the synodic-sidereal difference the phase-angle bisector's motion allows)",
+          header="P kind", display="text", values=("sidereal", "synodic", "")),
     _f("period_fap", "", "false-alarm probability of the light-curve period's peak", display="fap"),
     _f("n_cycles", "", "cycles of the longest claimed period covered by the data span", "cycles", "sig3"),
     _f("phase_coverage", "", "fraction of the fold of the longest claimed period covered by data", "coverage",

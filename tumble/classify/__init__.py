@@ -170,6 +170,15 @@ def _features(lc, ev: EvidenceResult) -> np.ndarray:
                                 sparse_fraction=float(np.mean(np.asarray(lc.session) < 0)))
 
 
+def _bisector_rate(lc) -> float:
+    """The phase-angle bisector's ecliptic-longitude rate, deg/day (NaN without observing geometry)."""
+    from tumble.geometry import bisector_longitude_rate_deg_per_d
+
+    if lc.sun_dir is None or lc.obs_dir is None:
+        return math.nan
+    return bisector_longitude_rate_deg_per_d(lc.t, lc.sun_dir, lc.obs_dir)
+
+
 def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: int | None = None,
              max_steps: int = 1500, fit_state: bool = True, student_t: bool = False, p_min_h: float = 0.5,
              p_max_h: float = 2000.0, progress: bool = False, detection_limit: bool = True,
@@ -253,6 +262,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
                      route_name="sparse" if resolved == "sparse" else "full" if fit_state else "evidence",
                      geometric_pa=geometric,
                      npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
-                     calibration_features=_features(lc, ev), binary=binary_result)
+                     calibration_features=_features(lc, ev), binary=binary_result,
+                     synodic_rate_deg_per_d=_bisector_rate(lc))
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))
     return Classification(verdict, ev, fit, period_check, adequacy, limit, binary_result)

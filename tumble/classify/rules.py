@@ -353,7 +353,29 @@ def _sidereal_period(g, values: dict, warn: list, sparse_route: bool) -> dict:
         return {}
     warn.append("sidereal period from the geometry-aware PA ellipsoid fit (the pole has a mirror solution)")
     return dict(period_h=float(g.period_h), period_h_err=0.5 * float(g.period_h_hi - g.period_h_lo),
-                period_syn_h=float(syn) if np.isfinite(syn) else float(g.period_h))
+                period_syn_h=float(syn) if np.isfinite(syn) else float(g.period_h), period_kind="sidereal")
+
+
+def _synodic_period(values: dict, rate_deg_per_d: float, warn: list) -> dict:
+    """A synodic period's error widened by the synodic-sidereal difference the bisector's motion allows.
+
+    The error becomes ``hypot(fit error, |P_syn - P_sid|)`` with the difference from
+    :func:`tumble.geometry.synodic_sidereal_difference_h`; without observing geometry it cannot be
+    bounded, and the warning says so.
+    """
+    p, err = values.get("period_h", math.nan), values.get("period_h_err", math.nan)
+    if not np.isfinite(p):
+        return {}
+    if not np.isfinite(rate_deg_per_d):
+        warn.append("the period is synodic; without observing geometry its difference from the sidereal "
+                    "period cannot be bounded")
+        return dict(period_kind="synodic")
+    from tumble.geometry import synodic_sidereal_difference_h
+
+    drift = synodic_sidereal_difference_h(p, rate_deg_per_d)
+    warn.append(f"the period is synodic: its error includes up to {drift:.2g} h of synodic-sidereal difference "
+                f"(the phase-angle bisector moved {rate_deg_per_d:+.2g} deg/day in ecliptic longitude)")
+    return dict(period_h_err=float(math.hypot(err if np.isfinite(err) else 0.0, drift)), period_kind="synodic")
 
 
 #: Period fields emptied when no significant period exists.
@@ -364,7 +386,8 @@ PERIOD_FIELDS = ("period_h", "period_h_err", "period_syn_h", "p_psi_h", "p_psi_h
 def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, fit=None, object_id: str = "object",
            n_points: int = 0, n_sessions: int = 0, extra_warnings=(), route: str | None = None, sparse: bool = False,
            period_check=None, adequacy=None, route_name: str = "full", npa_limit_mag: float = math.nan,
-           pa_geometry_fit=None, calibration_features=None, geometric_pa=None, binary=None) -> Verdict:
+           pa_geometry_fit=None, calibration_features=None, geometric_pa=None, binary=None,
+           synodic_rate_deg_per_d: float = math.nan) -> Verdict:
     """Turn the evidence (and the physical fit, significance and adequacy, if any) into a :class:`Verdict`.
 
     Every rule of :data:`RULES` runs; an ``undecided`` finding withholds the verdict (grade
@@ -374,6 +397,10 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     With ``calibration_features`` (:func:`tumble.classify.calibration.calibration_features`) and the
     shipped calibration map, ``p_npa`` is the calibrated probability at ``prior_npa`` and the grade
     comes from it; otherwise ``p_npa`` is Bayes' rule on ``ln B`` and the grade from ``2 |ln B|``.
+
+    A PA period is sidereal when the geometry-aware fit ``geometric_pa`` gives it; otherwise it is
+    synodic and its error is widened by the synodic-sidereal difference that the phase-angle
+    bisector's ecliptic-longitude rate ``synodic_rate_deg_per_d`` allows (NaN: no geometry).
     """
     from tumble.classify.calibration import calibrated_p_npa, grade_from_probability, load_calibration
     from tumble.inference import posterior_probability
@@ -420,8 +447,9 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
         mode = "unknown" if any(f.effect == "mode_unknown" for f in findings) else fit.mode
     if period_check is not None and not period_check.significant:
         values = {k: v for k, v in values.items() if k not in PERIOD_FIELDS}
-    if rotation == "PA" and geometric_pa is not None:
-        values.update(_sidereal_period(geometric_pa, values, warn, sparse_route))
+    if rotation == "PA":
+        sidereal = _sidereal_period(geometric_pa, values, warn, sparse_route) if geometric_pa is not None else {}
+        values.update(sidereal or _synodic_period(values, synodic_rate_deg_per_d, warn))
     if rotation != "PA":
         values.pop("period_h", None)
         values.pop("period_h_err", None)

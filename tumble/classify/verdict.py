@@ -55,6 +55,9 @@ class Verdict:
     period_syn_h : float
         The synodic period of the Fourier scan, hours (the same as ``period_h`` until a sidereal
         fit is made).
+    period_kind : {'sidereal', 'synodic', ''}
+        What ``period_h`` is: sidereal (from the geometry-aware fit) or synodic (its error then
+        includes the synodic-sidereal difference the bisector's motion allows); empty without a period.
     period_fap : float
         False-alarm probability of the light-curve period's peak.
     n_cycles : float
@@ -121,6 +124,7 @@ class Verdict:
     period_h: float = math.nan
     period_h_err: float = math.nan
     period_syn_h: float = math.nan
+    period_kind: str = ""
     period_fap: float = math.nan
     n_cycles: float = math.nan
     phase_coverage: float = math.nan
