@@ -29,8 +29,10 @@ def run_evidence(lc, seed):
     """The frequency-integrated evidence and the decision rules, no physical fit."""
     from tumble.classify import classify
 
-    # the detection limit is not a decision statistic: skipped here to halve the cost per object
-    return classify(lc, rng=seed, fit_state=False, detection_limit=False)
+    # the detection limit is not a decision statistic, nor is the dense route's sidereal refit of a PA
+    # period (it replaces the period, never the verdict): both skipped to cut the cost per object
+    # several-fold (the sparse route's geometry-aware fit is part of its decision and stays)
+    return classify(lc, rng=seed, fit_state=False, detection_limit=False, sidereal=False)
 
 
 def run_full(lc, seed):
