@@ -35,6 +35,13 @@ def run_evidence(lc, seed):
     return classify(lc, rng=seed, fit_state=False, detection_limit=False, sidereal=False)
 
 
+def run_sidereal(lc, seed):
+    """The evidence route with the dense route's sidereal refit of a PA period (issue 15 item 1)."""
+    from tumble.classify import classify
+
+    return classify(lc, rng=seed, fit_state=False, detection_limit=False, sidereal=True)
+
+
 def run_full(lc, seed):
     """The default route: evidence, decision and the physical fit with sampling."""
     from tumble.classify import classify
@@ -63,6 +70,7 @@ class Route:
 ROUTES = {r.name: r for r in (
     Route("screen", run_screen, "tumble.classify.screen"),
     Route("evidence", run_evidence, "tumble.classify.classify(fit_state=False)"),
+    Route("sidereal", run_sidereal, "tumble.classify.classify(fit_state=False), sidereal PA refit"),
     Route("full", run_full, "tumble.classify.classify (physical fit sampled)"),
 )}
 

@@ -259,6 +259,35 @@ def period_accuracy(rows) -> dict:
     return out
 
 
+#: Clear dense PA (issue 15's sidereal target): amplitude at least this many noise sigmas ...
+CLEAR_PA_AMPLITUDE_OVER_NOISE = 5.0
+#: ... and a span of at least this many rotations.
+CLEAR_PA_ROTATIONS = 3.0
+#: The sidereal-period tolerance of the target (0.1 %).
+SIDEREAL_TOLERANCE = 0.001
+
+
+def sidereal_accuracy(rows) -> dict:
+    """PA verdicts on clear dense PA bodies: period within 0.1 % and the 1-sigma interval covering the truth.
+
+    Returns ``{kind: (within Rate, covered Rate)}`` for ``kind`` in 'all', 'sidereal', 'synodic'
+    (``period_kind`` of the verdict).
+    """
+    sel = [r for r in rows if r.get("true.truth_class") == "PA" and r.get("true.plan_kind") == "dense"
+           and str(get(r, "rotation", "")).upper() == "PA"
+           and _num(r.get("true.amplitude_over_noise")) >= CLEAR_PA_AMPLITUDE_OVER_NOISE
+           and _num(r.get("true.span_over_period")) >= CLEAR_PA_ROTATIONS
+           and np.isfinite(_num(get(r, "period_h")))]
+    out = {}
+    for kind in ("all", "sidereal", "synodic"):
+        sub = [r for r in sel if kind == "all" or r.get("period_kind") == kind]
+        within = sum(_within(get(r, "period_h"), r.get("true.period_h"), SIDEREAL_TOLERANCE) for r in sub)
+        covered = sum(abs(_num(get(r, "period_h")) - _num(r.get("true.period_h"))) <= _num(r.get("period_h_err"))
+                      for r in sub)
+        out[kind] = (_rate(within, len(sub)), _rate(covered, len(sub)))
+    return out
+
+
 def grade_confusion(rows) -> dict:
     """Counts of (truth class, verdict rotation, grade)."""
     out = {}
@@ -343,6 +372,15 @@ def report_text(rows, *, split: str = "all", figure_path=None, p_field: str = "p
             r1, r2 = acc[(kind, plan, 0.01)], acc[(kind, plan, 0.02)]
             if r1.n:
                 w(f"   {label} ({plan}): {r1.k}/{r1.n} = {r1.value:.3f} within 1 %, {r2.k}/{r2.n} = {r2.value:.3f} within 2 %")
+
+    sid = sidereal_accuracy(good)
+    if sid["all"][0].n:
+        w("\nClear dense PA (amplitude >= 5 noise, >= 3 rotations), PA verdicts: period within 0.1 % (target >= 95 %); "
+          "1-sigma interval covers the truth (target 60-76 %):")
+        for kind, (within, covered) in sid.items():
+            if within.n:
+                w(f"   {kind:9s} {within.k}/{within.n} = {within.value:.3f} within 0.1 %, "
+                  f"{covered.k}/{covered.n} = {covered.value:.3f} covered")
 
     big = [r for r in good if _num(get(r, "ln_b")) <= -LN_B_STAND_IN]
     if big:
