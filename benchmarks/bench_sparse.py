@@ -248,10 +248,109 @@ def _summary(rows):
           f"(linear in n): median {np.median(per300):.1f} s   (target <= 60 s)")
 
 
+# ---------------------------------------------------------------------------
+# the calibration library's sparse PA objects (split calibration / held out)
+
+#: Rendered library (``benchmarks/bench_classify.py generate``; copied from another checkout is fine).
+LIBRARY_DIR = os.path.join(os.path.dirname(os.path.abspath(__file__)), ".cache", "library-cal-2-20261204")
+
+
+def _library_objects(split: str, category: str = "sparse-pa"):
+    """Ids of the cached library objects of one category and split (sorted)."""
+    import glob
+
+    out = []
+    for js in sorted(glob.glob(os.path.join(LIBRARY_DIR, f"CAL-{category}-*.json"))):
+        with open(js) as fh:
+            meta = json.load(fh)
+        if split == "all" or meta["truth"]["split"] == split:
+            out.append(meta["truth"]["object_id"])
+    return out
+
+
+def _truth_start_fit(lc, period_h: float, lon_deg: float, lat_deg: float):
+    """Chi-square of the full model refined from the true period and pole (and from its mirror)."""
+    import tumble.sparse.fit as F
+    from tumble.sparse.model import profiled_chi2
+
+    pb = F._build_problem(lc, None, None, "lommel-seeliger", "auto", F.ERROR_FLOOR_MAG)
+    f = F.HOURS_PER_DAY / period_h
+    best = None
+    for lon in (lon_deg, lon_deg + 180.0):
+        x0 = F._linear_start(pb, f, lon % 360.0, lat_deg)
+        xs = np.vstack([x0, x0 + np.eye(x0.size)[3] * 0.5 * math.pi])
+        chi2, _ = profiled_chi2(pb.ellipsoid, xs)
+        sol = F._refine(pb, xs[int(np.argmin(chi2))], f)
+        if best is None or sol.chi2 < best.chi2:
+            best = sol
+    return best
+
+
+def _library_one(object_id: str, diagnose: bool) -> dict:
+    sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+    from library.render import load_rendered
+
+    from tumble.sparse import fit_pa_geometry
+
+    obj = load_rendered(LIBRARY_DIR, object_id)
+    tr = obj.truth
+    rot = obj.spec.rotation
+    lc = obj.lightcurve
+    t0 = time.perf_counter()
+    fit = fit_pa_geometry(lc, rng=0, n_steps=150)
+    dt = time.perf_counter() - t0
+    p_true = tr.period_h
+    in_family = any(abs(a.period_h - p_true) < 0.01 * p_true for a in fit.alias_family)
+    pole_err = min([min(_angle(p.lon_deg, p.lat_deg, rot.l_lon_deg, rot.l_lat_deg),
+                        _angle(p.lon_deg, p.lat_deg, rot.l_lon_deg + 180.0, rot.l_lat_deg))
+                    for p in fit.poles if p.delta_chi2_scaled <= fit.alias_delta_chi2] or [float("nan")])
+    row = {"id": object_id, "n": lc.n_points, "span_d": lc.span_d, "sigma": tr.noise_mag, "amp_mag": tr.amplitude_mag,
+           "period_h": p_true, "p_fit": fit.best_period_h, "status": fit.status,
+           "p_ok": abs(fit.best_period_h - p_true) < 0.01 * p_true, "in_family": in_family,
+           "family": len(fit.alias_family), "thr": fit.alias_delta_chi2, "pole_err": pole_err, "time_s": dt,
+           "chi2": fit.chi2, "rchi2": fit.reduced_chi2, "faceted": tr.body != "ellipsoid", "law": tr.law,
+           "second_dchi2": (fit.alias_family[1].delta_chi2_scaled if len(fit.alias_family) > 1 else float("nan")),
+           "alias_family": [[a.period_h, a.delta_chi2_scaled, a.same_rotation] for a in fit.alias_family],
+           "message": fit.message}
+    if diagnose:
+        sol = _truth_start_fit(lc, p_true, rot.l_lon_deg, rot.l_lat_deg)
+        row["chi2_truth"] = sol.chi2
+        row["p_truth_fit"] = 24.0 / float(sol.x[0])
+    return row
+
+
+def part_library(split: str, diagnose: bool, workers: int, limit: int | None):
+    from concurrent.futures import ProcessPoolExecutor
+
+    ids = _library_objects(split)[:limit]
+    print(f"\n== PA recovery on the library's sparse PA objects ({split} half: {len(ids)} objects) ==")
+    print(f"{'object':<20}{'n':>5}{'sig':>6}{'amp':>6}{'P true':>9}{'P fit':>10}{'status':>13}{'fam':>4}"
+          f"{'pole err':>9}{'time s':>8}" + (f"{'chi2 fit':>10}{'chi2 true':>10}{'P(true st)':>11}" if diagnose else ""))
+    rows = []
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        for row in pool.map(_library_one, ids, [diagnose] * len(ids)):
+            rows.append(row)
+            line = (f"{row['id']:<20}{row['n']:>5}{row['sigma']:>6.3f}{row['amp_mag']:>6.2f}{row['period_h']:>9.4f}"
+                    f"{row['p_fit']:>10.4f}{row['status']:>13}{row['family']:>4}{row['pole_err']:>9.1f}"
+                    f"{row['time_s']:>8.1f}")
+            if diagnose:
+                line += f"{row['chi2']:>10.1f}{row['chi2_truth']:>10.1f}{row['p_truth_fit']:>11.4f}"
+            print(line, flush=True)
+    _summary(rows)
+    return rows
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="fewer objects; no 2-D search at 10 000 d")
-    ap.add_argument("--part", choices=("memory", "recovery", "all"), default="all")
+    ap.add_argument("--part", choices=("memory", "recovery", "library", "all"), default="all")
+    ap.add_argument("--split", choices=("calibration", "heldout", "all"), default="heldout",
+                    help="library half of part 'library' (default: held out)")
+    ap.add_argument("--diagnose", action="store_true",
+                    help="part 'library': also refine from the true period and pole (search or model at fault?)")
+    ap.add_argument("--workers", type=int, default=1, help="worker processes of part 'library'")
+    ap.add_argument("--limit", type=int, default=None, help="first N objects of part 'library'")
+    ap.add_argument("--json", default=None, help="part 'library': write the rows to this JSON file")
     ap.add_argument("--seed", type=int, default=POPULATION_SEED, help="population seed (default: held out)")
     ap.add_argument("--one", nargs=2, metavar=("CASE", "SPAN_D"), help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
@@ -262,6 +361,11 @@ def main(argv=None):
         part_memory(args.quick)
     if args.part in ("recovery", "all"):
         part_recovery(args.quick, args.seed)
+    if args.part == "library":
+        rows = part_library(args.split, args.diagnose, args.workers, args.limit)
+        if args.json:
+            with open(args.json, "w") as fh:
+                json.dump(rows, fh)
     return 0
 
 
