@@ -61,7 +61,7 @@ DEFAULT_PERIOD_RANGE_H = (2.0, 1000.0)
 #: Grid step 1 / (OVERSAMPLE * 4 * span): the 4th harmonic of the rotation drifts by a quarter
 #: cycle over the span between neighbouring frequencies, the main (2nd) one by an eighth.
 OVERSAMPLE = 2.0
-#: Largest frequency grid (documented limit: 2-100 h over about 115 years); beyond it the
+#: Largest frequency grid (documented limit: 2-1000 h over about 114 years); beyond it the
 #: fit stops with a one-line error instead of growing its memory (the grid's two arrays then
 #: hold 48 MB).
 MAX_FREQUENCIES = 4_000_000
