@@ -366,9 +366,8 @@ def part_classify(split: str, workers: int, limit: int | None, out_path: str | N
     """False NPA on sparse PA and NPA recall with the full sparse route of ``classify`` (resumable table)."""
     from concurrent.futures import ProcessPoolExecutor
 
-    ids = []
-    for cat in ("sparse-pa", "sparse-npa"):
-        ids += _library_objects(split, cat)[:limit]
+    pa, npa = (_library_objects(split, cat)[:limit] for cat in ("sparse-pa", "sparse-npa"))
+    ids = [i for pair in zip(pa, npa) for i in pair] + pa[len(npa):] + npa[len(pa):]  # both classes as it goes
     out_path = out_path or os.path.join(os.path.dirname(LIBRARY_DIR), f"sparse-classify-{split}.jsonl")
     done = {}
     if os.path.exists(out_path):
@@ -419,10 +418,30 @@ def _classify_summary(rows):
               f"{times.max():.1f} s; scaled to 300 points: median {np.median(times / npts * 300):.1f} s (target <= 60 s)")
 
 
+def part_screen(split: str, limit: int | None):
+    """Wall time of the survey screen (``tumble.classify.screen``) on the library's sparse objects, one core."""
+    sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+    from library.render import load_rendered
+
+    from tumble.classify import screen
+
+    ids = [i for cat in ("sparse-pa", "sparse-npa") for i in _library_objects(split, cat)[:limit]]
+    per200 = []
+    for object_id in ids:
+        lc = load_rendered(LIBRARY_DIR, object_id).lightcurve
+        t0 = time.perf_counter()
+        screen(lc)
+        per200.append((time.perf_counter() - t0) / lc.n_points * 200.0)
+    per200 = np.array(per200)
+    print(f"\n== Screen on {len(ids)} sparse library objects ({split}) ==")
+    print(f"time scaled to 200 points: median {np.median(per200):.2f} s, 90th percentile "
+          f"{np.percentile(per200, 90):.2f} s, max {per200.max():.2f} s (target <= 0.2 s)")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="fewer objects; no 2-D search at 10 000 d")
-    ap.add_argument("--part", choices=("memory", "recovery", "library", "classify", "all"), default="all")
+    ap.add_argument("--part", choices=("memory", "recovery", "library", "classify", "screen", "all"), default="all")
     ap.add_argument("--split", choices=("calibration", "heldout", "all"), default="heldout",
                     help="library half of part 'library' (default: held out)")
     ap.add_argument("--diagnose", action="store_true",
@@ -440,6 +459,8 @@ def main(argv=None):
         part_memory(args.quick)
     if args.part in ("recovery", "all"):
         part_recovery(args.quick, args.seed)
+    if args.part == "screen":
+        part_screen(args.split, args.limit)
     if args.part == "classify":
         part_classify(args.split, args.workers, args.limit, args.json)
     if args.part == "library":
