@@ -308,6 +308,7 @@ def _library_one(object_id: str, diagnose: bool) -> dict:
            "period_h": p_true, "p_fit": fit.best_period_h, "status": fit.status,
            "p_ok": abs(fit.best_period_h - p_true) < 0.01 * p_true, "in_family": in_family,
            "family": len(fit.alias_family), "thr": fit.alias_delta_chi2, "pole_err": pole_err, "time_s": dt,
+           "signature_over_noise": tr.signature_over_noise,
            "chi2": fit.chi2, "rchi2": fit.reduced_chi2, "faceted": tr.body != "ellipsoid", "law": tr.law,
            "second_dchi2": (fit.alias_family[1].delta_chi2_scaled if len(fit.alias_family) > 1 else float("nan")),
            "alias_family": [[a.period_h, a.delta_chi2_scaled, a.same_rotation] for a in fit.alias_family],
@@ -319,14 +320,16 @@ def _library_one(object_id: str, diagnose: bool) -> dict:
     return row
 
 
-def part_library(split: str, diagnose: bool, workers: int, limit: int | None):
+def part_library(split: str, diagnose: bool, workers: int, limit: int | None, category: str = "sparse-pa"):
     from concurrent.futures import ProcessPoolExecutor
 
-    ids = _library_objects(split)[:limit]
+    ids = _library_objects(split, category)[:limit]
     print(f"\n== PA recovery on the library's sparse PA objects ({split} half: {len(ids)} objects) ==")
     print(f"{'object':<20}{'n':>5}{'sig':>6}{'amp':>6}{'P true':>9}{'P fit':>10}{'status':>13}{'fam':>4}"
           f"{'pole err':>9}{'time s':>8}" + (f"{'chi2 fit':>10}{'chi2 true':>10}{'P(true st)':>11}" if diagnose else ""))
     rows = []
+    if category != "sparse-pa":
+        diagnose = False  # no PA truth to start from
     with ProcessPoolExecutor(max_workers=workers) as pool:
         for row in pool.map(_library_one, ids, [diagnose] * len(ids)):
             rows.append(row)
@@ -446,6 +449,8 @@ def main(argv=None):
                     help="library half of part 'library' (default: held out)")
     ap.add_argument("--diagnose", action="store_true",
                     help="part 'library': also refine from the true period and pole (search or model at fault?)")
+    ap.add_argument("--category", choices=("sparse-pa", "sparse-npa"), default="sparse-pa",
+                    help="part 'library': library category (sparse-npa: the PA fit's reduced chi-square on tumblers)")
     ap.add_argument("--workers", type=int, default=1, help="worker processes of part 'library'")
     ap.add_argument("--limit", type=int, default=None, help="first N objects of part 'library'")
     ap.add_argument("--json", default=None, help="part 'library': write the rows to this JSON file")
@@ -464,7 +469,7 @@ def main(argv=None):
     if args.part == "classify":
         part_classify(args.split, args.workers, args.limit, args.json)
     if args.part == "library":
-        rows = part_library(args.split, args.diagnose, args.workers, args.limit)
+        rows = part_library(args.split, args.diagnose, args.workers, args.limit, args.category)
         if args.json:
             with open(args.json, "w") as fh:
                 json.dump(rows, fh)
