@@ -5,6 +5,10 @@ Usage::
     python benchmarks/bench_sparse.py            # everything (about 15-25 minutes on one core)
     python benchmarks/bench_sparse.py --quick    # fewer objects, smoke run (a few minutes)
     python benchmarks/bench_sparse.py --part memory   # or: recovery
+    python benchmarks/bench_sparse.py --part library --split calibration --diagnose --workers 2
+    python benchmarks/bench_sparse.py --part library --category sparse-npa --split heldout
+    python benchmarks/bench_sparse.py --part classify --split heldout --workers 2   # resumable
+    python benchmarks/bench_sparse.py --part screen --split heldout --limit 5
 
 Threads are pinned to one before numpy is imported. Memory is the peak resident set
 (``ru_maxrss``) of a fresh subprocess per case, so the cases do not share allocations.
@@ -24,6 +28,16 @@ objects whose rotational amplitude is >= 3x the noise, wrong unique periods, pol
 ``DEVELOPMENT_SEED`` was looked at while the decision rules were written (a first quick run led
 to the edge-of-range rule and the look-elsewhere allowance of the alias threshold); the printed
 figures come from ``POPULATION_SEED``, which was not used for any choice.
+
+Parts on the calibration library (``docs/calibration-library.md``; rendered objects read from
+``benchmarks/.cache/library-cal-2-20261204/``, e.g. copied from another checkout's cache):
+``library`` runs ``fit_pa_geometry`` on the sparse PA (or, ``--category sparse-npa``, NPA) objects
+of one split and prints the same figures; ``--diagnose`` also refines the full model from the true
+period and pole, so that a failure shows whether the search (the truth fits better) or the
+model/decision (it does not) is at fault. Choices are made on ``--split calibration``; the
+held-out split is for reporting. ``classify`` runs the full sparse route of ``classify`` (false
+NPA on sparse PA with its Clopper-Pearson upper limit, NPA recall by signature/noise, time) into a
+resumable JSON-lines table; ``screen`` times the survey screen per 200 points.
 """
 
 from __future__ import annotations
