@@ -15,6 +15,8 @@ Outputs (all in this folder):
   the object is the part of the name before ``__``. Two files are broken on
   purpose (a corrupt row, a truncated gzip file) to show the error rows.
 - ``sparse/svs_sample.csv.gz``: one table, one ``object`` column.
+- ``sparse/svs_orbits.csv``: the survey objects' orbital elements (for ``--orbits``: the Sun and
+  observer directions the sparse route needs).
 - ``census/krn_census.ecsv``: an earlier census of rotation verdicts with
   diameters, in the results schema, for ``tumble relax --sample``.
 - ``truth.ecsv``: the truth of every campaign and survey object.
@@ -139,7 +141,7 @@ def make_sparse(rng, truth_rows, n_objects=240):
     out = HERE / "sparse"
     shutil.rmtree(out, ignore_errors=True)
     out.mkdir()
-    tables = []
+    tables, orbits = [], []
     for k in range(n_objects):
         name = f"SVS-{k + 1:04d}"
         u = rng.random()
@@ -170,6 +172,7 @@ def make_sparse(rng, truth_rows, n_objects=240):
             "delta": np.round(np.asarray(lc.delta_au), 5), "alpha": np.round(np.asarray(lc.phase_deg), 3),
         }))
         truth_rows.append(_truth_row(name, "sparse", state, h_mag, albedo, plan.n_nights))
+        orbits.append((name, elements))
     table = vstack(tables)
     text = "\n".join(["# Sparrowhawk Valley Survey (invented): sparse r-band photometry, apparent magnitudes",
                       "# columns: object, mjd (UTC), mag, mag_err, filter, rh (au), delta (au), alpha (deg)"])
@@ -178,6 +181,22 @@ def make_sparse(rng, truth_rows, n_objects=240):
     buf = io.StringIO()
     table.write(buf, format="ascii.csv")
     (out / "svs_sample.csv.gz").write_bytes(gzip.compress((text + "\n" + buf.getvalue()).encode(), mtime=0))
+    write_sparse_orbits(orbits, out / "svs_orbits.csv")
+
+
+def write_sparse_orbits(orbits, path) -> None:
+    """The survey objects' (invented) two-body elements, a plain table ``--orbits`` reads.
+
+    Full precision (17 significant digits): the geometry ``--orbits`` computes from this file is
+    the one the photometry was simulated with.
+    """
+    lines = ["# Sparrowhawk Valley Survey (invented): osculating two-body elements of the sample's objects",
+             "# a_au (au), e, i_deg/node_deg/peri_deg/m_deg (deg, ecliptic J2000), epoch_jd (JD TDB)",
+             "object,a_au,e,i_deg,node_deg,peri_deg,m_deg,epoch_jd"]
+    for name, el in orbits:
+        vals = (el.a_au, el.e, el.i_deg, el.node_deg, el.peri_deg, el.mean_anomaly_deg, el.epoch_jd)
+        lines.append(name + "," + ",".join(repr(float(v)) for v in vals))
+    Path(path).write_text("\n".join(lines) + "\n")
 
 
 #: Census tumblers: P_psi / P_phi of their (invented) SAM states.

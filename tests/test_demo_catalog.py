@@ -43,3 +43,18 @@ def test_sparse_sample_and_truth():
     truth = Table.read(DEMO_DIR / "truth.ecsv")
     assert set(truth["object"]) == set(items) | set(groups())
     assert set(truth["rotation"]) == {"PA", "NPA"}
+
+
+def test_sparse_orbits_give_every_object_the_geometry_of_its_table():
+    # the survey's orbital elements (sparse/svs_orbits.csv, for --orbits) reproduce the table's own
+    # phase angles: the Sun and observer directions the sparse route gets are those of the simulation
+    from tumble.geometry import phase_angle_deg
+    from tumble.orbits import read_orbits
+    from tumble.photometry import ReadOptions
+
+    orbits = read_orbits(DEMO_DIR / "sparse" / "svs_orbits.csv")
+    items = dict(iter_survey(DEMO_DIR / "sparse" / "svs_sample.csv.gz", options=ReadOptions(orbits=orbits)))
+    assert len(items) == 240 and all(orbits.lookup(name) is not None for name in items)
+    for lc in list(items.values())[::40]:
+        assert lc.sun_dir is not None and lc.obs_dir is not None
+        np.testing.assert_allclose(phase_angle_deg(lc.sun_dir, lc.obs_dir), lc.phase_deg, atol=0.01)

@@ -142,6 +142,42 @@ def test_sidereal_period_where_the_synodic_differs():
     assert abs(fit.period_h - p_sid) < abs(syn.rotation_period_h - p_sid) / 10.0
 
 
+def test_pole_sense_spread_follows_the_orbital_motion():
+    # The bisector of a main-belt body turns about once per orbit, so sidereal solutions of opposite
+    # sense differ by about 2 / P_orb (Kepler's third law, P_orb = a^1.5 yr; the sidereal-synodic
+    # relation of Kaasalainen 2004); with no geometry the spread is the grid tolerance alone.
+    from tumble.sparse.fit import SAME_ROTATION_EXTRA_STEPS, _pole_sense_spread
+
+    state = RotationState.principal_axis(10.0637, 107.5, 38.9, 30.0, 2459000.5)
+    plan = SparseSurvey(start_jd_utc=2459000.5, span_d=800.0, n_nights=100, points_per_night=2,
+                        min_elongation_deg=90.0)
+    el = opposition_elements(2459100.5, a_au=2.5, e=0.05, i_deg=5.0)
+    lc = simulate_lightcurve(state, (1.6, 1.2, 1.0), plan, el, noise=NoiseModel(0.03), rng=2).lightcurve
+    pb = _build_problem(lc, None, None, "lommel-seeliger", "auto", 0.01)
+    p_orb_d = 365.25 * 2.5**1.5
+    extra = SAME_ROTATION_EXTRA_STEPS * pb.df
+    assert _pole_sense_spread(pb) - extra == pytest.approx(2.0 / p_orb_d, rel=0.35)
+    flat = LightCurve.from_arrays(lc.t, lc.mag, lc.err, object_id="no-geometry")
+    pb0 = _build_problem(flat, None, None, "lommel-seeliger", "auto", 0.01)
+    assert pb0.geometry_fixed and _pole_sense_spread(pb0) == pytest.approx(SAME_ROTATION_EXTRA_STEPS * pb0.df)
+
+
+@pytest.mark.slow
+def test_gault_ztf_classify_reports_no_unique_period(gault_csv):
+    # (6478) Gault, 65 real ZTF points (shared/external_data/gault_ztf/README.md; Ye et al. 2019):
+    # the published period is about 2.5 h at <= 0.05 mag (Purdum et al. 2021), so no period is
+    # expected from these points (common practice). The sparse route of classify runs and says so:
+    # undecided, no period, the reason named (the file has r, Delta and phase but no directions).
+    from tumble.classify import classify
+
+    v = classify(read_lightcurve(gault_csv), rng=1, detection_limit=False).verdict
+    d = v.to_dict()
+    assert d["route"] == "sparse"
+    assert v.rotation == "undecided" and v.grade == "none"
+    assert d.get("period_h") is None or not math.isfinite(d["period_h"])
+    assert "no observing geometry" in v.grade_reason
+
+
 def test_gault_ztf_gives_no_unique_period(gault_csv):
     # (6478) Gault, 65 ZTF points over 451 days (shared/external_data/gault_ztf/README.md): the
     # published period is about 2.5 h at <= 0.05 mag (Purdum et al. 2021), so none is expected

@@ -54,13 +54,14 @@ __all__ = [
 
 HOURS_PER_DAY = 24.0
 #: Default sidereal-period range, hours: 2 h (near the spin barrier of bodies larger than a few
-#: hundred metres, Pravec & Harris 2000, from memory) to 100 h; the upper end is lowered to a
-#: quarter of the span when the span is shorter.
-DEFAULT_PERIOD_RANGE_H = (2.0, 100.0)
+#: hundred metres, Pravec & Harris 2000, from memory) to 1000 h (slow rotators of several hundred
+#: hours are common among small main-belt asteroids, from memory; the grid grows by only ~2 % from
+#: 100 h); the upper end is lowered to a quarter of the span when the span is shorter.
+DEFAULT_PERIOD_RANGE_H = (2.0, 1000.0)
 #: Grid step 1 / (OVERSAMPLE * 4 * span): the 4th harmonic of the rotation drifts by a quarter
 #: cycle over the span between neighbouring frequencies, the main (2nd) one by an eighth.
 OVERSAMPLE = 2.0
-#: Largest frequency grid (documented limit: 2-100 h over about 115 years); beyond it the
+#: Largest frequency grid (documented limit: 2-1000 h over about 114 years); beyond it the
 #: fit stops with a one-line error instead of growing its memory (the grid's two arrays then
 #: hold 48 MB).
 MAX_FREQUENCIES = 4_000_000
@@ -75,6 +76,11 @@ FINE_HALF_STEPS = 2
 FINE_SUBSTEPS = 4
 #: Two refined candidates closer than this many coarse grid steps are the same solution.
 SAME_SOLUTION_STEPS = 2.0
+#: Sidereal periods of one rotation seen with poles of opposite sense differ by up to twice the
+#: phase-angle bisector's mean angular rate (|f_sid - f_syn| <= rate / 2 pi, e.g. Kaasalainen
+#: 2004's sidereal-synodic relation): alias-family members closer to the best than that (plus this
+#: many grid steps) are the same rotation with another pole, not another period.
+SAME_ROTATION_EXTRA_STEPS = 2.0
 #: Extra starts (spread over the sphere) of the pole refinement at the best period.
 POLE_STARTS = 10
 #: Two pole solutions closer than this are the same (degrees).
@@ -158,12 +164,17 @@ class AliasMember:
         Chi-square above the best, scaled by the reduced chi-square.
     pole_lon_deg, pole_lat_deg : float
         Its pole, degrees.
+    same_rotation : bool
+        True when its frequency lies within the pole-sense spread of the best
+        (``GeometricPAFit.pole_sense_spread_per_d``): the best period seen with another pole,
+        not a separate alias (the period interval covers it).
     """
 
     period_h: float
     delta_chi2_scaled: float
     pole_lon_deg: float
     pole_lat_deg: float
+    same_rotation: bool = False
 
 
 @dataclass(frozen=True, eq=False)
@@ -239,9 +250,14 @@ class GeometricPAFit:
     delta_bic_rotation : float
         BIC of the no-rotation model minus that of the ellipsoid (scaled chi-squares).
     alias_family : tuple of AliasMember
-        Every refined period within ``alias_delta_chi2`` of the best (the best first).
+        Every refined period within ``alias_delta_chi2`` of the best (the best first); members
+        flagged ``same_rotation`` are the best period with another pole and do not make the
+        period undecided.
     alias_delta_chi2 : float
         The threshold used: ``max(ALIAS_DELTA_CHI2, 2 ln N)`` for N independent frequencies.
+    pole_sense_spread_per_d : float
+        Largest difference between sidereal frequencies of one rotation seen with different poles:
+        twice the bisector's mean angular rate over 2 pi, plus two grid steps, cycles/day.
     geometry_fixed : bool
         True when the data held no Sun/observer directions (period then close to synodic,
         pole meaningless).
@@ -286,6 +302,7 @@ class GeometricPAFit:
     delta_bic_rotation: float
     alias_family: tuple
     alias_delta_chi2: float
+    pole_sense_spread_per_d: float
     geometry_fixed: bool
     geometry_note: str
     parameters: np.ndarray
@@ -319,9 +336,11 @@ class GeometricPAFit:
             "max_log_likelihood": self.max_log_likelihood, "bic": self.bic, "n_params": self.n_params,
             "n_points": self.n_points, "chi2_null": self.chi2_null, "delta_bic_rotation": self.delta_bic_rotation,
             "alias_family": [{"period_h": a.period_h, "delta_chi2_scaled": a.delta_chi2_scaled,
-                              "pole_lon_deg": num(a.pole_lon_deg), "pole_lat_deg": num(a.pole_lat_deg)}
+                              "pole_lon_deg": num(a.pole_lon_deg), "pole_lat_deg": num(a.pole_lat_deg),
+                              "same_rotation": a.same_rotation}
                              for a in self.alias_family],
-            "alias_delta_chi2": self.alias_delta_chi2, "geometry_fixed": self.geometry_fixed,
+            "alias_delta_chi2": self.alias_delta_chi2, "pole_sense_spread_per_d": self.pole_sense_spread_per_d,
+            "geometry_fixed": self.geometry_fixed,
             "geometry_note": self.geometry_note, "warnings": list(self.warnings),
             "posterior": None if self.posterior is None else {
                 "acceptance": self.posterior.acceptance, "n_walkers": self.posterior.n_walkers,
@@ -715,6 +734,8 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
     s2 = max(1.0, best.chi2 / dof)
     alias_dchi2 = _alias_threshold(pb)
     family = [s for s in sols if (s.chi2 - best.chi2) / s2 <= alias_dchi2]
+    spread = _pole_sense_spread(pb)
+    same = [abs(float(s.x[0]) - float(best.x[0])) <= spread for s in family]
     chi2_null = _null_chi2(pb)
     delta_bic = (chi2_null - best.chi2) / s2 - N_ROTATION_PARAMS * math.log(n)
     poles = tuple(PoleSolution(float(p.x[1]), float(p.x[2]), p.chi2, (p.chi2 - best.chi2) / s2, kind)
@@ -726,7 +747,15 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
         if p.delta_chi2_scaled <= alias_dchi2:
             p_other = next(HOURS_PER_DAY / q.x[0] for q, _ in pole_sols if q.chi2 == p.chi2)
             p_lo, p_hi = min(p_lo, p_other), max(p_hi, p_other)
-    status, message = _decide(delta_bic, family, pb, best.chi2 / dof, alias_dchi2, float(best.x[0]))
+    for s, is_same in zip(family, same):  # so do the family members that are the same rotation
+        if is_same:
+            p_lo, p_hi = min(p_lo, HOURS_PER_DAY / s.x[0]), max(p_hi, HOURS_PER_DAY / s.x[0])
+    distinct = [s for s, is_same in zip(family, same) if not is_same or s is best]
+    status, message = _decide(delta_bic, distinct, pb, best.chi2 / dof, alias_dchi2, float(best.x[0]))
+    n_same = sum(same) - 1
+    if status == "unique" and n_same > 0:
+        message += (f"; {n_same} other solution(s) within {spread:.2g} c/d are the same rotation with another pole "
+                    "(covered by the period interval)")
     _, zp = profiled_chi2(ell, best.x[None])
     g1, g2 = (float(v[0]) for v in ell.phase.g1g2(best.x[None, N_SHAPE_PARAMS:]))
     warnings = []
@@ -750,8 +779,8 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
         reduced_chi2=best.chi2 / dof, max_log_likelihood=ll, bic=k * math.log(n) - 2.0 * ll, n_params=int(k),
         n_points=n, chi2_null=chi2_null, delta_bic_rotation=float(delta_bic),
         alias_family=tuple(AliasMember(HOURS_PER_DAY / float(s.x[0]), (s.chi2 - best.chi2) / s2, float(s.x[1]),
-                                       float(s.x[2])) for s in family),
-        alias_delta_chi2=alias_dchi2, geometry_fixed=pb.geometry_fixed, geometry_note=pb.geometry_note,
+                                       float(s.x[2]), bool(is_same)) for s, is_same in zip(family, same)),
+        alias_delta_chi2=alias_dchi2, pole_sense_spread_per_d=spread, geometry_fixed=pb.geometry_fixed, geometry_note=pb.geometry_note,
         parameters=best.x, parameter_names=_names(ell), posterior=post,
         scan_frequency_per_d=pb.f0 + pb.df * np.arange(pb.n_freq), scan_chi2=best_scan,
         warnings=tuple(warnings),
@@ -821,6 +850,25 @@ def _alias_threshold(pb: _Problem) -> float:
     span = float(pb.scan.t[-1] - pb.scan.t[0])
     n_indep = max(2.0, 2.0 * pb.df * (pb.n_freq - 1) * span)
     return float(max(ALIAS_DELTA_CHI2, 2.0 * math.log(n_indep)))
+
+
+def _pole_sense_spread(pb: _Problem) -> float:
+    """Largest sidereal-frequency difference of one rotation seen with different poles, cycles/day.
+
+    The rotation phase seen from the phase-angle bisector is ``2 pi f_sid t - s theta(t)``, with
+    ``theta`` the bisector's longitude about the pole and ``|s| <= 1`` set by the pole; a pole of
+    the opposite sense matches the same synodic signal at a sidereal frequency shifted by up to
+    ``2 <dtheta/dt> / 2 pi``. The mean rate is the least-squares slope of the bisector's unwrapped
+    ecliptic longitude against time; two grid steps are added for the refined optimum's scatter.
+    With no geometry (a fixed bisector) the spread is the two grid steps alone.
+    """
+    b = pb.scan.bisector
+    t = pb.scan.t
+    lam = np.unwrap(np.arctan2(b[:, 1], b[:, 0]))
+    slope = 0.0
+    if np.ptp(t) > 0 and not pb.geometry_fixed:
+        slope = float(np.polyfit(t - t.mean(), lam, 1)[0])
+    return abs(slope) / math.pi + SAME_ROTATION_EXTRA_STEPS * pb.df
 
 
 def _decide(delta_bic, family, pb, reduced_chi2, alias_dchi2, f_best):
