@@ -504,11 +504,12 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     reasons = []
     converged = False
     if max_steps > 0:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            posterior = sample_posterior(model, model.space, start=best_x, n_walkers=n_walkers, n_ensembles=2,
-                                         max_steps=max_steps, first_block=min(500, max_steps), rng=rng,
-                                         progress=progress, warn=False, start_scale=1e-3)
+        from tumble.inference.local import sample_local_mode
+
+        # the chosen solution's own mode, started from its optimum (tumble.inference.local): the
+        # interval is never a mixture of separated modes, and leaving the mode is a diagnostic
+        posterior = sample_local_mode(model, model.space, best_x, max_steps=max_steps, n_walkers=n_walkers,
+                                      rng=rng, progress=progress)
         converged = posterior.converged
         reasons = list(posterior.diagnostics.reasons)
         samples = posterior.samples
