@@ -808,6 +808,15 @@ class PhysicalModel:
 
     # -- parameters -> state arrays --------------------------------------------
 
+    @property
+    def attitude_parameters(self) -> tuple:
+        """Names of the spin (PA) or angular-momentum (NPA) longitude, latitude and the phase about it.
+
+        Together they are one rotation of the body (sampled as such by
+        :class:`tumble.inference.local.AttitudeChart`).
+        """
+        return ("l_lon_rad", "l_lat_rad", "phase0_rad" if self.mode == "PA" else "phi0_rad")
+
     def state_arrays(self, x):
         """Arguments of :func:`tumble.dynamics.ecliptic_to_body` and the axes for ``(K, ndim)`` vectors."""
         x = np.atleast_2d(np.asarray(x, float))

@@ -15,12 +15,15 @@ rather than the whole, multimodal posterior:
    wander into another solution's mode (another alias, the mirror pole); how much of the sample lies
    near its edge and how many proposals fell outside are diagnostics (``mode_edge_fraction``,
    ``outside_fraction``): a posterior that fills the region is reported as not contained.
-3. **Moves** (emcee, Foreman-Mackey et al. 2013, PASP 125, 306): a mixture of an independence
-   Metropolis-Hastings move with a multivariate Student-t proposal of the mode's covariance
-   (:class:`LaplaceIndependenceMove`; Tierney 1994, Ann. Statist. 22, 1701, section 2.3.3: for a
-   posterior close to its Gaussian approximation successive draws are nearly independent), and the
-   differential-evolution moves (ter Braak 2006, Stat. Comput. 16, 239; ter Braak & Vrugt 2008,
-   Stat. Comput. 18, 435), which follow the correlations and curvature the Gaussian misses.
+3. **Moves** (emcee, Foreman-Mackey et al. 2013, PASP 125, 306): a mixture (:data:`MOVE_WEIGHTS`)
+   of an independence Metropolis-Hastings move with a multivariate Student-t proposal of the mode's
+   covariance (:class:`LaplaceIndependenceMove`; Tierney 1994, Ann. Statist. 22, 1701, section
+   2.3.3: for a posterior close to its Gaussian approximation successive draws are nearly
+   independent), the affine-invariant stretch move (Goodman & Weare 2010, CAMCoS 5, 65) and
+   differential evolution (ter Braak 2006, Stat. Comput. 16, 239), which follow the correlations and
+   curvature the Gaussian misses. An optional chart (:class:`AttitudeChart`) samples a direction and
+   the phase about it as a rotation vector about the optimum, which straightens the attitude's
+   curved ridge.
    Periodic coordinates are sampled in a one-period window centred on the optimum
    (:class:`~tumble.inference.logpost.LogPosterior`), so angles are never cut near the mode.
 4. **Pilot and main run**: each of ``n_ensembles`` ensembles starts from independent draws of the
@@ -56,6 +59,12 @@ __all__ = [
     "laplace_approximation_reference",
     "ModeRegion",
     "LaplaceIndependenceMove",
+    "AttitudeChart",
+    "ChartLikelihood",
+    "direction_phase_matrix",
+    "direction_phase_angles",
+    "rotation_exp",
+    "rotation_log",
     "sample_local_mode",
 ]
 
@@ -85,8 +94,12 @@ PROPOSAL_SCALE = 1.2
 #: the start of every ensemble is drawn wider than the posterior, so that split R-hat can see
 #: ensembles that have not forgotten their start (Gelman et al. 2013, BDA3, section 11.4)
 START_SCALE = 1.5
-#: move mixture: independence proposal, differential evolution, snooker (weights)
-MOVE_WEIGHTS = (0.5, 0.4, 0.1)
+#: move mixture (weights by name of :data:`ENSEMBLE_MOVES`, plus "independence"). Measured on a
+#: dense SAM (CAL-dense-npa-076, 800 steps, attitude chart): stretch alone accepted 0.23 (tau ~60),
+#: differential evolution 0.05 (tau ~55), the independence move alone almost nothing (the mode is a
+#: curved ridge beyond ~0.3 of its Laplace width); on near-Gaussian modes the independence move
+#: gives nearly independent draws, so it keeps a small share
+MOVE_WEIGHTS = {"independence": 0.15, "stretch": 0.7, "de": 0.15}
 #: acceptance range of this sampler: an independence proposal that matches the target accepts
 #: nearly everything (a good sign, not a bad one), so the upper end is higher than the ensemble
 #: default; the lower end catches a proposal that misses the target
@@ -111,6 +124,8 @@ class LaplaceApproximation:
         Inverse of the regularised negative Hessian of the log-posterior (parameter units squared).
     log_posterior : float
         Log-prior plus log-likelihood at ``centre``.
+    hessian : ndarray, shape (ndim, ndim)
+        The finite-difference Hessian of the log-posterior before regularisation.
     steps : ndarray, shape (ndim,)
         Finite-difference steps used (parameter units).
     n_regularised : int
@@ -122,6 +137,7 @@ class LaplaceApproximation:
     centre: np.ndarray
     covariance: np.ndarray
     log_posterior: float
+    hessian: np.ndarray
     steps: np.ndarray
     n_regularised: int
     method: str
@@ -208,6 +224,11 @@ def _regularised_covariance(hess, widths):
     vals = np.maximum(vals, floor)
     cov_scaled = (vecs / vals) @ vecs.T
     cov = cov_scaled / np.outer(s, s)
+    # no direction broader than a flat prior over the support (sd = width / sqrt 12): a direction the
+    # data do not constrain (or a Hessian that is not negative definite there) is limited by the prior
+    sd = np.sqrt(np.diag(cov))
+    shrink = np.minimum(1.0, widths / math.sqrt(12.0) / sd)
+    cov = cov * np.outer(shrink, shrink)
     return 0.5 * (cov + cov.T), n_reg
 
 
@@ -257,7 +278,7 @@ def laplace_approximation(log_likelihood: Callable[[np.ndarray], np.ndarray], sp
     hess[ii, jj] = off
     hess[jj, ii] = off
     cov, n_reg = _regularised_covariance(hess, _prior_widths(space))
-    return LaplaceApproximation(x0, cov, f0, h, n_reg, "central finite differences of the log-posterior")
+    return LaplaceApproximation(x0, cov, f0, hess, h, n_reg, "central finite differences of the log-posterior")
 
 
 def laplace_approximation_reference(log_likelihood, space: ParameterSpace, x_opt, steps) -> np.ndarray:
@@ -370,9 +391,170 @@ class LaplaceIndependenceMove(emcee.moves.MHMove):
         return new, self.log_density(x0) - self.log_density(new)
 
 
-def _moves(independence: LaplaceIndependenceMove):
-    w_ind, w_de, w_snook = MOVE_WEIGHTS
-    return [(independence, w_ind), (emcee.moves.DEMove(), w_de), (emcee.moves.DESnookerMove(), w_snook)]
+# ---------------------------------------------------------------------------
+# the attitude chart: exponential coordinates of a rotation about the optimum
+# ---------------------------------------------------------------------------
+def _rz(a):
+    c, s = np.cos(a), np.sin(a)
+    o, z = np.ones_like(a), np.zeros_like(a)
+    return np.stack([np.stack([c, -s, z], -1), np.stack([s, c, z], -1), np.stack([z, z, o], -1)], -2)
+
+
+def _ry(a):
+    c, s = np.cos(a), np.sin(a)
+    o, z = np.ones_like(a), np.zeros_like(a)
+    return np.stack([np.stack([c, z, s], -1), np.stack([z, o, z], -1), np.stack([-s, z, c], -1)], -2)
+
+
+def direction_phase_matrix(lon_rad, lat_rad, phase_rad):
+    """Rotation ``Rz(lon) Ry(pi/2 - lat) Rz(phase)``, shape ``(..., 3, 3)``.
+
+    Its third column is the unit vector at (lon, lat) (the spin or angular-momentum direction) and
+    ``phase`` turns about it: the z-y-z Euler angles ``(lon, pi/2 - lat, phase)``, whose Haar measure is
+    ``cos(lat) dlon dlat dphase`` (Miles 1965, Biometrika 52, 636), i.e. the isotropic direction
+    with a uniform phase of :class:`~tumble.inference.space.IsotropicLatitude` and
+    :class:`~tumble.inference.space.PeriodicUniform`.
+    """
+    return _rz(np.asarray(lon_rad, float)) @ _ry(np.pi / 2 - np.asarray(lat_rad, float)) @ _rz(np.asarray(phase_rad, float))
+
+
+def direction_phase_angles(m):
+    """Inverse of :func:`direction_phase_matrix`: ``(lon, lat, phase)`` of ``(..., 3, 3)`` rotations (radians)."""
+    m = np.asarray(m, float)
+    lat = np.arcsin(np.clip(m[..., 2, 2], -1.0, 1.0))
+    lon = np.arctan2(m[..., 1, 2], m[..., 0, 2])
+    phase = np.arctan2(m[..., 2, 1], -m[..., 2, 0])
+    return lon, lat, phase
+
+
+def rotation_exp(w):
+    """Rotation matrices ``exp([w]x)`` of rotation vectors ``(..., 3)`` (Rodrigues' formula)."""
+    w = np.asarray(w, float)
+    th = np.linalg.norm(w, axis=-1)[..., None, None]
+    k = np.zeros(w.shape[:-1] + (3, 3))
+    k[..., 0, 1], k[..., 0, 2], k[..., 1, 2] = -w[..., 2], w[..., 1], -w[..., 0]
+    k[..., 1, 0], k[..., 2, 0], k[..., 2, 1] = w[..., 2], -w[..., 1], w[..., 0]
+    small = th < 1e-6
+    safe = np.where(small, 1.0, th)
+    a = np.where(small, 1.0 - th**2 / 6.0, np.sin(safe) / safe)
+    b = np.where(small, 0.5 - th**2 / 24.0, (1.0 - np.cos(safe)) / safe**2)
+    return np.eye(3) + a * k + b * (k @ k)
+
+
+def rotation_log(m):
+    """Rotation vectors ``(..., 3)`` of rotations ``(..., 3, 3)`` (angle below pi)."""
+    m = np.asarray(m, float)
+    cos_t = np.clip((np.trace(m, axis1=-2, axis2=-1) - 1.0) / 2.0, -1.0, 1.0)
+    th = np.arccos(cos_t)
+    v = np.stack([m[..., 2, 1] - m[..., 1, 2], m[..., 0, 2] - m[..., 2, 0], m[..., 1, 0] - m[..., 0, 1]], -1)
+    small = th < 1e-6
+    f = np.where(small, 0.5 + th**2 / 12.0, th / (2.0 * np.sin(np.where(small, 1.0, th))))
+    return v * f[..., None]
+
+
+#: sampled rotation vectors have length below this (the exponential chart is one-to-one there)
+CHART_MAX_ANGLE_RAD = math.pi
+
+
+class AttitudeChart:
+    """Sampling coordinates in which a direction and a phase about it become a small rotation vector.
+
+    A spin (or angular-momentum) direction ``(lon, lat)`` and the rotation phase about it are
+    together one rotation of the body, ``M = direction_phase_matrix(lon, lat, phase)``. Near a
+    well-determined attitude the posterior in ``(lon, lat, phase)`` is a curved ridge (changing
+    the direction is compensated by the phase in a non-linear way); in the exponential coordinates
+    ``w`` of ``M = exp([w]x) M_opt`` it is nearly Gaussian. The chart replaces the three by ``w``
+    (named ``attitude_w1..3``, rad) and keeps the other coordinates.
+
+    Prior: the isotropic direction with a uniform phase is the Haar measure of the rotation group,
+    whose density in exponential coordinates is ``2 (1 - cos|w|) / |w|^2 / (8 pi^2)`` (Miles 1965,
+    Biometrika 52, 636; e.g. Chirikjian 2012, Stochastic Models, Information Theory, and Lie
+    Groups, vol. 2, section 10.2). The sampled space gives each ``w_i`` a flat prior on
+    ``[-pi, pi]``; :meth:`log_correction` adds the rest (``-inf`` for ``|w| >= pi``).
+
+    Parameters
+    ----------
+    space : ParameterSpace
+        The model's space.
+    x_opt : array_like, shape (ndim,)
+        The optimum (the chart's origin).
+    lon, lat, phase : str
+        Names of the longitude (periodic), the latitude (isotropic) and the phase (periodic), radians.
+    """
+
+    def __init__(self, space: ParameterSpace, x_opt, lon: str, lat: str, phase: str):
+        from tumble.inference.space import Parameter, Uniform
+
+        self.model_space = space
+        self.idx = np.array([space.index(lon), space.index(lat), space.index(phase)])
+        x0 = space.wrap(np.asarray(x_opt, float).reshape(space.ndim))
+        self.m0 = direction_phase_matrix(*x0[self.idx])
+        params = list(space.parameters)
+        for k, i in enumerate(self.idx):
+            params[i] = Parameter(f"attitude_w{k + 1}", Uniform(-math.pi, math.pi), "rad",
+                                  "rotation vector of the attitude about the optimum")
+        self.space = ParameterSpace(params)
+        self._log_const = 3.0 * math.log(2.0 * math.pi) - math.log(8.0 * math.pi**2)
+
+    def to_model(self, y) -> np.ndarray:
+        """Model parameters ``(K, ndim)`` of chart coordinates ``(K, ndim)``."""
+        y = np.atleast_2d(np.asarray(y, float))
+        x = y.copy()
+        lon, lat, phase = direction_phase_angles(rotation_exp(y[:, self.idx]) @ self.m0)
+        x[:, self.idx[0]], x[:, self.idx[1]], x[:, self.idx[2]] = lon, lat, phase
+        return self.model_space.wrap(x)
+
+    def from_model(self, x) -> np.ndarray:
+        """Chart coordinates of model parameters ``(K, ndim)``."""
+        x = np.atleast_2d(np.asarray(x, float))
+        y = x.copy()
+        m = direction_phase_matrix(*(x[:, i] for i in self.idx))
+        y[:, self.idx] = rotation_log(m @ np.swapaxes(self.m0, -1, -2))
+        return y
+
+    def log_correction(self, y) -> np.ndarray:
+        """``ln`` of the model prior in chart coordinates over the chart space's flat prior, shape ``(K,)``.
+
+        Both priors of the other coordinates are the same and cancel; what is left is the Haar
+        density in exponential coordinates over the flat ``(2 pi)^-3``.
+        """
+        y = np.atleast_2d(np.asarray(y, float))
+        th = np.linalg.norm(y[:, self.idx], axis=1)
+        small = th < 1e-6
+        safe = np.where(small, 1.0, th)
+        haar = np.where(small, 1.0 - th**2 / 12.0, 2.0 * (1.0 - np.cos(safe)) / safe**2)
+        with np.errstate(divide="ignore"):
+            out = np.log(haar) + self._log_const
+        return np.where(th < CHART_MAX_ANGLE_RAD, out, -np.inf)
+
+
+class ChartLikelihood:
+    """The log-likelihood seen in chart coordinates, plus the chart's prior correction; picklable."""
+
+    def __init__(self, log_likelihood, chart):
+        self.log_likelihood = log_likelihood
+        self.chart = chart
+
+    def __call__(self, y):
+        y = np.atleast_2d(np.asarray(y, float))
+        corr = self.chart.log_correction(y)
+        out = np.full(len(y), -np.inf)
+        ok = np.isfinite(corr)
+        if ok.any():
+            out[ok] = np.asarray(self.log_likelihood(self.chart.to_model(y[ok])), float) + corr[ok]
+        return out
+
+
+#: the ensemble moves of emcee the mixture may use, by name
+ENSEMBLE_MOVES = {"de": emcee.moves.DEMove, "snooker": emcee.moves.DESnookerMove, "stretch": emcee.moves.StretchMove}
+
+
+def _moves(independence: LaplaceIndependenceMove, weights):
+    out = []
+    for name, w in weights.items():
+        if w > 0:
+            out.append((independence if name == "independence" else ENSEMBLE_MOVES[name](), float(w)))
+    return out
 
 
 def _region_radius2(ndim: int) -> float:
@@ -424,7 +606,7 @@ class _Ensembles:
     states: list
 
 
-def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=None):
+def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=None, weights=None):
     """emcee samplers on the region-restricted posterior, with their starting states."""
     radius2 = _region_radius2(space.ndim)
     samplers, regions, out_states = [], [], []
@@ -433,7 +615,8 @@ def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles,
         region = ModeRegion(log_likelihood, centre, cov, radius2, space.periods)
         lp = LogPosterior(region, space, 1.0, centre)
         independence = LaplaceIndependenceMove(centre, cov)
-        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence), vectorize=True)
+        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS),
+                                        vectorize=True)
         random = np.random.RandomState(int(seeds[e]))
         if states is None:
             x0 = _draw_inside(independence, lp, region, n_walkers, random, lp)
@@ -468,7 +651,8 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
                       n_walkers: int | None = None, n_ensembles: int = 2, tau_multiple: float = 50.0,
                       acceptance_range: tuple = LOCAL_ACCEPTANCE_RANGE, rhat_max: float = 1.05,
                       burn_factor: float = 5.0, cluster_threshold: float = 4.0,
-                      laplace: LaplaceApproximation | None = None, rng=None, progress: bool = False):
+                      laplace: LaplaceApproximation | None = None, chart: AttitudeChart | None = None,
+                      rng=None, progress: bool = False):
     """Sample the posterior of one solution's mode, starting from its optimum (see the module notes).
 
     Parameters
@@ -491,7 +675,11 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
         Convergence criteria, as in :func:`~tumble.inference.sampling.sample_posterior`
         (``acceptance_range`` defaults to :data:`LOCAL_ACCEPTANCE_RANGE`).
     laplace : LaplaceApproximation, optional
-        A precomputed approximation at ``x_opt``.
+        A precomputed approximation at ``x_opt`` (in the chart's coordinates when ``chart`` is given).
+    chart : AttitudeChart, optional
+        Sample in these coordinates (a direction and phase as a rotation vector about the optimum);
+        the samples are returned in the model's parameters. The convergence diagnostics refer to the
+        sampled coordinates.
     rng : numpy.random.Generator, int or None
     progress : bool
         tqdm progress bar.
@@ -516,6 +704,10 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
         raise TumbleError("sample_local_mode needs at least 2 ensembles (split R-hat across ensembles)")
     max_steps = int(max_steps)
     pilot_steps = int(min(pilot_steps, max_steps // 4))
+    model_space, model_likelihood = space, log_likelihood
+    if chart is not None:
+        log_likelihood, space = ChartLikelihood(log_likelihood, chart), chart.space
+        x_opt = chart.from_model(np.asarray(x_opt, float))[0]
     lap = laplace if laplace is not None else laplace_approximation(log_likelihood, space, x_opt)
     centre, cov = lap.centre, lap.covariance
     n_eval = 0
@@ -560,4 +752,15 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
                        f"{MODE_EDGE_RADIUS:g} of the mode region's radius")
     diag = replace(post.diagnostics, converged=not reasons, reasons=tuple(reasons), method="local-mode",
                    mode_edge_fraction=edge, outside_fraction=float(outside), pilot_steps=int(pilot_steps))
-    return replace(post, diagnostics=diag)
+    post = replace(post, diagnostics=diag)
+    return post if chart is None else _to_model_coordinates(post, chart, model_space)
+
+
+def _to_model_coordinates(post, chart: AttitudeChart, space: ParameterSpace):
+    """A posterior sampled in chart coordinates, expressed in the model's parameters."""
+    x = chart.to_model(post.samples)
+    log_like = post.log_likelihood - chart.log_correction(post.samples)
+    centres = chart.to_model(post.diagnostics.mode_centres)
+    diag = replace(post.diagnostics, mode_centres=centres)
+    return replace(post, samples=x, log_prob=space.log_prior(x) + log_like, log_likelihood=log_like,
+                   names=space.names, units=space.units, periods=space.periods, lows=space.lows, diagnostics=diag)
