@@ -8,8 +8,9 @@ read from a cache folder, see ``docs/calibration-library.md``) the script runs, 
 2. the search (``fit_rotation_state(..., max_steps=0)``: frequency mappings, starts, optimisation);
 3. on the same physical model and optimum, **both samplers** in one run, alternating which goes
    first: the old one (``sample_posterior``: 2 ensembles, start ball 1e-3, 1500 steps, the settings
-   ``fit_rotation_state`` used before) and the new one (``sample_local_mode`` with the attitude
-   chart, 1500 steps);
+   ``fit_rotation_state`` used before) and the new one (``sample_local_mode`` in the model's
+   ``sampling_chart``, with the same number of likelihood evaluations, as ``fit_rotation_state``
+   now runs it);
 
 and prints per object and in total: converged or not, acceptance, chain length in autocorrelation
 times, split R-hat, the mode-edge fraction, the time split (evidence, search, sampling) and the
@@ -76,7 +77,8 @@ class SamplerRun:
 
 def _run_sampler(kind, model, x, steps, seed):
     from tumble.inference import sample_posterior
-    from tumble.inference.local import AttitudeChart, sample_local_mode
+    from tumble.inference.local import sample_local_mode
+    from tumble.inference.sampling import default_n_walkers
 
     tracemalloc.start()
     t0 = time.process_time()
@@ -86,8 +88,10 @@ def _run_sampler(kind, model, x, steps, seed):
                                 first_block=min(OLD_SAMPLER["first_block"], steps),
                                 start_scale=OLD_SAMPLER["start_scale"])
     else:
-        chart = AttitudeChart(model.space, x, *model.attitude_parameters)
-        post = sample_local_mode(model, model.space, x, max_steps=steps, chart=chart, rng=seed)
+        # the same budget of likelihood evaluations as the old sampler (same walkers, steps, ensembles)
+        budget = steps * OLD_SAMPLER["n_ensembles"] * default_n_walkers(model.space.ndim)
+        post = sample_local_mode(model, model.space, x, max_evaluations=budget, chart=model.sampling_chart(x),
+                                 rng=seed)
     cpu = time.process_time() - t0
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()

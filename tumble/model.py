@@ -817,6 +817,47 @@ class PhysicalModel:
         """
         return ("l_lon_rad", "l_lat_rad", "phase0_rad" if self.mode == "PA" else "phi0_rad")
 
+    def log_period_ratio(self, x) -> np.ndarray:
+        """``ln(P_phi / P_psi)`` of ``(K, ndim)`` vectors, shape ``(K,)`` (0 for PA); ``nan`` for an invalid state."""
+        from tumble.dynamics import periods_unit_momentum
+
+        x = np.atleast_2d(np.asarray(x, float))
+        if self.mode == "PA":
+            return np.zeros(len(x))
+        args, _ = self.state_arrays(x)
+        i1, i2, idd = (np.asarray(a, float) for a in args[:3])
+        ok = np.isfinite(i1 + i2 + idd) & (i1 > 0) & (i1 <= i2) & (i2 < 1.0) & (idd < 1.0) & (idd > i1)
+        ok &= np.abs(idd - i2) > 1e-9
+        out = np.full(len(x), np.nan)
+        if ok.any():
+            try:
+                pp, pf = periods_unit_momentum(i1[ok], i2[ok], idd[ok])
+            except TumbleError:
+                return out
+            out[ok] = np.log(np.asarray(pf) / np.asarray(pp))
+        return out
+
+    def sampling_chart(self, x_opt):
+        """Coordinates in which the posterior of the mode at ``x_opt`` is nearly Gaussian.
+
+        The attitude (spin or angular-momentum direction with the phase about it) as a rotation
+        vector about the optimum's (:class:`tumble.inference.local.AttitudeChart`); for SAM and LAM
+        also ``ln(P_phi/P_psi)`` in place of ``excitation_u``
+        (:class:`tumble.inference.local.ImplicitChart`): the data pin both periods, and the ratio is
+        a curved function of the excitation and the shape. Measured on a dense SAM of the
+        calibration library: a draw one Laplace sigma from the optimum lost 113 nats of
+        log-likelihood against 4 expected in the model's own parameters, 28 with the attitude chart,
+        5.3 with both.
+        """
+        from tumble.inference.local import AttitudeChart, ChartChain, ImplicitChart
+
+        if self.mode == "PA":
+            return AttitudeChart(self.space, x_opt, *self.attitude_parameters)
+        ratio = ImplicitChart(self.space, x_opt, "excitation_u", self.log_period_ratio, "ln_period_ratio", "",
+                              "ln(P_phi/P_psi)")
+        z_opt = ratio.from_model(np.asarray(x_opt, float)[None])[0]
+        return ChartChain([ratio, AttitudeChart(ratio.space, z_opt, *self.attitude_parameters)])
+
     def state_arrays(self, x):
         """Arguments of :func:`tumble.dynamics.ecliptic_to_body` and the axes for ``(K, ndim)`` vectors."""
         x = np.atleast_2d(np.asarray(x, float))

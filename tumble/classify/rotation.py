@@ -504,14 +504,14 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     reasons = []
     converged = False
     if max_steps > 0:
-        from tumble.inference.local import AttitudeChart, sample_local_mode
+        from tumble.inference.local import sample_local_mode
 
         # the chosen solution's own mode, started from its optimum (tumble.inference.local): the
-        # interval is never a mixture of separated modes, and leaving the mode is a diagnostic; the
-        # attitude is sampled as a rotation about the optimum's (a straight ridge instead of a curved one)
-        chart = AttitudeChart(model.space, best_x, *model.attitude_parameters)
+        # interval is never a mixture of separated modes, and leaving the mode is a diagnostic; it is
+        # sampled in the model's chart (attitude as a rotation about the optimum's, the period ratio
+        # in place of the excitation), where the mode is nearly Gaussian instead of a curved ridge
         posterior = sample_local_mode(model, model.space, best_x, max_steps=max_steps, n_walkers=n_walkers,
-                                      chart=chart, rng=rng, progress=progress)
+                                      chart=model.sampling_chart(best_x), rng=rng, progress=progress)
         converged = posterior.converged
         reasons = list(posterior.diagnostics.reasons)
         samples = posterior.samples

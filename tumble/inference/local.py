@@ -60,12 +60,15 @@ __all__ = [
     "ModeRegion",
     "LaplaceIndependenceMove",
     "AttitudeChart",
+    "ImplicitChart",
+    "ChartChain",
     "ChartLikelihood",
     "direction_phase_matrix",
     "direction_phase_angles",
     "rotation_exp",
     "rotation_log",
     "sample_local_mode",
+    "steps_for_budget",
 ]
 
 #: finite-difference step of the Hessian, in units of each parameter's own width (0.1-0.3 sigma
@@ -95,11 +98,11 @@ PROPOSAL_SCALE = 1.2
 #: ensembles that have not forgotten their start (Gelman et al. 2013, BDA3, section 11.4)
 START_SCALE = 1.5
 #: move mixture (weights by name of :data:`ENSEMBLE_MOVES`, plus "independence"). Measured on a
-#: dense SAM (CAL-dense-npa-076, 800 steps, attitude chart): stretch alone accepted 0.23 (tau ~60),
-#: differential evolution 0.05 (tau ~55), the independence move alone almost nothing (the mode is a
-#: curved ridge beyond ~0.3 of its Laplace width); on near-Gaussian modes the independence move
-#: gives nearly independent draws, so it keeps a small share
-MOVE_WEIGHTS = {"independence": 0.15, "stretch": 0.7, "de": 0.15}
+#: dense SAM (CAL-dense-npa-076, 600-800 steps): in the model's own parameters stretch alone accepted
+#: 0.23 (tau ~60), differential evolution 0.05, the independence move almost nothing (a curved
+#: ridge); in the model's sampling chart (nearly Gaussian within one Laplace sigma) this mixture
+#: accepted 0.16-0.20 with tau 80-90 steps over 1500 steps (the old sampler: 0.18-0.20, tau ~120)
+MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
 #: acceptance range of this sampler: an independence proposal that matches the target accepts
 #: nearly everything (a good sign, not a bad one), so the upper end is higher than the ensemble
 #: default; the lower end catches a proposal that misses the target
@@ -528,6 +531,152 @@ class AttitudeChart:
         return np.where(th < CHART_MAX_ANGLE_RAD, out, -np.inf)
 
 
+#: Newton iterations and tolerance of the implicit chart's solve (in the chart coordinate's units)
+IMPLICIT_MAX_ITER = 30
+IMPLICIT_TOL = 1e-10
+#: relative finite-difference step of the implicit chart's derivative (of the replaced parameter's width)
+IMPLICIT_STEP = 1e-7
+
+
+class ImplicitChart:
+    """Sampling coordinates in which one parameter is replaced by a well-measured function of the state.
+
+    When the data pin a non-linear function ``g(x)`` of several parameters (for a tumbler, the period
+    ratio ``ln(P_phi/P_psi)``, a function of the excitation and of the shape), the posterior is a
+    narrow curved ridge along ``g(x) = const``. Replacing the parameter ``x_k`` by ``g`` itself makes
+    that ridge a coordinate plane. ``x_k`` is recovered from ``g`` and the other coordinates by Newton
+    iterations started at the optimum's value, on the branch where ``dg/dx_k`` has the optimum's
+    sign (the chart is one-to-one there; points off that branch, or without a solution inside the
+    support of ``x_k``, are outside the chart and get ``-inf``).
+
+    Prior: the model's prior density of ``x_k`` times ``|dx_k/dg|`` (change of variables) over the
+    chart space's flat prior of ``g`` on ``[g_opt - half_width, g_opt + half_width]``.
+
+    Parameters
+    ----------
+    space : ParameterSpace
+        The model's space (or the space of the chart applied before this one).
+    x_opt : array_like, shape (ndim,)
+    parameter : str
+        The parameter replaced (a bounded prior).
+    function : callable
+        ``g((K, ndim)) -> (K,)`` in the model's parameters.
+    name, unit, description : str
+        Of the new coordinate.
+    half_width : float
+        Half-width of its flat prior about ``g(x_opt)``.
+    """
+
+    def __init__(self, space: ParameterSpace, x_opt, parameter: str, function, name: str, unit: str = "",
+                 description: str = "", half_width: float = 1.0):
+        from tumble.inference.space import Parameter, Uniform
+
+        self.model_space = space
+        self.k = space.index(parameter)
+        self.prior = space.parameters[self.k].prior
+        self.function = function
+        x0 = space.wrap(np.asarray(x_opt, float).reshape(space.ndim))
+        self.x_k0 = float(x0[self.k])
+        self.g0 = float(np.asarray(function(x0[None]), float)[0])
+        self.h = IMPLICIT_STEP * float(self.prior.high - self.prior.low)
+        self.sign = float(np.sign(self._derivative(x0[None])[0]))
+        if not np.isfinite(self.g0) or self.sign == 0:
+            raise TumbleError(f"the chart's function is not finite or not monotone in {parameter} at the optimum")
+        params = list(space.parameters)
+        params[self.k] = Parameter(name, Uniform(self.g0 - half_width, self.g0 + half_width), unit, description)
+        self.space = ParameterSpace(params)
+        self._log_flat = -math.log(2.0 * half_width)
+
+    def _derivative(self, x):
+        x2 = np.concatenate([x, x])
+        x2[len(x):, self.k] += self.h
+        g = np.asarray(self.function(x2), float)
+        return (g[len(x):] - g[: len(x)]) / self.h
+
+    def _solve(self, y):
+        """``(x, dg/dx_k, ok)`` for chart points ``y (K, ndim)``."""
+        lo, hi = self.prior.low + self.h, self.prior.high - 2 * self.h
+        x = np.array(y, float, copy=True)
+        x[:, self.k] = self.x_k0
+        target = y[:, self.k]
+        deriv = np.ones(len(y))
+        for _ in range(IMPLICIT_MAX_ITER):
+            x2 = np.concatenate([x, x])
+            x2[len(x):, self.k] += self.h
+            g = np.asarray(self.function(x2), float)
+            gx, deriv = g[: len(x)], (g[len(x):] - g[: len(x)]) / self.h
+            resid = gx - target
+            bad = ~np.isfinite(resid) | ~np.isfinite(deriv) | (deriv * self.sign <= 0)
+            step = np.where(bad, 0.0, resid / np.where(bad, 1.0, deriv))
+            x[:, self.k] = np.clip(x[:, self.k] - step, lo, hi)
+            if np.all(np.abs(resid[~bad]) < IMPLICIT_TOL):
+                break
+        gx = np.asarray(self.function(x), float)
+        ok = np.isfinite(gx) & (np.abs(gx - target) < 1e3 * IMPLICIT_TOL) & (deriv * self.sign > 0)
+        return x, deriv, ok
+
+    def to_model(self, y) -> np.ndarray:
+        """Parameters of the space before this chart for chart points ``(K, ndim)`` (``nan`` rows outside)."""
+        x, _, ok = self._solve(np.atleast_2d(np.asarray(y, float)))
+        x[~ok] = np.nan
+        return x
+
+    def from_model(self, x) -> np.ndarray:
+        """Chart coordinates of ``(K, ndim)`` points."""
+        x = np.atleast_2d(np.asarray(x, float))
+        y = x.copy()
+        y[:, self.k] = np.asarray(self.function(x), float)
+        return y
+
+    def to_model_with_correction(self, y):
+        """``(x, log_correction)`` in one solve (the correction ``-inf`` outside the chart)."""
+        x, deriv, ok = self._solve(np.atleast_2d(np.asarray(y, float)))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            corr = np.asarray(self.prior.log_pdf(x[:, self.k]), float) - np.log(np.abs(deriv)) - self._log_flat
+        corr = np.where(ok & np.isfinite(corr), corr, -np.inf)
+        x[~ok] = np.nan
+        return x, corr
+
+    def log_correction(self, y) -> np.ndarray:
+        """``ln`` of (model prior of the replaced parameter x |dx_k/dg|) over the flat prior of ``g``."""
+        return self.to_model_with_correction(y)[1]
+
+
+class ChartChain:
+    """Charts applied one after the other: ``charts[0]`` on the model's space, each next on the previous one's."""
+
+    def __init__(self, charts):
+        self.charts = tuple(charts)
+        self.model_space = self.charts[0].model_space
+        self.space = self.charts[-1].space
+
+    def to_model_with_correction(self, y):
+        """``(x, log_correction)``: model parameters and the summed prior correction of every chart."""
+        z = np.atleast_2d(np.asarray(y, float))
+        total = np.zeros(len(z))
+        for chart in reversed(self.charts):
+            if hasattr(chart, "to_model_with_correction"):
+                z_new, corr = chart.to_model_with_correction(z)
+            else:
+                corr = chart.log_correction(z)
+                z_new = chart.to_model(z)
+            total = total + corr
+            z = z_new
+        return z, total
+
+    def to_model(self, y) -> np.ndarray:
+        return self.to_model_with_correction(y)[0]
+
+    def from_model(self, x) -> np.ndarray:
+        z = np.atleast_2d(np.asarray(x, float))
+        for chart in self.charts:
+            z = chart.from_model(z)
+        return z
+
+    def log_correction(self, y) -> np.ndarray:
+        return self.to_model_with_correction(y)[1]
+
+
 class ChartLikelihood:
     """The log-likelihood seen in chart coordinates, plus the chart's prior correction; picklable."""
 
@@ -537,16 +686,28 @@ class ChartLikelihood:
 
     def __call__(self, y):
         y = np.atleast_2d(np.asarray(y, float))
-        corr = self.chart.log_correction(y)
+        if hasattr(self.chart, "to_model_with_correction"):
+            x, corr = self.chart.to_model_with_correction(y)
+        else:
+            x, corr = self.chart.to_model(y), self.chart.log_correction(y)
         out = np.full(len(y), -np.inf)
         ok = np.isfinite(corr)
         if ok.any():
-            out[ok] = np.asarray(self.log_likelihood(self.chart.to_model(y[ok])), float) + corr[ok]
+            xs = self.chart.model_space.wrap(x[ok])
+            inside = np.isfinite(self.chart.model_space.log_prior(xs))
+            idx = np.flatnonzero(ok)[inside]
+            if idx.size:
+                out[idx] = np.asarray(self.log_likelihood(xs[inside]), float) + corr[idx]
         return out
 
 
 #: the ensemble moves of emcee the mixture may use, by name
 ENSEMBLE_MOVES = {"de": emcee.moves.DEMove, "snooker": emcee.moves.DESnookerMove, "stretch": emcee.moves.StretchMove}
+
+
+def steps_for_budget(max_evaluations: int, n_walkers: int, n_ensembles: int) -> int:
+    """Steps per ensemble that spend at most ``max_evaluations`` likelihood evaluations."""
+    return max(1, int(max_evaluations) // (int(n_walkers) * int(n_ensembles)))
 
 
 def _moves(independence: LaplaceIndependenceMove, weights):
@@ -647,11 +808,12 @@ def _edge_fraction(samples, region: ModeRegion) -> float:
 
 
 def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space: ParameterSpace, x_opt, *,
-                      max_steps: int = DEFAULT_MAX_STEPS, pilot_steps: int = DEFAULT_PILOT_STEPS,
+                      max_steps: int = DEFAULT_MAX_STEPS, max_evaluations: int | None = None,
+                      pilot_steps: int = DEFAULT_PILOT_STEPS,
                       n_walkers: int | None = None, n_ensembles: int = 2, tau_multiple: float = 50.0,
                       acceptance_range: tuple = LOCAL_ACCEPTANCE_RANGE, rhat_max: float = 1.05,
                       burn_factor: float = 5.0, cluster_threshold: float = 4.0,
-                      laplace: LaplaceApproximation | None = None, chart: AttitudeChart | None = None,
+                      laplace: LaplaceApproximation | None = None, chart=None,
                       rng=None, progress: bool = False):
     """Sample the posterior of one solution's mode, starting from its optimum (see the module notes).
 
@@ -665,10 +827,14 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
         The solution's optimum.
     max_steps : int
         Budget: steps per ensemble, pilot included.
+    max_evaluations : int, optional
+        Budget in likelihood evaluations instead (all ensembles; overrides ``max_steps``).
     pilot_steps : int
         Steps per ensemble of the pilot that re-scales the proposal (discarded).
     n_walkers : int, optional
-        Walkers per ensemble (default :func:`~tumble.inference.sampling.default_n_walkers`).
+        Walkers per ensemble (default :func:`~tumble.inference.sampling.default_n_walkers`; half as
+        many gave a tau twice as long on a dense SAM, so the default is the same as the ensemble
+        sampler's).
     n_ensembles : int
         Independent ensembles (at least 2 for split R-hat across ensembles).
     tau_multiple, acceptance_range, rhat_max, burn_factor, cluster_threshold
@@ -676,9 +842,10 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
         (``acceptance_range`` defaults to :data:`LOCAL_ACCEPTANCE_RANGE`).
     laplace : LaplaceApproximation, optional
         A precomputed approximation at ``x_opt`` (in the chart's coordinates when ``chart`` is given).
-    chart : AttitudeChart, optional
-        Sample in these coordinates (a direction and phase as a rotation vector about the optimum);
-        the samples are returned in the model's parameters. The convergence diagnostics refer to the
+    chart : AttitudeChart, ImplicitChart or ChartChain, optional
+        Sample in these coordinates (a direction and phase as a rotation vector about the optimum; a
+        well-measured function of the state in place of one parameter); the samples are returned in
+        the model's parameters. The convergence diagnostics refer to the
         sampled coordinates.
     rng : numpy.random.Generator, int or None
     progress : bool
@@ -700,6 +867,8 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
     n_walkers = default_n_walkers(ndim) if n_walkers is None else int(n_walkers)
     if n_walkers < 2 * ndim or n_walkers % 2:
         raise TumbleError(f"n_walkers must be even and at least 2 * ndim = {2 * ndim}, got {n_walkers}")
+    if max_evaluations is not None:
+        max_steps = steps_for_budget(max_evaluations, n_walkers, n_ensembles)
     if n_ensembles < 2:
         raise TumbleError("sample_local_mode needs at least 2 ensembles (split R-hat across ensembles)")
     max_steps = int(max_steps)
@@ -756,10 +925,11 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
     return post if chart is None else _to_model_coordinates(post, chart, model_space)
 
 
-def _to_model_coordinates(post, chart: AttitudeChart, space: ParameterSpace):
+def _to_model_coordinates(post, chart, space: ParameterSpace):
     """A posterior sampled in chart coordinates, expressed in the model's parameters."""
-    x = chart.to_model(post.samples)
-    log_like = post.log_likelihood - chart.log_correction(post.samples)
+    x, corr = ChartChain([chart]).to_model_with_correction(post.samples)
+    x = space.wrap(x)
+    log_like = post.log_likelihood - corr
     centres = chart.to_model(post.diagnostics.mode_centres)
     diag = replace(post.diagnostics, mode_centres=centres)
     return replace(post, samples=x, log_prob=space.log_prior(x) + log_like, log_likelihood=log_like,
