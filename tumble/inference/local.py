@@ -594,25 +594,39 @@ class ImplicitChart:
         return (g[len(x):] - g[: len(x)]) / self.h
 
     def _solve(self, y):
-        """``(x, dg/dx_k, ok)`` for chart points ``y (K, ndim)``."""
+        """``(x, dg/dx_k, ok)`` for chart points ``y (K, ndim)``.
+
+        Newton iterations on the rows not yet converged only (each iteration one call of the
+        function on the value and its forward-difference neighbour); a row whose derivative leaves the
+        optimum's sign, or that has not converged after :data:`IMPLICIT_MAX_ITER`, is outside.
+        """
         lo, hi = self.prior.low + self.h, self.prior.high - 2 * self.h
         x = np.array(y, float, copy=True)
         x[:, self.k] = self.x_k0
         target = y[:, self.k]
-        deriv = np.ones(len(y))
+        n = len(y)
+        deriv = np.full(n, np.nan)
+        ok = np.zeros(n, bool)
+        active = np.ones(n, bool)
         for _ in range(IMPLICIT_MAX_ITER):
-            x2 = np.concatenate([x, x])
-            x2[len(x):, self.k] += self.h
-            g = np.asarray(self.function(x2), float)
-            gx, deriv = g[: len(x)], (g[len(x):] - g[: len(x)]) / self.h
-            resid = gx - target
-            bad = ~np.isfinite(resid) | ~np.isfinite(deriv) | (deriv * self.sign <= 0)
-            step = np.where(bad, 0.0, resid / np.where(bad, 1.0, deriv))
-            x[:, self.k] = np.clip(x[:, self.k] - step, lo, hi)
-            if np.all(np.abs(resid[~bad]) < IMPLICIT_TOL):
+            idx = np.flatnonzero(active)
+            if idx.size == 0:
                 break
-        gx = np.asarray(self.function(x), float)
-        ok = np.isfinite(gx) & (np.abs(gx - target) < 1e3 * IMPLICIT_TOL) & (deriv * self.sign > 0)
+            xa = x[idx]
+            x2 = np.concatenate([xa, xa])
+            x2[idx.size:, self.k] += self.h
+            g = np.asarray(self.function(x2), float)
+            d = (g[idx.size:] - g[: idx.size]) / self.h
+            resid = g[: idx.size] - target[idx]
+            deriv[idx] = d
+            bad = ~np.isfinite(resid) | ~np.isfinite(d) | (d * self.sign <= 0)
+            done = ~bad & (np.abs(resid) < IMPLICIT_TOL)
+            ok[idx[done]] = True
+            active[idx[done | bad]] = False
+            go = ~(done | bad)
+            if go.any():
+                rows = idx[go]
+                x[rows, self.k] = np.clip(x[rows, self.k] - resid[go] / d[go], lo, hi)
         return x, deriv, ok
 
     def to_model(self, y) -> np.ndarray:
