@@ -27,8 +27,10 @@ rather than the whole, multimodal posterior:
    Periodic coordinates are sampled in a one-period window centred on the optimum
    (:class:`~tumble.inference.logpost.LogPosterior`), so angles are never cut near the mode.
 4. **Pilot and main run**: each of ``n_ensembles`` ensembles starts from independent draws of the
-   (slightly widened) proposal; after a pilot of ``pilot_steps`` the proposal and the mode region
-   are re-centred and re-scaled on the pilot's samples (which are discarded), then the main run is
+   (slightly widened) proposal; after a pilot of ``pilot_steps`` whose walkers moved (acceptance at
+   least :data:`MIN_PILOT_ACCEPTANCE`) the proposal is re-centred and re-scaled on the pilot's
+   samples (which are discarded) and the mode region widened to cover both the Laplace and the
+   pilot's spread (a stuck pilot changes nothing), then the main run is
    extended in blocks until the criteria of
    :func:`~tumble.inference.sampling.assess_chains` hold (at least ``tau_multiple``
    autocorrelation times after burn-in, acceptance in ``acceptance_range``, split R-hat across the
@@ -49,6 +51,7 @@ import numpy as np
 from scipy import stats
 
 from tumble.exceptions import TumbleError
+from tumble.inference.diagnostics import acceptance_from_chain as diag_acceptance
 from tumble.inference.logpost import LogPosterior
 from tumble.inference.sampling import assess_chains, default_n_walkers, posterior_from_chains
 from tumble.inference.space import ParameterSpace, as_generator
@@ -113,6 +116,10 @@ DEFAULT_PILOT_STEPS = 100
 FIRST_BLOCK_STEPS = 300
 #: smallest number of pilot samples (steps x walkers) from which the covariance is re-estimated
 MIN_PILOT_SAMPLES_PER_DIM = 20
+#: the pilot's covariance is used only when its walkers moved (mean acceptance at least this): the
+#: spread of walkers that stuck is no estimate of the posterior's (measured: a stuck pilot shrank the
+#: proposal and the region of a dense SAM until 64 % of the samples sat at the region's edge)
+MIN_PILOT_ACCEPTANCE = 0.15
 
 
 @dataclass(frozen=True)
@@ -781,13 +788,18 @@ class _Ensembles:
     states: list
 
 
-def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=None, weights=None):
-    """emcee samplers on the region-restricted posterior, with their starting states."""
+def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=None, weights=None,
+                     region_cov=None):
+    """emcee samplers on the region-restricted posterior, with their starting states.
+
+    ``cov`` scales the independence proposal and the starting draws; ``region_cov`` (default ``cov``)
+    is the metric of the mode region.
+    """
     radius2 = _region_radius2(space.ndim)
     samplers, regions, out_states = [], [], []
     seeds = rng.integers(0, 2**32, size=n_ensembles)
     for e in range(n_ensembles):
-        region = ModeRegion(log_likelihood, centre, cov, radius2, space.periods)
+        region = ModeRegion(log_likelihood, centre, cov if region_cov is None else region_cov, radius2, space.periods)
         lp = LogPosterior(region, space, 1.0, centre)
         independence = LaplaceIndependenceMove(centre, cov)
         sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS),
@@ -900,13 +912,21 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
             _run(pilot, pilot_steps, bar)
             chains = [s.get_chain() for s in pilot.samplers]
             lp0 = LogPosterior(log_likelihood, space, 1.0, centre)
-            centre, cov = _pilot_covariance(chains, lp0, centre, cov, space.periods)
-            centre = space.wrap(centre)
+            pilot_acceptance = float(np.nanmean([np.nanmean(diag_acceptance(c)) for c in chains]))
+            if pilot_acceptance >= MIN_PILOT_ACCEPTANCE:
+                p_centre, p_cov = _pilot_covariance(chains, lp0, centre, cov, space.periods)
+                # the region covers both the Laplace and the pilot's spread (a pilot whose walkers stuck
+                # must not shrink the region around them); the proposal follows the pilot
+                region_cov = cov + p_cov
+                centre, cov = space.wrap(p_centre), p_cov
+            else:
+                region_cov = cov
             last = [c[-1] for c in chains]
             n_eval += sum(r.n_calls for r in pilot.regions)
         else:
-            last = None
-        ens = _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=last)
+            last, region_cov = None, cov
+        ens = _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=last,
+                               region_cov=region_cov)
         budget = max_steps - pilot_steps
         done, target = 0, min(budget, FIRST_BLOCK_STEPS)
         while True:
