@@ -29,8 +29,8 @@ rather than the whole, multimodal posterior:
 4. **Pilot and main run**: each of ``n_ensembles`` ensembles starts from independent draws of the
    (slightly widened) proposal; after a pilot of ``pilot_steps`` whose walkers moved (acceptance at
    least :data:`MIN_PILOT_ACCEPTANCE`) the proposal is re-centred and re-scaled on the pilot's
-   samples (which are discarded) and the mode region widened to cover both the Laplace and the
-   pilot's spread (a stuck pilot changes nothing), then the main run is
+   samples (which are discarded; the mode region stays the optimum's Laplace ellipsoid; a stuck
+   pilot changes nothing), then the main run is
    extended in blocks until the criteria of
    :func:`~tumble.inference.sampling.assess_chains` hold (at least ``tau_multiple``
    autocorrelation times after burn-in, acceptance in ``acceptance_range``, split R-hat across the
@@ -830,7 +830,7 @@ class _Ensembles:
 
 
 def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=None, weights=None,
-                     region_cov=None):
+                     region_cov=None, region_centre=None):
     """emcee samplers on the region-restricted posterior, with their starting states.
 
     ``cov`` scales the independence proposal and the starting draws; ``region_cov`` (default ``cov``)
@@ -840,7 +840,8 @@ def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles,
     samplers, regions, out_states = [], [], []
     seeds = rng.integers(0, 2**32, size=n_ensembles)
     for e in range(n_ensembles):
-        region = ModeRegion(log_likelihood, centre, cov if region_cov is None else region_cov, radius2, space.periods)
+        region = ModeRegion(log_likelihood, centre if region_centre is None else region_centre,
+                            cov if region_cov is None else region_cov, radius2, space.periods)
         lp = LogPosterior(region, space, 1.0, centre)
         independence = LaplaceIndependenceMove(centre, cov)
         sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS),
@@ -958,9 +959,10 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
             pilot_acceptance = float(np.nanmean([np.nanmean(diag_acceptance(c)) for c in chains]))
             if pilot_acceptance >= MIN_PILOT_ACCEPTANCE:
                 p_centre, p_cov = _pilot_covariance(chains, lp0, centre, cov, space.periods)
-                # the region covers both the Laplace and the pilot's spread (a pilot whose walkers stuck
-                # must not shrink the region around them); the proposal follows the pilot
-                region_cov = cov + p_cov
+                # the region stays the optimum's Laplace ellipsoid (the solution's mode: widened by the
+                # pilot's spread it let walkers of CAL-dense-npa-096 reach another P_phi); the
+                # proposal follows the pilot
+                region_cov = cov
                 centre, cov = space.wrap(p_centre), p_cov
             else:
                 region_cov = cov
@@ -969,7 +971,7 @@ def sample_local_mode(log_likelihood: Callable[[np.ndarray], np.ndarray], space:
         else:
             last, region_cov = None, cov
         ens = _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles, rng, states=last,
-                               region_cov=region_cov)
+                               region_cov=region_cov, region_centre=lap.centre)
         budget = max_steps - pilot_steps
         done, target = 0, min(budget, FIRST_BLOCK_STEPS)
         while True:
