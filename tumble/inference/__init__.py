@@ -6,6 +6,7 @@ Sub-modules (one concept each):
 - :mod:`~tumble.inference.logpost` - the picklable vectorised (tempered) log-posterior;
 - :mod:`~tumble.inference.diagnostics` - autocorrelation, acceptance, split R-hat, walker clusters;
 - :mod:`~tumble.inference.sampling` - :func:`sample_posterior` and the :class:`Posterior` contract;
+- :mod:`~tumble.inference.local` - :func:`sample_local_mode`: one solution's mode from its optimum;
 - :mod:`~tumble.inference.evidence` - stepping-stone / thermodynamic evidence, Laplace, BIC;
 - :mod:`~tumble.inference.bayes` - Bayes factors, model probabilities, published evidence scales.
 
@@ -34,6 +35,7 @@ from tumble.inference.evidence import (
     laplace_log_evidence,
     log_evidence,
 )
+from tumble.inference.local import AttitudeChart, ImplicitChart, laplace_approximation, sample_local_mode
 from tumble.inference.logpost import LogPosterior
 from tumble.inference.sampling import (
     NpzBackend,
@@ -62,4 +64,5 @@ __all__ = [
     "geometric_ladder", "laplace_log_evidence", "bic", "bic_log_evidence", "EvidenceEstimate",
     "BayesFactor", "EvidenceScale", "KASS_RAFTERY_1995", "JEFFREYS_1961", "ln_bayes_factor",
     "posterior_probability", "evidence_level", "kass_raftery_level", "jeffreys_level",
+    "sample_local_mode", "laplace_approximation", "AttitudeChart", "ImplicitChart",
 ]

@@ -62,6 +62,8 @@ __all__ = [
     "sample_posterior",
     "initial_ball",
     "default_n_walkers",
+    "assess_chains",
+    "posterior_from_chains",
 ]
 
 CHECKPOINT_FORMAT = 1
@@ -135,6 +137,15 @@ class SamplerDiagnostics:
     beta : float
         Inverse temperature sampled (1 for the posterior).
     tau_multiple, acceptance_range, rhat_max : criteria applied.
+    method : str
+        ``"ensemble"`` (:func:`sample_posterior`) or ``"local-mode"``
+        (:func:`tumble.inference.local.sample_local_mode`).
+    mode_edge_fraction : float
+        Local-mode sampling: fraction of the samples near the edge of the mode region (``nan`` otherwise).
+    outside_fraction : float
+        Local-mode sampling: fraction of the proposals that fell outside the mode region (``nan`` otherwise).
+    pilot_steps : int
+        Local-mode sampling: steps per ensemble of the discarded pilot run (0 otherwise).
     """
 
     converged: bool
@@ -156,6 +167,10 @@ class SamplerDiagnostics:
     tau_multiple: float
     acceptance_range: tuple[float, float]
     rhat_max: float
+    method: str = "ensemble"
+    mode_edge_fraction: float = math.nan
+    outside_fraction: float = math.nan
+    pilot_steps: int = 0
 
     @property
     def n_modes(self) -> int:
@@ -166,6 +181,12 @@ class SamplerDiagnostics:
     def max_autocorr_time_steps(self) -> float:
         """Largest autocorrelation time over parameters and ensembles, steps."""
         return float(np.max(self.autocorr_time_steps))
+
+    @property
+    def tau_multiples(self) -> float:
+        """Chain length after burn-in in units of the largest autocorrelation time (the criterion's number)."""
+        tau = self.max_autocorr_time_steps
+        return float((self.n_steps - self.n_burn) / tau) if np.isfinite(tau) and tau > 0 else 0.0
 
 
 @dataclass(frozen=True)
@@ -448,7 +469,7 @@ class _Assessment:
     long_enough: bool = False
 
 
-def _assess(
+def assess_chains(
     chains: Sequence[np.ndarray],
     space: ParameterSpace,
     tau_multiple: float,
@@ -457,6 +478,13 @@ def _assess(
     burn_factor: float,
     cluster_threshold: float,
 ) -> _Assessment:
+    """Burn-in, thinning and the convergence criteria of ``(n_steps, n_walkers, ndim)`` chains.
+
+    Used by :func:`sample_posterior` and :func:`tumble.inference.local.sample_local_mode`: the
+    autocorrelation time (after a burn-in of ``burn_factor`` times its estimate on the second
+    half), each ensemble's acceptance, split R-hat across ensembles and walker clusters; the
+    reasons list every criterion not met.
+    """
     periods = space.periods
     stacked = np.stack(chains)  # (E, n, K, d)
     aligned = diag.align_periodic(stacked, periods)
@@ -638,7 +666,7 @@ def sample_posterior(
                     _save_checkpoint(checkpoint, backends, space, beta,
                                      n_eval_before + sum(lp.n_evaluations for lp in log_posts))
             chains = [b.get_chain() for b in backends]
-            a = _assess(chains, space, tau_multiple, acceptance_range, rhat_max, burn_factor, cluster_threshold)
+            a = assess_chains(chains, space, tau_multiple, acceptance_range, rhat_max, burn_factor, cluster_threshold)
             if not a.reasons or done >= max_steps:
                 break
             n_modes = int(a.labels.max()) + 1
@@ -654,7 +682,7 @@ def sample_posterior(
             bar.refresh()
 
     n_eval = n_eval_before + sum(lp.n_evaluations for lp in log_posts)
-    post = _posterior_from(backends, space, a, beta, n_eval, tau_multiple, acceptance_range, rhat_max)
+    post = posterior_from_chains(backends, space, a, beta, n_eval, tau_multiple, acceptance_range, rhat_max)
     if warn and not post.diagnostics.converged:
         warnings.warn(
             "posterior sampling did not converge: " + "; ".join(post.diagnostics.reasons), ConvergenceWarning, stacklevel=2
@@ -673,7 +701,8 @@ def _finite_start(fn, draw, n_walkers, e):
     raise TumbleError(f"could not find starting positions with finite log-posterior for ensemble {e}")
 
 
-def _posterior_from(backends, space, a, beta, n_evaluations, tau_multiple, acceptance_range, rhat_max):
+def posterior_from_chains(backends, space, a, beta, n_evaluations, tau_multiple, acceptance_range, rhat_max):
+    """The :class:`Posterior` of emcee backends after :func:`assess_chains` (burn-in removed, thinned, pooled)."""
     periods = space.periods
     chains = np.stack([b.get_chain() for b in backends])  # (E, n, K, d)
     logp = np.stack([b.get_log_prob() for b in backends])  # (E, n, K)
