@@ -46,7 +46,8 @@ from tumble.classify.quadrature import integrate_peak, logsumexp, peak_indices
 from tumble.model import FourierBasis, fit_linear, linear_log_evidence
 
 __all__ = ["BINARY_COMPARABLE_2LNB", "EVENT_WIDTHS", "EVENT_SIGMA_MAG", "EventBasis", "BinaryResult", "EventIndicator", "event_profile",
-           "event_scan", "event_scan_reference", "binary_evidence", "binary_log_density", "event_indicator", "orbit_peaks"]
+           "event_scan", "event_scan_reference", "binary_evidence", "binary_log_density", "event_indicator", "orbit_peaks",
+           "screen_event_indicator", "primary_residuals"]
 
 #: Full event durations in orbital phase (mutual events of known binaries last about 0.05-0.15 of the
 #: orbit; common practice, from memory).
@@ -68,6 +69,17 @@ MAX_ORB_GRID = 60_000
 SCAN_STEP_FRACTION = 1.0 / 3.0
 #: Event indicator: the two-dip model must gain at least this chi-square (a 5-sigma dip pair).
 INDICATOR_MIN_CHI2 = 25.0
+#: Event indicator: the dips must explain at least this share of the residuals' chi-square about their
+#: weighted mean (events leave the residuals flat between them; a tumbler's residual signal is spread
+#: over the whole cycle, of which a few narrow boxes take a small share). Set on the calibration half
+#: of the library (``benchmarks/bench_binary.py``, ``docs/validation-classify.md``).
+INDICATOR_MIN_SHARE = 0.2
+#: Screen: orbital frequencies tried on a grid of this many points within +- this many 1/span around
+#: each candidate (the screen's second frequency and half of it).
+SCREEN_ORBIT_GRID = 15
+SCREEN_ORBIT_HALF_WIDTH_PER_SPAN = 0.5
+#: Screen: harmonics of the primary's one-period fit removed before the indicator.
+SCREEN_PRIMARY_HARMONICS = 4
 #: The decision: a binary whose evidence is within this of the NPA family's (``2 ln Z`` units, the
 #: lowest Kass & Raftery 1995 band edge) or better is a live alternative to tumbling.
 BINARY_COMPARABLE_2LNB = 2.0
@@ -305,6 +317,9 @@ class BinaryResult:
         Orbital phase of the first event (phase 0 at the data's mid-time).
     p1_h : float
         The primary's light-curve fundamental period ``24/f1``, hours.
+    event_epoch_jd : float
+        Mid-time of the deeper event, JD (the data's time scale): the events fall at
+        ``event_epoch_jd + (k / 2) p_orb_h / 24``, the deeper one at even ``k``.
     f1_per_d, f_orb_per_d : float
     width_mass : float
         Posterior share of the dominant event width at the dominant peak.
@@ -326,6 +341,7 @@ class BinaryResult:
     width_mass: float
     n_evaluations: int
     route: str
+    event_epoch_jd: float = math.nan
 
 
 def _empty_result(route: str) -> BinaryResult:
@@ -383,11 +399,14 @@ def binary_evidence(problem, evidence, *, n_windows: int = BINARY_MAX_WINDOWS, f
     v = int(np.argmax(linear_log_evidence(problem.data, basis, [best_w.f1], [best_w.f_orb])[0]))
     depths = fit_linear(problem.data, basis, v, best_w.f1, best_w.f_orb).coefficients[-2:]
     f, s = best_w.f_orb, best_w.sigma_f_orb if np.isfinite(best_w.sigma_f_orb) else 0.0
+    # the first event is centred where f_orb t_d = phase (t_d from the data's mid-time); the deeper one
+    # is either it or the one half an orbit later
+    epoch = problem.data.t_mid_jd + (best_w.phase + (0.5 if depths[1] > depths[0] else 0.0)) / f
     return BinaryResult(
         ln_z_binary=float(ln_z), ln_z_binary_err=float(err), p_orb_h=24.0 / f, p_orb_h_lo=24.0 / (f + s),
         p_orb_h_hi=24.0 / (f - s) if f > s else math.inf, event_depth_mag=(float(depths[0]), float(depths[1])),
         event_width_phase=best_w.width, event_phase=best_w.phase, p1_h=24.0 / best_w.f1, f1_per_d=best_w.f1,
-        f_orb_per_d=f, width_mass=width_mass, n_evaluations=int(n_eval), route=route)
+        f_orb_per_d=f, width_mass=width_mass, n_evaluations=int(n_eval), route=route, event_epoch_jd=float(epoch))
 
 
 def event_scan_reference(t_d, resid_mag, weight, f_orb: float, width: float, n_bins: int = SCAN_PHASE_BINS) -> float:
@@ -419,14 +438,21 @@ class EventIndicator:
     score : float
         ``(dip_chi2 - smooth_chi2) / 2``, nats: positive when narrow dips that are flat between explain
         more than the smooth series with more coefficients.
+    share : float
+        ``dip_chi2`` over the residuals' chi-square about their weighted mean.
     event_like : bool
-        ``dip_chi2 >= INDICATOR_MIN_CHI2`` and ``score > 0``: a binary candidate for the full route.
+        ``dip_chi2 >= INDICATOR_MIN_CHI2``, ``score > 0`` and ``share >= INDICATOR_MIN_SHARE``: a binary
+        candidate for the full route.
+    f_orb_per_d : float
+        The orbital frequency tested, c/d.
     """
 
     dip_chi2: float
     smooth_chi2: float
     score: float
+    share: float
     event_like: bool
+    f_orb_per_d: float
 
 
 def event_indicator(t_d, resid_mag, weight, f_orb_per_d: float) -> EventIndicator:
@@ -451,7 +477,48 @@ def event_indicator(t_d, resid_mag, weight, f_orb_per_d: float) -> EventIndicato
     design = np.stack([np.ones_like(t), np.cos(x), np.sin(x), np.cos(2 * x), np.sin(2 * x)], axis=1)
     sw = np.sqrt(w)
     coef, *_ = np.linalg.lstsq(design * sw[:, None], r * sw, rcond=None)
-    base = np.sum(w * (r - np.sum(w * r) / np.sum(w)) ** 2)
+    base = float(np.sum(w * (r - np.sum(w * r) / np.sum(w)) ** 2))
     smooth = float(base - np.sum(w * (r - design @ coef) ** 2))
     score = 0.5 * (dip - smooth)
-    return EventIndicator(dip, smooth, float(score), bool(dip >= INDICATOR_MIN_CHI2 and score > 0))
+    share = dip / base if base > 0 else 0.0
+    like = dip >= INDICATOR_MIN_CHI2 and score > 0 and share >= INDICATOR_MIN_SHARE
+    return EventIndicator(dip, smooth, float(score), float(share), bool(like), float(f_orb_per_d))
+
+
+def primary_residuals(lc, f1_per_d: float, harmonics: int = SCREEN_PRIMARY_HARMONICS,
+                      error_floor_mag: float = 0.0) -> tuple:
+    """The primary's rotation removed: times (days from the data's mid-time), residuals (mag) of a
+    one-period Fourier fit at ``f1_per_d`` with the nuisance model (per-session zero-points, sparse phase
+    terms), and the weights ``1/(err^2 + floor^2)``."""
+    from tumble.model import FourierVariant, prepare_linear
+
+    data = prepare_linear(lc, error_floor_mag=error_floor_mag)
+    basis = FourierBasis.build([FourierVariant(int(harmonics), 0)])
+    fit = fit_linear(data, basis, 0, float(f1_per_d))
+    return data.t_d, data.y - fit.model_mag, data.sw**2
+
+
+def screen_event_indicator(t_d, resid_mag, weight, f2_per_d: float, span_d: float) -> EventIndicator:
+    """The screen's binary indicator: :func:`event_indicator` at the best orbital frequency near the second
+    frequency and near half of it (events twice per orbit put a smooth fit's second period at
+    ``2 f_orb``; unequal events at ``f_orb``).
+
+    Costs two small box scans (:data:`SCREEN_ORBIT_GRID` frequencies each) and two indicators.
+    """
+    t = np.asarray(t_d, float)
+    r = np.asarray(resid_mag, float)
+    w = np.asarray(weight, float)
+    best = None
+    hw = SCREEN_ORBIT_HALF_WIDTH_PER_SPAN / span_d
+    for fc in (0.5 * f2_per_d, f2_per_d):
+        grid = fc + np.linspace(-hw, hw, SCREEN_ORBIT_GRID)
+        grid = grid[grid > 0]
+        if grid.size == 0:
+            continue
+        gain = event_scan(t, r, w, grid)[0]
+        ind = event_indicator(t, r, w, float(grid[int(np.argmax(gain))]))
+        if best is None or (ind.event_like, ind.score) > (best.event_like, best.score):
+            best = ind
+    if best is None:
+        return EventIndicator(0.0, 0.0, 0.0, 0.0, False, math.nan)
+    return best
