@@ -200,7 +200,7 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
     p_a, p_b = 24.0 / fa if fa > 0 else math.nan, 24.0 / fb if fb > 0 else math.nan
     if np.isfinite(amp_a) and np.isfinite(amp_b) and amp_b > amp_a:
         p_a, p_b = p_b, p_a
-    binary = _binary_indicator(lc, p_a, p_b, floor) if flag == "candidate" else None
+    binary = _binary_indicator(lc, fa, fb, floor) if flag == "candidate" else None
     if binary is not None and binary.event_like:
         warn.append(f"binary candidate: the second period behaves like mutual events (dips half an orbit apart at "
                     f"P_orb = {24.0 / binary.f_orb_per_d:.4g} h, flat between)")
@@ -218,11 +218,10 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
     return replace(out, runtime_s=float(time.perf_counter() - t0))
 
 
-def _binary_indicator(lc, p1_h: float, p2_h: float, floor_mag: float):
-    """The event indicator on the residuals of the primary's one-period fit (P1), at the second period (P2)."""
-    from tumble.classify.binary import primary_residuals, screen_event_indicator
+def _binary_indicator(lc, f_a: float, f_b: float, floor_mag: float):
+    """The event indicator (:func:`tumble.classify.binary.screen_event_indicator`) at the two-period fit's frequencies."""
+    from tumble.classify.binary import screen_event_indicator
 
-    if not (np.isfinite(p1_h) and np.isfinite(p2_h)):
+    if not (np.isfinite(f_a) and np.isfinite(f_b)):
         return None
-    t_d, resid, weight = primary_residuals(lc, 24.0 / p1_h, error_floor_mag=floor_mag)
-    return screen_event_indicator(t_d, resid, weight, 24.0 / p2_h, float(lc.span_d))
+    return screen_event_indicator(lc, f_a, f_b, error_floor_mag=floor_mag)
