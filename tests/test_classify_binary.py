@@ -257,3 +257,18 @@ def test_screen_flags_the_simulated_binary_and_not_a_tumbler():
     s2 = screen(tumbler)
     assert not s2.binary_candidate and math.isnan(s2.p_orb_h)
     assert s2.results_row()["binary_candidate"] == "false"
+
+
+def test_didymos_folded_on_its_published_orbit_shows_two_mutual_events():
+    # real photometry of (65803) Didymos folded on the published orbit (P_orb = 11.91 h, primary
+    # P1 = 2.2593 h; Pravec et al. 2006, Icarus 181, 63): after removing the primary's rotation, two
+    # dips of a few hundredths of a magnitude half an orbit apart (the published events are about
+    # 0.05-0.1 mag deep; from memory), and residuals near zero a quarter of an orbit from them
+    if not DIDYMOS.exists():
+        pytest.skip(f"{DIDYMOS} not available")
+    fold = fold_on_orbit(read_alcdef_blocks(DIDYMOS), 2.2593, 11.91)
+    assert fold.masked_events
+    core = 0.25 * fold.width_phase  # the fold puts the event with the deeper core at phase 0
+    d0, d1 = fold.depth_at(0.0, core), fold.depth_at(0.5, core)
+    assert 0.03 < d1 <= d0 < 0.15
+    assert abs(fold.depth_at(0.25, 0.05)) < 0.015 and abs(fold.depth_at(-0.2, 0.03)) < 0.015

@@ -674,6 +674,12 @@ def fold_on_orbit(lc, p_primary_h: float, p_orb_h: float, *, epoch_jd: float = m
     if masked:
         _, resid = residuals(np.where(inside, FOLD_EVENT_WEIGHT, 1.0))
     phase = ((t - epoch_jd) * f_orb + 0.25) % 1.0 - 0.25
+    if from_data:  # with the primary refitted outside the events, keep the deeper one (its core) at phase 0
+        d = [float(np.median(resid[sel])) if sel.any() else -math.inf
+             for sel in (np.abs(phase) < 0.25 * width_phase, np.abs(phase - 0.5) < 0.25 * width_phase)]
+        if d[1] > d[0]:
+            epoch_jd = epoch_jd + 0.5 / f_orb
+            phase = ((t - epoch_jd) * f_orb + 0.25) % 1.0 - 0.25
     edges = np.linspace(-0.25, 0.75, FOLD_BINS + 1)
     idx = np.clip(np.searchsorted(edges, phase, side="right") - 1, 0, FOLD_BINS - 1)
     med = np.array([np.median(resid[idx == k]) if np.any(idx == k) else math.nan for k in range(FOLD_BINS)])
