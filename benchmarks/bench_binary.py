@@ -1,7 +1,8 @@
 """The binary alternative on the calibration library: binaries against tumblers, held-out half.
 
-Run:  nice .venv/bin/python benchmarks/bench_binary.py run [--quick] [--split heldout] [--limit N]
+Run:  nice .venv/bin/python benchmarks/bench_binary.py run [--quick] [--split heldout] [--limit N] [--shard I/N]
       .venv/bin/python benchmarks/bench_binary.py report [--split heldout]
+      .venv/bin/python benchmarks/bench_binary.py figures      # docs/figures/binary-fold-*.png
 
 Objects: the library's binaries (``library.population.BINARY_RECIPES``: dense campaigns, a PA ellipsoid
 primary of 2-5 h with a spherical satellite, P_orb 10-40 h, size ratio 0.2-0.5, most orbits near
@@ -58,6 +59,15 @@ DETECTABLE_DEPTH_OVER_NOISE = 3.0
 P_ORB_REL_TOL = 0.01
 #: --quick: this many objects of each class.
 QUICK_PER_CLASS = 8
+#: Real photometry of the binary (65803) Didymos (ALCDEF; open data of the project) and its published
+#: periods (Pravec et al. 2006, Icarus 181, 63): primary rotation and orbit, hours.
+DIDYMOS = HERE.parent.parent / "shared" / "external_data" / "alcdef_didymos" / "ALCDEF_65803_Didymos.txt"
+DIDYMOS_P1_H, DIDYMOS_P_ORB_H = 2.2593, 11.91
+#: Error given to ALCDEF points quoted with error 0 (differential blocks): a typical CCD error (from memory).
+ALCDEF_DEFAULT_ERR_MAG = 0.02
+FIGURES = HERE.parent / "docs" / "figures"
+#: The library binary drawn as the simulated example (a held-out binary with deep, well covered events).
+EXAMPLE_BINARY = "CAL-dense-binary-007"
 
 
 def select(split: str, limit: int | None, cache: Path) -> list:
@@ -165,6 +175,29 @@ def report(rows: list) -> str:
     return "\n".join(lines)
 
 
+def figures(cache: Path) -> None:
+    """The fold on P_orb of real Didymos at its published periods and of a simulated library binary."""
+    from tumble import plots
+    from tumble.classify.binary import fold_on_orbit
+    from tumble.photometry import ReadOptions, read_lightcurve
+
+    FIGURES.mkdir(parents=True, exist_ok=True)
+    dpath = DIDYMOS if DIDYMOS.exists() else Path("/work/shared/external_data/alcdef_didymos/ALCDEF_65803_Didymos.txt")
+    lc = read_lightcurve([str(dpath)], options=ReadOptions(default_err=ALCDEF_DEFAULT_ERR_MAG))
+    fold = fold_on_orbit(lc, DIDYMOS_P1_H, DIDYMOS_P_ORB_H)
+    plots.plot_orbit_fold(fold, object_id="(65803) Didymos, ALCDEF, at the published periods",
+                          path=FIGURES / "binary-fold-didymos.png")
+    print(f"Didymos: {lc.n_points} points; events {fold.depth_at(0.0, 0.25 * fold.width_phase):.3f} and "
+          f"{fold.depth_at(0.5, 0.25 * fold.width_phase):.3f} mag (core medians), epoch JD {fold.epoch_jd:.4f}")
+    spec = next(s for s in generate_population(recipes=BINARY_RECIPES) if s.object_id == EXAMPLE_BINARY)
+    obj = load_or_render(spec, cache)
+    fold = fold_on_orbit(obj.lightcurve, spec.rotation.p_psi_h, spec.binary.p_orb_h)
+    plots.plot_orbit_fold(fold, object_id=f"{EXAMPLE_BINARY} (simulated, true periods)",
+                          path=FIGURES / "binary-fold-simulated.png")
+    print(f"{EXAMPLE_BINARY}: P_orb {spec.binary.p_orb_h:.3f} h, primary {spec.rotation.p_psi_h:.3f} h, "
+          f"deepest observed event {obj.truth.event_depth_mag:.3f} mag, noise {obj.truth.noise_mag:.3f} mag")
+
+
 def _load(path: Path) -> list:
     if not path.exists():
         return []
@@ -179,7 +212,7 @@ def _load(path: Path) -> list:
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("command", choices=("run", "report"))
+    ap.add_argument("command", choices=("run", "report", "figures"))
     ap.add_argument("--split", default="heldout", choices=("heldout", "calibration", "all"))
     ap.add_argument("--limit", type=int, help="at most this many objects of each class")
     ap.add_argument("--quick", action="store_true", help=f"{QUICK_PER_CLASS} objects of each class")
@@ -193,6 +226,9 @@ def main(argv=None):
     shards = [out] + sorted(out.parent.glob(out.name + ".shard*"))
     if args.command == "report":
         print(report([r for p in shards for r in _load(p) if "error" not in r]))
+        return 0
+    if args.command == "figures":
+        figures(Path(args.library_cache))
         return 0
     cache = Path(args.library_cache)
     cache.mkdir(parents=True, exist_ok=True)
