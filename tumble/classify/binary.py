@@ -51,15 +51,27 @@ __all__ = ["BINARY_COMPARABLE_2LNB", "EVENT_WIDTHS", "EVENT_SIGMA_MAG", "EventBa
            "screen_event_indicator", "primary_residuals", "OrbitFold", "fold_on_orbit"]
 
 #: Full event durations in orbital phase (mutual events of known binaries last about 0.05-0.15 of the
-#: orbit; common practice, from memory).
-EVENT_WIDTHS = (0.04, 0.07, 0.11, 0.16)
+#: orbit; common practice, from memory; 0.22 for close satellites: a 0.46-size satellite at 2.5 primary
+#: radii makes events of about 0.19 of the orbit, and the raised cosine's core is half its full width).
+EVENT_WIDTHS = (0.04, 0.07, 0.11, 0.16, 0.22)
 #: Prior standard deviation of an event depth, mag (times the error scale): events of 0.03-0.2 mag.
 EVENT_SIGMA_MAG = 0.1
-#: Orbital-frequency peaks of the scan integrated per f1 window.
-N_ORB_PEAKS = 3
+#: Orbital-frequency peaks integrated per f1 window: the best by the exact marginal likelihood at the
+#: peak (all widths) among :data:`N_SCAN_CANDIDATES` box-scan peaks and the aliases of the best. The
+#: box statistic alone ranked a nightly alias above the true orbit on several library binaries.
+N_ORB_PEAKS = 4
+N_SCAN_CANDIDATES = 12
 #: Aliases of the best scan peak also integrated (ratios of f_orb): one event per period (1/2), and the
 #: 2/3, 3/2 and 2 aliases that nightly gaps make of events every third or half orbit.
 ORBIT_ALIAS_RATIOS = (0.5, 2.0 / 3.0, 1.5, 2.0)
+#: Nightly data: daily aliases of the best peak also integrated (offsets of f_orb, c/d): events come
+#: twice per orbit, so a one-cycle-per-day alias of the event rate is half a cycle per day in f_orb.
+#: Measured on the library's held-out binaries: the box scan's best peak was such an alias on several
+#: nightly campaigns (``docs/validation-classify.md``).
+ORBIT_ALIAS_OFFSETS_PER_D = (-1.0, -0.5, 0.5, 1.0)
+#: Each alias is the best scan peak within this many 1/span of its nominal frequency (an alias of a
+#: peak that is itself off the truth by a fraction of the resolution lands off the true peak).
+ALIAS_SEARCH_HALF_WIDTH_PER_SPAN = 0.5
 #: f1 windows of the evidence (best PA windows first) given the binary integration.
 BINARY_MAX_WINDOWS = 3
 #: Phase bins of the box scan (even: the second event sits K/2 bins from the first).
@@ -257,24 +269,38 @@ def _orbit_grid(problem, f1: float):
 
 
 def orbit_peaks(problem, f1: float, n_peaks: int = N_ORB_PEAKS) -> tuple:
-    """The strongest peaks of the event scan at ``f1``, plus the aliases :data:`ORBIT_ALIAS_RATIOS` of the best."""
+    """Orbital peaks to integrate at ``f1``: the :data:`N_SCAN_CANDIDATES` strongest peaks of the event
+    scan and the aliases of the best (:data:`ORBIT_ALIAS_RATIOS`; nightly data also
+    :data:`ORBIT_ALIAS_OFFSETS_PER_D`), ranked by the binary family's exact log density at the peak
+    (best over the event widths); the best ``n_peaks`` are returned."""
     grid, step = _orbit_grid(problem, f1)
     if len(grid) < 3:
         return (), step
     resid, weight = _pa_residuals(problem, f1)
     gain, phase, width = event_scan(problem.data.t_d, resid, weight, grid)
-    peaks = [OrbitPeak(float(grid[i]), float(phase[i]), float(width[i]), float(gain[i]))
-             for i in peak_indices(gain, n_peaks, 3)]
-    if not peaks:
+    idx = peak_indices(gain, N_SCAN_CANDIDATES, 3)
+    if not idx:
         return (), step
-    for ratio in ORBIT_ALIAS_RATIOS:
-        fa = ratio * peaks[0].f_orb_per_d
-        if grid[0] <= fa <= grid[-1] and all(abs(fa - p.f_orb_per_d) > 3 * step for p in peaks):
+    f0 = float(grid[idx[0]])
+    targets = [ratio * f0 for ratio in ORBIT_ALIAS_RATIOS]
+    if problem.nightly:
+        targets += [f0 + off for off in ORBIT_ALIAS_OFFSETS_PER_D]
+    reach = max(3, int(round(ALIAS_SEARCH_HALF_WIDTH_PER_SPAN / problem.span_d / step)))
+    for fa in targets:
+        if grid[0] <= fa <= grid[-1]:
             j = int(np.argmin(np.abs(grid - fa)))
-            lo, hi = max(j - 3, 0), min(j + 4, len(grid))
+            lo, hi = max(j - reach, 0), min(j + reach + 1, len(grid))
             j = lo + int(np.argmax(gain[lo:hi]))
-            peaks.append(OrbitPeak(float(grid[j]), float(phase[j]), float(width[j]), float(gain[j])))
-    return tuple(peaks), step
+            if all(abs(j - i) > 3 for i in idx):
+                idx.append(j)
+    f = grid[idx]
+    score = np.full(len(idx), -np.inf)
+    for w in EVENT_WIDTHS:
+        score = np.maximum(score, binary_log_density(problem, f1, f, phase[idx], w))
+    keep = np.argsort(-score)[:n_peaks]
+    peaks = tuple(OrbitPeak(float(grid[idx[k]]), float(phase[idx[k]]), float(width[idx[k]]), float(gain[idx[k]]))
+                  for k in keep if np.isfinite(score[k]))
+    return peaks, step
 
 
 @dataclass(frozen=True)
