@@ -229,6 +229,11 @@ def test_orbit_fold_figure_has_units_and_the_report_shows_the_binary(binary_case
     fig = plots.plot_orbit_fold(fold, object_id="sim", depths_mag=b.event_depth_mag, path=tmp_path / "f.png")
     ax = fig.axes[0]
     assert "P_orb" in ax.get_xlabel() and " h" in ax.get_xlabel() and "(mag)" in ax.get_ylabel()
+    from matplotlib.text import Text
+
+    # readable at 100 %: no text below plots.MIN_FONT_PT (the figures' rule; common practice)
+    assert not [t.get_text() for t in fig.findobj(Text)
+                if t.get_text().strip() and t.get_visible() and t.get_fontsize() < plots.MIN_FONT_PT]
     assert (tmp_path / "f.png").stat().st_size > 10_000
     v = decide(ev, span_d=lc.span_d, binary=b)
     page = write_object_report(tmp_path / "rep", v.to_dict(), lc=lc)
