@@ -454,12 +454,12 @@ def binary_section(out_dir, verdict: Mapping, lc=None, *, prefix: str = "") -> l
         return []
     p_orb = _f(v.get("p_orb_h"))
     if candidate:
+        p_primary = _f(v.get("p_primary_h")) if _fin(v.get("p_primary_h")) else _f(v.get("p1_h"))
         text = ("<p>The screen flags a <b>binary candidate</b>: after removing the primary's light curve "
-                f"(P1 = {_e(format_period_h(v.get('p1_h')))} h), the second period behaves like mutual events "
+                f"(period {_e(format_period_h(p_primary))} h), the other period behaves like mutual events "
                 f"(narrow dips half an orbit apart, flat between) at P_orb = {_e(format_period_h(p_orb))} h. "
                 "This is triage, not a verdict: run the full classifier, which weighs the binary family against "
                 "PA and NPA.</p>")
-        p_primary = _f(v.get("p1_h"))
     else:
         dur = v.get("event_duration_h")
         text = ("<p>A <b>binary</b> with mutual events explains these data as well as tumbling or better, so no "

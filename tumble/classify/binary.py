@@ -35,7 +35,7 @@ binary. The result is a scientific estimate for research use.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import partial
 
 import numpy as np
@@ -488,6 +488,8 @@ class EventIndicator:
         INDICATOR_MIN_DIP_OVER_SMOOTH x smooth_chi2``: a binary candidate for the full route.
     f_orb_per_d : float
         The orbital frequency tested, c/d.
+    f_primary_per_d : float
+        The primary's light-curve frequency removed before the test, c/d (NaN when not recorded).
     """
 
     dip_chi2: float
@@ -496,6 +498,7 @@ class EventIndicator:
     share: float
     event_like: bool
     f_orb_per_d: float
+    f_primary_per_d: float = math.nan
 
 
 def event_indicator(t_d, resid_mag, weight, f_orb_per_d: float) -> EventIndicator:
@@ -572,6 +575,7 @@ def screen_event_indicator(lc, f_a_per_d: float, f_b_per_d: float, *, error_floo
         if not (np.isfinite(primary) and np.isfinite(other) and primary > 0 and other > 0):
             continue
         t, r, w = primary_residuals(lc, primary, error_floor_mag=error_floor_mag)
+        before = best
         for fc in (0.5 * other, other):
             best = _best_indicator(t, r, w, fc + np.linspace(-hw, hw, SCREEN_ORBIT_GRID), best)
         lo, hi = MIN_CYCLES / span, 0.5 * primary
@@ -581,6 +585,8 @@ def screen_event_indicator(lc, f_a_per_d: float, f_b_per_d: float, *, error_floo
             gain = event_scan(t, r, w, coarse)[0]
             k = int(np.argmax(gain))
             best = _best_indicator(t, r, w, coarse[k] + step * np.linspace(-1.0, 1.0, SCREEN_ORBIT_GRID), best)
+        if best is not before:  # found with this primary removed
+            best = replace(best, f_primary_per_d=float(primary))
     if best is None:
         return EventIndicator(0.0, 0.0, 0.0, 0.0, False, math.nan)
     return best

@@ -83,6 +83,7 @@ class ScreenResult:
     prior_npa: float = math.nan
     binary_candidate: bool = False
     p_orb_h: float = math.nan
+    p_primary_h: float = math.nan
 
     # a screen states no rotation and no grade
     rotation = ""
@@ -214,7 +215,8 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
         warnings=tuple(["screen only: a flag for triage, not a verdict"] + warn), n_points=lc.n_points,
         n_sessions=lc.n_sessions, span_d=float(lc.span_d), prior_npa=float(prior_npa),
         binary_candidate=bool(binary is not None and binary.event_like),
-        p_orb_h=24.0 / binary.f_orb_per_d if binary is not None and binary.event_like else math.nan)
+        p_orb_h=24.0 / binary.f_orb_per_d if binary is not None and binary.event_like else math.nan,
+        p_primary_h=24.0 / binary.f_primary_per_d if binary is not None and binary.event_like else math.nan)
     return replace(out, runtime_s=float(time.perf_counter() - t0))
 
 
