@@ -267,3 +267,22 @@ def test_npa_light_curve_periods_match_the_frequency_combinations():
     assert scoring.npa_lightcurve_match(row, 0.01)
     assert not scoring.npa_lightcurve_match({**row, "p2_h": 9.3}, 0.01)
     assert not scoring.npa_lightcurve_match({**row, "p2_h": float("nan")}, 0.01)
+
+
+def test_library_binaries_are_a_class_of_their_own_with_events_at_the_orbital_period():
+    # issue 20's ranges: P_orb 10-40 h, size ratio 0.2-0.5; new ids, so that the other objects keep
+    # their seeds (each seed is a hash of the object's own id)
+    binaries = population.generate_population(recipes=population.BINARY_RECIPES)
+    assert len(binaries) == sum(r.count for r in population.BINARY_RECIPES) >= 40
+    assert all(s.truth_class == "binary" and s.object_id.startswith("CAL-dense-binary-") for s in binaries)
+    assert all(10.0 <= s.binary.p_orb_h <= 40.0 and 0.2 <= s.binary.size_ratio <= 0.5 for s in binaries)
+    assert {"calibration", "heldout"} == {s.split for s in binaries}
+    others = population.generate_population(recipes=tuple(r for r in population.RECIPES if r.rotation != "binary"))
+    assert all(s.binary is None for s in others)
+    assert population.spec_from_dict(binaries[0].to_dict()) == binaries[0]
+    # a near edge-on binary: its rendered light curve has mutual events (the truth's noise-free depth,
+    # from tumble.simulate.binary_event_factors, the two-sphere geometry of tests/test_mutual_events.py)
+    spec = next(s for s in binaries if s.binary.edge_on)
+    obj = render.render(spec)
+    assert obj.truth.p_orb_h == spec.binary.p_orb_h and obj.truth.event_depth_mag > 0.02
+    assert obj.truth.truth_class == "binary" and obj.truth.period_h == spec.rotation.p_psi_h

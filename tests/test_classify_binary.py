@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 
 from tumble import simulate as sim
-from tumble.classify import classify
+from tumble.classify import classify, screen
 from tumble.classify.binary import (EventBasis, binary_evidence, event_indicator, event_profile, event_scan,
-                                    event_scan_reference)
+                                    event_scan_reference, fold_on_orbit)
 from tumble.classify.evidence import build_problem, fourier_evidence_with_problem
 from tumble.classify.families import PA_VARIANTS
 from tumble.classify.rules import decide
@@ -170,3 +170,110 @@ def test_didymos_orbit_from_the_binary_family_at_the_published_primary_period():
     assert b.p_orb_h == pytest.approx(11.91, rel=0.01)
     assert b.p1_h == pytest.approx(2.2593, rel=1e-3)
     assert min(b.event_depth_mag) > 0  # dips, not brightenings
+
+
+def _event_truth(seed=2):
+    """The simulated binary and each point's event depth (mag): the system with its mutual events against
+    the same primary and satellite without them, both fluxes as the simulator adds them
+    (``tumble.simulate.binary_event_factors``; satellite flux q^2 times the Lommel-Seeliger sphere phase
+    function)."""
+    from tumble.brightness import sphere_ls_phase_function
+    from tumble.simulate import binary_event_factors, model_magnitudes
+
+    s = _edge_on_binary(seed=seed)
+    lc = s.lightcurve
+    orbit = BinaryOrbit(**s.truth["binary"])
+    t, sd, od, ph = np.asarray(lc.t), np.asarray(lc.sun_dir), np.asarray(lc.obs_dir), np.asarray(lc.phase_deg)
+    f_p = 10.0 ** (-0.4 * model_magnitudes(RotationState.principal_axis(2.5, 30, 60, 0, START), (1.3, 1.0, 0.9), t,
+                                           sd, od, phase_deg=ph))
+    share, f_s = binary_event_factors(orbit, t, sd, od, ph)
+    f_s0 = orbit.size_ratio**2 * sphere_ls_phase_function(ph) * orbit.satellite_modulation(t)
+    return lc, -2.5 * np.log10(share * f_p + f_s) + 2.5 * np.log10(f_p + f_s0)
+
+
+def test_fold_on_orbit_puts_the_simulated_events_at_phases_0_and_half():
+    # the standard view of mutual events (primary removed, folded on P_orb; common practice since
+    # Pravec et al. 2006, Icarus 181, 63): the simulator's events, computed from the geometry of two
+    # spheres (tests/test_mutual_events.py checks it against the analytic disc overlap), must fall at
+    # the fold's event phases, with the residuals flat between them
+    lc, loss = _event_truth()
+    fold = fold_on_orbit(lc, 1.25, 14.0)  # the primary's light-curve fundamental and the true orbit
+    in_event = loss > 0.02
+    assert in_event.sum() > 10
+    d = np.minimum(np.abs(fold.phase[in_event]), np.abs(fold.phase[in_event] - 0.5))
+    assert np.median(d) < 0.5 * fold.width_phase  # the simulated events sit in the fold's event windows
+    deepest = int(np.argmax(loss))
+    assert abs(fold.phase[deepest]) < 0.5 * fold.width_phase  # the deeper event at phase 0
+    deep0, deep1 = fold.depth_at(0.0, 0.015), fold.depth_at(0.5, 0.015)
+    assert deep0 > 0.5 * loss.max() and deep1 > 0.03  # both dips show, the deeper one at 0
+    quiet = loss < 0.002  # flat between the events: the residuals there are the 0.01 mag noise about zero
+    assert abs(np.median(fold.residual_mag[quiet])) < 0.005 and np.std(fold.residual_mag[quiet]) < 0.015
+    assert fold.masked_events
+
+
+def test_fold_epoch_from_the_binary_family_matches_the_fold_found_from_the_data(binary_case):
+    lc, problem, ev, b = binary_case
+    given = fold_on_orbit(lc, b.p1_h, b.p_orb_h, epoch_jd=b.event_epoch_jd, width_phase=b.event_width_phase)
+    found = fold_on_orbit(lc, b.p1_h, b.p_orb_h)
+    dphase = ((given.epoch_jd - found.epoch_jd) * 24.0 / b.p_orb_h + 0.5) % 1.0 - 0.5
+    assert abs(dphase) < 0.5 * b.event_width_phase
+    assert given.depth_at(0.0, 0.015) == pytest.approx(max(b.event_depth_mag), abs=0.05)
+
+
+def test_orbit_fold_figure_has_units_and_the_report_shows_the_binary(binary_case, tmp_path):
+    from tumble import plots
+    from tumble.report import write_object_report
+
+    lc, problem, ev, b = binary_case
+    fold = fold_on_orbit(lc, b.p1_h, b.p_orb_h, epoch_jd=b.event_epoch_jd, width_phase=b.event_width_phase)
+    fig = plots.plot_orbit_fold(fold, object_id="sim", depths_mag=b.event_depth_mag, path=tmp_path / "f.png")
+    ax = fig.axes[0]
+    assert "P_orb" in ax.get_xlabel() and " h" in ax.get_xlabel() and "(mag)" in ax.get_ylabel()
+    from matplotlib.text import Text
+
+    # readable at 100 %: no text below plots.MIN_FONT_PT (the figures' rule; common practice)
+    assert not [t.get_text() for t in fig.findobj(Text)
+                if t.get_text().strip() and t.get_visible() and t.get_fontsize() < plots.MIN_FONT_PT]
+    assert (tmp_path / "f.png").stat().st_size > 10_000
+    v = decide(ev, span_d=lc.span_d, binary=b)
+    page = write_object_report(tmp_path / "rep", v.to_dict(), lc=lc)
+    html = page.read_text()
+    assert (tmp_path / "rep" / "orbit_fold.png").exists()
+    assert "Binary alternative: mutual events" in html and "orbit_fold.png" in html
+    for label in ("P_orb", "deeper event depth", "other event depth", "event duration"):
+        assert label in html
+    # the duration is the width times the orbital period, in hours
+    assert v.event_width_phase * v.p_orb_h == pytest.approx(b.event_width_phase * b.p_orb_h)
+    from tumble.schema import verdict_record
+
+    rec = verdict_record(v.to_dict())
+    assert rec["event_duration_h"] == pytest.approx(b.event_width_phase * b.p_orb_h)
+    assert rec["event_depth2_mag"] == pytest.approx(min(b.event_depth_mag))
+
+
+def test_screen_flags_the_simulated_binary_and_not_a_tumbler():
+    # events (narrow dips half an orbit apart, flat between) against a tumbler's smooth second period
+    s = screen(_edge_on_binary().lightcurve)
+    assert s.screen_flag == "candidate" and s.binary_candidate
+    assert s.p_orb_h == pytest.approx(14.0, rel=0.02)
+    plan = sim.DenseCampaign(START, n_nights=4, hours_per_night=7, cadence_min=10, zero_point_sigma_mag=0.02)
+    state = RotationState.excited(0.55, 0.8, 0.7, 20.0, 40, 30, 10, 20, START)
+    tumbler = sim.simulate_lightcurve(state, (1.5, 1.1, 0.9), plan, noise=sim.NoiseModel(0.01), rng=3).lightcurve
+    s2 = screen(tumbler)
+    assert not s2.binary_candidate and math.isnan(s2.p_orb_h)
+    assert s2.results_row()["binary_candidate"] == "false"
+
+
+def test_didymos_folded_on_its_published_orbit_shows_two_mutual_events():
+    # real photometry of (65803) Didymos folded on the published orbit (P_orb = 11.91 h, primary
+    # P1 = 2.2593 h; Pravec et al. 2006, Icarus 181, 63): after removing the primary's rotation, two
+    # dips of a few hundredths of a magnitude half an orbit apart (the published events are about
+    # 0.05-0.1 mag deep; from memory), and residuals near zero a quarter of an orbit from them
+    if not DIDYMOS.exists():
+        pytest.skip(f"{DIDYMOS} not available")
+    fold = fold_on_orbit(read_alcdef_blocks(DIDYMOS), 2.2593, 11.91)
+    assert fold.masked_events
+    core = 0.25 * fold.width_phase  # the fold puts the event with the deeper core at phase 0
+    d0, d1 = fold.depth_at(0.0, core), fold.depth_at(0.5, core)
+    assert 0.03 < d1 <= d0 < 0.15
+    assert abs(fold.depth_at(0.25, 0.05)) < 0.015 and abs(fold.depth_at(-0.2, 0.03)) < 0.015

@@ -72,3 +72,20 @@ def test_bad_options_are_bad_input(pa_file, tmp_path, capsys):
     assert "prior-npa" in capsys.readouterr().err
     assert main(["classify", str(pa_file), "--albedo", "0.2"]) == 2
     assert main(["classify", str(tmp_path / "missing.csv")]) == 2
+
+
+def test_no_binary_reaches_the_classifier(pa_file, tmp_path, monkeypatch, capsys):
+    # --no-binary switches the binary family off in classify(); by default it is on
+    import tumble.classify as tc
+
+    seen = []
+
+    def fake(lc, **kw):
+        seen.append(kw.get("binary"))
+        raise tc.ClassifyError("stopped after the options were passed")
+
+    monkeypatch.setattr(tc, "classify", fake)
+    for extra, expected in (([], True), (["--no-binary"], False)):
+        code = main(["classify", str(pa_file), "--out", str(tmp_path / "o"), "--quiet", *extra])
+        assert code == 2 and seen[-1] is expected
+    assert "stopped after the options were passed" in capsys.readouterr().err

@@ -8,8 +8,9 @@ from tumble.results import COLUMN_NAMES, RESULT_COLUMNS, empty_row, read_results
 
 # The column list of the results catalogue, fixed in the project's design (issue 19 added route, prior,
 # ln B error, convergence, mode margin, detection limit, screen flag/score, the Pravec et al. 2005 code,
-# synodic period, coverage, rotation-state intervals, the binary hypothesis and their _lo/_hi pairs; issue 15 the period kind,
-# sidereal or synodic).
+# synodic period, coverage, rotation-state intervals, the binary hypothesis and their _lo/_hi pairs;
+# issue 15 the period kind, sidereal or synodic; issue 20 the second event's depth, the event duration
+# and epoch, the primary's period and the screen's binary candidate).
 DESIGN_COLUMNS = (
     "object, status, message, route, n_points, n_sessions, span_d, rotation, mode, p_npa, prior_npa, "
     "ln_bayes_factor, ln_bayes_factor_err, p_npa_model, calibrated, npa_testable, grade, grade_uncapped, "
@@ -18,7 +19,8 @@ DESIGN_COLUMNS = (
     "period_syn_h, period_kind, period_fap, n_cycles, phase_coverage, amplitude_mag, error_scale_chosen, residual_fap, "
     "excitation, excitation_lo, excitation_hi, a_over_b, a_over_b_lo, a_over_b_hi, b_over_c, b_over_c_lo, "
     "b_over_c_hi, l_lon_deg, l_lon_deg_lo, l_lon_deg_hi, l_lat_deg, l_lat_deg_lo, l_lat_deg_hi, p_orb_h, "
-    "p_orb_h_lo, p_orb_h_hi, event_depth_mag, event_width_phase, tau_damp_gyr, tau_damp_gyr_lo, "
+    "p_orb_h_lo, p_orb_h_hi, event_depth_mag, event_depth2_mag, event_width_phase, event_duration_h, "
+    "event_epoch_jd, p_primary_h, binary_candidate, tau_damp_gyr, tau_damp_gyr_lo, "
     "tau_damp_gyr_hi, runtime_s"
 ).split(", ")
 

@@ -52,6 +52,7 @@ __all__ = [
     "two_period_zoom",
     "plot_lightcurve",
     "plot_folded",
+    "plot_orbit_fold",
     "plot_residuals",
     "plot_posterior_pairs",
     "plot_period_diameter",
@@ -614,6 +615,59 @@ def plot_folded(lc, model: LightCurveModel, *, path=None):
                 _fold_panel(ax, phase, yy, err, grid, curve,
                             f"folded on {name} = {p:.6g} h, {other} component subtracted", p, mag_label)
             fig.suptitle(f"{lc.object_id}: two-period folded light curve (NPA view)")
+    return _finish(fig, path)
+
+
+def plot_orbit_fold(fold, *, object_id: str = "", depths_mag=None, path=None):
+    """The standard view of mutual events: the light curve after removing the primary's rotation, folded
+    on the orbital period (:func:`tumble.classify.binary.fold_on_orbit`).
+
+    Residuals (mag, fainter down) against orbital phase with the deeper event at phase 0 and the other
+    at 0.5; the binned median (red), the event windows shaded, and the fitted depths as dashed lines
+    when given.
+
+    Parameters
+    ----------
+    fold : tumble.classify.binary.OrbitFold
+    object_id : str
+    depths_mag : (float, float) or None
+        Depths of the deeper and the other event (mag), drawn at their phases.
+    path : path or None
+        Write the PNG here.
+    """
+    with _rc():
+        fig = _figure(9.0, 4.8)
+        ax = fig.add_subplot()
+        sess = np.asarray(fold.session, int)
+        ax.errorbar(fold.phase, fold.residual_mag, yerr=fold.err_mag, fmt="none", lw=0.3, ecolor="#bee3f8",
+                    alpha=0.6, zorder=1)
+        ax.scatter(fold.phase, fold.residual_mag, c=np.where(sess >= 0, sess, -1), s=5, cmap="tab20", zorder=2)
+        ok = np.isfinite(fold.bin_median_mag)
+        ax.plot(fold.bin_phase[ok], fold.bin_median_mag[ok], color="#c53030", lw=1.6, zorder=3,
+                label="median per phase bin")
+        if np.isfinite(fold.width_phase):
+            for centre in (0.0, 0.5):
+                ax.axvspan(centre - 0.5 * fold.width_phase, centre + 0.5 * fold.width_phase, color="#fbd38d",
+                           alpha=0.35, zorder=0, lw=0)
+        if depths_mag is not None:
+            for k, (centre, depth) in enumerate(zip((0.0, 0.5), depths_mag)):
+                if np.isfinite(depth):
+                    half = 0.5 * (fold.width_phase if np.isfinite(fold.width_phase) else 0.1)
+                    ax.hlines(depth, centre - half, centre + half, colors="#2d3748", linestyles="dashed", lw=1.2,
+                              label="fitted event depth (peak of the dip)" if k == 0 else None)
+        ax.axhline(0.0, color="#2d3748", lw=0.6)
+        ax.set_xlim(-0.25, 0.75)
+        lo, hi = np.nanpercentile(fold.residual_mag, [0.5, 99.5])
+        pad = 0.1 * max(hi - lo, 1e-3)
+        ax.set_ylim(hi + pad, lo - pad)  # magnitudes: fainter (events) down
+        ax.set_xlabel(f"orbital phase (cycles of P_orb = {fold.p_orb_h:.5g} h; 0 = deeper event)")
+        ax.set_ylabel("residual after the primary's rotation (mag)")
+        how = "fitted outside the events" if fold.masked_events else "fitted to all points"
+        ax.set_title(f"primary's {fold.p_primary_h:.5g} h series ({how}) and zero-points removed; "
+                     f"epoch JD {fold.epoch_jd:.5f}", fontsize=MIN_FONT_PT + 1)
+        ax.legend(loc="lower right", fontsize=MIN_FONT_PT)
+        fig.suptitle(f"{object_id}: folded on the orbital period (mutual events)" if object_id
+                     else "folded on the orbital period (mutual events)")
     return _finish(fig, path)
 
 

@@ -34,9 +34,10 @@ from tumble._io import atomic_write_text
 from tumble.display import (DAMPING_DIGITS, format_interval, format_period_h, format_probability, format_sig,
                             format_value_err, relative_paths, unit_label)
 from tumble.exceptions import TumbleError
-from tumble.schema import FIELD_BY_NAME, REPORT_FIELDS, display, normalise, pravec2005_code
+from tumble.schema import FIELD_BY_NAME, REPORT_FIELDS, derive, display, normalise, pravec2005_code
 
-__all__ = ["ReportError", "CAUTIONS", "grade_in_words", "object_figures", "object_tables", "write_object_report",
+__all__ = ["ReportError", "CAUTIONS", "grade_in_words", "object_figures", "object_tables", "binary_section",
+           "write_object_report",
            "write_survey_report", "write_report", "page_name"]
 
 
@@ -248,7 +249,12 @@ def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
     mirror = "; the mirror solution (lon + 180 deg, -lat) is not excluded by disk-integrated photometry"
     interval("l_lon_deg", "L longitude", "deg", "angular momentum, ecliptic J2000" + mirror)
     interval("l_lat_deg", "L latitude", "deg", "angular momentum, ecliptic J2000" + mirror)
-    period("p_orb_h", "P_orb", "orbital period of the binary hypothesis")
+    period("p_orb_h", "P_orb", "orbital period of the binary hypothesis" if not _is_true(v.get("binary_candidate"))
+           else "orbital period at which the screen found event-like dips (a binary candidate, not fitted)")
+    dv = derive(dict(v))  # the event duration is derived from the width and P_orb when not stored
+    for name, label, unit, meaning in _BINARY_ROWS:
+        if _fin(dv.get(name)):
+            rows.append((label, display(name, dv.get(name)), "-", unit, meaning))
     if _fin(v.get("tau_damp_gyr")):
         rows.append(("damping time tau", format_sig(v.get("tau_damp_gyr"), DAMPING_DIGITS),
                      format_interval(v.get("tau_damp_gyr_lo"), v.get("tau_damp_gyr_hi"), DAMPING_DIGITS), "Gyr",
@@ -416,6 +422,78 @@ def object_figures(out_dir, verdict: Mapping, lc=None, *, posterior: Mapping | N
              lambda p: plots.plot_posterior_pairs(posterior["samples"], posterior["names"], posterior.get("units"),
                                                   object_id=name, path=p))
     return figs, notes
+
+
+#: The binary's fields shown beside P_orb: (column, label, unit, meaning).
+_BINARY_ROWS = (
+    ("event_depth_mag", "deeper event depth", "mag", "depth of the deeper mutual event (positive = fainter)"),
+    ("event_depth2_mag", "other event depth", "mag", "depth of the event half an orbit from the deeper one"),
+    ("event_duration_h", "event duration", "h", "full duration of a mutual event (width in orbital phase x P_orb)"),
+    ("p_primary_h", "primary light-curve period", "h", "the primary's light-curve period under the binary hypothesis"),
+)
+
+
+def _is_true(value) -> bool:
+    return value is True or str(value).strip().lower() == "true"
+
+
+def binary_section(out_dir, verdict: Mapping, lc=None, *, prefix: str = "") -> list[tuple[str, str, str]]:
+    """The page's section on the binary alternative: (element id, heading, HTML), or [] when there is none.
+
+    Shown for a verdict that names the binary alternative (``p_orb_h`` filled by the classifier) and for
+    a screen's binary candidate (``binary_candidate``): the binary's figures in words and, with the
+    photometry, the light curve after removing the primary's rotation folded on P_orb (the standard
+    view of mutual events, :func:`tumble.plots.plot_orbit_fold`), drawn into ``out_dir``.
+    """
+    from tumble import plots
+    from tumble.classify.binary import fold_on_orbit
+
+    v = derive(_normalise(verdict))
+    candidate = _is_true(v.get("binary_candidate"))
+    if not _fin(v.get("p_orb_h")) or str(v.get("status", "ok") or "ok") != "ok":
+        return []
+    p_orb = _f(v.get("p_orb_h"))
+    if candidate:
+        p_primary = _f(v.get("p_primary_h")) if _fin(v.get("p_primary_h")) else _f(v.get("p1_h"))
+        text = ("<p>The screen flags a <b>binary candidate</b>: after removing the primary's light curve "
+                f"(period {_e(format_period_h(p_primary))} h), the other period behaves like mutual events "
+                f"(narrow dips half an orbit apart, flat between) at P_orb = {_e(format_period_h(p_orb))} h. "
+                "This is triage, not a verdict: run the full classifier, which weighs the binary family against "
+                "PA and NPA.</p>")
+    else:
+        dur = v.get("event_duration_h")
+        text = ("<p>A <b>binary</b> with mutual events explains these data as well as tumbling or better, so no "
+                f"NPA verdict is given: P_orb = {_e(format_period_h(p_orb))} h, events "
+                f"{_e(display('event_depth_mag', v.get('event_depth_mag')))} and "
+                f"{_e(display('event_depth2_mag', v.get('event_depth2_mag')))} mag deep, lasting "
+                f"{_e(display('event_duration_h', dur))} h. A hypothesis as good as tumbling on these data, not a "
+                "detection of a satellite; a scientific estimate for research use.</p>")
+        p_primary = _f(v.get("p_primary_h"))
+        if not math.isfinite(p_primary):
+            p_primary = _f(v.get("p1_h"))
+    parts = [text]
+    if lc is None:
+        parts.append("<p class=\"note\">No photometry given, so no fold on P_orb.</p>")
+        return [("binary", "Binary alternative: mutual events", "".join(parts))]
+    fname = f"{prefix}orbit_fold.png"
+    depths = (_f(v.get("event_depth_mag")), _f(v.get("event_depth2_mag")))
+    try:
+        fold = fold_on_orbit(lc, p_primary, p_orb, epoch_jd=_f(v.get("event_epoch_jd")),
+                             width_phase=_f(v.get("event_width_phase")))
+        plots.plot_orbit_fold(fold, object_id=str(v.get("object") or ""), depths_mag=None if candidate else depths,
+                              path=Path(out_dir) / fname)
+    except (TumbleError, ValueError, np.linalg.LinAlgError) as exc:
+        parts.append(f"<p class=\"note\">Not drawn: orbit fold: {_e(' '.join(str(exc).split())[:200])}</p>")
+        return [("binary", "Binary alternative: mutual events", "".join(parts))]
+    caption = (f"The light curve after removing the primary's rotation (its {format_period_h(p_primary)} h "
+               "one-period Fourier series, fitted " + ("outside the events" if fold.masked_events else "to all points")
+               + ", and each session's zero-point), folded on P_orb with the deeper event at phase 0 and the other "
+               "at 0.5 (shaded: the event width); red: the median per phase bin"
+               + ("; dashed: the fitted event depths" if not candidate else "") + ". Magnitudes: fainter is down. "
+               + ("The epoch was found from the data by a box scan." if fold.epoch_from_data else ""))
+    parts.append(f"<figure><img src=\"{_e(fname)}\" alt=\"{_e(caption)}\"><figcaption>{_e(caption)}"
+                 "</figcaption></figure>")
+    return [("binary", "Binary alternative: mutual events", "".join(parts))]
 
 
 def _longest_session_h(lc) -> float:
@@ -605,6 +683,7 @@ def write_object_report(out_dir, verdict: Mapping, *, lc=None, posterior: Mappin
     figures, notes = ([], []) if str(v.get("status", "ok") or "ok") != "ok" else object_figures(
         out_dir, v, lc, posterior=posterior, two_d=two_d, prefix=figure_prefix)
     tables = object_tables(v, lc) if str(v.get("status", "ok") or "ok") == "ok" else []
+    tables = binary_section(out_dir, v, lc, prefix=figure_prefix) + tables
     body = _object_body(v, figures, notes, back_link=back_link, data_note=data_note, tables=tables)
     if isinstance(v.get("provenance"), Mapping):
         body += _provenance_html(v["provenance"])

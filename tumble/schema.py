@@ -175,8 +175,18 @@ FIELDS: tuple[Field, ...] = (
     *_interval("l_lat_deg", "deg", "ecliptic latitude of the angular momentum", display="sig3"),
     # the binary hypothesis (eclipses or occultations of a satellite)
     *_interval("p_orb_h", "h", "orbital period of the binary hypothesis", "P_orb", "period"),
-    _f("event_depth_mag", "mag", "depth of the mutual events of the binary hypothesis", display="sig2"),
+    _f("event_depth_mag", "mag", "depth of the deeper mutual event of the binary hypothesis", display="sig2"),
+    _f("event_depth2_mag", "mag", "depth of the other mutual event, half an orbit from the deeper one",
+       display="sig2"),
     _f("event_width_phase", "", "width of the mutual events, fraction of the orbital period", display="sig2"),
+    _f("event_duration_h", "h", "full duration of a mutual event (event_width_phase x p_orb_h)", display="sig2"),
+    _f("event_epoch_jd", "d", "time of mid-event of the deeper mutual event, JD in the light curve's time scale",
+       display="text"),
+    _f("p_primary_h", "h", "light-curve period of the primary under the binary hypothesis (the fundamental "
+       "removed before the events are folded on p_orb_h)", display="period"),
+    Field("binary_candidate", "bool", "", "the screen's second period behaves like mutual events (narrow dips half "
+          "an orbit apart, flat between): a binary candidate for the full route (screen route only; its orbital "
+          "period in p_orb_h)", header="binary?", display="text"),
     # damping
     *_interval("tau_damp_gyr", "Gyr", "damping timescale (an order-of-magnitude estimate)", "tau", "sig2"),
     # provenance
@@ -416,4 +426,11 @@ def pravec2005_code(row: Mapping) -> str:
 
 
 #: Columns computed from the others when a record does not carry them.
-DERIVED: dict[str, Callable[[Mapping], object]] = {"npa_code_p2005": pravec2005_code}
+def event_duration_h(row: Mapping) -> float:
+    """Full duration of a mutual event, hours: ``event_width_phase x p_orb_h`` (NaN without both)."""
+    w, p = row.get("event_width_phase"), row.get("p_orb_h")
+    return float(w) * float(p) if _finite(w) and _finite(p) else math.nan
+
+
+DERIVED: dict[str, Callable[[Mapping], object]] = {"npa_code_p2005": pravec2005_code,
+                                                   "event_duration_h": event_duration_h}

@@ -26,7 +26,11 @@ Ranges (issue 14, "the population to calibrate and validate on"):
 - bodies b/a 0.55-0.95, c/b 0.6-0.95; scattering Lommel-Seeliger or LS + Lambert (weight
   0.05-0.5); phase trends linear (0.01-0.04 mag/deg) or H,G (G 0-0.5);
 - at least a third with the attitude integrated numerically and the brightness summed over facets;
-- the untestable cases: flat curves, pure noise, slow PA rotators over short arcs.
+- the untestable cases: flat curves, pure noise, slow PA rotators over short arcs;
+- binaries (issue 20): a PA ellipsoid primary (2-5 h) with a spherical satellite on a circular orbit,
+  P_orb 10-40 h, secondary-to-primary size 0.2-0.5, orbit 2.5-4 primary radii, the orbit pole mostly
+  within a few degrees of edge-on to the mean Sun and observer directions (mutual events), a fifth
+  isotropic (mostly no events); dense campaigns only.
 """
 
 from __future__ import annotations
@@ -55,6 +59,8 @@ __all__ = [
     "order_key",
     "generate_population",
     "spec_from_dict",
+    "BinarySpec",
+    "BINARY_RECIPES",
 ]
 
 #: Bumped whenever a drawing rule changes, so that cached renders of an older population are not reused.
@@ -299,6 +305,42 @@ class Rotation:
 
 
 @dataclass(frozen=True)
+class BinarySpec:
+    """A spherical satellite on a circular orbit (:class:`tumble.mutual_events.BinaryOrbit`).
+
+    Attributes
+    ----------
+    p_orb_h : float
+        Orbital period, hours.
+    size_ratio : float
+        Satellite-to-primary radius ratio.
+    orbit_radius : float
+        Orbit radius, primary radii.
+    pole_lon_deg, pole_lat_deg : float
+        Orbit pole, ecliptic J2000.
+    phase0_deg : float
+        Satellite's orbital longitude from the ascending node at the epoch (the plan's start).
+    edge_on : bool
+        The pole was drawn near edge-on to the mean Sun and observer directions (events expected).
+    """
+
+    p_orb_h: float
+    size_ratio: float
+    orbit_radius: float
+    pole_lon_deg: float
+    pole_lat_deg: float
+    phase0_deg: float
+    edge_on: bool
+
+    def orbit(self, epoch_jd: float):
+        """The :class:`tumble.mutual_events.BinaryOrbit` with its epoch."""
+        from tumble.mutual_events import BinaryOrbit
+
+        return BinaryOrbit(self.p_orb_h, self.size_ratio, self.orbit_radius, self.pole_lon_deg, self.pole_lat_deg,
+                           self.phase0_deg, epoch_jd)
+
+
+@dataclass(frozen=True)
 class ObjectSpec:
     """One object of the library: everything needed to render its light curve reproducibly.
 
@@ -307,9 +349,9 @@ class ObjectSpec:
     object_id : str
     category : str
         The recipe it came from (e.g. ``dense-npa``, ``sparse-pa``, ``slow-pa-short-arc``).
-    truth_class : {'PA', 'NPA', 'none'}
-        'none' for flat and pure-noise curves (no rotational signal); 'binary' is reserved for the
-        binaries of issue 20.
+    truth_class : {'PA', 'NPA', 'none', 'binary'}
+        'none' for flat and pure-noise curves (no rotational signal); 'binary' for a PA primary with a
+        satellite (issue 20).
     plan : DensePlan, SparsePlan or ClosePlan
     body : Body
     scattering : Scattering
@@ -320,6 +362,8 @@ class ObjectSpec:
     seed : int
         Seed of everything drawn when rendering (times, zero points, noise, bumps).
     split : {'calibration', 'heldout'}
+    binary : BinarySpec or None
+        The satellite of a binary (None for every other object).
     """
 
     object_id: str
@@ -333,6 +377,7 @@ class ObjectSpec:
     noise_mag: float
     seed: int
     split: str
+    binary: BinarySpec | None = None
 
     @property
     def plan_kind(self) -> str:
@@ -356,6 +401,8 @@ def spec_from_dict(d: dict) -> ObjectSpec:
     d["plan"] = cls(**plan)
     for name, rec in (("body", Body), ("scattering", Scattering), ("trend", Trend), ("rotation", Rotation)):
         d[name] = rec(**d[name])
+    if d.get("binary") is not None:
+        d["binary"] = BinarySpec(**d["binary"])
     names = {f.name for f in fields(ObjectSpec)}
     return ObjectSpec(**{k: v for k, v in d.items() if k in names})
 
@@ -565,7 +612,7 @@ class Recipe:
     plan : str
         Key of :data:`PLAN_DRAWERS`.
     rotation : {'PA', 'NPA', 'slow-PA', 'flat', 'noise'}
-        Key of :data:`ROTATION_DRAWERS` (a 'binary' kind joins with issue 20).
+        Key of :data:`ROTATION_DRAWERS`.
     noise_range_mag : (float, float)
         Noise drawn log-uniform within (0 means noise-free: 'flat').
     """
@@ -597,7 +644,12 @@ RECIPES = (
     Recipe("noise-dense", 14, "dense", "noise", DENSE_NOISE),
     Recipe("flat-sparse", 6, "sparse", "flat", (0.0, 0.0)),
     Recipe("noise-sparse", 14, "sparse", "noise", SPARSE_NOISE),
+    # issue 20: binaries, a class of their own with new ids (the objects above keep their ids, seeds and
+    # parameters: each object's seed is a hash of its own id)
+    Recipe("dense-binary", 80, "dense", "binary", DENSE_NOISE),
 )
+#: The binaries' recipes (``benchmarks/bench_binary.py`` draws these alone).
+BINARY_RECIPES = tuple(r for r in RECIPES if r.rotation == "binary")
 
 
 def _rotation_pa(rng, plan, body, attitude):
@@ -616,16 +668,71 @@ def _rotation_none(rng, plan, body, attitude):
     return null_rotation()
 
 
-#: Rotation drawing functions by recipe kind: ``f(rng, plan, body, attitude) -> Rotation``.
-#: Binaries (issue 20: primary PA ellipsoid, satellite on a circular orbit with mutual events) join
-#: here as a kind of their own with truth class 'binary', with a rendering step that adds the events.
-ROTATION_DRAWERS = {"PA": _rotation_pa, "slow-PA": _rotation_slow_pa, "NPA": _rotation_npa,
-                    "flat": _rotation_none, "noise": _rotation_none}
+def _rotation_binary_primary(rng, plan, body, attitude):
+    """The primary of a binary: a fast PA spin (2-5 h, the usual primaries of small binaries; Pravec et al.
+    2006, Icarus 181, 63, from memory)."""
+    lon, lat = _direction(rng)
+    p = _log_uniform(rng, *BINARY_PRIMARY_PERIOD_RANGE_H)
+    return Rotation("PA", p, p, math.nan, lon, lat, float(rng.uniform(0, 360)), 0.0, attitude)
 
-#: Truth class of each rotation kind ('binary' is reserved for issue 20's binaries).
-TRUTH_CLASS = {"PA": "PA", "slow-PA": "PA", "NPA": "NPA", "flat": "none", "noise": "none"}
+
+#: Binary ranges (issue 20): orbital period (h), satellite-to-primary size, orbit radius (primary radii),
+#: primary period (h), the share of orbits drawn near edge-on and how far from edge-on (deg).
+BINARY_P_ORB_RANGE_H = (10.0, 40.0)
+BINARY_SIZE_RATIO_RANGE = (0.2, 0.5)
+BINARY_ORBIT_RADIUS_RANGE = (2.5, 4.0)
+BINARY_PRIMARY_PERIOD_RANGE_H = (2.0, 5.0)
+BINARY_EDGE_ON_FRACTION = 0.8
+BINARY_EDGE_ON_TOLERANCE_DEG = 8.0
+
+
+def _mean_view_normal(plan) -> np.ndarray:
+    """Unit normal of the mean Sun and observer directions of a dense plan (an orbit pole along it is edge-on)."""
+    from tumble import geometry
+    from tumble.simulate import opposition_elements
+
+    el = opposition_elements(plan.start_jd, a_au=plan.a_au, e=plan.e, i_deg=plan.i_deg,
+                             days_before=plan.opposition_offset_d)
+    t = plan.start_jd + np.linspace(0.0, plan.span_d, 5)
+    geo = geometry.observing_geometry(t, el)
+    n = np.cross(np.mean(geo.obs_dir, axis=0), np.mean(geo.sun_dir, axis=0))
+    if np.linalg.norm(n) < 1e-9:  # Sun and observer aligned (opposition): any perpendicular
+        n = np.cross(np.mean(geo.obs_dir, axis=0), [0.0, 0.0, 1.0])
+    return n / np.linalg.norm(n)
+
+
+def draw_binary(rng, plan) -> BinarySpec:
+    """A satellite within the issue's ranges; the pole near edge-on for :data:`BINARY_EDGE_ON_FRACTION`."""
+    edge_on = bool(rng.random() < BINARY_EDGE_ON_FRACTION)
+    if edge_on:
+        n = _mean_view_normal(plan)
+        u = np.cross(n, [0.0, 0.0, 1.0]) if abs(n[2]) < 0.9 else np.cross(n, [1.0, 0.0, 0.0])
+        u /= np.linalg.norm(u)
+        v = np.cross(n, u)
+        tilt = math.radians(rng.uniform(0.0, BINARY_EDGE_ON_TOLERANCE_DEG))
+        az = rng.uniform(0.0, 2 * math.pi)
+        pole = math.cos(tilt) * n + math.sin(tilt) * (math.cos(az) * u + math.sin(az) * v)
+        if rng.random() < 0.5:
+            pole = -pole
+        lon, lat = math.degrees(math.atan2(pole[1], pole[0])) % 360.0, math.degrees(math.asin(np.clip(pole[2], -1, 1)))
+    else:
+        lon, lat = _direction(rng)
+    return BinarySpec(p_orb_h=_log_uniform(rng, *BINARY_P_ORB_RANGE_H),
+                      size_ratio=float(rng.uniform(*BINARY_SIZE_RATIO_RANGE)),
+                      orbit_radius=float(rng.uniform(*BINARY_ORBIT_RADIUS_RANGE)), pole_lon_deg=float(lon),
+                      pole_lat_deg=float(lat), phase0_deg=float(rng.uniform(0.0, 360.0)), edge_on=edge_on)
+
+
+#: Rotation drawing functions by recipe kind: ``f(rng, plan, body, attitude) -> Rotation``.
+#: Binaries (issue 20): the primary's PA spin here, the satellite from :func:`draw_binary`; rendering
+#: adds the mutual events (:func:`library.render.render`).
+ROTATION_DRAWERS = {"PA": _rotation_pa, "slow-PA": _rotation_slow_pa, "NPA": _rotation_npa,
+                    "flat": _rotation_none, "noise": _rotation_none, "binary": _rotation_binary_primary}
+
+#: Truth class of each rotation kind.
+TRUTH_CLASS = {"PA": "PA", "slow-PA": "PA", "NPA": "NPA", "flat": "none", "noise": "none", "binary": "binary"}
 #: Kinds whose light curve carries a rotational signal (the others are a sphere).
-SIGNAL_KINDS = ("PA", "slow-PA", "NPA")
+SIGNAL_KINDS = ("PA", "slow-PA", "NPA", "binary")
 
 
 def draw_object(recipe: Recipe, index: int, object_id: str, seed: int) -> ObjectSpec:
@@ -634,14 +741,21 @@ def draw_object(recipe: Recipe, index: int, object_id: str, seed: int) -> Object
     plan = PLAN_DRAWERS[recipe.plan](rng)
     rot_kind = recipe.rotation
     signal = rot_kind in SIGNAL_KINDS
-    attitude = "numeric" if (signal and rng.random() < NUMERIC_FRACTION) else "closed"
-    body = draw_body(rng, numeric=attitude == "numeric") if signal else Body("sphere", 1.0, 1.0)
+    if rot_kind == "binary":
+        # the primary: a triaxial ellipsoid in closed form (the events multiply its closed-form flux)
+        attitude = "closed"
+        body = Body("ellipsoid", float(rng.uniform(0.55, 0.95)), float(rng.uniform(0.6, 0.95)))
+    else:
+        attitude = "numeric" if (signal and rng.random() < NUMERIC_FRACTION) else "closed"
+        body = draw_body(rng, numeric=attitude == "numeric") if signal else Body("sphere", 1.0, 1.0)
     rotation = ROTATION_DRAWERS[rot_kind](rng, plan, body, attitude)
+    binary = draw_binary(rng, plan) if rot_kind == "binary" else None
     lo, hi = recipe.noise_range_mag
     noise = 0.0 if hi == 0 else _log_uniform(rng, lo, hi)
     return ObjectSpec(object_id=object_id, category=recipe.category, truth_class=TRUTH_CLASS[rot_kind], plan=plan,
                       body=body, scattering=draw_scattering(rng), trend=draw_trend(rng), rotation=rotation,
-                      noise_mag=noise, seed=int(rng.integers(0, 2**31 - 1)), split=split_of(object_id))
+                      noise_mag=noise, seed=int(rng.integers(0, 2**31 - 1)), split=split_of(object_id),
+                      binary=binary)
 
 
 def generate_population(seed: int = 20261204, recipes=RECIPES, scale: float = 1.0) -> list:

@@ -102,6 +102,12 @@ class ObjectTruth:
     n_apparitions : int
     phase_min_deg, phase_max_deg, delta_min_au : float
     attitude, body, law, trend : str
+    p_orb_h : float
+        Binaries: the orbital period, hours (NaN otherwise).
+    event_depth_mag : float
+        Binaries: the deepest mutual event on the observed times, noise-free, mag (0 when no event
+        was observed; NaN for other objects).
+    event_depth_over_noise : float
     """
 
     object_id: str
@@ -133,6 +139,9 @@ class ObjectTruth:
     body: str
     law: str
     trend: str
+    p_orb_h: float = math.nan
+    event_depth_mag: float = math.nan
+    event_depth_over_noise: float = math.nan
 
     def to_dict(self) -> dict:
         """JSON-ready dictionary."""
@@ -425,11 +434,13 @@ def render(spec: ObjectSpec) -> RenderedObject:
     state = rotation_state(spec, epoch_jd=float(pt.t_utc_jd[0]))
     axes = (1.0, 1.0, 1.0) if spec.body.kind == "sphere" else spec.body.axes
     plan = GivenCadence(pt.t_utc_jd, pt.session, pt.band, pt.zero_point_sigma_mag)
+    orbit = spec.binary.orbit(float(pt.t_utc_jd[0])) if spec.binary is not None else None
     sim = simulate_lightcurve(state, axes, plan, pt.elements, law=spec.scattering.law,
                               lambert_weight=spec.scattering.lambert_weight or 0.1, trend=_trend(spec),
-                              noise=NoiseModel(spec.noise_mag), object_id=spec.object_id, rng=rng)
+                              noise=NoiseModel(spec.noise_mag), object_id=spec.object_id, rng=rng, binary=orbit)
     lc = sim.lightcurve
     model = np.asarray(sim.model_mag, float)
+    depth = observed_event_depth_mag(spec, state, axes, lc, orbit) if orbit is not None else math.nan
     if spec.rotation.attitude == "numeric" or spec.body.kind == "facets":
         new = _facet_model(spec, state, lc, model, rng)
         lc = LightCurve.from_arrays(lc.t, np.asarray(lc.mag) - model + new, lc.err, session=lc.session, band=lc.band,
@@ -437,10 +448,27 @@ def render(spec: ObjectSpec) -> RenderedObject:
                                     obs_dir=lc.obs_dir, light_time_corrected=True, time_scale="tdb",
                                     object_id=spec.object_id, min_points=2)
         model = new
-    return RenderedObject(spec, lc, model, make_truth(spec, state, lc, model))
+    return RenderedObject(spec, lc, model, make_truth(spec, state, lc, model, event_depth_mag=depth))
 
 
-def make_truth(spec: ObjectSpec, state, lc, model) -> ObjectTruth:
+def observed_event_depth_mag(spec: ObjectSpec, state, axes, lc, orbit) -> float:
+    """Deepest mutual event on the observed times, noise-free, mag: the system's magnitude with the events
+    against the same primary and satellite without them (both fluxes as :func:`tumble.simulate.model_magnitudes`
+    adds them; 0 when no event falls on a data point)."""
+    from tumble import brightness
+    from tumble.simulate import binary_event_factors, model_magnitudes
+
+    t, s, o, ph = np.asarray(lc.t), np.asarray(lc.sun_dir), np.asarray(lc.obs_dir), np.asarray(lc.phase_deg)
+    rel = model_magnitudes(state, axes, t, s, o, phase_deg=ph, law=spec.scattering.law,
+                           lambert_weight=spec.scattering.lambert_weight or 0.1)
+    f_p = 10.0 ** (-0.4 * rel)
+    share, f_s = binary_event_factors(orbit, t, s, o, ph)
+    f_s0 = orbit.size_ratio**2 * brightness.sphere_ls_phase_function(ph) * orbit.satellite_modulation(t)
+    depth = -2.5 * np.log10(share * f_p + f_s) + 2.5 * np.log10(f_p + f_s0)
+    return float(max(0.0, np.max(depth)))
+
+
+def make_truth(spec: ObjectSpec, state, lc, model, event_depth_mag: float = math.nan) -> ObjectTruth:
     """The truth record of a rendered object."""
     clean = _clean_lightcurve(lc, model)
     r = spec.rotation
@@ -463,7 +491,9 @@ def make_truth(spec: ObjectSpec, state, lc, model) -> ObjectTruth:
         n_nights=int(len(np.unique(days))), n_apparitions=count_apparitions(np.unique(days)),
         phase_min_deg=float(np.min(lc.phase_deg)), phase_max_deg=float(np.max(lc.phase_deg)),
         delta_min_au=float(np.min(lc.delta_au)), attitude=r.attitude, body=spec.body.kind, law=spec.scattering.law,
-        trend=spec.trend.kind)
+        trend=spec.trend.kind, p_orb_h=spec.binary.p_orb_h if spec.binary is not None else math.nan,
+        event_depth_mag=event_depth_mag,
+        event_depth_over_noise=event_depth_mag / noise if noise > 0 and np.isfinite(event_depth_mag) else math.nan)
 
 
 # ---------------------------------------------------------------------------

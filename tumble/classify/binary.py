@@ -35,7 +35,7 @@ binary. The result is a scientific estimate for research use.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import partial
 
 import numpy as np
@@ -43,21 +43,35 @@ import numpy as np
 from tumble.classify.families import mixture
 from tumble.classify.prior import log_uniform_logpdf
 from tumble.classify.quadrature import integrate_peak, logsumexp, peak_indices
+from tumble.classify.thresholds import MIN_CYCLES
 from tumble.model import FourierBasis, fit_linear, linear_log_evidence
 
 __all__ = ["BINARY_COMPARABLE_2LNB", "EVENT_WIDTHS", "EVENT_SIGMA_MAG", "EventBasis", "BinaryResult", "EventIndicator", "event_profile",
-           "event_scan", "event_scan_reference", "binary_evidence", "binary_log_density", "event_indicator", "orbit_peaks"]
+           "event_scan", "event_scan_reference", "binary_evidence", "binary_log_density", "event_indicator", "orbit_peaks",
+           "screen_event_indicator", "primary_residuals", "OrbitFold", "fold_on_orbit"]
 
 #: Full event durations in orbital phase (mutual events of known binaries last about 0.05-0.15 of the
-#: orbit; common practice, from memory).
-EVENT_WIDTHS = (0.04, 0.07, 0.11, 0.16)
+#: orbit; common practice, from memory; 0.22 for close satellites: a 0.46-size satellite at 2.5 primary
+#: radii makes events of about 0.19 of the orbit, and the raised cosine's core is half its full width).
+EVENT_WIDTHS = (0.04, 0.07, 0.11, 0.16, 0.22)
 #: Prior standard deviation of an event depth, mag (times the error scale): events of 0.03-0.2 mag.
 EVENT_SIGMA_MAG = 0.1
-#: Orbital-frequency peaks of the scan integrated per f1 window.
-N_ORB_PEAKS = 3
+#: Orbital-frequency peaks integrated per f1 window: the best by the exact marginal likelihood at the
+#: peak (all widths) among :data:`N_SCAN_CANDIDATES` box-scan peaks and the aliases of the best. The
+#: box statistic alone ranked a nightly alias above the true orbit on several library binaries.
+N_ORB_PEAKS = 4
+N_SCAN_CANDIDATES = 12
 #: Aliases of the best scan peak also integrated (ratios of f_orb): one event per period (1/2), and the
 #: 2/3, 3/2 and 2 aliases that nightly gaps make of events every third or half orbit.
 ORBIT_ALIAS_RATIOS = (0.5, 2.0 / 3.0, 1.5, 2.0)
+#: Nightly data: daily aliases of the best peak also integrated (offsets of f_orb, c/d): events come
+#: twice per orbit, so a one-cycle-per-day alias of the event rate is half a cycle per day in f_orb.
+#: Measured on the library's held-out binaries: the box scan's best peak was such an alias on several
+#: nightly campaigns (``docs/validation-classify.md``).
+ORBIT_ALIAS_OFFSETS_PER_D = (-1.0, -0.5, 0.5, 1.0)
+#: Each alias is the best scan peak within this many 1/span of its nominal frequency (an alias of a
+#: peak that is itself off the truth by a fraction of the resolution lands off the true peak).
+ALIAS_SEARCH_HALF_WIDTH_PER_SPAN = 0.5
 #: f1 windows of the evidence (best PA windows first) given the binary integration.
 BINARY_MAX_WINDOWS = 3
 #: Phase bins of the box scan (even: the second event sits K/2 bins from the first).
@@ -68,6 +82,33 @@ MAX_ORB_GRID = 60_000
 SCAN_STEP_FRACTION = 1.0 / 3.0
 #: Event indicator: the two-dip model must gain at least this chi-square (a 5-sigma dip pair).
 INDICATOR_MIN_CHI2 = 25.0
+#: Event indicator: the dips must explain at least this share of the residuals' chi-square about their
+#: weighted mean (events leave the residuals flat between them; a tumbler's residual signal is spread
+#: over the whole cycle, of which a few narrow boxes take a small share), and at least this fraction
+#: of what a smooth two-harmonic series at the same period explains (a sinusoid is explained better by
+#: the smooth series; events about as well or better by the boxes). Set on the calibration half of
+#: the library (``benchmarks/bench_binary.py``, ``docs/validation-classify.md``).
+INDICATOR_MIN_SHARE = 0.35
+INDICATOR_MIN_DIP_OVER_SMOOTH = 0.7
+#: Screen: orbital frequencies tried on a grid of this many points within +- this many 1/span around
+#: each candidate (the screen's second frequency and half of it).
+SCREEN_ORBIT_GRID = 15
+SCREEN_ORBIT_HALF_WIDTH_PER_SPAN = 0.5
+#: Screen: the coarse box scan's step (fraction of the narrowest event width per span: a coarser step
+#: than the evidence's, the local grid refines it) and its largest number of frequencies (the budget).
+SCREEN_SCAN_STEP_FRACTION = 1.0
+SCREEN_MAX_ORB_GRID = 3000
+#: Screen: harmonics of the primary's one-period fit removed before the indicator.
+SCREEN_PRIMARY_HARMONICS = 4
+#: The fold on P_orb (report figure): harmonics of the primary's fit (the richest PA variant of the
+#: evidence), its drift degree (slow geometry changes over the nights), the weight left to the points
+#: inside the events while the primary is fitted (common practice: the primary's light curve is fitted
+#: outside the events), the fold's phase bins for the binned curve, and the fewest points kept outside.
+FOLD_PRIMARY_HARMONICS = 6
+FOLD_PRIMARY_DRIFT = 1
+FOLD_EVENT_WEIGHT = 1e-6
+FOLD_BINS = 50
+FOLD_MIN_OUTSIDE_FRACTION = 0.5
 #: The decision: a binary whose evidence is within this of the NPA family's (``2 ln Z`` units, the
 #: lowest Kass & Raftery 1995 band edge) or better is a live alternative to tumbling.
 BINARY_COMPARABLE_2LNB = 2.0
@@ -228,24 +269,38 @@ def _orbit_grid(problem, f1: float):
 
 
 def orbit_peaks(problem, f1: float, n_peaks: int = N_ORB_PEAKS) -> tuple:
-    """The strongest peaks of the event scan at ``f1``, plus the aliases :data:`ORBIT_ALIAS_RATIOS` of the best."""
+    """Orbital peaks to integrate at ``f1``: the :data:`N_SCAN_CANDIDATES` strongest peaks of the event
+    scan and the aliases of the best (:data:`ORBIT_ALIAS_RATIOS`; nightly data also
+    :data:`ORBIT_ALIAS_OFFSETS_PER_D`), ranked by the binary family's exact log density at the peak
+    (best over the event widths); the best ``n_peaks`` are returned."""
     grid, step = _orbit_grid(problem, f1)
     if len(grid) < 3:
         return (), step
     resid, weight = _pa_residuals(problem, f1)
     gain, phase, width = event_scan(problem.data.t_d, resid, weight, grid)
-    peaks = [OrbitPeak(float(grid[i]), float(phase[i]), float(width[i]), float(gain[i]))
-             for i in peak_indices(gain, n_peaks, 3)]
-    if not peaks:
+    idx = peak_indices(gain, N_SCAN_CANDIDATES, 3)
+    if not idx:
         return (), step
-    for ratio in ORBIT_ALIAS_RATIOS:
-        fa = ratio * peaks[0].f_orb_per_d
-        if grid[0] <= fa <= grid[-1] and all(abs(fa - p.f_orb_per_d) > 3 * step for p in peaks):
+    f0 = float(grid[idx[0]])
+    targets = [ratio * f0 for ratio in ORBIT_ALIAS_RATIOS]
+    if problem.nightly:
+        targets += [f0 + off for off in ORBIT_ALIAS_OFFSETS_PER_D]
+    reach = max(3, int(round(ALIAS_SEARCH_HALF_WIDTH_PER_SPAN / problem.span_d / step)))
+    for fa in targets:
+        if grid[0] <= fa <= grid[-1]:
             j = int(np.argmin(np.abs(grid - fa)))
-            lo, hi = max(j - 3, 0), min(j + 4, len(grid))
+            lo, hi = max(j - reach, 0), min(j + reach + 1, len(grid))
             j = lo + int(np.argmax(gain[lo:hi]))
-            peaks.append(OrbitPeak(float(grid[j]), float(phase[j]), float(width[j]), float(gain[j])))
-    return tuple(peaks), step
+            if all(abs(j - i) > 3 for i in idx):
+                idx.append(j)
+    f = grid[idx]
+    score = np.full(len(idx), -np.inf)
+    for w in EVENT_WIDTHS:
+        score = np.maximum(score, binary_log_density(problem, f1, f, phase[idx], w))
+    keep = np.argsort(-score)[:n_peaks]
+    peaks = tuple(OrbitPeak(float(grid[idx[k]]), float(phase[idx[k]]), float(width[idx[k]]), float(gain[idx[k]]))
+                  for k in keep if np.isfinite(score[k]))
+    return peaks, step
 
 
 @dataclass(frozen=True)
@@ -305,6 +360,9 @@ class BinaryResult:
         Orbital phase of the first event (phase 0 at the data's mid-time).
     p1_h : float
         The primary's light-curve fundamental period ``24/f1``, hours.
+    event_epoch_jd : float
+        Mid-time of the deeper event, JD (the data's time scale): the events fall at
+        ``event_epoch_jd + (k / 2) p_orb_h / 24``, the deeper one at even ``k``.
     f1_per_d, f_orb_per_d : float
     width_mass : float
         Posterior share of the dominant event width at the dominant peak.
@@ -326,6 +384,7 @@ class BinaryResult:
     width_mass: float
     n_evaluations: int
     route: str
+    event_epoch_jd: float = math.nan
 
 
 def _empty_result(route: str) -> BinaryResult:
@@ -383,11 +442,14 @@ def binary_evidence(problem, evidence, *, n_windows: int = BINARY_MAX_WINDOWS, f
     v = int(np.argmax(linear_log_evidence(problem.data, basis, [best_w.f1], [best_w.f_orb])[0]))
     depths = fit_linear(problem.data, basis, v, best_w.f1, best_w.f_orb).coefficients[-2:]
     f, s = best_w.f_orb, best_w.sigma_f_orb if np.isfinite(best_w.sigma_f_orb) else 0.0
+    # the first event is centred where f_orb t_d = phase (t_d from the data's mid-time); the deeper one
+    # is either it or the one half an orbit later
+    epoch = problem.data.t_mid_jd + (best_w.phase + (0.5 if depths[1] > depths[0] else 0.0)) / f
     return BinaryResult(
         ln_z_binary=float(ln_z), ln_z_binary_err=float(err), p_orb_h=24.0 / f, p_orb_h_lo=24.0 / (f + s),
         p_orb_h_hi=24.0 / (f - s) if f > s else math.inf, event_depth_mag=(float(depths[0]), float(depths[1])),
         event_width_phase=best_w.width, event_phase=best_w.phase, p1_h=24.0 / best_w.f1, f1_per_d=best_w.f1,
-        f_orb_per_d=f, width_mass=width_mass, n_evaluations=int(n_eval), route=route)
+        f_orb_per_d=f, width_mass=width_mass, n_evaluations=int(n_eval), route=route, event_epoch_jd=float(epoch))
 
 
 def event_scan_reference(t_d, resid_mag, weight, f_orb: float, width: float, n_bins: int = SCAN_PHASE_BINS) -> float:
@@ -419,14 +481,24 @@ class EventIndicator:
     score : float
         ``(dip_chi2 - smooth_chi2) / 2``, nats: positive when narrow dips that are flat between explain
         more than the smooth series with more coefficients.
+    share : float
+        ``dip_chi2`` over the residuals' chi-square about their weighted mean.
     event_like : bool
-        ``dip_chi2 >= INDICATOR_MIN_CHI2`` and ``score > 0``: a binary candidate for the full route.
+        ``dip_chi2 >= INDICATOR_MIN_CHI2``, ``share >= INDICATOR_MIN_SHARE`` and ``dip_chi2 >=
+        INDICATOR_MIN_DIP_OVER_SMOOTH x smooth_chi2``: a binary candidate for the full route.
+    f_orb_per_d : float
+        The orbital frequency tested, c/d.
+    f_primary_per_d : float
+        The primary's light-curve frequency removed before the test, c/d (NaN when not recorded).
     """
 
     dip_chi2: float
     smooth_chi2: float
     score: float
+    share: float
     event_like: bool
+    f_orb_per_d: float
+    f_primary_per_d: float = math.nan
 
 
 def event_indicator(t_d, resid_mag, weight, f_orb_per_d: float) -> EventIndicator:
@@ -451,7 +523,199 @@ def event_indicator(t_d, resid_mag, weight, f_orb_per_d: float) -> EventIndicato
     design = np.stack([np.ones_like(t), np.cos(x), np.sin(x), np.cos(2 * x), np.sin(2 * x)], axis=1)
     sw = np.sqrt(w)
     coef, *_ = np.linalg.lstsq(design * sw[:, None], r * sw, rcond=None)
-    base = np.sum(w * (r - np.sum(w * r) / np.sum(w)) ** 2)
+    base = float(np.sum(w * (r - np.sum(w * r) / np.sum(w)) ** 2))
     smooth = float(base - np.sum(w * (r - design @ coef) ** 2))
     score = 0.5 * (dip - smooth)
-    return EventIndicator(dip, smooth, float(score), bool(dip >= INDICATOR_MIN_CHI2 and score > 0))
+    share = dip / base if base > 0 else 0.0
+    like = dip >= INDICATOR_MIN_CHI2 and share >= INDICATOR_MIN_SHARE and dip >= INDICATOR_MIN_DIP_OVER_SMOOTH * smooth
+    return EventIndicator(dip, smooth, float(score), float(share), bool(like), float(f_orb_per_d))
+
+
+def primary_residuals(lc, f1_per_d: float, harmonics: int = SCREEN_PRIMARY_HARMONICS,
+                      error_floor_mag: float = 0.0) -> tuple:
+    """The primary's rotation removed: times (days from the data's mid-time), residuals (mag) of a
+    one-period Fourier fit at ``f1_per_d`` with the nuisance model (per-session zero-points, sparse phase
+    terms), and the weights ``1/(err^2 + floor^2)``."""
+    from tumble.model import FourierVariant, prepare_linear
+
+    data = prepare_linear(lc, error_floor_mag=error_floor_mag)
+    basis = FourierBasis.build([FourierVariant(int(harmonics), 0)])
+    fit = fit_linear(data, basis, 0, float(f1_per_d))
+    return data.t_d, data.y - fit.model_mag, data.sw**2
+
+
+def _best_indicator(t, r, w, grid, current):
+    """The indicator at the strongest box-scan frequency of ``grid``, if better than ``current``."""
+    grid = np.asarray(grid, float)
+    grid = grid[grid > 0]
+    if grid.size == 0:
+        return current
+    gain = event_scan(t, r, w, grid)[0]
+    ind = event_indicator(t, r, w, float(grid[int(np.argmax(gain))]))
+    if current is None or (ind.event_like, ind.share) > (current.event_like, current.share):
+        return ind
+    return current
+
+
+def screen_event_indicator(lc, f_a_per_d: float, f_b_per_d: float, *, error_floor_mag: float = 0.0) -> EventIndicator:
+    """The screen's binary indicator: :func:`event_indicator` at the best orbital frequency found cheaply.
+
+    Either frequency of the screen's two-period fit may be the primary's (deep events can carry the
+    larger amplitude), so both are tried. With one removed (:func:`primary_residuals`), orbital
+    frequencies are tried near the other and near half of it (events twice per orbit put a smooth
+    fit's period at ``P_orb / 2``; unequal events at ``P_orb``), :data:`SCREEN_ORBIT_GRID` each, and
+    on a coarse box scan of ``[1.5/span, f_primary/2]`` (step :data:`SCREEN_SCAN_STEP_FRACTION` of the
+    narrowest event width per span, at most :data:`SCREEN_MAX_ORB_GRID` frequencies); the best by
+    (event-like, share) is returned.
+    """
+    span = float(lc.span_d)
+    hw = SCREEN_ORBIT_HALF_WIDTH_PER_SPAN / span
+    best = None
+    for primary, other in ((f_a_per_d, f_b_per_d), (f_b_per_d, f_a_per_d)):
+        if not (np.isfinite(primary) and np.isfinite(other) and primary > 0 and other > 0):
+            continue
+        t, r, w = primary_residuals(lc, primary, error_floor_mag=error_floor_mag)
+        before = best
+        for fc in (0.5 * other, other):
+            best = _best_indicator(t, r, w, fc + np.linspace(-hw, hw, SCREEN_ORBIT_GRID), best)
+        lo, hi = MIN_CYCLES / span, 0.5 * primary
+        if hi > lo:
+            step = max(SCREEN_SCAN_STEP_FRACTION * min(EVENT_WIDTHS) / span, (hi - lo) / SCREEN_MAX_ORB_GRID)
+            coarse = lo + step * np.arange(int((hi - lo) / step) + 1)
+            gain = event_scan(t, r, w, coarse)[0]
+            k = int(np.argmax(gain))
+            best = _best_indicator(t, r, w, coarse[k] + step * np.linspace(-1.0, 1.0, SCREEN_ORBIT_GRID), best)
+        if best is not before:  # found with this primary removed
+            best = replace(best, f_primary_per_d=float(primary))
+    if best is None:
+        return EventIndicator(0.0, 0.0, 0.0, 0.0, False, math.nan)
+    return best
+
+
+@dataclass(frozen=True, eq=False)
+class OrbitFold:
+    """The light curve after removing the primary's rotation, folded on the orbital period.
+
+    Attributes
+    ----------
+    phase : numpy.ndarray (n,)
+        Orbital phase of each point in [-0.25, 0.75): 0 at the deeper event, 0.5 at the other.
+    residual_mag : numpy.ndarray (n,)
+        Data minus the primary's one-period series and the zero-points, mag (positive = fainter).
+    err_mag : numpy.ndarray (n,)
+    session : numpy.ndarray of int (n,)
+    bin_phase, bin_median_mag : numpy.ndarray (FOLD_BINS,)
+        Bin centres and the median residual per bin (NaN for an empty bin).
+    p_orb_h, p_primary_h : float
+        Folding period and the primary's light-curve period removed, hours.
+    epoch_jd : float
+        Time of phase 0 (mid-time of the deeper event), JD in the data's time scale.
+    width_phase : float
+        Full event duration, orbital phase (NaN when not known).
+    epoch_from_data : bool
+        The epoch was found here by the box scan (not given).
+    masked_events : bool
+        The primary was fitted with the points inside the events left out.
+    """
+
+    phase: np.ndarray
+    residual_mag: np.ndarray
+    err_mag: np.ndarray
+    session: np.ndarray
+    bin_phase: np.ndarray
+    bin_median_mag: np.ndarray
+    p_orb_h: float
+    p_primary_h: float
+    epoch_jd: float
+    width_phase: float
+    epoch_from_data: bool
+    masked_events: bool
+
+    def depth_at(self, phase: float, half_width: float) -> float:
+        """Median residual within ``half_width`` of ``phase`` minus the median outside both events, mag."""
+        d0 = np.abs((self.phase - phase + 0.5) % 1.0 - 0.5)
+        inside = d0 <= half_width
+        w = self.width_phase if np.isfinite(self.width_phase) else 2 * half_width
+        out = (np.abs((self.phase + 0.5) % 1.0 - 0.5) > w) & (np.abs(self.phase % 1.0 - 0.5) > w)
+        if not inside.any() or not out.any():
+            return math.nan
+        return float(np.median(self.residual_mag[inside]) - np.median(self.residual_mag[out]))
+
+
+def _event_mask(t_d_from_epoch, f_orb: float, width: float) -> np.ndarray:
+    ph = (t_d_from_epoch * f_orb) % 0.5
+    return np.minimum(ph, 0.5 - ph) < 0.5 * width
+
+
+def fold_on_orbit(lc, p_primary_h: float, p_orb_h: float, *, epoch_jd: float = math.nan,
+                  width_phase: float = math.nan) -> OrbitFold:
+    """Remove the primary's rotation and fold on the orbital period (the standard view of mutual events).
+
+    The primary is the one-period Fourier series (:data:`FOLD_PRIMARY_HARMONICS` harmonics of
+    ``24 / p_primary_h``, drift of degree :data:`FOLD_PRIMARY_DRIFT`) with the per-session zero-points,
+    fitted with the points inside the events given almost no weight when the events are known (epoch
+    and width), so that the events do not pull the primary's curve; it is then subtracted from every
+    point. Without an epoch the deeper dip of the box scan (:func:`event_scan`) at ``p_orb_h`` sets it
+    (and the primary is refitted outside the events found).
+
+    Parameters
+    ----------
+    lc : LightCurve
+    p_primary_h : float
+        The primary's light-curve period (the fundamental removed), hours.
+    p_orb_h : float
+        Orbital period, hours.
+    epoch_jd : float
+        Mid-time of the deeper event, JD (NaN: found from the data).
+    width_phase : float
+        Full event duration, orbital phase (NaN: found from the data).
+
+    Returns
+    -------
+    OrbitFold
+    """
+    from tumble.exceptions import TumbleError
+    from tumble.model import FourierVariant, prepare_linear
+
+    if not (np.isfinite(p_primary_h) and p_primary_h > 0 and np.isfinite(p_orb_h) and p_orb_h > 0):
+        raise TumbleError(f"fold on P_orb: periods must be positive (P_primary {p_primary_h}, P_orb {p_orb_h} h)")
+    f1, f_orb = 24.0 / float(p_primary_h), 24.0 / float(p_orb_h)
+    basis = FourierBasis.build([FourierVariant(FOLD_PRIMARY_HARMONICS, FOLD_PRIMARY_DRIFT)])
+    t = np.asarray(lc.t, float)
+
+    def residuals(weights):
+        data = prepare_linear(lc, weights=weights)
+        fit = fit_linear(data, basis, 0, f1)
+        return data, data.y - fit.model_mag
+
+    data, resid = residuals(None)
+    from_data = not np.isfinite(epoch_jd)
+    if from_data or not np.isfinite(width_phase):
+        gain, phase, width = event_scan(data.t_d, resid, data.sw**2, [f_orb])
+        if not np.isfinite(width_phase):
+            width_phase = float(width[0])
+        if from_data:
+            # the first of the two boxes is centred at f_orb t_d = phase; keep the deeper of the two
+            e0 = data.t_mid_jd + float(phase[0]) / f_orb
+            ph0 = (t - e0) * f_orb % 1.0
+            d = [float(np.median(resid[sel])) if sel.any() else -math.inf
+                 for sel in (np.minimum(ph0, 1.0 - ph0) < 0.5 * width_phase, np.abs(ph0 - 0.5) < 0.5 * width_phase)]
+            epoch_jd = e0 + (0.5 / f_orb if d[1] > d[0] else 0.0)
+    inside = _event_mask(t - epoch_jd, f_orb, width_phase)
+    masked = bool(inside.any() and np.mean(~inside) >= FOLD_MIN_OUTSIDE_FRACTION)
+    if masked:
+        _, resid = residuals(np.where(inside, FOLD_EVENT_WEIGHT, 1.0))
+    phase = ((t - epoch_jd) * f_orb + 0.25) % 1.0 - 0.25
+    if from_data:  # with the primary refitted outside the events, keep the deeper one (its core) at phase 0
+        d = [float(np.median(resid[sel])) if sel.any() else -math.inf
+             for sel in (np.abs(phase) < 0.25 * width_phase, np.abs(phase - 0.5) < 0.25 * width_phase)]
+        if d[1] > d[0]:
+            epoch_jd = epoch_jd + 0.5 / f_orb
+            phase = ((t - epoch_jd) * f_orb + 0.25) % 1.0 - 0.25
+    edges = np.linspace(-0.25, 0.75, FOLD_BINS + 1)
+    idx = np.clip(np.searchsorted(edges, phase, side="right") - 1, 0, FOLD_BINS - 1)
+    med = np.array([np.median(resid[idx == k]) if np.any(idx == k) else math.nan for k in range(FOLD_BINS)])
+    return OrbitFold(phase=phase, residual_mag=resid, err_mag=np.asarray(lc.err, float),
+                     session=np.asarray(lc.session, int), bin_phase=0.5 * (edges[1:] + edges[:-1]), bin_median_mag=med,
+                     p_orb_h=float(p_orb_h), p_primary_h=float(p_primary_h), epoch_jd=float(epoch_jd),
+                     width_phase=float(width_phase), epoch_from_data=bool(from_data), masked_events=masked)

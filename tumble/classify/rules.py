@@ -467,7 +467,9 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
             warn.append("physical-model posterior not converged or multimodal: " + "; ".join(fit.reasons))
     if binary is not None and rule_binary_alternative(inputs):  # the binary was named: its figures go out
         extra.update(p_orb_h=binary.p_orb_h, p_orb_h_lo=binary.p_orb_h_lo, p_orb_h_hi=binary.p_orb_h_hi,
-                     event_depth_mag=float(max(binary.event_depth_mag)), event_width_phase=binary.event_width_phase)
+                     event_depth_mag=float(max(binary.event_depth_mag)), event_width_phase=binary.event_width_phase,
+                     event_depth2_mag=float(min(binary.event_depth_mag)), event_epoch_jd=binary.event_epoch_jd,
+                     p_primary_h=binary.p1_h)
     pc = period_check
     ad = adequacy
     return Verdict(

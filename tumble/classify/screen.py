@@ -4,7 +4,9 @@
 1995, eq. 9) between the best two-period and one-period Fourier fits, with the model-error floor
 and error-scale bound of the evidence route. ``screen_flag`` is ``candidate`` (a second period is
 wanted and passes the alias rules), ``quiet`` (no second period wanted and a significant first
-period) or ``unknown``. Its own calibration is in ``docs/validation-classify.md``; it is for triage,
+period) or ``unknown``. A candidate whose second period behaves like mutual events (narrow dips, flat
+between: :func:`tumble.classify.binary.screen_event_indicator`) is also a ``binary_candidate``, with
+the orbital period tried in ``p_orb_h``. Its own calibration is in ``docs/validation-classify.md``; it is for triage,
 and a candidate needs the full route before any claim.
 """
 
@@ -79,6 +81,9 @@ class ScreenResult:
     span_d: float = math.nan
     runtime_s: float = math.nan
     prior_npa: float = math.nan
+    binary_candidate: bool = False
+    p_orb_h: float = math.nan
+    p_primary_h: float = math.nan
 
     # a screen states no rotation and no grade
     rotation = ""
@@ -196,6 +201,10 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
     p_a, p_b = 24.0 / fa if fa > 0 else math.nan, 24.0 / fb if fb > 0 else math.nan
     if np.isfinite(amp_a) and np.isfinite(amp_b) and amp_b > amp_a:
         p_a, p_b = p_b, p_a
+    binary = _binary_indicator(lc, fa, fb, floor) if flag == "candidate" else None
+    if binary is not None and binary.event_like:
+        warn.append(f"binary candidate: the second period behaves like mutual events (dips half an orbit apart at "
+                    f"P_orb = {24.0 / binary.f_orb_per_d:.4g} h, flat between)")
     out = ScreenResult(
         object_id=lc.object_id, screen_flag=flag, screen_score=float(score), p1_h=float(p_a), p2_h=float(p_b),
         period_h=float(scan1.rotation_period_h) if significant else math.nan,
@@ -204,5 +213,17 @@ def screen(lc, *, prior_npa: float = math.nan, order: int = 2) -> ScreenResult:
         evidence_route=(f"screen: -Delta BIC / 2 between the best order-{order} two-period and one-period Fourier fits "
                         f"(model-error floor {floor:.3g} mag, error scale >= {kmin:.3g})"),
         warnings=tuple(["screen only: a flag for triage, not a verdict"] + warn), n_points=lc.n_points,
-        n_sessions=lc.n_sessions, span_d=float(lc.span_d), prior_npa=float(prior_npa))
+        n_sessions=lc.n_sessions, span_d=float(lc.span_d), prior_npa=float(prior_npa),
+        binary_candidate=bool(binary is not None and binary.event_like),
+        p_orb_h=24.0 / binary.f_orb_per_d if binary is not None and binary.event_like else math.nan,
+        p_primary_h=24.0 / binary.f_primary_per_d if binary is not None and binary.event_like else math.nan)
     return replace(out, runtime_s=float(time.perf_counter() - t0))
+
+
+def _binary_indicator(lc, f_a: float, f_b: float, floor_mag: float):
+    """The event indicator (:func:`tumble.classify.binary.screen_event_indicator`) at the two-period fit's frequencies."""
+    from tumble.classify.binary import screen_event_indicator
+
+    if not (np.isfinite(f_a) and np.isfinite(f_b)):
+        return None
+    return screen_event_indicator(lc, f_a, f_b, error_floor_mag=floor_mag)

@@ -95,6 +95,12 @@ class Verdict:
         Depth of the deeper mutual event of the binary family, mag (NaN unless named).
     event_width_phase : float
         Full event duration of the binary family, orbital phase (NaN unless named).
+    event_depth2_mag : float
+        Depth of the other event, half an orbit from the deeper one, mag (NaN unless named).
+    event_epoch_jd : float
+        Mid-time of the deeper event, JD in the light curve's time scale (NaN unless named).
+    p_primary_h : float
+        The primary's light-curve period under the binary hypothesis, hours (NaN unless named).
     evidence_route : str
         How the Bayes factor was computed.
     route : str
@@ -156,6 +162,9 @@ class Verdict:
     p_orb_h_hi: float = math.nan
     event_depth_mag: float = math.nan
     event_width_phase: float = math.nan
+    event_depth2_mag: float = math.nan
+    event_epoch_jd: float = math.nan
+    p_primary_h: float = math.nan
     evidence_route: str = ""
     route: str = "full"
     state_converged: bool = False

@@ -31,6 +31,9 @@ def add_parser(sub) -> None:
                    help="emcee step budget per ensemble for the rotation state (default: 1500; 0 = optimise only)")
     p.add_argument("--prior-npa", type=float, default=0.1, metavar="P",
                    help="prior probability of NPA rotation (default: 0.1)")
+    p.add_argument("--no-binary", dest="binary", action="store_false",
+                   help="do not weigh the binary alternative (primary rotation plus mutual events at an orbital "
+                        "period) before an NPA verdict; it is weighed by default")
     p.add_argument("--robust", action="store_true",
                    help="Student-t re-weighting of outliers (evidence) and Student-t likelihood (physical fit)")
     p.add_argument("--min-period-h", type=float, default=0.5, metavar="H",
@@ -77,7 +80,8 @@ def run(args: argparse.Namespace) -> int:
     route = "screen" if args.screen else args.route
     prov = make_provenance(route=route, prior_npa=args.prior_npa, seed=args.seed, max_steps=args.max_steps,
                            n_walkers=args.walkers, robust=bool(args.robust), min_period_h=args.min_period_h,
-                           max_period_h=args.max_period_h, read_options=plain_record(read_options(args)))
+                           max_period_h=args.max_period_h, binary=bool(args.binary),
+                           read_options=plain_record(read_options(args)))
     rng = np.random.default_rng(args.seed)
     fit = None
     if args.screen:
@@ -86,7 +90,8 @@ def run(args: argparse.Namespace) -> int:
     else:
         result = classify(lc, prior_npa=args.prior_npa, rng=rng, n_walkers=args.walkers,
                           max_steps=args.max_steps, student_t=args.robust, p_min_h=args.min_period_h,
-                          p_max_h=args.max_period_h, progress=not args.quiet, route=args.route)
+                          p_max_h=args.max_period_h, progress=not args.quiet, route=args.route,
+                          binary=args.binary)
         verdict, fit = result.verdict, result.fit
         damp = _damping(verdict, args, np.random.default_rng(args.seed + 1))
     out = verdict_record(verdict.to_dict(), seed=int(args.seed),
@@ -165,6 +170,9 @@ def _print_verdict(v: dict, damp) -> None:
               f"false-alarm probability {format_fap(v['period_fap'])})")
     elif v["p1_h"] is not None and v["rotation"] == "undecided":
         print(f"light curve   P1 = {_fmt(v['p1_h'], 7)} h (no rotation verdict)")
+    if v.get("p_orb_h") is not None:
+        print(f"binary        P_orb = {_fmt(v['p_orb_h'], 6)} h (68%: {_fmt(v['p_orb_h_lo'], 6)} .. "
+              f"{_fmt(v['p_orb_h_hi'], 6)}), events {_fmt(v['event_depth_mag'], 2)} mag deep")
     if v["npa_limit_mag"] is not None:
         print(f"NPA limit     tumbling with a second-period signature above {_fmt(v['npa_limit_mag'], 2)} mag rms "
               "would have been detected")
