@@ -254,5 +254,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
                      geometric_pa=geometric,
                      npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
                      calibration_features=_features(lc, ev), binary=binary_result)
+    if fit is not None and fit.solutions and verdict.rotation == "NPA":
+        verdict = replace(verdict, solutions=tuple(s.to_dict() for s in fit.solutions))
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))
     return Classification(verdict, ev, fit, period_check, adequacy, limit, binary_result)
