@@ -85,8 +85,9 @@ SCREEN_TERMS = ((0, 1), (0, 2), (1, -2), (1, -1), (1, 0), (1, 1), (1, 2), (2, -2
 N_SCREENED = 24
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
 SCREEN_MAX_POINTS = 800
-#: Shortest rotation period P_psi considered, hours (fast rotators are outside the dense route's reach).
-MIN_P_PSI_H = 0.2
+#: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
+#: P_psi ~ 99 s (Scheirich et al. 2010, MAPS 45, 1804); the lattices themselves bound it in practice.
+MIN_P_PSI_H = 0.005
 #: Longest P_psi considered, in multiples of span / MIN_CYCLES (a longer one cannot be established).
 MAX_P_PSI_SPAN_FACTOR = 3.0
 #: State restarts: the best distinct solutions of each mode whose shape is redrawn along the
@@ -119,8 +120,11 @@ class FitBudget:
         Starts (best shapes) refined by a short Levenberg-Marquardt run.
     n_full : int
         Of those, refined fully.
+    n_screened : int
+        Frequency pairs passed from the linear screen to the physical fit (:data:`N_SCREENED`).
     """
 
+    n_screened: int = N_SCREENED
     n_shapes: int = 3
     n_orientations: int = 48
     n_short: int = 2
@@ -371,9 +375,13 @@ def _in_range(f_psi, span_h) -> bool:
     return MIN_P_PSI_H <= p_psi <= span_h / MIN_CYCLES * MAX_P_PSI_SPAN_FACTOR
 
 
-def frequency_pairs(lc, lattices, aliasing: bool) -> list:
-    """Every distinct ``(f_psi, f_phi)`` of the lattices, their aliases and both modes' relations."""
-    span_d, span_h = lc.span_d, lc.span_d * 24.0
+def frequency_pairs(span_d: float, lattices, aliasing: bool) -> list:
+    """Every distinct ``(f_psi, f_phi)`` of the lattices, their aliases and both modes' relations.
+
+    ``span_d`` (days) sets the tolerance of "the same pair" (:data:`SAME_PAIR_CYCLES`) and the
+    longest ``P_psi`` considered.
+    """
+    span_h = span_d * 24.0
     tol = SAME_PAIR_CYCLES / span_d
     out, keys = [], set()
     for lattice in lattices:
@@ -676,11 +684,11 @@ def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = Fit
     budget : FitBudget
     """
     lattices = candidate_lattices(lc, evidence)
-    pairs = frequency_pairs(lc, lattices, daily_aliasing(lc))
+    pairs = frequency_pairs(lc.span_d, lattices, daily_aliasing(lc))
     if not pairs:
         return SolutionSearch((), {}, 0, 0, 0)
     chi2 = screen_chi2(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs)
-    order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:N_SCREENED]
+    order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:budget.n_screened]
     kept = [pairs[i] for i in order]
     optima = []
     n_fits = 0
