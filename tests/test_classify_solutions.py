@@ -152,3 +152,16 @@ def test_apophis_like_sam_is_among_the_solutions():
     # the ranking criterion (BIC) and the Laplace approximation of the evidence agree on the best
     lz = [s.log_evidence_laplace for s in sols]
     assert int(np.argmax(lz)) == 0
+
+
+def test_docs_solutions_table_is_the_schema():
+    # docs/outputs.md shows the solutions' keys from the one schema (the project's own rule)
+    import re
+    from pathlib import Path
+
+    from tumble.schema import SOLUTION_FIELDS, docs_table
+
+    text = (Path(__file__).resolve().parents[1] / "docs" / "outputs.md").read_text()
+    m = re.search(r"<!-- solutions table:[^\n]*-->\n(.*?)<!-- end solutions table -->", text, re.S)
+    assert m is not None
+    assert m.group(1).strip() == docs_table(SOLUTION_FIELDS).strip()

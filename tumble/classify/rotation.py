@@ -3,8 +3,9 @@
 Physical ellipsoid models (:class:`tumble.model.PhysicalModel`) for SAM and LAM (or PA), started at
 the evidence's frequency pairs mapped through the light-curve frequency relations (SAM: dominant
 ``f_phi - f_psi``; LAM: ``f_phi`` and ``f_phi + f_psi``; Kaasalainen 2001, A&A 376, 302; Pravec et
-al. 2005, Icarus 173, 108) with many spin directions and phases, refined by optimisation, and the
-better mode sampled with emcee (:func:`tumble.inference.sample_posterior`).
+al. 2005, Icarus 173, 108). For NPA every acceptable solution is enumerated and ranked by
+:mod:`tumble.classify.solutions`; the top solution's mode is sampled with emcee
+(:func:`tumble.inference.sample_posterior`).
 """
 
 from __future__ import annotations
