@@ -258,12 +258,15 @@ class SolutionSearch:
         Listed solutions (within :data:`SOLUTION_DELTA_BIC` of the best), best first.
     best_by_mode : dict
         Mode -> its best :class:`Solution` (listed or not), for the mode comparison.
+    distinct : tuple of Solution
+        Every distinct solution found, best first (``relative_probability`` 0 when not listed).
     n_pairs, n_screened, n_fits : int
         Frequency pairs enumerated, passed by the screen, and physical fits made.
     """
 
     solutions: tuple
     best_by_mode: dict
+    distinct: tuple
     n_pairs: int
     n_screened: int
     n_fits: int
@@ -645,15 +648,16 @@ def _solution(opt: Optimum, model, bic: float, best_bic: float, k: int, n: int, 
 
 
 def collect_solutions(optima, models, span_d: float) -> tuple:
-    """Distinct solutions of the optima ranked by BIC: ``(listed, best_by_mode)``.
+    """Distinct solutions of the optima ranked by BIC: ``(listed, best_by_mode, distinct)``.
 
     ``listed`` holds the solutions within :data:`SOLUTION_DELTA_BIC` of the best (best first, with
     relative probabilities ``exp(-Delta/2)`` normalised over them); ``best_by_mode`` maps each mode
-    to its best solution, listed or not (the mode comparison of the decision rules needs it).
+    to its best solution, listed or not (the mode comparison of the decision rules needs it);
+    ``distinct`` holds every distinct solution found, best first (listed or not).
     """
     distinct = distinct_optima(optima, models, span_d)
     if not distinct:
-        return (), {}
+        return (), {}, ()
     n = int(models[distinct[0].mode].y.size)
     ks = [len(models[o.mode].space.names) for o in distinct]
     bics = [-2.0 * o.log_likelihood + k * math.log(n) for o, k in zip(distinct, ks)]
@@ -664,10 +668,10 @@ def collect_solutions(optima, models, span_d: float) -> tuple:
     first_of_mode = {}
     for i, o in enumerate(distinct):
         first_of_mode.setdefault(o.mode, i)
-    made = {i: _solution(distinct[i], models[distinct[i].mode], bics[i], best_bic, ks[i], n, weight_of.get(i, 0.0))
-            for i in sorted(set(listed_idx) | set(first_of_mode.values()))}
+    made = [_solution(o, models[o.mode], b, best_bic, k, n, weight_of.get(i, 0.0))
+            for i, (o, b, k) in enumerate(zip(distinct, bics, ks))]
     listed = tuple(sorted((made[i] for i in listed_idx), key=lambda s: s.criterion))
-    return listed, {mode: made[i] for mode, i in first_of_mode.items()}
+    return listed, {mode: made[i] for mode, i in first_of_mode.items()}, tuple(sorted(made, key=lambda s: s.criterion))
 
 
 def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = FitBudget()) -> SolutionSearch:
@@ -686,7 +690,7 @@ def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = Fit
     lattices = candidate_lattices(lc, evidence)
     pairs = frequency_pairs(lc.span_d, lattices, daily_aliasing(lc))
     if not pairs:
-        return SolutionSearch((), {}, 0, 0, 0)
+        return SolutionSearch((), {}, (), 0, 0, 0)
     chi2 = screen_chi2(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs)
     order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:budget.n_screened]
     kept = [pairs[i] for i in order]
@@ -701,8 +705,8 @@ def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = Fit
     for mode, model in models.items():
         tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
         optima += [restart_optimum(model, o, rng) for o in tops]
-    listed, best_by_mode = collect_solutions(optima, models, lc.span_d)
-    return SolutionSearch(listed, best_by_mode, len(pairs), len(kept), n_fits)
+    listed, best_by_mode, distinct = collect_solutions(optima, models, lc.span_d)
+    return SolutionSearch(listed, best_by_mode, distinct, len(pairs), len(kept), n_fits)
 
 
 def enumerate_solutions(lc, evidence, *, max_points: int = 300, budget: FitBudget = FitBudget(),
