@@ -76,9 +76,9 @@ def truth_started_log_likelihood(lc, truth, rng) -> float:
     pair = S.FrequencyPair(24.0 / truth["p_psi_h"], 24.0 / truth["p_phi_h"], ("truth",), "truth")
     best = -math.inf
     model = models[truth["mode"]]
-    opt = S.fit_pair(model, truth["mode"], pair, S.FitBudget(n_shapes=4, n_short=4, n_full=2), rng)
+    opt = S.fit_pair(model, truth["mode"], pair, S.FitBudget(n_shapes=4, n_short=4), rng)
     if opt is not None:
-        best = max(best, S.restart_optimum(model, opt, rng).log_likelihood)
+        best = max(best, S.restart_optimum(model, S.refine_fully(model, opt), rng).log_likelihood)
     return best
 
 

@@ -14,12 +14,14 @@ enumeration (:func:`search_solutions`):
 3. **Frequency relations**: every basis mapped to ``(f_psi, f_phi)`` through the SAM and LAM
    relations, published and other assignments (:func:`tumble.classify.rotation.npa_candidates`),
    deduplicated within :data:`SAME_PAIR_CYCLES` cycles per span.
-4. **Linear screen** (:func:`screen_chi2`): the chi-square of the truncated two-dimensional Fourier
-   series in the physical frequencies (terms :data:`SCREEN_TERMS`) with the nuisance zero-points;
-   the :data:`N_SCREENED` best pairs go on.
+4. **Linear screens** (:func:`screen_chi2`, :func:`screened_pairs`): the chi-square of truncated
+   two-dimensional Fourier series in the physical frequencies (two term sets,
+   :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
+   each screen go on.
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
-   fixed budget (:class:`FitBudget`): shapes x orientations, short and full Levenberg-Marquardt
-   (:func:`tumble.classify.rotation.optimise_state`); then shape restarts of the best states.
+   fixed budget (:class:`FitBudget`): shapes x orientations and a short Levenberg-Marquardt run
+   (:func:`tumble.classify.rotation.optimise_state`); the best :data:`N_FULL_PER_MODE` per mode are
+   refined fully; then shape restarts of the best distinct states.
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
    ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978); those within :data:`SOLUTION_DELTA_BIC`
@@ -54,7 +56,7 @@ from tumble.model import FourierBasis, FourierVariant, linear_log_evidence, nuis
 __all__ = [
     "Solution", "SolutionSearch", "FitBudget", "Lattice", "FrequencyPair", "LaplaceApproximation",
     "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
-    "frequency_pairs", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
+    "frequency_pairs", "screened_pairs", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
     "shape_solutions", "shape_restarts", "npa_models", "distinct_optima", "fit_pair", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
 ]
 
@@ -77,12 +79,20 @@ ALIAS_MIN_GAP_SHARE = 0.25
 SAME_PAIR_CYCLES = 0.05
 #: Two optima closer than this (cycles per span, in f_psi and f_phi) with the same mode are one solution.
 SAME_SOLUTION_CYCLES = 0.25
-#: Terms (n_phi, n_psi) of the screen's two-dimensional Fourier series in the physical frequencies:
-#: the low orders that carry an ellipsoid's free-rotation light curve (Kaasalainen 2001).
-SCREEN_TERMS = ((0, 1), (0, 2), (1, -2), (1, -1), (1, 0), (1, 1), (1, 2), (2, -2), (2, -1), (2, 0), (2, 1), (2, 2))
-#: Frequency pairs passed from the linear screen to the physical fit (on simulated tumblers the
-#: true pair ranked within the best ~20 of several thousand candidates).
+#: Terms (n_phi, n_psi) of the screen's two-dimensional Fourier series in the physical frequencies,
+#: two sets, each screening on its own: the low orders of the lattice (Kaasalainen 2001), and the
+#: terms even in psi up to fourth order (an ellipsoid is symmetric under a half turn about a body
+#: axis, so its light curve often holds only 2 k f_psi, with the second harmonics of the dominant
+#: 2 (f_phi - f_psi) or 2 (f_phi + f_psi)). Neither ranks the truth high on every simulated tumbler
+#: (the demo's KRN-007: 13th and 183rd; an Apophis-like SAM: 315th and 20th), the union does.
+SCREEN_TERM_SETS = (
+    ((0, 1), (0, 2), (1, -2), (1, -1), (1, 0), (1, 1), (1, 2), (2, -2), (2, -1), (2, 0), (2, 1), (2, 2)),
+    ((0, 2), (0, 4)) + tuple((a, b) for a in (1, 2, 3, 4) for b in (-4, -2, 0, 2, 4)),
+)
+#: Frequency pairs passed from each screen to the physical fit (the union goes on).
 N_SCREENED = 24
+#: Of the short refinements of all screened pairs, the best this many per mode are refined fully.
+N_FULL_PER_MODE = 12
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
 SCREEN_MAX_POINTS = 800
 #: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
@@ -117,18 +127,18 @@ class FitBudget:
     n_orientations : int
         Random spin directions and phases per shape (the best of each shape is kept).
     n_short : int
-        Starts (best shapes) refined by a short Levenberg-Marquardt run.
-    n_full : int
-        Of those, refined fully.
+        Starts (best shapes) refined by a short Levenberg-Marquardt run; the best is kept.
     n_screened : int
-        Frequency pairs passed from the linear screen to the physical fit (:data:`N_SCREENED`).
+        Frequency pairs passed from each linear screen to the physical fit (:data:`N_SCREENED`).
+    n_full_per_mode : int
+        Short refinements (the best of each pair) refined fully, per mode (:data:`N_FULL_PER_MODE`).
     """
 
     n_screened: int = N_SCREENED
     n_shapes: int = 3
     n_orientations: int = 48
     n_short: int = 2
-    n_full: int = 1
+    n_full_per_mode: int = N_FULL_PER_MODE
 
 
 @dataclass(frozen=True)
@@ -414,17 +424,17 @@ def _basis_coefficients(coef, swap, sign2) -> tuple:
 # -- 4: the linear screen -----------------------------------------------------------------------------
 
 
-def _screen_columns(t, f_psi, f_phi):
-    """Fourier columns of :data:`SCREEN_TERMS` at one pair, shape (n, 2 len(SCREEN_TERMS))."""
+def _screen_columns(t, f_psi, f_phi, terms):
+    """Fourier columns of ``terms`` ((n_phi, n_psi) pairs) at one pair, shape (n, 2 len(terms))."""
     cols = []
-    for n_phi, n_psi in SCREEN_TERMS:
+    for n_phi, n_psi in terms:
         arg = 2.0 * np.pi * (n_phi * f_phi + n_psi * f_psi) * t
         cols += [np.cos(arg), np.sin(arg)]
     return np.stack(cols, axis=1)
 
 
-def screen_chi2(lc, pairs) -> np.ndarray:
-    """Chi-square of the screen's series (nuisance zero-points free) at each pair, shape (len(pairs),).
+def screen_chi2(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
+    """Chi-square of a screen's series (``terms``; zero-points free) at each pair, shape (len(pairs),).
 
     Fast route: the whitened nuisance columns are projected out once (QR), then each pair solves
     only its own normal equations. :func:`screen_chi2_reference` is the plain least squares.
@@ -439,7 +449,7 @@ def screen_chi2(lc, pairs) -> np.ndarray:
     base = float(yp @ yp)
     out = np.empty(len(pairs))
     for i, p in enumerate(pairs):
-        f = _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d) * w[:, None]
+        f = _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms) * w[:, None]
         fp = f - q @ (q.T @ f)
         coef, *_ = np.linalg.lstsq(fp, yp, rcond=None)
         r = yp - fp @ coef
@@ -447,7 +457,7 @@ def screen_chi2(lc, pairs) -> np.ndarray:
     return out
 
 
-def screen_chi2_reference(lc, pairs) -> np.ndarray:
+def screen_chi2_reference(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
     """Slow reference of :func:`screen_chi2`: one least squares of [nuisance, Fourier] per pair."""
     t = np.asarray(lc.t, float) - float(np.mean(lc.t))
     w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
@@ -455,7 +465,7 @@ def screen_chi2_reference(lc, pairs) -> np.ndarray:
     y = np.asarray(lc.reduced_mag, float)
     out = np.empty(len(pairs))
     for i, p in enumerate(pairs):
-        a = np.hstack([z, _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d)]) * w[:, None]
+        a = np.hstack([z, _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms)]) * w[:, None]
         coef, *_ = np.linalg.lstsq(a, y * w, rcond=None)
         r = y * w - a @ coef
         out[i] = float(r @ r)
@@ -539,7 +549,13 @@ def npa_models(sub, span_h: float, *, student_t: bool = False) -> dict:
 
 
 def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng) -> Optimum | None:
-    """The physical fit of one frequency pair in one mode under a fixed budget (None when the mode cannot give it)."""
+    """The short physical fit of one frequency pair in one mode under a fixed budget.
+
+    ``budget.n_shapes`` ellipsoids with the pair's period ratio x ``budget.n_orientations`` random
+    orientations; the best start of each of the ``budget.n_short`` best shapes gets a short
+    Levenberg-Marquardt run and the best result is returned (None when the mode cannot give the
+    period ratio).
+    """
     shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, rng, n_pick=budget.n_shapes)
     if not shapes:
         return None
@@ -553,13 +569,14 @@ def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng) -> O
         starts.append((float(ll[j]), xs[j]))
     starts.sort(key=lambda e: -e[0])
     short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:budget.n_short]]
-    short.sort(key=lambda e: -e[1])
-    best = None
-    for x0, _ in short[:budget.n_full]:
-        x, v = optimise_state(model, x0)
-        if best is None or v > best.log_likelihood:
-            best = Optimum(mode, x, float(v), pair)
-    return best
+    x, v = max(short, key=lambda e: e[1])
+    return Optimum(mode, x, float(v), pair)
+
+
+def refine_fully(model, opt: Optimum) -> Optimum:
+    """A full Levenberg-Marquardt refinement of an optimum."""
+    x, v = optimise_state(model, opt.x)
+    return Optimum(opt.mode, x, float(v), opt.pair) if v > opt.log_likelihood else opt
 
 
 def restart_optimum(model, opt: Optimum, rng) -> Optimum:
@@ -674,6 +691,19 @@ def collect_solutions(optima, models, span_d: float) -> tuple:
     return listed, {mode: made[i] for mode, i in first_of_mode.items()}, tuple(sorted(made, key=lambda s: s.criterion))
 
 
+def screened_pairs(lc, pairs, n_per_screen: int) -> list:
+    """The union of the best ``n_per_screen`` pairs of each screen of :data:`SCREEN_TERM_SETS`, in screen order."""
+    kept, seen = [], set()
+    for terms in SCREEN_TERM_SETS:
+        chi2 = screen_chi2(lc, pairs, terms)
+        order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:n_per_screen]
+        for i in order:
+            if int(i) not in seen:
+                seen.add(int(i))
+                kept.append(pairs[int(i)])
+    return kept
+
+
 def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = FitBudget()) -> SolutionSearch:
     """The enumeration (module notes) on a light curve with physical models already built (by mode).
 
@@ -691,17 +721,18 @@ def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = Fit
     pairs = frequency_pairs(lc.span_d, lattices, daily_aliasing(lc))
     if not pairs:
         return SolutionSearch((), {}, (), 0, 0, 0)
-    chi2 = screen_chi2(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs)
-    order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:budget.n_screened]
-    kept = [pairs[i] for i in order]
-    optima = []
-    n_fits = 0
+    kept = screened_pairs(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs, budget.n_screened)
+    short = []
     for pair in kept:
         for mode, model in models.items():
             opt = fit_pair(model, mode, pair, budget, rng)
-            n_fits += opt is not None
             if opt is not None:
-                optima.append(opt)
+                short.append(opt)
+    n_fits = len(short)
+    optima = []
+    for mode, model in models.items():
+        tops = sorted((o for o in short if o.mode == mode), key=lambda o: -o.log_likelihood)[:budget.n_full_per_mode]
+        optima += [refine_fully(model, o) for o in tops]
     for mode, model in models.items():
         tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
         optima += [restart_optimum(model, o, rng) for o in tops]
