@@ -123,7 +123,7 @@ def _tc3_lightcurve():
 def test_tc3_like_lam_is_recovered_with_its_main_period():
     lc = _tc3_lightcurve()
     _, ev = fourier_evidence_with_problem(lc, p_min_h=0.004, p_max_h=0.5)
-    sols = S.enumerate_solutions(lc, ev, max_points=200, budget=S.FitBudget(n_screened=8, n_orientations=24, n_full_per_mode=6), rng=1)
+    sols = S.enumerate_solutions(lc, ev, max_points=200, budget=S.FitBudget(n_screened=8, n_orientations=24), rng=1)
     top = sols[0]
     # recovered as LAM, the main period 1 / (f_phi + f_psi) at Scheirich et al.'s 49.03 s
     assert top.mode == "LAM"
@@ -138,12 +138,12 @@ def test_tc3_like_lam_is_recovered_with_its_main_period():
 
 @pytest.mark.slow
 def test_apophis_like_sam_is_among_the_solutions():
-    # Apophis-like SAM (Pravec et al. 2014: P_psi ~ 263 h, P_phi = 27.38 h; inertia ratios I1/I3 ~ 0.61,
-    # I2/I3 ~ 0.965 from memory), a dense multi-night plan over 40 nights
-    st = RotationState.from_periods(0.61, 0.965, APOPHIS_P_PSI_H, APOPHIS_P_PHI_H, "SAM", l_lon_deg=250.0,
-                                    l_lat_deg=-75.0)
+    # Apophis-like SAM (Pravec et al. 2014: P_psi ~ 263 h, P_phi = 27.38 h; inertia I = 0.64 : 0.97 : 1
+    # and L = (275 deg, -85 deg) of Lee et al. 2022, A&A 661, L3), a dense plan of 40 nights
+    st = RotationState.from_periods(0.64, 0.97, APOPHIS_P_PSI_H, APOPHIS_P_PHI_H, "SAM", l_lon_deg=275.0,
+                                    l_lat_deg=-85.0)
     plan = DenseCampaign(2460000.5, n_nights=40, hours_per_night=6.0, cadence_min=30.0, zero_point_sigma_mag=0.02)
-    lc = simulate_lightcurve(st, axes_from_inertia_ratios(0.61, 0.965), plan, noise=NoiseModel(0.01),
+    lc = simulate_lightcurve(st, axes_from_inertia_ratios(0.64, 0.97), plan, noise=NoiseModel(0.01),
                              rng=11).lightcurve
     _, ev = fourier_evidence_with_problem(lc)
     sols = S.enumerate_solutions(lc, ev, rng=2)

@@ -19,9 +19,8 @@ enumeration (:func:`search_solutions`):
    :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
    each screen go on.
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
-   fixed budget (:class:`FitBudget`): shapes x orientations and a short Levenberg-Marquardt run
-   (:func:`tumble.classify.rotation.optimise_state`); the best :data:`N_FULL_PER_MODE` per mode are
-   refined fully; then shape restarts of the best distinct states.
+   fixed budget (:class:`FitBudget`): shapes x orientations, short and full Levenberg-Marquardt
+   (:func:`tumble.classify.rotation.optimise_state`); then shape restarts of the best distinct states.
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
    ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978); those within :data:`SOLUTION_DELTA_BIC`
@@ -90,9 +89,7 @@ SCREEN_TERM_SETS = (
     ((0, 2), (0, 4)) + tuple((a, b) for a in (1, 2, 3, 4) for b in (-4, -2, 0, 2, 4)),
 )
 #: Frequency pairs passed from each screen to the physical fit (the union goes on).
-N_SCREENED = 24
-#: Of the short refinements of all screened pairs, the best this many per mode are refined fully.
-N_FULL_PER_MODE = 12
+N_SCREENED = 20
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
 SCREEN_MAX_POINTS = 800
 #: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
@@ -130,15 +127,17 @@ class FitBudget:
         Starts (best shapes) refined by a short Levenberg-Marquardt run; the best is kept.
     n_screened : int
         Frequency pairs passed from each linear screen to the physical fit (:data:`N_SCREENED`).
-    n_full_per_mode : int
-        Short refinements (the best of each pair) refined fully, per mode (:data:`N_FULL_PER_MODE`).
+    n_full : int
+        Of the short refinements of a pair, the best refined fully (the likelihood after a short run
+        says little about the basin, so every screened pair gets its full refinement: with only
+        the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
     """
 
     n_screened: int = N_SCREENED
     n_shapes: int = 3
     n_orientations: int = 48
     n_short: int = 2
-    n_full_per_mode: int = N_FULL_PER_MODE
+    n_full: int = 1
 
 
 @dataclass(frozen=True)
@@ -549,12 +548,12 @@ def npa_models(sub, span_h: float, *, student_t: bool = False) -> dict:
 
 
 def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng) -> Optimum | None:
-    """The short physical fit of one frequency pair in one mode under a fixed budget.
+    """The physical fit of one frequency pair in one mode under a fixed budget.
 
     ``budget.n_shapes`` ellipsoids with the pair's period ratio x ``budget.n_orientations`` random
     orientations; the best start of each of the ``budget.n_short`` best shapes gets a short
-    Levenberg-Marquardt run and the best result is returned (None when the mode cannot give the
-    period ratio).
+    Levenberg-Marquardt run, the best ``budget.n_full`` of those a full one, and the best result is
+    returned (None when the mode cannot give the period ratio).
     """
     shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, rng, n_pick=budget.n_shapes)
     if not shapes:
@@ -569,8 +568,13 @@ def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng) -> O
         starts.append((float(ll[j]), xs[j]))
     starts.sort(key=lambda e: -e[0])
     short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:budget.n_short]]
-    x, v = max(short, key=lambda e: e[1])
-    return Optimum(mode, x, float(v), pair)
+    short.sort(key=lambda e: -e[1])
+    best = None
+    for x0, v0 in short[:max(budget.n_full, 1)]:
+        opt = refine_fully(model, Optimum(mode, x0, float(v0), pair)) if budget.n_full > 0 else Optimum(mode, x0, float(v0), pair)
+        if best is None or opt.log_likelihood > best.log_likelihood:
+            best = opt
+    return best
 
 
 def refine_fully(model, opt: Optimum) -> Optimum:
@@ -722,17 +726,13 @@ def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = Fit
     if not pairs:
         return SolutionSearch((), {}, (), 0, 0, 0)
     kept = screened_pairs(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs, budget.n_screened)
-    short = []
+    optima = []
     for pair in kept:
         for mode, model in models.items():
             opt = fit_pair(model, mode, pair, budget, rng)
             if opt is not None:
-                short.append(opt)
-    n_fits = len(short)
-    optima = []
-    for mode, model in models.items():
-        tops = sorted((o for o in short if o.mode == mode), key=lambda o: -o.log_likelihood)[:budget.n_full_per_mode]
-        optima += [refine_fully(model, o) for o in tops]
+                optima.append(opt)
+    n_fits = len(optima)
     for mode, model in models.items():
         tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
         optima += [restart_optimum(model, o, rng) for o in tops]
