@@ -131,14 +131,14 @@ def score_object(object_id, lc, truth, detected_by, check_model: bool) -> dict:
     return row
 
 
-def library_objects(library: Path, limit: int | None):
+def library_objects(library: Path, limit: int | None, offset: int = 0):
     """Held-out dense tumblers of the library, in the library's hashed order: (id, lc, truth)."""
     from library.population import order_key, split_of
     from library.render import load_rendered
 
     ids = sorted((Path(p).stem for p in glob.glob(str(library / "CAL-dense-npa-*.json"))), key=order_key)
     ids = [i for i in ids if split_of(i) == "heldout"]
-    for oid in ids[:limit]:
+    for oid in ids[offset:][:limit]:
         obj = load_rendered(library, oid)
         if obj is not None:
             yield oid, obj.lightcurve, obj.truth.to_dict()
@@ -201,6 +201,8 @@ def main(argv=None) -> int:
     p.add_argument("--library", default=str(DEFAULT_LIBRARY), help="rendered library cache (read only)")
     p.add_argument("--out", default=str(DEFAULT_OUT), help="JSON-lines table of rows (appended, resumable)")
     p.add_argument("--limit", type=int, default=None, help="held-out dense tumblers to run (detected or not)")
+    p.add_argument("--offset", type=int, default=0, help="skip this many held-out dense tumblers first "
+                   "(to share the library between runs writing to different tables)")
     p.add_argument("--quick", action="store_true", help=f"stop after {QUICK_DETECTED} detected tumblers")
     p.add_argument("--demo-only", action="store_true", help=f"only {DEMO_OBJECT} of the demo")
     p.add_argument("--no-demo", action="store_true", help=f"skip {DEMO_OBJECT}")
@@ -216,7 +218,7 @@ def main(argv=None) -> int:
     if not args.no_demo:
         sources.append(("always", [demo_object()]))
     if not args.demo_only:
-        sources.append(("verdict", library_objects(Path(args.library), args.limit)))
+        sources.append(("verdict", library_objects(Path(args.library), args.limit, args.offset)))
     n_detected = 0
     with out.open("a") as fh:
         for detected_by, objects in sources:
