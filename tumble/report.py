@@ -611,6 +611,7 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
                      f"<th>unit</th><th>meaning</th></tr></thead><tbody>{body}</tbody></table>")
     else:
         parts.append("<p>No period was claimed.</p>")
+    parts.append(solutions_table_html(v))
     parts.append("<h2>Data</h2><table><tbody>"
                  f"<tr><th>points</th><td class=\"num\">{_e(v.get('n_points', '-'))}</td></tr>"
                  f"<tr><th>sessions</th><td class=\"num\">{_e(v.get('n_sessions', '-'))}</td></tr>"
@@ -641,6 +642,44 @@ def _object_body(v: Mapping, figures, notes, *, back_link: str | None = None, da
         parts.append(f"<p class=\"note\">Not drawn: {_e(n)}</p>")
     parts.append(_cautions_html())
     return "\n".join(parts)
+
+
+def solutions_table_html(v: Mapping) -> str:
+    """The "Tumbling solutions" table of an object page ('' when the verdict lists none).
+
+    One row per listed solution (``solutions`` of verdict.json, best first): mode, P_psi and P_phi with
+    their 68 % intervals from that solution's own optimum, Delta BIC and relative probability; the
+    columns and units come from :data:`tumble.schema.SOLUTION_FIELDS`.
+    """
+    from tumble.classify.solutions import SOLUTION_DELTA_BIC
+    from tumble.display import format_value
+    from tumble.schema import SOLUTION_FIELDS
+
+    sols = v.get("solutions") or []
+    if not sols:
+        return ""
+    by_name = {f.name: f for f in SOLUTION_FIELDS}
+    rows = []
+    for i, sol in enumerate(sols, 1):
+        cells = [f"<td class=\"num\">{i}</td>", f"<td>{_e(sol.get('mode') or '-')}</td>"]
+        for name in ("p_psi_h", "p_phi_h"):
+            lo, hi = sol.get(f"{name}_lo"), sol.get(f"{name}_hi")
+            iv = (f"{_e(format_value(by_name[name].display, lo))} &ndash; {_e(format_value(by_name[name].display, hi))}"
+                  if _fin(lo) and _fin(hi) else "-")
+            cells.append(f"<td class=\"num\">{_e(format_value(by_name[name].display, sol.get(name)))}</td><td>{iv}</td>")
+        for name in ("delta_bic", "relative_probability"):
+            cells.append(f"<td class=\"num\">{_e(format_value(by_name[name].display, sol.get(name)))}</td>")
+        cells.append(f"<td>{_e(sol.get('source') or '')}</td>")
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    head = ("<tr><th>#</th><th>mode</th><th>P_psi (h)</th><th>68 % interval (h)</th><th>P_phi (h)</th>"
+            "<th>68 % interval (h)</th><th>&Delta;BIC</th><th>relative probability</th><th>found from</th></tr>")
+    note = (f"<p class=\"note\">Every tumbling solution whose BIC (-2 ln L + k ln N of the physical ellipsoid "
+            f"model) lies within {SOLUTION_DELTA_BIC:g} of the best, best first; intervals from each solution's own "
+            "optimum (Laplace approximation), not from a mixture of solutions. The first is the state reported "
+            "above. Scientific estimates for research use: a real body can prefer another lattice than the "
+            "ellipsoid model does.</p>")
+    return (f"<h2 id=\"h-solutions\">Tumbling solutions</h2><table id=\"solutions\"><thead>{head}</thead>"
+            f"<tbody>{''.join(rows)}</tbody></table>{note}")
 
 
 def _normalise(verdict: Mapping) -> dict:

@@ -27,7 +27,7 @@ from typing import Callable, Iterable, Mapping
 __all__ = ["Field", "FIELDS", "FIELD_BY_NAME", "RESULT_FIELDS", "VERDICT_FIELDS", "REPORT_FIELDS", "KEY_ALIASES",
            "STATUS_VALUES", "ROUTE_VALUES", "MODE_VALUES", "SCREEN_FLAG_VALUES", "DERIVED", "SchemaError",
            "empty_value", "coerce", "normalise", "derive", "results_row", "verdict_record", "json_safe", "dumps_strict", "loads_strict",
-           "display", "docs_table", "pravec2005_code"]
+           "display", "docs_table", "pravec2005_code", "SOLUTION_FIELDS", "solutions_record"]
 
 
 class SchemaError(ValueError):
@@ -201,6 +201,41 @@ RESULT_FIELDS: tuple[Field, ...] = tuple(f for f in FIELDS if f.results)
 VERDICT_FIELDS: tuple[Field, ...] = tuple(f for f in FIELDS if f.verdict)
 REPORT_FIELDS: tuple[Field, ...] = tuple(f for f in FIELDS if f.header)
 
+#: The entries of the ``solutions`` list of ``verdict.json`` (every acceptable tumbling solution,
+#: best first; :class:`tumble.classify.solutions.Solution`); not results columns.
+SOLUTION_FIELDS: tuple[Field, ...] = (
+    Field("mode", "str", "", "NPA mode of the solution: SAM or LAM", display="text", values=("SAM", "LAM")),
+    _f("p_psi_h", "h", "rotation period P_psi at the solution's optimum", "P_psi", "period"),
+    _f("p_psi_h_lo", "h", "P_psi, lower end of the 68% interval (Laplace approximation at this solution)",
+       display="period"),
+    _f("p_psi_h_hi", "h", "P_psi, upper end of the 68% interval (Laplace approximation at this solution)",
+       display="period"),
+    _f("p_phi_h", "h", "precession period P_phi at the solution's optimum", "P_phi", "period"),
+    _f("p_phi_h_lo", "h", "P_phi, lower end of the 68% interval (Laplace approximation at this solution)",
+       display="period"),
+    _f("p_phi_h_hi", "h", "P_phi, upper end of the 68% interval (Laplace approximation at this solution)",
+       display="period"),
+    _f("log_likelihood", "", "maximum log-likelihood of the physical model, nats", "ln L", "sig4"),
+    _f("bic", "", "ranking criterion -2 ln L + k ln N (Schwarz 1978), nats", "BIC", "sig4"),
+    _f("delta_bic", "", "bic minus the best solution's bic (solutions within 10 are listed)", "Delta BIC",
+       "sig3"),
+    _f("relative_probability", "", "exp(-delta_bic/2) normalised over the listed solutions", "rel. prob.",
+       "probability"),
+    Field("source", "str", "", "the lattice and daily alias the solution was found from", header="found from",
+          display="text"),
+)
+
+
+def solutions_record(solutions) -> list:
+    """The ``solutions`` list of ``verdict.json``: each entry's :data:`SOLUTION_FIELDS` keys in order,
+    strict-JSON values (``null`` when missing)."""
+    out = []
+    for entry in solutions or ():
+        out.append({f.name: _json_value(f, coerce(f, entry.get(f.name)) if f.kind == "str" else entry.get(f.name))
+                    for f in SOLUTION_FIELDS})
+    return out
+
+
 #: Keys of ``Verdict.to_dict()`` (and older verdict.json files) spelled otherwise than the columns.
 KEY_ALIASES = {"object_id": "object", "state_converged": "converged"}
 #: Old ``mode`` spellings: 'none' meant both 'not applicable' and 'unknown'.
@@ -325,7 +360,8 @@ def _json_value(field: Field | None, value):
 
 def verdict_record(record: Mapping, **extra) -> dict:
     """The ``verdict.json`` dictionary: every key of :data:`VERDICT_FIELDS` in order (``null`` when
-    missing), then ``warnings`` (a list), strict-JSON values only.
+    missing), then ``warnings`` (a list) and, for a tumbler with a physical fit, ``solutions`` (a list of
+    :data:`SOLUTION_FIELDS` records), strict-JSON values only.
 
     ``extra`` keys override the record (e.g. ``seed=``, ``tau_damp_gyr=``).
     """
@@ -341,6 +377,8 @@ def verdict_record(record: Mapping, **extra) -> dict:
     if isinstance(warnings, str):
         warnings = [w for w in warnings.split("; ") if w]
     out["warnings"] = [str(w) for w in warnings]
+    if rec.get("solutions"):
+        out["solutions"] = solutions_record(rec["solutions"])
     return out
 
 

@@ -9,8 +9,8 @@ Route (``docs/methods-classify.md`` has the full argument)
 2. **Checks**: significance, coverage and resolution of the periods (:mod:`.significance`); the
    adequacy of the chosen model (:mod:`.adequacy`); for PA, the NPA detection limit by injection
    (:mod:`.detection`).
-3. **Rotation state** (:mod:`.rotation`): physical ellipsoid models for SAM and LAM (or PA),
-   refined and sampled with emcee.
+3. **Rotation state** (:mod:`.rotation`, :mod:`.solutions`): physical ellipsoid models for SAM and
+   LAM (or PA); for NPA every acceptable solution enumerated and ranked, the top one sampled with emcee.
 4. **Verdict** (:mod:`.rules`, :mod:`.verdict`): ordered named rules, every threshold in
    :mod:`.thresholds`; ``undecided`` with the reason whenever a rule withholds the verdict.
 5. **Screen** (:mod:`.screen`): a flag and a score for survey triage, never a verdict.
@@ -51,6 +51,7 @@ from tumble.classify.rotation import RotationFit, fit_rotation_state, npa_candid
 from tumble.classify.rules import RULES, decide, favoured, grade_from_ln_b
 from tumble.classify.screen import ScreenResult, screen
 from tumble.classify.significance import PeriodCheck, check_period
+from tumble.classify.solutions import Solution, enumerate_solutions
 from tumble.classify.thresholds import DEFAULT_PRIOR_NPA, GRADE_NAMES, MIN_CYCLES
 from tumble.classify.verdict import Verdict, format_probability, grade_sentence
 from tumble.exceptions import TumbleError
@@ -62,7 +63,7 @@ __all__ = [
     "npa_candidates", "Verdict", "decide", "RULES", "classify", "Classification", "screen", "ScreenResult",
     "PA_VARIANTS", "pa_variants", "NPA_COMBO_ORDERS", "geometry_change_deg", "geometry_error_floor",
     "error_scale_floor", "robust_weights", "grade_sentence", "format_probability", "PeriodCheck", "ModelAdequacy",
-    "DetectionLimit", "is_sparse", "resolve_route", "ROUTE_CHOICES",
+    "DetectionLimit", "is_sparse", "resolve_route", "ROUTE_CHOICES", "Solution", "enumerate_solutions",
 ]
 
 
@@ -264,5 +265,7 @@ def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: i
                      npa_limit_mag=limit.rms_mag if limit is not None else math.nan, pa_geometry_fit=pa_geometry,
                      calibration_features=_features(lc, ev), binary=binary_result,
                      synodic_rate_deg_per_d=_bisector_rate(lc))
+    if fit is not None and fit.solutions and verdict.rotation == "NPA":
+        verdict = replace(verdict, solutions=tuple(s.to_dict() for s in fit.solutions))
     verdict = replace(verdict, runtime_s=float(time.perf_counter() - t0))
     return Classification(verdict, ev, fit, period_check, adequacy, limit, binary_result)

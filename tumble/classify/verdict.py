@@ -110,6 +110,10 @@ class Verdict:
     mode_margin : float
         ln L(best mode) - ln L(other NPA mode) of the physical fits, nats (NaN if not compared).
     warnings : tuple of str
+    solutions : tuple of dict
+        NPA with a physical fit: every acceptable tumbling solution, best first
+        (:meth:`tumble.classify.solutions.Solution.to_dict`; keys and units in
+        :data:`tumble.schema.SOLUTION_FIELDS`); empty otherwise.
     n_points, n_sessions : int
     span_d : float
     runtime_s : float
@@ -170,6 +174,7 @@ class Verdict:
     state_converged: bool = False
     mode_margin: float = math.nan
     warnings: tuple = ()
+    solutions: tuple = ()
     n_points: int = 0
     n_sessions: int = 0
     span_d: float = math.nan
@@ -182,6 +187,8 @@ class Verdict:
             v = getattr(self, f.name)
             if f.name == "warnings":
                 out[f.name] = list(v)
+            elif f.name == "solutions":
+                out[f.name] = [dict(e) for e in v]
             elif isinstance(v, tuple):
                 out[f.name], out[f.name + "_lo"], out[f.name + "_hi"] = (float(x) for x in v)
             elif isinstance(v, (np.floating, float)):

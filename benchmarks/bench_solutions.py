@@ -1,0 +1,245 @@
+"""Benchmark of the tumbling-solution enumeration (``tumble.classify.solutions``) on simulated dense tumblers.
+
+For each held-out dense tumbler of the calibration library (``docs/calibration-library.md``) that the
+evidence route detects (verdict NPA), the NPA search of ``fit_rotation_state`` is run (its search
+part, ``search_solutions`` on the light curve thinned to 300 points; no sampling) and scored against
+the simulated truth:
+
+- top solution with P_psi and P_phi both within 1 %;
+- the true solution (mode and both periods within 1 %) among the listed ones;
+- mode right (top solution's mode);
+- time per object (the search alone, wall clock on this machine, side by side in one run);
+- for every failure, whether the search or the model is at fault: the same model started at the
+  true periods (shapes along the true period ratio, refined with restarts) reaching a higher
+  log-likelihood than the search's top solution means the search missed it;
+- the ranking criterion (BIC) against the Laplace approximation of the evidence: does the
+  Laplace ln Z pick the same top among the best distinct solutions (listed or not)?
+
+Usage::
+
+    nice .venv/bin/python benchmarks/bench_solutions.py --quick            # 4 detected tumblers + KRN-007
+    nice .venv/bin/python benchmarks/bench_solutions.py --limit 40         # the first 40 held-out dense tumblers
+    nice .venv/bin/python benchmarks/bench_solutions.py --demo-only        # KRN-007 of the demo
+
+Rows are appended (flushed) to a JSON-lines table, so a rerun skips what is done. The library is read
+from ``--library`` (the rendered cache of ``bench_classify.py generate``); nothing is written there.
+Threads: set ``OPENBLAS_NUM_THREADS=1``. Figures are for the simulated library only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import glob
+import json
+import math
+import os
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+#: Both periods within this relative error count as right (issue 15's target tolerance).
+PERIOD_TOLERANCE = 0.01
+#: The library cache rendered by bench_classify.py (version and seed of its population).
+DEFAULT_LIBRARY = HERE / ".cache" / "library-cal-2-20261204"
+DEFAULT_OUT = HERE / ".cache" / "results-solutions.jsonl"
+DEMO_DIR = HERE.parent / "catalogs_demo"
+#: The demo tumbler with a known truth (catalogs_demo/truth.ecsv).
+DEMO_OBJECT = "KRN-007"
+#: Objects of --quick.
+QUICK_DETECTED = 4
+#: Independent truth-started fits (each with shape restarts) of the fault check; the best counts.
+TRUTH_TRIALS = 3
+#: Distinct solutions (listed or not) whose BIC ranking is compared with the Laplace ln Z.
+LAPLACE_COMPARED = 5
+#: Seed of the search (fixed: the benchmark is reproducible).
+SEED = 1
+
+
+def periods_match(mode, p_psi_h, p_phi_h, truth, *, check_mode: bool) -> bool:
+    """Both periods within :data:`PERIOD_TOLERANCE` (and the mode, when asked)."""
+    ok = (abs(p_psi_h / truth["p_psi_h"] - 1.0) <= PERIOD_TOLERANCE
+          and abs(p_phi_h / truth["p_phi_h"] - 1.0) <= PERIOD_TOLERANCE)
+    return ok and (not check_mode or mode == truth["mode"])
+
+
+def truth_started_log_likelihood(lc, truth, rng) -> float:
+    """The physical model's best log-likelihood started at the true periods (both modes tried)."""
+    from tumble.classify import solutions as S
+    from tumble.classify.rotation import thin_lightcurve
+
+    sub = thin_lightcurve(lc, 300)
+    models = S.npa_models(sub, lc.span_d * 24.0)
+    pair = S.FrequencyPair(24.0 / truth["p_psi_h"], 24.0 / truth["p_phi_h"], ("truth",), "truth")
+    best = -math.inf
+    model = models[truth["mode"]]
+    for _ in range(TRUTH_TRIALS):
+        opt = S.fit_pair(model, truth["mode"], pair, S.FitBudget(n_shapes=4, n_short=4, n_full=2), rng)
+        if opt is not None:
+            best = max(best, S.restart_optimum(model, opt, rng).log_likelihood)
+    return best
+
+
+def score_object(object_id, lc, truth, detected_by, check_model: bool) -> dict:
+    """Run the search on one light curve and score it (a dictionary row)."""
+    from tumble.classify import classify
+    from tumble.classify.rotation import thin_lightcurve
+    from tumble.classify.solutions import npa_models, search_solutions
+
+    row = {"object_id": object_id, "true_mode": truth["mode"], "true_p_psi_h": truth["p_psi_h"],
+           "true_p_phi_h": truth["p_phi_h"]}
+    t0 = time.perf_counter()
+    cls = classify(lc, rng=SEED, fit_state=False, detection_limit=False)
+    row["evidence_s"] = time.perf_counter() - t0
+    row["rotation"] = cls.verdict.rotation
+    row["detected"] = cls.verdict.rotation == "NPA" or detected_by == "always"
+    if not row["detected"]:
+        return row
+    t0 = time.perf_counter()
+    # the search part of fit_rotation_state (optimisation only), with every distinct solution kept
+    sub = thin_lightcurve(lc, 300)
+    search = search_solutions(lc, cls.evidence, npa_models(sub, lc.span_d * 24.0), rng=np.random.default_rng(SEED))
+    row["search_s"] = time.perf_counter() - t0
+    sols = search.solutions
+    if not sols:
+        row.update(top_right=False, mode_right=False, true_listed=False, true_found=False, laplace_agrees=True,
+                   n_listed=0, top_mode="", top_p_psi_h=math.nan, top_p_phi_h=math.nan, top_ll=math.nan)
+        return row
+    top = sols[0]
+    row.update(top_mode=top.mode, top_p_psi_h=top.p_psi_h, top_p_phi_h=top.p_phi_h, top_ll=top.log_likelihood,
+               n_listed=len(sols),
+               listed=[[s.mode, s.p_psi_h, s.p_phi_h, s.delta, s.relative_probability] for s in sols])
+    row["top_right"] = periods_match(top.mode, top.p_psi_h, top.p_phi_h, truth, check_mode=False)
+    row["mode_right"] = top.mode == truth["mode"]
+    row["true_listed"] = any(periods_match(s.mode, s.p_psi_h, s.p_phi_h, truth, check_mode=True) for s in sols)
+    row["true_found"] = any(periods_match(s.mode, s.p_psi_h, s.p_phi_h, truth, check_mode=True)
+                            for s in search.distinct)
+    # BIC against the Laplace ln Z over the best distinct solutions (listed or not)
+    near = search.distinct[:LAPLACE_COMPARED]
+    lz = np.array([s.log_evidence_laplace for s in near])
+    row["distinct"] = [[s.mode, s.p_psi_h, s.p_phi_h, s.delta, s.log_evidence_laplace] for s in near]
+    row["laplace_agrees"] = bool(len(near) < 2 or not np.all(np.isfinite(lz)) or int(np.argmax(lz)) == 0)
+    if check_model and not (row["top_right"] and row["mode_right"]):
+        ll_truth = truth_started_log_likelihood(lc, truth, np.random.default_rng(SEED))
+        row["truth_ll"] = ll_truth
+        row["fault"] = "search" if ll_truth > top.log_likelihood + 1.0 else "model"
+    return row
+
+
+def library_objects(library: Path, limit: int | None, offset: int = 0):
+    """Held-out dense tumblers of the library, in the library's hashed order: (id, lc, truth)."""
+    from library.population import order_key, split_of
+    from library.render import load_rendered
+
+    ids = sorted((Path(p).stem for p in glob.glob(str(library / "CAL-dense-npa-*.json"))), key=order_key)
+    ids = [i for i in ids if split_of(i) == "heldout"]
+    for oid in ids[offset:][:limit]:
+        obj = load_rendered(library, oid)
+        if obj is not None:
+            yield oid, obj.lightcurve, obj.truth.to_dict()
+
+
+def demo_object():
+    """KRN-007 of the demo campaign and its truth (catalogs_demo/truth.ecsv)."""
+    from astropy.table import Table
+
+    from tumble.photometry import read_lightcurve
+
+    lc = read_lightcurve(sorted(glob.glob(str(DEMO_DIR / "campaign" / f"{DEMO_OBJECT}__*"))))
+    t = Table.read(DEMO_DIR / "truth.ecsv")
+    r = t[list(t["object"]).index(DEMO_OBJECT)]
+    return DEMO_OBJECT, lc, {"mode": str(r["mode"]), "p_psi_h": float(r["p_psi_h"]), "p_phi_h": float(r["p_phi_h"])}
+
+
+def done_ids(path: Path) -> set:
+    if not path.exists():
+        return set()
+    return {json.loads(line)["object_id"] for line in path.read_text().splitlines() if line.strip()}
+
+
+def summary(rows) -> str:
+    det = [r for r in rows if r.get("detected") and "top_right" in r]
+    lines = [f"objects run {len(rows)}, detected tumblers scored {len(det)}"]
+    if not det:
+        return "\n".join(lines)
+
+    def frac(key):
+        k = sum(bool(r.get(key)) for r in det)
+        return f"{k}/{len(det)} = {k / len(det):.0%}"
+
+    lines += [f"top solution both periods within {PERIOD_TOLERANCE:.0%}: {frac('top_right')}  (target >= 90 %)",
+              f"true solution listed:                    {frac('true_listed')}  (target >= 97 %)",
+              f"mode right:                              {frac('mode_right')}  (target >= 95 %)",
+              f"true solution found (listed or not):     {frac('true_found')}",
+              f"Laplace ln Z picks the BIC's top of the best {LAPLACE_COMPARED} distinct: {frac('laplace_agrees')}",
+              f"search time per object: median {np.median([r['search_s'] for r in det]):.0f} s, "
+              f"max {np.max([r['search_s'] for r in det]):.0f} s (wall clock, shared machine)"]
+    faults = [r.get("fault") for r in det if r.get("fault")]
+    if faults:
+        lines.append(f"failures: {faults.count('search')} search (truth-started fit better), "
+                     f"{faults.count('model')} model (truth-started fit not better)")
+    return "\n".join(lines)
+
+
+def format_row(r) -> str:
+    if not r.get("detected"):
+        return f"{r['object_id']:20s} not detected ({r.get('rotation')})"
+    fault = f" fault={r['fault']} (truth ll {r['truth_ll']:.1f})" if r.get("fault") else ""
+    return (f"{r['object_id']:20s} truth {r['true_mode']} {r['true_p_psi_h']:.4g}/{r['true_p_phi_h']:.4g} h  "
+            f"top {r['top_mode']} {r['top_p_psi_h']:.4g}/{r['top_p_phi_h']:.4g} h (ll {r['top_ll']:.1f})  "
+            f"listed {r['n_listed']}  top_right={r['top_right']} listed={r['true_listed']} found={r.get('true_found')} "
+            f"mode={r['mode_right']}  {r['search_s']:.0f} s{fault}")
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    p.add_argument("--library", default=str(DEFAULT_LIBRARY), help="rendered library cache (read only)")
+    p.add_argument("--out", default=str(DEFAULT_OUT), help="JSON-lines table of rows (appended, resumable)")
+    p.add_argument("--limit", type=int, default=None, help="held-out dense tumblers to run (detected or not)")
+    p.add_argument("--offset", type=int, default=0, help="skip this many held-out dense tumblers first "
+                   "(to share the library between runs writing to different tables)")
+    p.add_argument("--quick", action="store_true", help=f"stop after {QUICK_DETECTED} detected tumblers")
+    p.add_argument("--demo-only", action="store_true", help=f"only {DEMO_OBJECT} of the demo")
+    p.add_argument("--no-demo", action="store_true", help=f"skip {DEMO_OBJECT}")
+    p.add_argument("--no-fault-check", action="store_true", help="skip the truth-started fit of failures")
+    args = p.parse_args(argv)
+    warnings.simplefilter("ignore")
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    out = Path(args.out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    done = done_ids(out)
+    rows = [json.loads(line) for line in out.read_text().splitlines() if line.strip()] if out.exists() else []
+    sources = []
+    if not args.no_demo:
+        sources.append(("always", [demo_object()]))
+    if not args.demo_only:
+        sources.append(("verdict", library_objects(Path(args.library), args.limit, args.offset)))
+    n_detected = 0
+    with out.open("a") as fh:
+        for detected_by, objects in sources:
+            for oid, lc, truth in objects:
+                if oid in done:
+                    continue
+                row = score_object(oid, lc, truth, detected_by, not args.no_fault_check)
+                fh.write(json.dumps(row) + "\n")
+                fh.flush()
+                rows.append(row)
+                print(format_row(row), flush=True)
+                n_detected += bool(row.get("detected")) and detected_by == "verdict"
+                if args.quick and n_detected >= QUICK_DETECTED:
+                    break
+    lib_rows = [r for r in rows if r["object_id"] != DEMO_OBJECT]
+    print("\nheld-out dense tumblers of the library:\n" + summary(lib_rows))
+    demo = [r for r in rows if r["object_id"] == DEMO_OBJECT]
+    if demo:
+        print(f"\ndemo: {format_row(demo[-1])}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,171 @@
+"""Every acceptable tumbling solution (tumble.classify.solutions) against published relations and states."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from tumble.brightness import axes_from_inertia_ratios
+from tumble.classify import solutions as S
+from tumble.classify.evidence import fourier_evidence_with_problem
+from tumble.dynamics import RotationState
+from tumble.simulate import DenseCampaign, GivenCadence, NoiseModel, simulate_lightcurve
+
+# Apophis (Pravec et al. 2014, Icarus 233, 48): SAM, P_psi = 263 h, P_phi = 27.38 h.
+APOPHIS_P_PSI_H, APOPHIS_P_PHI_H = 263.0, 27.38
+# 2008 TC3 (Scheirich et al. 2010, MAPS 45, 1804): LAM, P_psi = 99.20 s, P_phi = 97.00 s, and the
+# main light-curve period 49.03 s = 1 / (f_phi + f_psi).
+TC3_P_PSI_S, TC3_P_PHI_S, TC3_MAIN_S = 99.20, 97.00, 49.03
+
+
+def _contains(pairs, f_psi, f_phi, span_d, cycles=0.05):
+    tol = cycles / span_d
+    return any(abs(p.f_psi_per_d - f_psi) < tol and abs(p.f_phi_per_d - f_phi) < tol for p in pairs)
+
+
+# ------------------------------------------------------------------ frequency relations
+def test_sam_published_basis_maps_back_to_the_state():
+    # SAM: the dominant light-curve frequency is f_phi - f_psi, the second basis frequency f_psi
+    # (Kaasalainen 2001, A&A 376, 302; Pravec et al. 2005, Icarus 173, 108); Apophis's periods
+    # (Pravec et al. 2014).
+    f_psi, f_phi = 24.0 / APOPHIS_P_PSI_H, 24.0 / APOPHIS_P_PHI_H
+    span_d = 40.0
+    lattice = S.Lattice(f_phi - f_psi, f_psi, "test")
+    assert _contains(S.frequency_pairs(span_d, [lattice], aliasing=False), f_psi, f_phi, span_d)
+    # a body with the ellipsoid's symmetry shows the doubled lattice 2 (f_phi - f_psi), 2 f_psi
+    # (Kaasalainen 2001): the halves are among the mappings
+    doubled = S.Lattice(2 * (f_phi - f_psi), 2 * f_psi, "test")
+    assert _contains(S.frequency_pairs(span_d, [doubled], aliasing=False), f_psi, f_phi, span_d)
+
+
+def test_lam_published_bases_map_back_to_the_state():
+    # LAM: strongest terms f_phi and f_phi + f_psi (Kaasalainen 2001; Pravec et al. 2005); 2008 TC3's
+    # periods (Scheirich et al. 2010), in days.
+    f_psi, f_phi = 86400.0 / TC3_P_PSI_S, 86400.0 / TC3_P_PHI_S
+    span_d = 0.25
+    for f1 in (f_phi + f_psi, f_phi):
+        lattice = S.Lattice(f1, f_psi, "test")
+        assert _contains(S.frequency_pairs(span_d, [lattice], aliasing=False), f_psi, f_phi, span_d)
+    # the main period of TC3 is 1 / (f_phi + f_psi) (Scheirich et al. 2010)
+    assert 86400.0 / (f_phi + f_psi) == pytest.approx(TC3_MAIN_S, rel=5e-4)
+
+
+def test_daily_alias_of_the_basis_is_enumerated_only_with_aliasing():
+    # nightly data cannot tell f from f +- 1 c/d (common practice); the alias of f_phi - f_psi must
+    # lead back to the state when aliases are tried, and not otherwise
+    f_psi, f_phi = 24.0 / APOPHIS_P_PSI_H, 24.0 / APOPHIS_P_PHI_H
+    span_d = 40.0
+    lattice = S.Lattice(f_phi - f_psi + 1.0, f_psi, "test")
+    assert _contains(S.frequency_pairs(span_d, [lattice], aliasing=True), f_psi, f_phi, span_d)
+    assert not _contains(S.frequency_pairs(span_d, [lattice], aliasing=False), f_psi, f_phi, span_d)
+
+
+def test_nightly_data_are_aliased_and_continuous_data_are_not():
+    # common practice: one site's nights leave most hours of the day empty
+    plan = DenseCampaign(2460000.5, n_nights=4, hours_per_night=6.0, cadence_min=20.0)
+    lc = simulate_lightcurve(RotationState.principal_axis(7.3, 40.0, 50.0), (1.6, 1.2, 1.0), plan,
+                             noise=NoiseModel(0.01), rng=1).lightcurve
+    assert S.daily_aliasing(lc)
+    t = 2460000.5 + np.arange(0, 4.0, 0.02)
+    lc2 = simulate_lightcurve(RotationState.principal_axis(7.3, 40.0, 50.0), (1.6, 1.2, 1.0),
+                              GivenCadence(t, session=(np.floor(t - t[0]) // 1).astype(int)),
+                              noise=NoiseModel(0.01), rng=1).lightcurve
+    assert not S.daily_aliasing(lc2)
+
+
+# ------------------------------------------------------------------ screen: fast against slow
+def test_screen_matches_its_reference():
+    plan = DenseCampaign(2460000.5, n_nights=4, hours_per_night=6.0, cadence_min=6.0, zero_point_sigma_mag=0.05)
+    st = RotationState.from_periods(0.5, 0.85, 30.0, 7.5, "SAM")
+    lc = simulate_lightcurve(st, axes_from_inertia_ratios(0.5, 0.85), plan, noise=NoiseModel(0.01), rng=3).lightcurve
+    pairs = [S.FrequencyPair(24.0 / 30.0, 24.0 / 7.5, (), "truth"), S.FrequencyPair(0.5, 3.1, (), "other"),
+             S.FrequencyPair(1.3, 2.2, (), "other")]
+    for terms in S.SCREEN_TERM_SETS:
+        fast, slow = S.screen_chi2(lc, pairs, terms), S.screen_chi2_reference(lc, pairs, terms)
+        np.testing.assert_allclose(fast, slow, rtol=1e-8)
+
+
+# ------------------------------------------------------------------ records and outputs
+def test_solution_record_goes_to_verdict_json_and_the_report():
+    from tumble.report import solutions_table_html
+    from tumble.schema import SOLUTION_FIELDS, dumps_strict, loads_strict, verdict_record
+
+    sol = S.Solution(mode="SAM", p_psi_h=263.0, p_phi_h=27.38, p_psi_interval_h=(260.0, 266.0),
+                     p_phi_interval_h=(27.37, 27.39), log_likelihood=100.0, criterion=-150.0, delta=0.0,
+                     relative_probability=1.0, log_evidence_laplace=80.0, n_parameters=9, n_points=300,
+                     state=np.zeros(9), candidate=(), source="evidence")
+    rec = verdict_record({"object_id": "x", "rotation": "NPA", "solutions": [sol.to_dict()]})
+    back = loads_strict(dumps_strict(rec))
+    assert list(back["solutions"][0]) == [f.name for f in SOLUTION_FIELDS]
+    assert back["solutions"][0]["p_phi_h_lo"] == 27.37
+    assert all(f.unit == "h" for f in SOLUTION_FIELDS if f.name.startswith("p_"))
+    html = solutions_table_html({"solutions": back["solutions"]})
+    assert "Tumbling solutions" in html and "263" in html and "27.37" in html
+    assert solutions_table_html({}) == ""
+
+
+# ------------------------------------------------------------------ published states, end to end
+def _tc3_lightcurve():
+    # a 2008 TC3-like LAM (Scheirich et al. 2010): P_psi = 99.20 s, P_phi = 97.00 s; 500 random
+    # times over 3 h from one site (the beat of f_phi and f_psi is ~73 min, so 3 h hold ~2.5 beats)
+    p_psi_h, p_phi_h = TC3_P_PSI_S / 3600.0, TC3_P_PHI_S / 3600.0
+    # inertia ratios illustrative (I1/I3 = 0.35, I2/I3 = 0.9 admit the period ratio in LAM)
+    st = RotationState.from_periods(0.35, 0.9, p_psi_h, p_phi_h, "LAM", l_lon_deg=40.0, l_lat_deg=30.0)
+    rng = np.random.default_rng(7)
+    t = 2460000.5 + np.sort(rng.uniform(0.0, 3.0 / 24.0, 500))
+    lc = simulate_lightcurve(st, axes_from_inertia_ratios(0.35, 0.9), GivenCadence(t, session=np.zeros(t.size, int)),
+                             noise=NoiseModel(0.01), rng=8).lightcurve
+    return lc
+
+
+def test_tc3_like_lam_is_recovered_with_its_main_period():
+    lc = _tc3_lightcurve()
+    _, ev = fourier_evidence_with_problem(lc, p_min_h=0.004, p_max_h=0.5)
+    sols = S.enumerate_solutions(lc, ev, max_points=200, budget=S.FitBudget(n_screened=8, n_orientations=24), rng=1)
+    top = sols[0]
+    # recovered as LAM, the main period 1 / (f_phi + f_psi) at Scheirich et al.'s 49.03 s
+    assert top.mode == "LAM"
+    main_s = 3600.0 / (1.0 / top.p_psi_h + 1.0 / top.p_phi_h)
+    assert main_s == pytest.approx(TC3_MAIN_S, rel=1e-3)
+    assert top.p_psi_h * 3600.0 == pytest.approx(TC3_P_PSI_S, rel=0.01)
+    assert top.p_phi_h * 3600.0 == pytest.approx(TC3_P_PHI_S, rel=0.01)
+    # the interval is that solution's own (Laplace), and covers its own optimum
+    assert top.p_psi_interval_h[0] < top.p_psi_h < top.p_psi_interval_h[1]
+    assert math.isclose(sum(s.relative_probability for s in sols), 1.0, rel_tol=1e-9)
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(reason="known search failure (issue 15): the linear screens rank the true pair 736th and 89th "
+                          "of 3657 candidates, so it is never fitted; started at the truth the model reaches "
+                          "ln L 740 against 731.5 found", strict=False)
+def test_apophis_like_sam_is_among_the_solutions():
+    # Apophis-like SAM (Pravec et al. 2014: P_psi ~ 263 h, P_phi = 27.38 h; inertia I = 0.64 : 0.97 : 1
+    # and L = (275 deg, -85 deg) of Lee et al. 2022, A&A 661, L3), a dense plan of 40 nights
+    st = RotationState.from_periods(0.64, 0.97, APOPHIS_P_PSI_H, APOPHIS_P_PHI_H, "SAM", l_lon_deg=275.0,
+                                    l_lat_deg=-85.0)
+    plan = DenseCampaign(2460000.5, n_nights=40, hours_per_night=6.0, cadence_min=30.0, zero_point_sigma_mag=0.02)
+    lc = simulate_lightcurve(st, axes_from_inertia_ratios(0.64, 0.97), plan, noise=NoiseModel(0.01),
+                             rng=11).lightcurve
+    _, ev = fourier_evidence_with_problem(lc)
+    sols = S.enumerate_solutions(lc, ev, rng=2)
+    hits = [s for s in sols if s.mode == "SAM" and abs(s.p_phi_h / APOPHIS_P_PHI_H - 1) < 1e-3
+            and abs(s.p_psi_h / APOPHIS_P_PSI_H - 1) < 0.01]
+    assert hits, [(s.mode, s.p_psi_h, s.p_phi_h, s.delta) for s in sols]
+    # the ranking criterion (BIC) and the Laplace approximation of the evidence agree on the best
+    lz = [s.log_evidence_laplace for s in sols]
+    assert int(np.argmax(lz)) == 0
+
+
+def test_docs_solutions_table_is_the_schema():
+    # docs/outputs.md shows the solutions' keys from the one schema (the project's own rule)
+    import re
+    from pathlib import Path
+
+    from tumble.schema import SOLUTION_FIELDS, docs_table
+
+    text = (Path(__file__).resolve().parents[1] / "docs" / "outputs.md").read_text()
+    m = re.search(r"<!-- solutions table:[^\n]*-->\n(.*?)<!-- end solutions table -->", text, re.S)
+    assert m is not None
+    assert m.group(1).strip() == docs_table(SOLUTION_FIELDS).strip()

@@ -1,0 +1,793 @@
+"""Every acceptable tumbling solution: a systematic enumeration of (mode, P_psi, P_phi), ranked.
+
+A tumbler's light curve holds only the combinations ``n1 f_phi + n2 f_psi`` (Kaasalainen 2001, A&A
+376, 302), and the shape-free evidence finds one *basis* of that lattice, often a sub-lattice, a
+daily alias, or a neighbouring lattice that fits a short campaign about as well. Random starts of the
+physical model around one mapping of one basis miss the true state in a sizeable share of dense
+tumblers (``docs/methods-classify.md`` section 5). This module replaces them by a flat, documented
+enumeration (:func:`search_solutions`):
+
+1. **Lattices** (:func:`candidate_lattices`): the evidence's best two-period pairs, the best pair of
+   the plain two-period scan, and the evidence pair re-located by series without drift.
+2. **Daily aliases** (:func:`aliased_bases`): for nightly data (:func:`daily_aliasing`) each basis
+   frequency shifted by whole cycles per day (:data:`F1_ALIAS_SHIFTS`, :data:`F2_ALIAS_SHIFTS`).
+3. **Frequency relations**: every basis mapped to ``(f_psi, f_phi)`` through the SAM and LAM
+   relations, published and other assignments (:func:`tumble.classify.rotation.npa_candidates`),
+   deduplicated within :data:`SAME_PAIR_CYCLES` cycles per span.
+4. **Linear screens** (:func:`screen_chi2`, :func:`screened_pairs`): the chi-square of truncated
+   two-dimensional Fourier series in the physical frequencies (two term sets,
+   :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
+   each screen go on.
+5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
+   fixed budget (:class:`FitBudget`): shapes x orientations, short and full Levenberg-Marquardt
+   (:func:`tumble.classify.rotation.optimise_state`); then shape restarts of the best distinct states,
+   and more rounds of them for the solutions near the best (:func:`polish_solutions`).
+6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
+   :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
+   ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978); those within :data:`SOLUTION_DELTA_BIC`
+   of the best are listed with relative probabilities ``exp(-Delta/2)`` normalised over the list,
+   and 68 % intervals of ``P_psi`` and ``P_phi`` from the Laplace approximation at each solution's
+   own optimum (:func:`laplace_approximation`), never from a mixture of separated modes.
+
+Every listed solution is a scientific estimate for research use: the physical model is a triaxial
+ellipsoid with homogeneous inertia, so a real body can prefer a wrong lattice.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG
+from tumble.classify.rotation import (
+    npa_candidates,
+    optimise_state,
+    random_orientations,
+    thin_lightcurve,
+    whitened_residuals,
+)
+from tumble.classify.thresholds import MIN_CYCLES
+from tumble.exceptions import TumbleError
+from tumble.model import FourierBasis, FourierVariant, linear_log_evidence, nuisance_design, prepare_linear
+
+__all__ = [
+    "Solution", "SolutionSearch", "FitBudget", "Lattice", "FrequencyPair", "LaplaceApproximation",
+    "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
+    "frequency_pairs", "screened_pairs", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
+    "shape_solutions", "shape_restarts", "npa_models", "distinct_optima", "fit_pair", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
+]
+
+#: The NPA modes fitted (the physical model's names).
+NPA_MODES = ("SAM", "LAM")
+#: Solutions listed: BIC within this of the best. 2 ln B > 10 is "very strong" evidence against
+#: (Kass & Raftery 1995, section 3.2); anything closer is a solution a referee could still ask for.
+SOLUTION_DELTA_BIC = 10.0
+#: The evidence's best two-period pairs used as lattices (it keeps at most four).
+N_EVIDENCE_LATTICES = 3
+#: Alias shifts of the fundamental basis frequency, cycles per day: the basis can be twice a
+#: physical frequency (ellipsoid symmetry), so a one-day alias of that frequency is two on f1.
+F1_ALIAS_SHIFTS = (-2.0, -1.0, 0.0, 1.0, 2.0)
+#: Alias shifts of the second basis frequency, cycles per day (one-day aliases; common practice).
+F2_ALIAS_SHIFTS = (-1.0, 0.0, 1.0)
+#: Daily aliases are tried when at least this share of the hours of the day holds no data (48 bins):
+#: a light curve seen from one longitude every night cannot tell f from f +- 1 c/d well.
+ALIAS_MIN_GAP_SHARE = 0.25
+#: Two frequency pairs closer than this (cycles per span, in both frequencies) are one candidate.
+SAME_PAIR_CYCLES = 0.05
+#: Two optima closer than this (cycles per span, in f_psi and f_phi) with the same mode are one solution.
+SAME_SOLUTION_CYCLES = 0.25
+#: Terms (n_phi, n_psi) of the screen's two-dimensional Fourier series in the physical frequencies,
+#: two sets, each screening on its own: the low orders of the lattice (Kaasalainen 2001), and the
+#: terms even in psi up to fourth order (an ellipsoid is symmetric under a half turn about a body
+#: axis, so its light curve often holds only 2 k f_psi, with the second harmonics of the dominant
+#: 2 (f_phi - f_psi) or 2 (f_phi + f_psi)). Neither ranks the truth high on every simulated tumbler
+#: (the demo's KRN-007: 13th and 183rd; an Apophis-like SAM: 315th and 20th), the union does.
+SCREEN_TERM_SETS = (
+    ((0, 1), (0, 2), (1, -2), (1, -1), (1, 0), (1, 1), (1, 2), (2, -2), (2, -1), (2, 0), (2, 1), (2, 2)),
+    ((0, 2), (0, 4)) + tuple((a, b) for a in (1, 2, 3, 4) for b in (-4, -2, 0, 2, 4)),
+)
+#: Frequency pairs passed from each screen to the physical fit (the union goes on).
+N_SCREENED = 20
+#: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
+SCREEN_MAX_POINTS = 800
+#: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
+#: P_psi ~ 99 s (Scheirich et al. 2010, MAPS 45, 1804); the lattices themselves bound it in practice.
+MIN_P_PSI_H = 0.005
+#: Longest P_psi considered, in multiples of span / MIN_CYCLES (a longer one cannot be established).
+MAX_P_PSI_SPAN_FACTOR = 3.0
+#: State restarts: the best distinct solutions of each mode whose shape is redrawn along the
+#: constant-ratio curve (a wrong ellipsoid with the right period ratio is a deep local optimum).
+N_RESTART_TOP = 4
+#: Shapes along the constant-ratio curve per restart (the fitted one first) and orientations each.
+N_RESTART_SHAPES = 6
+N_RESTART_ORIENT = 2
+#: Restarts refined fully (after the short refinement of all of them).
+N_RESTART_LM = 2
+#: Polishing: every distinct solution within this of the best BIC gets more rounds of shape restarts,
+#: so that the ranking near the listing edge is not an accident of one restart (the demo's KRN-007:
+#: its true solution sat 8.8 below a wrong one after one round, above it after more).
+POLISH_DELTA_BIC = 2.0 * SOLUTION_DELTA_BIC
+#: Rounds of shape restarts of each polished solution, and at most this many solutions polished.
+POLISH_ROUNDS = 2
+N_POLISHED = 6
+#: Levenberg-Marquardt iterations of a short refinement.
+SHORT_LM_ITERATIONS = 12
+#: The evidence's pair re-located on a local grid without drift: half-width and step (cycles per span).
+REFINE_HALF_WIDTH = 0.6
+REFINE_STEP = 0.03
+REFINE_VARIANTS = (FourierVariant(4, 0, 2), FourierVariant(4, 0, 3))
+
+
+@dataclass(frozen=True)
+class FitBudget:
+    """The fixed budget of the physical fit of one candidate in one mode.
+
+    Attributes
+    ----------
+    n_shapes : int
+        Ellipsoids (axis ratios and excitation) that give the candidate's period ratio.
+    n_orientations : int
+        Random spin directions and phases per shape (the best of each shape is kept).
+    n_short : int
+        Starts (best shapes) refined by a short Levenberg-Marquardt run; the best is kept.
+    n_screened : int
+        Frequency pairs passed from each linear screen to the physical fit (:data:`N_SCREENED`).
+    n_full : int
+        Of the short refinements of a pair, the best refined fully (the likelihood after a short run
+        says little about the basin, so every screened pair gets its full refinement: with only
+        the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
+    """
+
+    n_screened: int = N_SCREENED
+    n_shapes: int = 3
+    n_orientations: int = 48
+    n_short: int = 2
+    n_full: int = 1
+
+
+@dataclass(frozen=True)
+class Lattice:
+    """A two-period basis ``(f1, f2)`` of the light curve, c/d, and where it came from."""
+
+    f1_per_d: float
+    f2_per_d: float
+    source: str
+
+
+@dataclass(frozen=True)
+class FrequencyPair:
+    """A candidate ``(f_psi, f_phi)``, c/d, with its mapping from the evidence's basis.
+
+    Attributes
+    ----------
+    f_psi_per_d, f_phi_per_d : float
+    candidate : tuple
+        ``(mode, f_psi, f_phi, (a_psi, b_psi), (a_phi, b_phi))`` of
+        :func:`tumble.classify.rotation.npa_candidates` (``f = a f1 + b f2`` on the aliased basis).
+    source : str
+        Lattice and alias, e.g. ``"evidence-1 f1+2 c/d"``.
+    """
+
+    f_psi_per_d: float
+    f_phi_per_d: float
+    candidate: tuple
+    source: str
+
+
+@dataclass(frozen=True, eq=False)
+class LaplaceApproximation:
+    """The Gauss-Newton Laplace approximation at an optimum.
+
+    Attributes
+    ----------
+    p_psi_h, p_phi_h : float
+        Periods at the optimum, hours.
+    p_psi_sigma_h, p_phi_sigma_h : float
+        Their standard deviations from ``(J^T J)^-1``, hours (NaN when singular).
+    log_evidence : float
+        ``ln L + ln prior + d/2 ln 2 pi - 1/2 ln det(J^T J)``, nats (jitter held at its optimum).
+    """
+
+    p_psi_h: float
+    p_phi_h: float
+    p_psi_sigma_h: float
+    p_phi_sigma_h: float
+    log_evidence: float
+
+
+@dataclass(frozen=True, eq=False)
+class Solution:
+    """One tumbling solution: a mode, its periods and how good it is.
+
+    Attributes
+    ----------
+    mode : {'SAM', 'LAM'}
+    p_psi_h, p_phi_h : float
+        Rotation (P_psi) and precession (P_phi) periods at the optimum, hours.
+    p_psi_interval_h, p_phi_interval_h : tuple of float
+        68 % intervals (lo, hi), hours, from the Laplace approximation of this solution's own mode.
+    log_likelihood : float
+        Maximum log-likelihood, nats (on the ``n_points`` fitted points).
+    criterion : float
+        ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978), nats.
+    delta : float
+        ``criterion - best criterion`` (>= 0).
+    relative_probability : float
+        ``exp(-delta / 2)`` normalised over the listed solutions.
+    log_evidence_laplace : float
+        Laplace approximation of ln Z (nats), a cross-check of the ranking.
+    n_parameters, n_points : int
+        ``k`` and ``N`` of the criterion.
+    state : numpy.ndarray, shape (ndim,)
+        Optimum in the physical model's parameter space (:attr:`tumble.model.PhysicalModel.space`).
+    candidate : tuple
+        The frequency mapping that led here (see :class:`FrequencyPair`).
+    source : str
+        The lattice and alias of that mapping.
+    """
+
+    mode: str
+    p_psi_h: float
+    p_phi_h: float
+    p_psi_interval_h: tuple
+    p_phi_interval_h: tuple
+    log_likelihood: float
+    criterion: float
+    delta: float
+    relative_probability: float
+    log_evidence_laplace: float
+    n_parameters: int
+    n_points: int
+    state: np.ndarray
+    candidate: tuple
+    source: str
+
+    def to_dict(self) -> dict:
+        """JSON-ready record (the ``solutions`` entries of verdict.json; units in the key names)."""
+        return {"mode": self.mode, "p_psi_h": float(self.p_psi_h), "p_psi_h_lo": float(self.p_psi_interval_h[0]),
+                "p_psi_h_hi": float(self.p_psi_interval_h[1]), "p_phi_h": float(self.p_phi_h),
+                "p_phi_h_lo": float(self.p_phi_interval_h[0]), "p_phi_h_hi": float(self.p_phi_interval_h[1]),
+                "log_likelihood": float(self.log_likelihood), "bic": float(self.criterion),
+                "delta_bic": float(self.delta), "relative_probability": float(self.relative_probability),
+                "source": self.source}
+
+
+@dataclass(frozen=True, eq=False)
+class Optimum:
+    """A refined state of one mode and the frequency pair it started from."""
+
+    mode: str
+    x: np.ndarray
+    log_likelihood: float
+    pair: FrequencyPair
+
+
+@dataclass(frozen=True, eq=False)
+class SolutionSearch:
+    """What :func:`search_solutions` found.
+
+    Attributes
+    ----------
+    solutions : tuple of Solution
+        Listed solutions (within :data:`SOLUTION_DELTA_BIC` of the best), best first.
+    best_by_mode : dict
+        Mode -> its best :class:`Solution` (listed or not), for the mode comparison.
+    distinct : tuple of Solution
+        Every distinct solution found, best first (``relative_probability`` 0 when not listed).
+    n_pairs, n_screened, n_fits : int
+        Frequency pairs enumerated, passed by the screen, and physical fits made.
+    """
+
+    solutions: tuple
+    best_by_mode: dict
+    distinct: tuple
+    n_pairs: int
+    n_screened: int
+    n_fits: int
+
+
+# -- 1-3: lattices, aliases, frequency pairs ---------------------------------------------------------
+
+
+def refined_pairs(lc, f1, f2) -> list:
+    """The evidence's ``(f1, f2)`` re-located by two-period series without drift, ``[(f1', f2'), ...]``.
+
+    The evidence's series carry Legendre drift in their coefficients, and a coefficient whose
+    phase drifts linearly is a shifted frequency: with drift the best ``f1`` can sit 0.3-0.4 cycles
+    per span from the body's true lattice, outside the basin of the physical fit. Without drift
+    the frequencies are pinned (measured on simulated LAM and SAM bodies: 0.03-0.04 c/d offsets
+    over 9.3 d fell to < 0.002 c/d). Each variant of :data:`REFINE_VARIANTS` gives its best pair on
+    a local grid of +-:data:`REFINE_HALF_WIDTH` cycles per span.
+    """
+    if not (np.isfinite(f1) and np.isfinite(f2) and f1 > 0 and f2 > 0):
+        return []
+    span = lc.span_d
+    off = np.arange(-REFINE_HALF_WIDTH, REFINE_HALF_WIDTH + 1e-9, REFINE_STEP) / span
+    g1, g2 = f1 + off, f2 + off
+    g1, g2 = g1[g1 > 0], g2[g2 > 0]
+    a1, a2 = np.meshgrid(g1, g2, indexing="ij")
+    a1, a2 = a1.ravel(), a2.ravel()
+    ok = a2 < a1
+    if not ok.any():
+        return []
+    a1, a2 = a1[ok], a2[ok]
+    try:
+        data = prepare_linear(lc, error_floor_mag=MODEL_ERROR_FLOOR_MAG)
+    except (TumbleError, ValueError, np.linalg.LinAlgError):
+        return []
+    out = []
+    for variant in REFINE_VARIANTS:
+        basis = FourierBasis.build([variant])
+        lz = linear_log_evidence(data, basis, a1, a2)[:, 0]
+        if not np.any(np.isfinite(lz)):
+            continue
+        k = int(np.nanargmax(lz))
+        pair = (float(a1[k]), float(a2[k]))
+        if all(abs(pair[0] - p[0]) > 0.1 / span or abs(pair[1] - p[1]) > 0.1 / span for p in out):
+            out.append(pair)
+    return out
+
+
+def two_period_pair(lc) -> list:
+    """The best order-2 pair of the joint two-period least-squares scan as ``[(f_high, f_low)]`` (c/d).
+
+    With drift terms a wrong lattice can fit a short dense campaign as closely as the true one,
+    while the plain two-period scan often hits the true pair; the physical fit tells them apart.
+    """
+    from tumble.periodogram import two_period_scan
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = two_period_scan(lc, order=2)
+    except (TumbleError, ValueError, np.linalg.LinAlgError):
+        return []
+    fa, fb = res.f1_per_d, res.f2_per_d
+    if not (np.isfinite(fa) and np.isfinite(fb) and fa > 0 and fb > 0):
+        return []
+    return [(float(max(fa, fb)), float(min(fa, fb)))]
+
+
+def candidate_lattices(lc, evidence) -> list:
+    """The two-period bases tried: evidence (best first), plain scan, re-located without drift."""
+    f1, f2 = evidence.f1_npa_per_d, evidence.f2_per_d
+    found = [Lattice(f1, f2, "evidence")]
+    found += [Lattice(a, b, f"evidence-{i + 1}") for i, (a, b) in enumerate(evidence.npa_pairs[:N_EVIDENCE_LATTICES])]
+    found += [Lattice(a, b, "scan") for a, b in two_period_pair(lc)]
+    found += [Lattice(a, b, "no-drift") for a, b in refined_pairs(lc, f1, f2)]
+    out = []
+    for lat in found:
+        if not (np.isfinite(lat.f1_per_d) and np.isfinite(lat.f2_per_d) and lat.f1_per_d > 0 and lat.f2_per_d > 0):
+            continue
+        if all(abs(lat.f1_per_d - o.f1_per_d) > 1e-6 or abs(lat.f2_per_d - o.f2_per_d) > 1e-6 for o in out):
+            out.append(lat)
+    return out
+
+
+def daily_aliasing(lc) -> bool:
+    """Nightly data that leave at least :data:`ALIAS_MIN_GAP_SHARE` of the hours of the day empty."""
+    if lc.n_sessions < 2:
+        return False
+    bins = np.unique(np.floor(np.mod(np.asarray(lc.t, float), 1.0) * 48).astype(int))
+    return (1.0 - len(bins) / 48.0) >= ALIAS_MIN_GAP_SHARE
+
+
+def aliased_bases(lattice: Lattice, aliasing: bool) -> list:
+    """``[(g1, g2, sign2, label)]``: the lattice and its daily aliases (``g2 = sign2 (f2 + k2) > 0``)."""
+    shifts1 = F1_ALIAS_SHIFTS if aliasing else (0.0,)
+    shifts2 = F2_ALIAS_SHIFTS if aliasing else (0.0,)
+    out = []
+    for k1 in shifts1:
+        for k2 in shifts2:
+            g1, g2 = lattice.f1_per_d + k1, lattice.f2_per_d + k2
+            if g1 <= 0 or g2 == 0:
+                continue
+            label = lattice.source + (f" f1{k1:+g} c/d" if k1 else "") + (f" f2{k2:+g} c/d" if k2 else "")
+            out.append((g1, abs(g2), 1.0 if g2 > 0 else -1.0, label))
+    return out
+
+
+def _in_range(f_psi, span_h) -> bool:
+    p_psi = 24.0 / f_psi
+    return MIN_P_PSI_H <= p_psi <= span_h / MIN_CYCLES * MAX_P_PSI_SPAN_FACTOR
+
+
+def frequency_pairs(span_d: float, lattices, aliasing: bool) -> list:
+    """Every distinct ``(f_psi, f_phi)`` of the lattices, their aliases and both modes' relations.
+
+    ``span_d`` (days) sets the tolerance of "the same pair" (:data:`SAME_PAIR_CYCLES`) and the
+    longest ``P_psi`` considered.
+    """
+    span_h = span_d * 24.0
+    tol = SAME_PAIR_CYCLES / span_d
+    out, keys = [], set()
+    for lattice in lattices:
+        for g1, g2, sign2, label in aliased_bases(lattice, aliasing):
+            hi, lo, swap = (g1, g2, False) if g1 >= g2 else (g2, g1, True)
+            for cand in npa_candidates(hi, lo, forms="all"):
+                mode, fpsi, fphi, cpsi, cphi = cand
+                if not _in_range(fpsi, span_h):
+                    continue
+                key = (round(fpsi / tol), round(fphi / tol))
+                if key in keys:
+                    continue
+                keys.add(key)
+                cpsi, cphi = _basis_coefficients(cpsi, swap, sign2), _basis_coefficients(cphi, swap, sign2)
+                out.append(FrequencyPair(float(fpsi), float(fphi), (mode, float(fpsi), float(fphi), cpsi, cphi), label))
+    return out
+
+
+def _basis_coefficients(coef, swap, sign2) -> tuple:
+    """``(a, b)`` of ``f = a f1 + b f2`` back on the lattice's own (f1, f2) from the aliased, ordered basis."""
+    a, b = coef
+    if swap:
+        a, b = b, a
+    return (float(a), float(b * sign2))
+
+
+# -- 4: the linear screen -----------------------------------------------------------------------------
+
+
+def _screen_columns(t, f_psi, f_phi, terms):
+    """Fourier columns of ``terms`` ((n_phi, n_psi) pairs) at one pair, shape (n, 2 len(terms))."""
+    cols = []
+    for n_phi, n_psi in terms:
+        arg = 2.0 * np.pi * (n_phi * f_phi + n_psi * f_psi) * t
+        cols += [np.cos(arg), np.sin(arg)]
+    return np.stack(cols, axis=1)
+
+
+def screen_chi2(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
+    """Chi-square of a screen's series (``terms``; zero-points free) at each pair, shape (len(pairs),).
+
+    Fast route: the whitened nuisance columns are projected out once (QR), then each pair solves
+    only its own normal equations. :func:`screen_chi2_reference` is the plain least squares.
+    """
+    t = np.asarray(lc.t, float) - float(np.mean(lc.t))
+    w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
+    z, _ = nuisance_design(lc)
+    zw = z * w[:, None]
+    q, _ = np.linalg.qr(zw)
+    y = np.asarray(lc.reduced_mag, float) * w
+    yp = y - q @ (q.T @ y)
+    base = float(yp @ yp)
+    out = np.empty(len(pairs))
+    for i, p in enumerate(pairs):
+        f = _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms) * w[:, None]
+        fp = f - q @ (q.T @ f)
+        coef, *_ = np.linalg.lstsq(fp, yp, rcond=None)
+        r = yp - fp @ coef
+        out[i] = float(r @ r) if np.isfinite(base) else math.nan
+    return out
+
+
+def screen_chi2_reference(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
+    """Slow reference of :func:`screen_chi2`: one least squares of [nuisance, Fourier] per pair."""
+    t = np.asarray(lc.t, float) - float(np.mean(lc.t))
+    w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
+    z, _ = nuisance_design(lc)
+    y = np.asarray(lc.reduced_mag, float)
+    out = np.empty(len(pairs))
+    for i, p in enumerate(pairs):
+        a = np.hstack([z, _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms)]) * w[:, None]
+        coef, *_ = np.linalg.lstsq(a, y * w, rcond=None)
+        r = y * w - a @ coef
+        out[i] = float(r @ r)
+    return out
+
+
+# -- 5: the physical fit --------------------------------------------------------------------------------
+
+
+def shape_solutions(mode, ratio, rng, n_pick=4) -> list:
+    """Ellipsoid axis ratios and excitation ``u`` that give ``P_phi/P_psi = ratio`` in ``mode``.
+
+    Returns up to ``n_pick`` ``(a_over_b, b_over_c, u)`` drawn from the solutions on a grid of
+    shapes (one root in ``u`` per shape; closed-form periods of
+    :func:`tumble.dynamics.periods_unit_momentum`); empty when the mode cannot give the ratio.
+    """
+    from tumble.dynamics import periods_unit_momentum
+    from tumble.model import _inertia_from_ratios
+
+    ab = np.geomspace(1.05, 3.5, 14)
+    bc = np.geomspace(1.02, 2.2, 10)
+    a_grid, b_grid = np.meshgrid(ab, bc, indexing="ij")
+    a_grid, b_grid = a_grid.ravel(), b_grid.ravel()
+    i1, i2 = _inertia_from_ratios(a_grid, b_grid)
+    u = np.linspace(0.002, 0.998, 160)
+    if mode == "SAM":
+        idd = 1.0 - u[None, :] * (1.0 - i2[:, None])
+    else:
+        idd = i1[:, None] + u[None, :] * (i2 - i1)[:, None]
+    ok = (np.abs(idd - i2[:, None]) > 2e-3) & (idd < 1.0)
+    idd = np.where(ok, idd, 0.5 * (i1 + i2)[:, None] if mode == "LAM" else 0.5 * (i2 + 1)[:, None])
+    pp, pf = periods_unit_momentum(np.broadcast_to(i1[:, None], idd.shape), np.broadcast_to(i2[:, None], idd.shape), idd)
+    r = np.where(ok, np.asarray(pf) / np.asarray(pp), np.nan) - ratio
+    sols = []
+    for s in range(len(a_grid)):
+        rs = r[s]
+        sign = np.sign(rs)
+        idx = np.flatnonzero(np.isfinite(rs[:-1]) & np.isfinite(rs[1:]) & (sign[:-1] * sign[1:] < 0))
+        for j in idx[:1]:
+            uu = u[j] - rs[j] * (u[j + 1] - u[j]) / (rs[j + 1] - rs[j])
+            sols.append((a_grid[s], b_grid[s], float(uu)))
+    if not sols:
+        return []
+    pick = rng.choice(len(sols), size=min(n_pick, len(sols)), replace=False)
+    return [sols[i] for i in sorted(pick)]
+
+
+def shape_restarts(model, mode, x_best, rng) -> list:
+    """Starts that keep the frequencies of a fitted state and redraw its shape and orientation.
+
+    The frequencies of an NPA state (``P_psi`` and the period ratio) are found well by the
+    frequency mappings, but the fit then stalls in the shape: a wrong ellipsoid with the right
+    period ratio is a deep local optimum, while from the right shape almost every random
+    orientation converges (measured on simulated SAM and LAM bodies; ``docs/methods-classify.md``).
+    Returns ``N_RESTART_SHAPES x N_RESTART_ORIENT`` starts: the fitted shape and shapes drawn along
+    the constant-ratio curve of :func:`shape_solutions`, each with random orientations.
+    """
+    from tumble.dynamics import periods_unit_momentum
+
+    sp = model.space
+    d = dict(zip(sp.names, x_best))
+    args, _ = model.state_arrays(x_best[None])
+    pp, pf = periods_unit_momentum(args[0], args[1], args[2])
+    ratio = float(np.asarray(pf).ravel()[0] / np.asarray(pp).ravel()[0])
+    shapes = [(d["a_over_b"], d["b_over_c"], d["excitation_u"])]
+    shapes += shape_solutions(mode, ratio, rng, n_pick=N_RESTART_SHAPES - 1)
+    xs = []
+    for ab, bc, u in shapes:
+        base = {"p_psi_h": d["p_psi_h"], "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
+                "ln_jitter_mag": d["ln_jitter_mag"]}
+        xs.extend(random_orientations(sp, base, N_RESTART_ORIENT, rng))
+    return xs
+
+
+def npa_models(sub, span_h: float, *, student_t: bool = False) -> dict:
+    """The physical SAM and LAM models on the (thinned) light curve, by mode."""
+    from tumble.model import PhysicalModel
+
+    return {mode: PhysicalModel(sub, mode, p_psi_range_h=(MIN_P_PSI_H, max(10.0, 4 * span_h)), student_t=student_t)
+            for mode in NPA_MODES}
+
+
+def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng) -> Optimum | None:
+    """The physical fit of one frequency pair in one mode under a fixed budget.
+
+    ``budget.n_shapes`` ellipsoids with the pair's period ratio x ``budget.n_orientations`` random
+    orientations; the best start of each of the ``budget.n_short`` best shapes gets a short
+    Levenberg-Marquardt run, the best ``budget.n_full`` of those a full one, and the best result is
+    returned (None when the mode cannot give the period ratio).
+    """
+    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, rng, n_pick=budget.n_shapes)
+    if not shapes:
+        return None
+    starts = []
+    for ab, bc, u in shapes:
+        base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
+                "ln_jitter_mag": math.log(1e-3)}
+        xs = random_orientations(model.space, base, budget.n_orientations, rng)
+        ll = model(xs)
+        j = int(np.argmax(ll))
+        starts.append((float(ll[j]), xs[j]))
+    starts.sort(key=lambda e: -e[0])
+    short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:budget.n_short]]
+    short.sort(key=lambda e: -e[1])
+    best = None
+    for x0, v0 in short[:max(budget.n_full, 1)]:
+        opt = refine_fully(model, Optimum(mode, x0, float(v0), pair)) if budget.n_full > 0 else Optimum(mode, x0, float(v0), pair)
+        if best is None or opt.log_likelihood > best.log_likelihood:
+            best = opt
+    return best
+
+
+def refine_fully(model, opt: Optimum) -> Optimum:
+    """A full Levenberg-Marquardt refinement of an optimum."""
+    x, v = optimise_state(model, opt.x)
+    return Optimum(opt.mode, x, float(v), opt.pair) if v > opt.log_likelihood else opt
+
+
+def restart_optimum(model, opt: Optimum, rng) -> Optimum:
+    """The best of the shape restarts of a fitted state (or the state itself)."""
+    short = [optimise_state(model, x1, n_iter=SHORT_LM_ITERATIONS) for x1 in shape_restarts(model, opt.mode, opt.x, rng)]
+    short.sort(key=lambda e: -e[1])
+    best = opt
+    for x1, _ in short[:N_RESTART_LM]:
+        x, v = optimise_state(model, x1)
+        if v > best.log_likelihood:
+            best = Optimum(opt.mode, x, float(v), opt.pair)
+    return best
+
+
+# -- 6: solutions ---------------------------------------------------------------------------------
+
+
+def laplace_approximation(model, x) -> LaplaceApproximation:
+    """Periods, their standard deviations and ln Z from the Gauss-Newton Hessian ``J^T J`` at ``x``.
+
+    ``J`` is the forward-difference Jacobian of the whitened residuals (zero-points profiled) in
+    every parameter but the jitter, which stays at its optimum; the covariance is ``(J^T J)^-1``
+    and the period errors are propagated through :meth:`tumble.model.PhysicalModel.derived`
+    (Laplace approximation; e.g. MacKay 2003, Information Theory, Inference and Learning
+    Algorithms, ch. 27).
+    """
+    sp = model.space
+    x = sp.wrap(np.asarray(x, float))
+    names = sp.names
+    free = [i for i, n in enumerate(names) if n != "ln_jitter_mag"]
+    steps = np.array([1e-6 * abs(x[i]) if names[i] in ("p_psi_h", "period_h")
+                      else 1e-5 * x[i] if names[i] in ("a_over_b", "b_over_c") else 1e-5 for i in free])
+    pts = np.repeat(x[None], len(free) + 1, axis=0)
+    pts[1 + np.arange(len(free)), free] += steps
+    r = whitened_residuals(model, pts)
+    jac = (r[1:] - r[0][None]).T / steps[None, :]
+    der = model.derived(pts)
+    p_psi, p_phi = float(der["p_psi_h"][0]), float(der["p_phi_h"][0])
+    g_psi = (np.asarray(der["p_psi_h"][1:]) - p_psi) / steps
+    g_phi = (np.asarray(der["p_phi_h"][1:]) - p_phi) / steps
+    h = jac.T @ jac
+    ll = float(model(x[None])[0])
+    sign, logdet = np.linalg.slogdet(h)
+    if sign <= 0 or not np.isfinite(logdet):
+        return LaplaceApproximation(p_psi, p_phi, math.nan, math.nan, math.nan)
+    cov = np.linalg.pinv(h)
+    var_psi, var_phi = float(g_psi @ cov @ g_psi), float(g_phi @ cov @ g_phi)
+    log_prior = float(sp.log_prior(x[None])[0])
+    log_z = ll + log_prior + 0.5 * len(free) * math.log(2 * math.pi) - 0.5 * logdet
+    return LaplaceApproximation(p_psi, p_phi, math.sqrt(var_psi) if var_psi >= 0 else math.nan,
+                                math.sqrt(var_phi) if var_phi >= 0 else math.nan, float(log_z))
+
+
+def _frequencies(model, x) -> tuple:
+    """``(f_psi, f_phi)`` of a state, c/d."""
+    der = model.derived(np.asarray(x, float)[None])
+    return 24.0 / float(der["p_psi_h"][0]), 24.0 / float(der["p_phi_h"][0])
+
+
+def _same_solution(a: Optimum, b: Optimum, models, span_d: float) -> bool:
+    """The same mode, and ``f_psi`` and ``f_phi`` within :data:`SAME_SOLUTION_CYCLES` per span."""
+    if a.mode != b.mode:
+        return False
+    fa, fb = _frequencies(models[a.mode], a.x), _frequencies(models[b.mode], b.x)
+    tol = SAME_SOLUTION_CYCLES / span_d
+    return abs(fa[0] - fb[0]) < tol and abs(fa[1] - fb[1]) < tol
+
+
+def distinct_optima(optima, models, span_d: float) -> list:
+    """The best optimum of each distinct solution (:func:`_same_solution`), best first."""
+    distinct = []
+    for opt in sorted(optima, key=lambda o: -o.log_likelihood):
+        if not any(_same_solution(opt, d, models, span_d) for d in distinct):
+            distinct.append(opt)
+    return distinct
+
+
+def _solution(opt: Optimum, model, bic: float, best_bic: float, k: int, n: int, weight: float) -> Solution:
+    lap = laplace_approximation(model, opt.x)
+    return Solution(mode=opt.mode, p_psi_h=lap.p_psi_h, p_phi_h=lap.p_phi_h,
+                    p_psi_interval_h=(lap.p_psi_h - lap.p_psi_sigma_h, lap.p_psi_h + lap.p_psi_sigma_h),
+                    p_phi_interval_h=(lap.p_phi_h - lap.p_phi_sigma_h, lap.p_phi_h + lap.p_phi_sigma_h),
+                    log_likelihood=opt.log_likelihood, criterion=float(bic), delta=float(bic - best_bic),
+                    relative_probability=float(weight), log_evidence_laplace=lap.log_evidence, n_parameters=k,
+                    n_points=n, state=opt.x, candidate=opt.pair.candidate, source=opt.pair.source)
+
+
+def collect_solutions(optima, models, span_d: float) -> tuple:
+    """Distinct solutions of the optima ranked by BIC: ``(listed, best_by_mode, distinct)``.
+
+    ``listed`` holds the solutions within :data:`SOLUTION_DELTA_BIC` of the best (best first, with
+    relative probabilities ``exp(-Delta/2)`` normalised over them); ``best_by_mode`` maps each mode
+    to its best solution, listed or not (the mode comparison of the decision rules needs it);
+    ``distinct`` holds every distinct solution found, best first (listed or not).
+    """
+    distinct = distinct_optima(optima, models, span_d)
+    if not distinct:
+        return (), {}, ()
+    n = int(models[distinct[0].mode].y.size)
+    ks = [len(models[o.mode].space.names) for o in distinct]
+    bics = [-2.0 * o.log_likelihood + k * math.log(n) for o, k in zip(distinct, ks)]
+    best_bic = min(bics)
+    listed_idx = [i for i, b in enumerate(bics) if b - best_bic <= SOLUTION_DELTA_BIC]
+    weights = np.array([math.exp(-0.5 * (bics[i] - best_bic)) for i in listed_idx])
+    weight_of = dict(zip(listed_idx, weights / weights.sum()))
+    first_of_mode = {}
+    for i, o in enumerate(distinct):
+        first_of_mode.setdefault(o.mode, i)
+    made = [_solution(o, models[o.mode], b, best_bic, k, n, weight_of.get(i, 0.0))
+            for i, (o, b, k) in enumerate(zip(distinct, bics, ks))]
+    listed = tuple(sorted((made[i] for i in listed_idx), key=lambda s: s.criterion))
+    return listed, {mode: made[i] for mode, i in first_of_mode.items()}, tuple(sorted(made, key=lambda s: s.criterion))
+
+
+def polish_solutions(optima, models, span_d: float, rng) -> list:
+    """More shape restarts (:data:`POLISH_ROUNDS`) of the distinct solutions within :data:`POLISH_DELTA_BIC`."""
+    distinct = distinct_optima(optima, models, span_d)
+    if not distinct:
+        return []
+    best_ll = distinct[0].log_likelihood
+    near = [o for o in distinct if 2.0 * (best_ll - o.log_likelihood) <= POLISH_DELTA_BIC][:N_POLISHED]
+    out = []
+    for opt in near:
+        for _ in range(POLISH_ROUNDS):
+            opt = restart_optimum(models[opt.mode], opt, rng)
+        out.append(opt)
+    return out
+
+
+def screened_pairs(lc, pairs, n_per_screen: int) -> list:
+    """The union of the best ``n_per_screen`` pairs of each screen of :data:`SCREEN_TERM_SETS`, in screen order."""
+    kept, seen = [], set()
+    for terms in SCREEN_TERM_SETS:
+        chi2 = screen_chi2(lc, pairs, terms)
+        order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:n_per_screen]
+        for i in order:
+            if int(i) not in seen:
+                seen.add(int(i))
+                kept.append(pairs[int(i)])
+    return kept
+
+
+def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = FitBudget()) -> SolutionSearch:
+    """The enumeration (module notes) on a light curve with physical models already built (by mode).
+
+    Parameters
+    ----------
+    lc : LightCurve
+        The full light curve (lattices and screen); the models hold the thinned one.
+    evidence : EvidenceResult
+    models : dict
+        Mode -> :class:`tumble.model.PhysicalModel` (see :func:`npa_models`).
+    rng : numpy.random.Generator
+    budget : FitBudget
+    """
+    lattices = candidate_lattices(lc, evidence)
+    pairs = frequency_pairs(lc.span_d, lattices, daily_aliasing(lc))
+    if not pairs:
+        return SolutionSearch((), {}, (), 0, 0, 0)
+    kept = screened_pairs(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs, budget.n_screened)
+    optima = []
+    for pair in kept:
+        for mode, model in models.items():
+            opt = fit_pair(model, mode, pair, budget, rng)
+            if opt is not None:
+                optima.append(opt)
+    n_fits = len(optima)
+    for mode, model in models.items():
+        tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
+        optima += [restart_optimum(model, o, rng) for o in tops]
+    optima += polish_solutions(optima, models, lc.span_d, rng)
+    listed, best_by_mode, distinct = collect_solutions(optima, models, lc.span_d)
+    return SolutionSearch(listed, best_by_mode, distinct, len(pairs), len(kept), n_fits)
+
+
+def enumerate_solutions(lc, evidence, *, max_points: int = 300, budget: FitBudget = FitBudget(),
+                        student_t: bool = False, rng=None) -> tuple:
+    """Every acceptable (mode, P_psi, P_phi) solution of a tumbler's light curve, best first.
+
+    Parameters
+    ----------
+    lc : LightCurve
+    evidence : EvidenceResult
+        The shape-free evidence (its two-period pairs seed the lattices).
+    max_points : int
+        The physical fit uses the light curve thinned evenly to at most this many points.
+    budget : FitBudget
+        Physical-fit budget per candidate and mode.
+    student_t : bool
+        Student-t likelihood in the physical model.
+    rng : numpy.random.Generator, int or None
+
+    Returns
+    -------
+    tuple of Solution
+        Solutions within :data:`SOLUTION_DELTA_BIC` of the best, ranked by BIC.
+    """
+    from tumble.inference.space import as_generator
+
+    sub = thin_lightcurve(lc, max_points)
+    models = npa_models(sub, lc.span_d * 24.0, student_t=student_t)
+    return search_solutions(lc, evidence, models, rng=as_generator(rng), budget=budget).solutions
