@@ -191,7 +191,8 @@ def _diagonal_curvature(log_likelihood, space, x0, f0, h):
     pts[2 * idx, idx] += h
     pts[2 * idx + 1, idx] -= h
     f = _log_post(log_likelihood, space, pts)
-    return (f[0::2] - 2 * f0 + f[1::2]) / h**2
+    with np.errstate(invalid="ignore", over="ignore"):  # stencil points outside the prior: -inf, handled by the caller
+        return (f[0::2] - 2 * f0 + f[1::2]) / h**2
 
 
 def _first_steps(space, x0):
@@ -284,8 +285,10 @@ def laplace_approximation(log_likelihood: Callable[[np.ndarray], np.ndarray], sp
     fa = f[: 2 * d]
     fp = f[2 * d:].reshape(len(ii), 4)
     hess = np.zeros((d, d))
-    hess[np.arange(d), np.arange(d)] = (fa[0::2] - 2 * f0 + fa[1::2]) / h**2
-    off = (fp[:, 0] - fp[:, 1] - fp[:, 2] + fp[:, 3]) / (4 * h[ii] * h[jj])
+    # stencil points outside the prior give -inf: non-finite entries are dropped by _regularised_covariance
+    with np.errstate(invalid="ignore", over="ignore"):
+        hess[np.arange(d), np.arange(d)] = (fa[0::2] - 2 * f0 + fa[1::2]) / h**2
+        off = (fp[:, 0] - fp[:, 1] - fp[:, 2] + fp[:, 3]) / (4 * h[ii] * h[jj])
     hess[ii, jj] = off
     hess[jj, ii] = off
     cov, n_reg = _regularised_covariance(hess, _prior_widths(space))
