@@ -23,7 +23,7 @@ OUT = HERE.parent / "demo_out"
 #: Survey objects (the first of the table, in order) that get the full sparse route: tens of seconds
 #: each on a free core (minutes on a loaded one), so the whole sample (240) would take hours and the
 #: demo runs a few; the screen triages all of them.
-SPARSE_FULL_SUBSET = 6
+SPARSE_FULL_SUBSET = 4
 #: Worker processes of the demo's full sparse route.
 SPARSE_WORKERS = 2
 
@@ -120,7 +120,8 @@ def sparse_route_against_truth(results_path: Path) -> None:
             continue
         p_true = float(t["period_h"]) if t["rotation"] == "PA" else float("nan")
         p_found = float(r["period_h"]) if r["rotation"] == "PA" else float("nan")
-        reason = str(r["grade_reason"]) if r["rotation"] == "undecided" else ""
+        # the results catalogue carries the verdict's reasons in its message column
+        reason = str(r["message"]) if r["rotation"] == "undecided" else ""
         if len(reason) > 70:
             reason = reason[:67] + "..."
         if t["rotation"] == "PA":
@@ -130,7 +131,7 @@ def sparse_route_against_truth(results_path: Path) -> None:
                 n_found += ok
                 n_wrong += not ok
         n_undecided += r["rotation"] == "undecided"
-        n_alias += r["rotation"] == "undecided" and "sidereal periods fit within" in str(r["grade_reason"])
+        n_alias += r["rotation"] == "undecided" and "sidereal periods fit within" in str(r["message"])
         n_npa_called += r["rotation"] == "NPA"
         pt = f"{p_true:.4f}" if p_true == p_true else "-"
         pf = f"{p_found:.4f}" if p_found == p_found else "-"
