@@ -272,8 +272,9 @@ def rule_sparse_geometric_pa(d: DecisionInputs) -> list:
     if d.favour == "PA" and g.status == "no rotation detected":
         return _undecided(f"{NO_PERIOD_REASON}: {g.message}")
     if d.favour == "PA" and g.status != "unique":
-        # members that are the best period seen with a pole of the other sense are not other periods
-        others = [m for m in g.alias_family if not getattr(m, "same_rotation", False)]
+        # members that are the best period (listed first) seen with a pole of the other sense are not
+        # other periods
+        others = [m for i, m in enumerate(g.alias_family) if i == 0 or not getattr(m, "same_rotation", False)]
         family = ", ".join(f"{m.period_h:.5g}" for m in others[:5])
         return _undecided(f"undecided period: {len(others)} sidereal periods fit within "
                           f"delta chi2 {g.alias_delta_chi2:.3g} of the best ({family} h)")
