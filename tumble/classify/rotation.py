@@ -158,6 +158,27 @@ def whitened_residuals(model, xs) -> np.ndarray:
     return r
 
 
+#: Forward-difference steps of the physical model's Jacobian: relative for periods and axis ratios
+#: (their scales differ by decades between bodies), absolute for angles and the excitation.
+JACOBIAN_REL_STEP_PERIOD = 1e-6
+JACOBIAN_REL_STEP_RATIO = 1e-5
+JACOBIAN_ABS_STEP = 1e-5
+
+
+def jacobian_free_steps(space, x) -> tuple:
+    """The parameters differentiated (all but the jitter) and their forward-difference steps.
+
+    Returns ``(free, steps)``: indices into ``space.names`` and the steps in parameter units;
+    shared by :func:`optimise_state` and the solutions' Laplace approximation.
+    """
+    names = space.names
+    free = [i for i, n in enumerate(names) if n != "ln_jitter_mag"]
+    steps = np.array([JACOBIAN_REL_STEP_PERIOD * abs(x[i]) if names[i] in ("p_psi_h", "period_h")
+                      else JACOBIAN_REL_STEP_RATIO * x[i] if names[i] in ("a_over_b", "b_over_c")
+                      else JACOBIAN_ABS_STEP for i in free])
+    return free, steps
+
+
 def optimise_state(model, x0, n_iter: int = 40):
     """Levenberg-Marquardt on the whitened residuals (zero-points profiled), batched over trial steps.
 
@@ -168,12 +189,8 @@ def optimise_state(model, x0, n_iter: int = 40):
     sp = model.space
     names = sp.names
     ij = names.index("ln_jitter_mag")
-    free = [i for i in range(len(names)) if i != ij]
     x = sp.wrap(np.asarray(x0, float).copy())
-    steps = np.array([1e-6 * abs(x[i]) if names[i] in ("p_psi_h", "period_h") else 1e-5 for i in free])
-    for i, name in zip(range(len(free)), [names[k] for k in free]):
-        if name in ("a_over_b", "b_over_c"):
-            steps[i] = 1e-5 * x[free[i]]
+    free, steps = jacobian_free_steps(sp, x)
 
     def residuals(xs):
         return whitened_residuals(model, xs)

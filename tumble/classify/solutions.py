@@ -43,6 +43,7 @@ import numpy as np
 
 from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG
 from tumble.classify.rotation import (
+    jacobian_free_steps,
     npa_candidates,
     optimise_state,
     random_orientations,
@@ -617,10 +618,7 @@ def laplace_approximation(model, x) -> LaplaceApproximation:
     """
     sp = model.space
     x = sp.wrap(np.asarray(x, float))
-    names = sp.names
-    free = [i for i, n in enumerate(names) if n != "ln_jitter_mag"]
-    steps = np.array([1e-6 * abs(x[i]) if names[i] in ("p_psi_h", "period_h")
-                      else 1e-5 * x[i] if names[i] in ("a_over_b", "b_over_c") else 1e-5 for i in free])
+    free, steps = jacobian_free_steps(sp, x)
     pts = np.repeat(x[None], len(free) + 1, axis=0)
     pts[1 + np.arange(len(free)), free] += steps
     r = whitened_residuals(model, pts)
