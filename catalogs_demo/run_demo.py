@@ -37,18 +37,27 @@ def campaign_groups() -> dict[str, list[Path]]:
     return dict(groups)
 
 
-def accuracy_against_truth(results_path: Path) -> None:
-    """Compare the survey's verdicts with the truth table the demo was generated from."""
+def _truth_and_results(results_path: Path) -> tuple:
+    """The demo's truth table by object, and a results catalogue."""
     from astropy.table import Table
 
-    truth = {str(r["object"]): r for r in Table.read(HERE / "truth.ecsv")}
-    res = Table.read(results_path)
+    return {str(r["object"]): r for r in Table.read(HERE / "truth.ecsv")}, Table.read(results_path)
+
+
+def _truth_label(t) -> str:
+    """'PA' or 'NPA/<mode>' of a truth row."""
+    return "PA" if t["rotation"] == "PA" else f"NPA/{t['mode']}"
+
+
+def accuracy_against_truth(results_path: Path) -> None:
+    """Compare the survey's verdicts with the truth table the demo was generated from."""
+    truth, res = _truth_and_results(results_path)
     print(f"{'object':10s} {'truth':>10s} {'verdict':>10s} {'grade':>9s}  periods (h): truth | found")
     n_ok = n_right = 0
     for r in res:
         name = str(r["object"])
         t = truth[name]
-        true_label = "PA" if t["rotation"] == "PA" else f"NPA/{t['mode']}"
+        true_label = _truth_label(t)
         if r["status"] != "ok":
             print(f"{name:10s} {true_label:>10s} {'error':>10s}")
             continue
@@ -105,16 +114,13 @@ def write_sparse_subset(path: Path, n: int) -> list[str]:
 
 def sparse_route_against_truth(results_path: Path) -> None:
     """The full sparse route's verdicts against the truth: periods recovered, alias families, undecided."""
-    from astropy.table import Table
-
-    truth = {str(r["object"]): r for r in Table.read(HERE / "truth.ecsv")}
-    res = Table.read(results_path)
+    truth, res = _truth_and_results(results_path)
     print(f"{'object':10s} {'truth':>8s} {'verdict':>10s} {'grade':>9s} {'P true h':>9s} {'P found h':>10s}  reason")
     n_pa = n_found = n_wrong = n_alias = n_undecided = n_npa_called = 0
     for r in res:
         name = str(r["object"])
         t = truth[name]
-        true_label = "PA" if t["rotation"] == "PA" else f"NPA/{t['mode']}"
+        true_label = _truth_label(t)
         if r["status"] != "ok":
             print(f"{name:10s} {true_label:>8s} {'error':>10s}  {r['message']}")
             continue
