@@ -147,7 +147,7 @@ def report(rows: list) -> str:
     lines = [f"objects: {len(bins)} binaries ({len(det)} with events >= {DETECTABLE_DEPTH_OVER_NOISE:g}x the noise), "
              f"{len(tums)} tumblers",
              f"binaries called NPA: {_upper_text(sum(r['rotation'] == 'NPA' for r in bins), len(bins))}  [target <= 5 %]",
-             f"  verdicts on binaries: " + ", ".join(f"{k} {sum(r['rotation'] == k for r in bins)}"
+             "  verdicts on binaries: " + ", ".join(f"{k} {sum(r['rotation'] == k for r in bins)}"
                                                      for k in ("PA", "NPA", "undecided")),
              f"  binaries for which NPA was favoured (ln B > 0) and the binary family weighed: "
              f"{sum(r['binary_weighed'] for r in bins)}/{len(bins)}",
