@@ -172,20 +172,22 @@ def render_job(job: Job) -> str:
 
 
 def read_table(path: Path) -> list:
-    """Rows of a JSON-lines table; an unreadable (half-written) last line is ignored."""
-    rows = []
+    """Rows of a JSON-lines table, one per object and route (a resumed run's later row wins); an unreadable
+    (half-written) last line is ignored."""
+    rows = {}
     if not path.exists():
-        return rows
+        return []
     with open(path, encoding="utf-8") as fh:
         for line in fh:
             line = line.strip()
             if not line:
                 continue
             try:
-                rows.append(json.loads(line))
+                row = json.loads(line)
             except json.JSONDecodeError:
                 continue
-    return rows
+            rows[(row.get("object_id", len(rows)), row.get("route"))] = row
+    return list(rows.values())
 
 
 def append_row(fh, row: dict) -> None:

@@ -223,6 +223,20 @@ def test_calibration_map_is_monotone_in_ln_b():
     assert cmap.coefficients[0] == pytest.approx(0.0, abs=1e-8)
 
 
+def test_truth_is_detectable_tumbling_and_weak_tumblers_are_left_out():
+    # the map's truth (calibration.truth_label): a tumbler whose signature is below the per-point noise
+    # is neither NPA nor PA truth and must not enter the fit
+    assert calibration.truth_label({"true.truth_class": "PA"}) == 0.0
+    assert calibration.truth_label({"true.truth_class": "binary"}) == 0.0
+    assert calibration.truth_label({"true.truth_class": "NPA", "true.signature_over_noise": 3.0}) == 1.0
+    assert math.isnan(calibration.truth_label({"true.truth_class": "NPA", "true.signature_over_noise": 0.2}))
+    rng = np.random.default_rng(9)
+    rows = _rows_from_logistic(rng, 200, 0.0, 1.0)
+    weak = [dict(r, **{"true.truth_class": "NPA", "true.signature_over_noise": 0.1}) for r in rows[:50]]
+    cmap = calibration.fit_calibration(rows[50:] + weak, features=(calibration.FEATURES[0],))
+    assert cmap.n_fit == 150 and "per-point noise" in cmap.truth
+
+
 def test_calibration_json_round_trip(tmp_path):
     import json
 

@@ -64,6 +64,10 @@ def test_features_follow_their_definitions():
     assert x[0] == pytest.approx(-math.log1p(1e4))  # clipped, then the signed logarithm
     assert x[1] == pytest.approx(3.0) and x[2] == pytest.approx(math.log10(240 / 6))
     assert x[3] == pytest.approx(math.log10(30)) and x[4] == 0.0
+    assert x[5] == pytest.approx(x[0])  # all points in nightly sessions: the dense-weighted ln B is ln B's
+    y = calibration_features(ln_b=20.0, n_points=300, span_d=700.0, p1_h=6.0, amplitude_mag=0.3,
+                             median_err_mag=0.01, sparse_fraction=0.75)
+    assert y[5] == pytest.approx(0.25 * math.log1p(20.0))
     assert math.isnan(calibration_features(ln_b=math.nan, n_points=0, span_d=1, p1_h=math.nan, amplitude_mag=0,
                                            median_err_mag=0.01, sparse_fraction=1)[2])
 
@@ -73,4 +77,6 @@ def test_the_shipped_map_reads_the_same_features():
     if cmap is None:
         pytest.skip("no calibration map shipped")
     assert cmap.features == FEATURES and 0 < cmap.base_rate < 1
-    assert np.all(cmap.coefficients[:1] >= 0)  # monotone in ln B: more evidence never lowers P(NPA)
+    # monotone in ln B: more evidence never lowers P(NPA), dense or sparse
+    for name in ("signed_log_ln_b", "dense_signed_log_ln_b"):
+        assert cmap.coefficients[FEATURES.index(name)] >= 0

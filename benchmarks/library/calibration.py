@@ -47,6 +47,27 @@ def _num(v) -> float:
         return math.nan
 
 
+#: Tumbling is the map's truth only where its signature (the rms of what one period cannot fit,
+#: ``true.signature_over_noise``) is at least the per-point noise: weaker tumbling no light curve of that
+#: quality can show (the verdict's NPA detection limit states it), and counting it as NPA truth taught
+#: the map that a clear PA light curve says little (docs/validation-classify.md). Such objects are left
+#: out of the fit and of the score, and reported apart.
+DETECTABLE_SIGNATURE_OVER_NOISE = 1.0
+#: What the map's probability is the probability of (written into the map's JSON).
+TRUTH_DEFINITION = (f"tumbling with a signature at least {DETECTABLE_SIGNATURE_OVER_NOISE:g} x the per-point noise, "
+                    "against PA, flat and binary bodies; weaker tumblers are left out of the fit")
+
+
+def truth_label(row) -> float:
+    """The map's truth: 1 for detectable tumbling, 0 for any other body, NaN for tumbling too weak to show."""
+    if row.get("true.truth_class") != "NPA":
+        return 0.0
+    s = _num(row.get("true.signature_over_noise"))
+    if math.isfinite(s) and s < DETECTABLE_SIGNATURE_OVER_NOISE:
+        return math.nan
+    return 1.0
+
+
 #: |ln B| is clipped here before the transform: an infinite ln B (no admissible NPA model) is the extreme.
 LN_B_CLIP = 1.0e4
 
@@ -95,6 +116,11 @@ def feat_sparse(row) -> float:
     return float(_package_features(row)[4])
 
 
+def feat_dense_ln_b(row) -> float:
+    """signed_log_ln_b * (1 - sparse_fraction): the evidence's weight on nightly-session data."""
+    return float(_package_features(row)[5])
+
+
 @dataclass(frozen=True)
 class Feature:
     """One input of the map.
@@ -124,6 +150,7 @@ FEATURES = (
     Feature("log10_span_over_period", feat_log_span_over_period, False),
     Feature("log10_amplitude_over_noise", feat_log_amplitude_over_noise, False),
     Feature("sparse_fraction", feat_sparse, False),
+    Feature("dense_signed_log_ln_b", feat_dense_ln_b, True),
 )
 
 
@@ -144,6 +171,8 @@ class CalibrationMap:
     route : str
     n_fit, n_fit_npa : int
         Objects (and NPA objects) of the calibration half used.
+    truth : str
+        What the probability is the probability of (:data:`TRUTH_DEFINITION`).
     """
 
     features: tuple
@@ -157,6 +186,7 @@ class CalibrationMap:
     route: str
     n_fit: int
     n_fit_npa: int
+    truth: str = TRUTH_DEFINITION
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -187,7 +217,7 @@ def _neg_log_lik(theta, z, y, ridge):
 
 
 def fit_calibration(rows, *, features=FEATURES, ridge: float = RIDGE, split: str | None = "calibration") -> CalibrationMap:
-    """Fit the map on the rows of a split (status ok; truth NPA = 1, everything else = 0).
+    """Fit the map on the rows of a split (status ok; truth from :func:`truth_label`, undetectable tumblers left out).
 
     Parameters
     ----------
@@ -199,11 +229,12 @@ def fit_calibration(rows, *, features=FEATURES, ridge: float = RIDGE, split: str
     split : str or None
         Rows of this ``true.split`` only (None: all rows given).
     """
-    use = [r for r in rows if r.get("status", "ok") == "ok" and (split is None or r.get("true.split") == split)]
+    use = [r for r in rows if r.get("status", "ok") == "ok" and (split is None or r.get("true.split") == split)
+           and math.isfinite(truth_label(r))]
     if len(use) < 10:
         raise ValueError(f"calibration needs at least 10 rows, got {len(use)}")
     x = feature_matrix(use, features)
-    y = np.array([r.get("true.truth_class") == "NPA" for r in use], float)
+    y = np.array([truth_label(r) for r in use], float)
     fill = np.array([np.nanmedian(c) if np.isfinite(c).any() else 0.0 for c in x.T])
     xf = np.where(np.isfinite(x), x, fill[None, :])
     centre = xf.mean(axis=0)
@@ -259,7 +290,9 @@ def fit_and_evaluate(rows, figure_path=None) -> tuple:
     calibrated probability is written there (PNG).
     """
     cmap = fit_calibration(rows)
-    held = [r for r in rows if r.get("status") == "ok" and r.get("true.split") == "heldout"]
+    held_all = [r for r in rows if r.get("status") == "ok" and r.get("true.split") == "heldout"]
+    held = [r for r in held_all if math.isfinite(truth_label(r))]
+    weak = [r for r in held_all if not math.isfinite(truth_label(r))]
     lines = [f"calibration map fitted on {cmap.n_fit} objects ({cmap.n_fit_npa} NPA) of the calibration half, "
              f"route {cmap.route}"]
     for name, c, m in zip(cmap.features, cmap.coefficients, cmap.monotone):
@@ -268,10 +301,11 @@ def fit_and_evaluate(rows, figure_path=None) -> tuple:
     if not held:
         lines.append("no held-out rows to score")
         return cmap, "\n".join(lines)
-    y = np.array([r.get("true.truth_class") == "NPA" for r in held], float)
+    y = np.array([truth_label(r) for r in held], float)
     p_cal = apply_calibration(cmap, held)
     p_raw = np.array([_num(scoring.get(r, "p_npa")) for r in held])
     p_raw_f = np.where(np.isfinite(p_raw), p_raw, 0.5)
+    lines.append(f"truth: {cmap.truth}")
     lines.append(f"held-out half: {len(held)} objects ({int(y.sum())} NPA)")
     for label, p in (("classifier p_npa", p_raw_f), ("calibrated", p_cal)):
         s = _scores(p, y)
@@ -281,6 +315,10 @@ def fit_and_evaluate(rows, figure_path=None) -> tuple:
         rec = int(np.sum((p > 0.5) & ~pa))
         lines.append(f"   {label:17s} ECE {s['ece']:.3f}  Brier {s['brier']:.3f}  log loss {s['log_loss']:.3f}  "
                      f"p>0.5 on non-NPA {k}/{int(pa.sum())} (95 % upper {hi:.3f})  on NPA {rec}/{int((~pa).sum())}")
+    if weak:
+        p_weak = apply_calibration(cmap, weak)
+        lines.append(f"   tumblers below the detection threshold (left out above): {len(weak)}, calibrated p "
+                     f"median {np.median(p_weak):.3f}, > 0.5 for {int(np.sum(p_weak > 0.5))}")
     if figure_path is not None:
         scoring.plot_reliability({"classifier p_npa": scoring.reliability_table(p_raw_f, y),
                                   "calibrated": scoring.reliability_table(p_cal, y)}, figure_path,

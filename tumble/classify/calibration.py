@@ -8,6 +8,11 @@ Statist. Soc. B 20, 215) of the truth on a few decision statistics (:data:`FEATU
 the library's calibration half and scored on the held-out half (``docs/validation-classify.md``).
 It is shipped as ``tumble/classify/data/calibration.json``.
 
+The map's truth is *detectable* tumbling: a tumbler whose signature (the rms of what one period
+cannot fit) is below the per-point noise is left out of the fit, since no light curve of that
+quality can show it; the verdict's NPA detection limit states what could have been missed. So
+``1 - p_npa`` is the probability of no tumbling above the noise, not of no tumbling at all.
+
 The library has its own share of tumblers ``pi_lib``; a user's prior ``p0`` replaces it by the
 usual prior-odds correction, ``logit p = logit p_map - logit pi_lib + logit p0``.
 
@@ -36,7 +41,7 @@ __all__ = ["CalibrationMap", "FEATURES", "calibration_features", "load_calibrati
 LN_B_CLIP = 1.0e4
 #: The statistics the map reads, in coefficient order (definitions in :func:`calibration_features`).
 FEATURES = ("signed_log_ln_b", "log10_n_points", "log10_span_over_period", "log10_amplitude_over_noise",
-            "sparse_fraction")
+            "sparse_fraction", "dense_signed_log_ln_b")
 #: Posterior probability of the stated rotation at the lower edge of each grade: the Kass & Raftery
 #: (1995) bands of 2 ln B at even prior odds, p = 1 / (1 + exp(-edge / 2)).
 GRADE_PROBABILITIES = tuple(1.0 / (1.0 + math.exp(-e / 2.0)) for e in GRADE_EDGES_2LNB)
@@ -54,7 +59,11 @@ def calibration_features(*, ln_b: float, n_points: int, span_d: float, p1_h: flo
     - ``log10_n_points``;
     - ``log10_span_over_period``: log10(span / strongest light-curve period ``p1_h``);
     - ``log10_amplitude_over_noise``: log10(amplitude of the one-period fit / median quoted error);
-    - ``sparse_fraction``: the share of points without a nightly session.
+    - ``sparse_fraction``: the share of points without a nightly session;
+    - ``dense_signed_log_ln_b``: ``signed_log_ln_b * (1 - sparse_fraction)``, the weight of the
+      evidence on nightly-session data of its own: on sparse survey data the shape-free families
+      cannot follow the changing geometry and a PA body's ln B reaches +250 (calibration library,
+      ``docs/validation-classify.md``), so ln B means less there than in a dense campaign.
     """
     lb = float(np.clip(ln_b, -LN_B_CLIP, LN_B_CLIP)) if not math.isnan(ln_b) else math.nan
     span_h = 24.0 * span_d
@@ -64,6 +73,7 @@ def calibration_features(*, ln_b: float, n_points: int, span_d: float, p1_h: flo
         math.log10(span_h / p1_h) if p1_h > 0 and span_h > 0 else math.nan,
         math.log10(amplitude_mag / median_err_mag) if amplitude_mag > 0 and median_err_mag > 0 else math.nan,
         float(sparse_fraction),
+        _signed_log(lb) * (1.0 - float(sparse_fraction)),
     ], float)
 
 

@@ -253,8 +253,9 @@ def grade_sentence(v: dict) -> str:
         edges = (0.0,) + tuple(GRADE_PROBABILITIES)
         band = (f"at least {edges[-1]:.3f}" if level >= len(edges) - 1
                 else f"between {edges[level]:.3f} and {edges[level + 1]:.3f}")
+        what = "PA (no tumbling above the per-point noise)" if favoured == "PA" else "NPA"
         evidence = (f"2 ln B = {2.0 * float(ln_b):.1f} favours {favoured}, and the calibrated probability of "
-                    f"{favoured}, {format_probability(p_fav)}, lies {band}, which alone would be graded "
+                    f"{what}, {format_probability(p_fav)}, lies {band}, which alone would be graded "
                     f"'{uncapped}' (Kass & Raftery 1995 bands as probabilities at even odds)")
     else:
         evidence = (f"2|ln B| = {two:.1f} favours {favoured} and lies {_band_text(level)}, "
