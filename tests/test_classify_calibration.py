@@ -59,17 +59,12 @@ def test_grade_probabilities_are_the_kass_raftery_bands_at_even_odds():
 
 
 def test_features_follow_their_definitions():
-    x = calibration_features(ln_b=-math.inf, n_points=1000, span_d=10.0, p1_h=6.0, amplitude_mag=0.3,
-                             median_err_mag=0.01, sparse_fraction=0.0)
+    x = calibration_features(ln_b=-math.inf, sparse_fraction=0.0)
     assert x[0] == pytest.approx(-math.log1p(1e4))  # clipped, then the signed logarithm
-    assert x[1] == pytest.approx(3.0) and x[2] == pytest.approx(math.log10(240 / 6))
-    assert x[3] == pytest.approx(math.log10(30)) and x[4] == 0.0
-    assert x[5] == pytest.approx(x[0])  # all points in nightly sessions: the dense-weighted ln B is ln B's
-    y = calibration_features(ln_b=20.0, n_points=300, span_d=700.0, p1_h=6.0, amplitude_mag=0.3,
-                             median_err_mag=0.01, sparse_fraction=0.75)
-    assert y[5] == pytest.approx(0.25 * math.log1p(20.0))
-    assert math.isnan(calibration_features(ln_b=math.nan, n_points=0, span_d=1, p1_h=math.nan, amplitude_mag=0,
-                                           median_err_mag=0.01, sparse_fraction=1)[2])
+    assert x[1] == pytest.approx(x[0]) and x[2] == 0.0  # all points in nightly sessions: ln B's full weight
+    y = calibration_features(ln_b=20.0, sparse_fraction=0.75)
+    assert y[1] == pytest.approx(0.25 * math.log1p(20.0)) and y[2] == 0.75
+    assert np.all(np.isnan(calibration_features(ln_b=math.nan, sparse_fraction=1.0)[:2]))
 
 
 def test_the_shipped_map_reads_the_same_features():

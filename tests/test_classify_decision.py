@@ -16,6 +16,7 @@ from tumble.classify.prior import (
     commensurate_mask,
     f2_log_prior,
 )
+from tumble.classify.calibration import FEATURES
 from tumble.classify.evidence import MIN_LNB_ERROR
 from tumble.classify.quadrature import dense_trapezoid_reference, integrate_peak
 from tumble.classify.thresholds import GRADE_EDGES_2LNB, MIN_CYCLES
@@ -225,10 +226,11 @@ def test_a_probability_below_the_lowest_grade_is_no_verdict(rng, monkeypatch):
     ev = classify(lc, fit_state=False, detection_limit=False, sidereal=False).evidence
     ev = replace(ev, ln_bayes_factor=-30.0, ln_bayes_factor_err=0.1, pa_window_mass=1.0, window_disagreement=False,
                  npa_testable=True, f2_admissible_share=1.0)
-    flat_map = cal.CalibrationMap(cal.FEATURES, np.zeros(5), np.ones(5), np.zeros(5), np.zeros(5),
+    k = len(cal.FEATURES)
+    flat_map = cal.CalibrationMap(cal.FEATURES, np.zeros(k), np.ones(k), np.zeros(k), np.zeros(k),
                                   float(special.logit(0.4)), 0.1, "test")
     monkeypatch.setattr(cal, "load_calibration", lambda: flat_map)
-    v = decide(ev, span_d=lc.span_d, prior_npa=0.1, calibration_features=np.zeros(5))
+    v = decide(ev, span_d=lc.span_d, prior_npa=0.1, calibration_features=np.zeros(len(FEATURES)))
     assert v.calibrated and v.p_npa == pytest.approx(0.4)
     assert v.rotation == "undecided" and v.grade == "none"
     assert any("below the lowest grade" in w for w in v.warnings)

@@ -81,14 +81,8 @@ def _package_features(row) -> np.ndarray:
     """The package's own definition of the map's inputs (tumble.classify.calibration), from a results row."""
     from tumble.classify.calibration import calibration_features
 
-    f1 = _num(row.get("ev.f1_per_d"))
-    n = _num(row.get("lc.n_points", scoring.get(row, "n_points")))
-    return calibration_features(
-        ln_b=float(np.clip(_num(scoring.get(row, "ln_b")), -LN_B_CLIP, LN_B_CLIP)),
-        n_points=int(n) if math.isfinite(n) else 0,
-        span_d=_num(row.get("lc.span_d", row.get("span_d"))), p1_h=24.0 / f1 if f1 > 0 else math.nan,
-        amplitude_mag=_num(scoring.get(row, "amplitude_mag")), median_err_mag=_num(row.get("lc.median_err_mag")),
-        sparse_fraction=_num(row.get("lc.sparse_fraction")))
+    return calibration_features(ln_b=float(np.clip(_num(scoring.get(row, "ln_b")), -LN_B_CLIP, LN_B_CLIP)),
+                                sparse_fraction=_num(row.get("lc.sparse_fraction")))
 
 
 def feat_ln_b(row) -> float:
@@ -96,29 +90,14 @@ def feat_ln_b(row) -> float:
     return float(_package_features(row)[0])
 
 
-def feat_log_n(row) -> float:
-    """log10 of the number of points."""
+def feat_dense_ln_b(row) -> float:
+    """signed_log_ln_b * (1 - sparse_fraction): the evidence's weight on nightly-session data."""
     return float(_package_features(row)[1])
-
-
-def feat_log_span_over_period(row) -> float:
-    """log10(span / the evidence's strongest light-curve period 24/f1)."""
-    return float(_package_features(row)[2])
-
-
-def feat_log_amplitude_over_noise(row) -> float:
-    """log10(amplitude of the one-period fit / median quoted error)."""
-    return float(_package_features(row)[3])
 
 
 def feat_sparse(row) -> float:
     """Fraction of sparse points (no session zero point)."""
-    return float(_package_features(row)[4])
-
-
-def feat_dense_ln_b(row) -> float:
-    """signed_log_ln_b * (1 - sparse_fraction): the evidence's weight on nightly-session data."""
-    return float(_package_features(row)[5])
+    return float(_package_features(row)[2])
 
 
 @dataclass(frozen=True)
@@ -146,11 +125,8 @@ class Feature:
 #: Features of the map (order = coefficient order).
 FEATURES = (
     Feature(LN_B_FEATURE, feat_ln_b, True),
-    Feature("log10_n_points", feat_log_n, False),
-    Feature("log10_span_over_period", feat_log_span_over_period, False),
-    Feature("log10_amplitude_over_noise", feat_log_amplitude_over_noise, False),
-    Feature("sparse_fraction", feat_sparse, False),
     Feature("dense_signed_log_ln_b", feat_dense_ln_b, True),
+    Feature("sparse_fraction", feat_sparse, False),
 )
 
 

@@ -165,10 +165,7 @@ def _features(lc, ev: EvidenceResult) -> np.ndarray:
     """The calibration map's inputs for this light curve and evidence."""
     from tumble.classify.calibration import calibration_features
 
-    return calibration_features(ln_b=ev.ln_bayes_factor, n_points=lc.n_points, span_d=lc.span_d,
-                                p1_h=24.0 / ev.f1_per_d if ev.f1_per_d > 0 else math.nan,
-                                amplitude_mag=ev.amplitude_mag, median_err_mag=float(np.median(lc.err)),
-                                sparse_fraction=float(np.mean(np.asarray(lc.session) < 0)))
+    return calibration_features(ln_b=ev.ln_bayes_factor, sparse_fraction=float(np.mean(np.asarray(lc.session) < 0)))
 
 
 def _bisector_rate(lc) -> float:

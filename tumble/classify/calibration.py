@@ -40,8 +40,11 @@ __all__ = ["CalibrationMap", "FEATURES", "calibration_features", "load_calibrati
 #: |ln B| is clipped here before the signed logarithm (an infinite ln B is the extreme).
 LN_B_CLIP = 1.0e4
 #: The statistics the map reads, in coefficient order (definitions in :func:`calibration_features`).
-FEATURES = ("signed_log_ln_b", "log10_n_points", "log10_span_over_period", "log10_amplitude_over_noise",
-            "sparse_fraction", "dense_signed_log_ln_b")
+#: Only what changes the meaning of ln B: the data kind. Statistics of the sample (number of points,
+#: span over period, amplitude over noise) were tried and left out: on a library of ~100 objects per
+#: half they learned the population's make-up (the demo's clear tumbler dropped to p = 0.63 for having
+#: fewer cycles than the library's PA bodies) and did not improve the held-out score.
+FEATURES = ("signed_log_ln_b", "dense_signed_log_ln_b", "sparse_fraction")
 #: Posterior probability of the stated rotation at the lower edge of each grade: the Kass & Raftery
 #: (1995) bands of 2 ln B at even prior odds, p = 1 / (1 + exp(-edge / 2)).
 GRADE_PROBABILITIES = tuple(1.0 / (1.0 + math.exp(-e / 2.0)) for e in GRADE_EDGES_2LNB)
@@ -51,30 +54,19 @@ def _signed_log(x: float) -> float:
     return math.copysign(math.log1p(abs(x)), x) if not math.isnan(x) else math.nan
 
 
-def calibration_features(*, ln_b: float, n_points: int, span_d: float, p1_h: float, amplitude_mag: float,
-                         median_err_mag: float, sparse_fraction: float) -> np.ndarray:
+def calibration_features(*, ln_b: float, sparse_fraction: float) -> np.ndarray:
     """The map's inputs (NaN where missing), in the order of :data:`FEATURES`.
 
     - ``signed_log_ln_b``: sign(ln B) log(1 + |ln B|), ln B (nats) clipped to +-1e4;
-    - ``log10_n_points``;
-    - ``log10_span_over_period``: log10(span / strongest light-curve period ``p1_h``);
-    - ``log10_amplitude_over_noise``: log10(amplitude of the one-period fit / median quoted error);
-    - ``sparse_fraction``: the share of points without a nightly session;
     - ``dense_signed_log_ln_b``: ``signed_log_ln_b * (1 - sparse_fraction)``, the weight of the
       evidence on nightly-session data of its own: on sparse survey data the shape-free families
       cannot follow the changing geometry and a PA body's ln B reaches +250 (calibration library,
-      ``docs/validation-classify.md``), so ln B means less there than in a dense campaign.
+      ``docs/validation-classify.md``), so ln B means less there than in a dense campaign;
+    - ``sparse_fraction``: the share of points without a nightly session.
     """
     lb = float(np.clip(ln_b, -LN_B_CLIP, LN_B_CLIP)) if not math.isnan(ln_b) else math.nan
-    span_h = 24.0 * span_d
-    return np.array([
-        _signed_log(lb),
-        math.log10(n_points) if n_points > 0 else math.nan,
-        math.log10(span_h / p1_h) if p1_h > 0 and span_h > 0 else math.nan,
-        math.log10(amplitude_mag / median_err_mag) if amplitude_mag > 0 and median_err_mag > 0 else math.nan,
-        float(sparse_fraction),
-        _signed_log(lb) * (1.0 - float(sparse_fraction)),
-    ], float)
+    slb = _signed_log(lb)
+    return np.array([slb, slb * (1.0 - float(sparse_fraction)), float(sparse_fraction)], float)
 
 
 @dataclass(frozen=True)
