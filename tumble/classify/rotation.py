@@ -4,8 +4,9 @@ Physical ellipsoid models (:class:`tumble.model.PhysicalModel`) for SAM and LAM 
 the evidence's frequency pairs mapped through the light-curve frequency relations (SAM: dominant
 ``f_phi - f_psi``; LAM: ``f_phi`` and ``f_phi + f_psi``; Kaasalainen 2001, A&A 376, 302; Pravec et
 al. 2005, Icarus 173, 108). For NPA every acceptable solution is enumerated and ranked by
-:mod:`tumble.classify.solutions`; the top solution's mode is sampled by
-:func:`tumble.inference.local.sample_local_mode`, confined to that mode.
+:mod:`tumble.classify.solutions`; the top solution's mode is sampled by :func:`sample_solution_mode`
+(the jitter integrated out, the optimum polished to its mode's top,
+:func:`tumble.inference.local.sample_local_mode` confined to that mode).
 """
 
 from __future__ import annotations
