@@ -640,6 +640,15 @@ class ImplicitChart:
         self.sign = float(np.sign(self._derivative(x0[None])[0]))
         if not np.isfinite(self.g0) or self.sign == 0:
             raise TumbleError(f"the chart's function is not finite or not monotone in {parameter} at the optimum")
+        # the function's gradient at the optimum: Newton starts from the linear prediction of x_k
+        # (one iteration fewer than from the optimum's x_k on a sampled mode)
+        self.x0 = x0
+        steps = IMPLICIT_STEP * _prior_widths(space)
+        pts = np.repeat(x0[None], space.ndim, axis=0)
+        pts[np.arange(space.ndim), np.arange(space.ndim)] += steps
+        with np.errstate(invalid="ignore"):
+            grad = (np.asarray(function(pts), float) - self.g0) / steps
+        self.grad = np.where(np.isfinite(grad), grad, 0.0)
         params = list(space.parameters)
         params[self.k] = Parameter(name, Uniform(self.g0 - half_width, self.g0 + half_width), unit, description)
         self.space = ParameterSpace(params)
@@ -660,8 +669,15 @@ class ImplicitChart:
         """
         lo, hi = self.prior.low + self.h, self.prior.high - 2 * self.h
         x = np.array(y, float, copy=True)
-        x[:, self.k] = self.x_k0
         target = y[:, self.k]
+        dx = y - self.x0
+        per = self.model_space.periods
+        if np.any(np.isfinite(per)):
+            p = np.where(np.isfinite(per), per, 1.0)
+            dx = np.where(np.isfinite(per), dx - p * np.round(dx / p), dx)
+        dx[:, self.k] = 0.0
+        start = self.x_k0 + (target - self.g0 - dx @ self.grad) / self.grad[self.k]
+        x[:, self.k] = np.clip(np.where(np.isfinite(start), start, self.x_k0), lo, hi)
         n = len(y)
         deriv = np.full(n, np.nan)
         ok = np.zeros(n, bool)
