@@ -37,6 +37,9 @@ JITTER_NODES = 128
 JITTER_PARAMETER = "ln_jitter_mag"
 #: walkers per block of the node computation (bounds the (K, G, n) work array to ~40 MB)
 BLOCK_ELEMENTS = 5_000_000
+#: posterior samples per block of the jitter draws (the model's work arrays for 1000 states of 300
+#: points are ~20 MB; all ~40 000 samples at once peaked at 500-700 MB)
+DRAW_BLOCK_ROWS = 1000
 
 
 class JitterMarginalLikelihood:
@@ -158,12 +161,11 @@ class JitterMarginalLikelihood:
         rng = np.random.default_rng(rng)
         s_out = np.full(len(x), np.nan)
         ll_out = np.full(len(x), -np.inf)
-        ok = self.model.inertia_admissible(x)
-        if not ok.any():
-            return s_out, ll_out
-        r = self.model.y[None, :] - self.model.shape_magnitudes(x[ok])
-        s, ll_s = self._draw_from_residuals(r, rng)
-        s_out[ok], ll_out[ok] = s, ll_s
+        ok = np.flatnonzero(self.model.inertia_admissible(x))
+        for i in range(0, len(ok), DRAW_BLOCK_ROWS):  # blocks: the model's work arrays grow with the rows
+            idx = ok[i:i + DRAW_BLOCK_ROWS]
+            r = self.model.y[None, :] - self.model.shape_magnitudes(x[idx])
+            s_out[idx], ll_out[idx] = self._draw_from_residuals(r, rng)
         return s_out, np.where(np.isfinite(ll_out), ll_out, -np.inf)
 
     def _draw_from_residuals(self, r, rng):
