@@ -4,8 +4,9 @@ Physical ellipsoid models (:class:`tumble.model.PhysicalModel`) for SAM and LAM 
 the evidence's frequency pairs mapped through the light-curve frequency relations (SAM: dominant
 ``f_phi - f_psi``; LAM: ``f_phi`` and ``f_phi + f_psi``; Kaasalainen 2001, A&A 376, 302; Pravec et
 al. 2005, Icarus 173, 108). For NPA every acceptable solution is enumerated and ranked by
-:mod:`tumble.classify.solutions`; the top solution's mode is sampled by
-:func:`tumble.inference.local.sample_local_mode`, confined to that mode.
+:mod:`tumble.classify.solutions`; the top solution's mode is sampled by :func:`sample_solution_mode`
+(the jitter integrated out, the optimum polished to its mode's top,
+:func:`tumble.inference.local.sample_local_mode` confined to that mode).
 """
 
 from __future__ import annotations
@@ -19,7 +20,7 @@ from tumble.classify.evidence import ClassifyError, EvidenceResult
 from tumble.exceptions import TumbleError
 
 __all__ = ["npa_candidates", "RotationFit", "fit_rotation_state", "optimise_state", "thin_lightcurve",
-           "whitened_residuals", "random_orientations"]
+           "whitened_residuals", "random_orientations", "sample_solution_mode", "sampling_chart"]
 
 
 def npa_candidates(f1_per_d: float, f2_per_d: float, *, forms: str = "published") -> list:
@@ -250,6 +251,70 @@ def random_orientations(space, base: dict, n, rng) -> np.ndarray:
     return x
 
 
+def sampling_chart(model, x_opt, marginal_jitter: bool):
+    """The model's sampling chart at ``x_opt``, without the jitter coordinate when it is integrated out."""
+    from tumble.inference.local import ChartChain, FixedCoordinateChart
+    from tumble.inference.marginal import JITTER_PARAMETER
+
+    chart = model.sampling_chart(x_opt)
+    if not marginal_jitter:
+        return chart
+    charts = list(chart.charts) if isinstance(chart, ChartChain) else [chart]
+    k = model.space.index(JITTER_PARAMETER)
+    charts.append(FixedCoordinateChart(charts[-1].space, JITTER_PARAMETER, float(np.asarray(x_opt)[k])))
+    return ChartChain(charts)
+
+
+def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int = 1500, n_walkers: int | None = None,
+                         rng=None, progress: bool = False, marginal_jitter: bool = True, polish: bool = True):
+    """Posterior of one solution's mode of the physical model (the sampling tail of :func:`fit_rotation_state`).
+
+    1. The jitter is integrated out of the likelihood (Gaussian likelihood only;
+       :class:`tumble.inference.marginal.JitterMarginalLikelihood`): one dimension fewer, and not the
+       jitter's plateau against its lower bound.
+    2. The optimum is polished to the top of its mode in the model's chart
+       (:func:`tumble.inference.local.polish_mode`); a polish that would move ``f_psi`` or ``f_phi``
+       by more than ``SAME_SOLUTION_CYCLES`` per span (another solution) is not used.
+    3. The mode is sampled in the chart at the polished optimum (attitude as a rotation vector, the
+       period ratio in place of the excitation; :func:`tumble.inference.local.sample_local_mode`).
+    4. The jitter of every sample is drawn from its conditional posterior.
+
+    Returns the :class:`tumble.inference.Posterior` in the model's parameters; its diagnostics add
+    ``polish_gain`` (nats of log-posterior gained by the polish) to the local-mode ones.
+    """
+    from dataclasses import replace
+
+    from tumble.classify.solutions import SAME_SOLUTION_CYCLES
+    from tumble.inference.local import polish_mode, sample_local_mode
+    from tumble.inference.marginal import JITTER_PARAMETER, JitterMarginalLikelihood
+    from tumble.inference.space import as_generator
+
+    rng = as_generator(rng)
+    marginal_jitter = bool(marginal_jitter) and not model.student_t
+    likelihood = JitterMarginalLikelihood(model) if marginal_jitter else model
+    x = model.space.wrap(np.asarray(x_opt, float))
+    gain = 0.0
+    notes = []
+    if polish:
+        pol = polish_mode(likelihood, model.space, x, sampling_chart(model, x, marginal_jitter))
+        before, after = model.derived(x[None]), model.derived(pol.x[None])
+        shift = max(abs(24.0 / after[k][0] - 24.0 / before[k][0]) * span_d for k in ("p_psi_h", "p_phi_h"))
+        if shift <= SAME_SOLUTION_CYCLES:
+            x, gain = pol.x, pol.log_posterior_gain
+        else:
+            notes.append(f"the optimum's polish moved the frequencies by {shift:.2f} cycles per span (another "
+                         f"solution) and was not used")
+    post = sample_local_mode(likelihood, model.space, x, max_steps=max_steps, n_walkers=n_walkers,
+                             chart=sampling_chart(model, x, marginal_jitter), rng=rng, progress=progress)
+    if marginal_jitter:
+        s, ll = likelihood.draw_jitter(post.samples, rng)
+        samples = post.samples.copy()
+        samples[:, model.space.index(JITTER_PARAMETER)] = s
+        post = replace(post, samples=samples, log_likelihood=ll, log_prob=model.space.log_prior(samples) + ll)
+    diag = replace(post.diagnostics, polish_gain=float(gain), polish_note="; ".join(notes))
+    return replace(post, diagnostics=diag)
+
+
 def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=None, n_walkers: int | None = None,
                        max_steps: int = 1500, max_points: int = 300, n_orientations: int = 48,
                        progress: bool = False, student_t: bool = False) -> RotationFit:
@@ -323,14 +388,10 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     reasons = []
     converged = False
     if max_steps > 0:
-        from tumble.inference.local import sample_local_mode
-
         # the chosen solution's own mode, started from its optimum (tumble.inference.local): the
-        # interval is never a mixture of separated modes, and leaving the mode is a diagnostic; it is
-        # sampled in the model's chart (attitude as a rotation about the optimum's, the period ratio
-        # in place of the excitation), where the mode is nearly Gaussian instead of a curved ridge
-        posterior = sample_local_mode(model, model.space, best_x, max_steps=max_steps, n_walkers=n_walkers,
-                                      chart=model.sampling_chart(best_x), rng=rng, progress=progress)
+        # interval is never a mixture of separated modes, and leaving the mode is a diagnostic
+        posterior = sample_solution_mode(model, best_x, span_d=lc.span_d, max_steps=max_steps, n_walkers=n_walkers,
+                                         rng=rng, progress=progress)
         converged = posterior.converged
         reasons = list(posterior.diagnostics.reasons)
         samples = posterior.samples

@@ -7,6 +7,7 @@ Sub-modules (one concept each):
 - :mod:`~tumble.inference.diagnostics` - autocorrelation, acceptance, split R-hat, walker clusters;
 - :mod:`~tumble.inference.sampling` - :func:`sample_posterior` and the :class:`Posterior` contract;
 - :mod:`~tumble.inference.local` - :func:`sample_local_mode`: one solution's mode from its optimum;
+- :mod:`~tumble.inference.marginal` - the physical model's likelihood with the jitter integrated out;
 - :mod:`~tumble.inference.evidence` - stepping-stone / thermodynamic evidence, Laplace, BIC;
 - :mod:`~tumble.inference.bayes` - Bayes factors, model probabilities, published evidence scales.
 

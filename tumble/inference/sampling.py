@@ -146,6 +146,11 @@ class SamplerDiagnostics:
         Local-mode sampling: fraction of the proposals that fell outside the mode region (``nan`` otherwise).
     pilot_steps : int
         Local-mode sampling: steps per ensemble of the discarded pilot run (0 otherwise).
+    polish_gain : float
+        Solution-mode sampling (:func:`tumble.classify.rotation.sample_solution_mode`): log-posterior
+        gained by polishing the optimum before sampling, nats (``nan`` otherwise).
+    polish_note : str
+        Why the polish was not used, when it was not.
     """
 
     converged: bool
@@ -171,6 +176,8 @@ class SamplerDiagnostics:
     mode_edge_fraction: float = math.nan
     outside_fraction: float = math.nan
     pilot_steps: int = 0
+    polish_gain: float = math.nan
+    polish_note: str = ""
 
     @property
     def n_modes(self) -> int:
