@@ -40,7 +40,8 @@ from tumble.classify.thresholds import MIN_CYCLES
 from tumble.exceptions import TumbleError
 from tumble.model import FourierBasis, FourierVariant, LinearData, fit_linear, linear_log_evidence, prepare_linear
 
-__all__ = ["ClassifyError", "EvidenceResult", "EvidenceProblem", "fourier_evidence", "fourier_evidence_with_problem", "build_problem",
+__all__ = ["ClassifyError", "EvidenceResult", "FrequencyWidth", "frequency_width", "combined_frequency_width",
+           "session_jackknife_f1", "pa_red_noise_beta", "FREQUENCY_WIDTH_RULES", "EvidenceProblem", "fourier_evidence", "fourier_evidence_with_problem", "build_problem",
            "NpaWindow", "npa_window"]
 
 #: Largest f2 grid per window (the step is widened beyond it; the peaks are refined anyway).
@@ -55,6 +56,12 @@ N_F2_PEAKS = 4
 MAX_ASCENT_GRID = 40_000
 #: Smallest quadrature error credited to ln B (nats): the rules agree to about this on resolved peaks.
 MIN_LNB_ERROR = 0.05
+#: The delete-one-session jackknife of f1 needs at least this many sessions (common practice: the
+#: jackknife variance from fewer groups is itself too uncertain to use).
+MIN_JACKKNIFE_SESSIONS = 4
+#: Half-width of the f1 search of each jackknife replicate, in coarse steps (a step is 1/(6 span):
+#: the replicate stays on the same peak, never on a cycle-count alias 1/span away).
+JACKKNIFE_HALF_WIDTH_STEPS = 1.0
 
 
 class ClassifyError(TumbleError, ValueError):
@@ -157,6 +164,33 @@ class EvidenceResult:
     npa_testable: bool = True
     error_floor_mag: float = math.nan
     kappa_min: float = math.nan
+    f1_sigma_white_per_d: float = math.nan
+    f1_red_noise_beta: float = math.nan
+    f1_sigma_jackknife_per_d: float = math.nan
+    f1_sigma_method: str = ""
+
+
+@dataclass(frozen=True)
+class FrequencyWidth:
+    """The 1-sigma width of the PA fundamental frequency by several estimators (c/d).
+
+    Attributes
+    ----------
+    white : float
+        Laplace width of the frequency-marginal evidence (independent residuals assumed).
+    beta : float
+        Time-averaging factor of the best PA fit's residuals (:func:`tumble.periodogram.red_noise.red_noise_factor`).
+    jackknife : float
+        Delete-one-session jackknife standard deviation of the best frequency (NaN with fewer than
+        :data:`MIN_JACKKNIFE_SESSIONS` sessions).
+    n_sessions : int
+        Sessions (groups) of the jackknife.
+    """
+
+    white: float
+    beta: float
+    jackknife: float
+    n_sessions: int
 
 
 @dataclass(frozen=True)
@@ -433,6 +467,89 @@ def ascent_windows(problem: EvidenceProblem, f2_best: float, known_f1) -> list:
             if all(abs(g1[j] - f) > 3 * problem.step for f in known_f1)]
 
 
+def _best_pa_fit(problem: EvidenceProblem, f1: float):
+    """The most probable PA variant's fit at ``f1`` and that variant's index."""
+    vpa = int(np.argmax(linear_log_evidence(problem.data, problem.pa_basis, [f1])[0]))
+    return fit_linear(problem.data, problem.pa_basis, vpa, f1), vpa
+
+
+def pa_red_noise_beta(problem: EvidenceProblem, lc, f1: float) -> float:
+    """Time-averaging factor beta of the best PA fit's residuals at ``f1`` (Winn et al. 2008, section 3)."""
+    from tumble.periodogram.red_noise import red_noise_factor
+
+    fit, _ = _best_pa_fit(problem, f1)
+    data = problem.data
+    n_par = len(fit.coefficients) + max(0, data.n_nuisance - len(np.unique(lc.session)))
+    return red_noise_factor(lc.t, data.y - fit.model_mag, 1.0 / data.sw, lc.session, n_params=n_par).beta
+
+
+def _pa_log_density_of(f, *, problem: EvidenceProblem, data: LinearData):
+    """The PA family's ``ln Z(f1) + ln p(f1)`` on other data (a jackknife replicate) with the problem's basis and prior."""
+    return mixture(linear_log_evidence(data, problem.pa_basis, f)) + problem.f1_log_prior(f)
+
+
+def session_jackknife_f1(problem: EvidenceProblem, lc, f1: float, weights=None) -> tuple:
+    """Delete-one-session jackknife standard deviation of the PA frequency (c/d) and the number of sessions.
+
+    Each replicate drops one session (sparse points, session -1, are never dropped), rebuilds the
+    whitened data with the same model-error floor and error-scale bound, and finds the peak of the
+    PA family's frequency-marginal evidence within :data:`JACKKNIFE_HALF_WIDTH_STEPS` coarse steps of
+    ``f1``. The grouped jackknife variance is ``(g - 1)/g * sum (f_i - mean f)^2`` over the ``g``
+    sessions (Quenouille 1956, Tukey 1958; for groups of observations, Efron & Tibshirani 1993,
+    An Introduction to the Bootstrap, section 11.5). It carries the night-to-night scatter of the
+    frequency that correlated residuals within nights (and a shape that changes from night to night)
+    produce, which the Laplace width of independent residuals does not.
+    """
+    session = np.asarray(lc.session)
+    groups = [s for s in np.unique(session) if s >= 0]
+    if len(groups) < MIN_JACKKNIFE_SESSIONS:
+        return math.nan, len(groups)
+    w = None if weights is None else np.asarray(weights, float)
+    half = JACKKNIFE_HALF_WIDTH_STEPS * problem.step
+    found = []
+    for g in groups:
+        keep = session != g
+        sub = lc.subset(keep)
+        data = prepare_linear(sub, weights=None if w is None else w[keep], error_floor_mag=problem.error_floor_mag,
+                              kappa_min=problem.kappa_min)
+        pk = integrate_peak(partial(_pa_log_density_of, problem=problem, data=data), f1, half, problem.f_lo,
+                            problem.f_hi)
+        found.append(pk.best)
+    f = np.asarray(found, float)
+    ng = len(f)
+    return float(math.sqrt((ng - 1) / ng * np.sum((f - f.mean()) ** 2))), ng
+
+
+def frequency_width(problem: EvidenceProblem, lc, f1: float, sigma_white: float, weights=None) -> FrequencyWidth:
+    """The PA frequency's width by the Laplace rule, the red-noise factor and the session jackknife."""
+    beta = pa_red_noise_beta(problem, lc, f1)
+    jack, ng = session_jackknife_f1(problem, lc, f1, weights)
+    return FrequencyWidth(float(sigma_white), float(beta), float(jack), int(ng))
+
+
+def _width_white(w: FrequencyWidth) -> float:
+    return w.white
+
+
+def _width_beta(w: FrequencyWidth) -> float:
+    return w.white * w.beta if np.isfinite(w.beta) else w.white
+
+
+def _width_jackknife(w: FrequencyWidth) -> float:
+    return max(w.white, w.jackknife) if np.isfinite(w.jackknife) else _width_beta(w)
+
+
+#: Rules that turn the estimators of :class:`FrequencyWidth` into the reported f1 width, by name.
+FREQUENCY_WIDTH_RULES = {"white": _width_white, "beta": _width_beta, "jackknife": _width_jackknife}
+#: The rule used (chosen on the calibration half of the library: docs/methods-classify.md).
+FREQUENCY_WIDTH_RULE = "white"
+
+
+def combined_frequency_width(w: FrequencyWidth, rule: str = FREQUENCY_WIDTH_RULE) -> tuple:
+    """The reported f1 width (c/d) by the named rule of :data:`FREQUENCY_WIDTH_RULES`, and the rule's name."""
+    return float(FREQUENCY_WIDTH_RULES[rule](w)), rule
+
+
 def _best_fit_diagnostics(problem: EvidenceProblem, f1: float, nw: NpaWindow, session) -> dict:
     """Variant labels, error scales, amplitude, harmonic dominance and Delta BIC at the best frequencies."""
     data, pa_b, npa_b = problem.data, problem.pa_basis, problem.npa_basis
@@ -544,6 +661,8 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
     npa_mass = float(np.exp(ln_npa_k.max() - ln_z_npa)) * npa[inpa].mass if testable else 1.0
     r = npa[inpa]
     diag = _best_fit_diagnostics(problem, f1, r, lc.session)
+    width = frequency_width(problem, lc, f1, pa_windows[ipa].sigma, weights)
+    f1_sigma, f1_method = combined_frequency_width(width)
     windows = tuple(dict(f1_per_d=float(pa_windows[i].best), ln_pa=float(pa_windows[i].ln_integral),
                          ln_npa=float(npa[i].ln), f2_per_d=float(npa[i].f2)) for i in keep)
     route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
@@ -554,9 +673,10 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
              f"model-error floor {problem.error_floor_mag:.3g} mag, error scale >= {problem.kappa_min:.3g}")
     return problem, EvidenceResult(
         ln_z_pa=float(ln_z_pa), ln_z_npa=float(ln_z_npa), ln_bayes_factor=float(ln_b), ln_bayes_factor_err=float(err),
-        f1_per_d=float(f1), f1_sigma_per_d=float(pa_windows[ipa].sigma), f1_npa_per_d=float(r.f1),
+        f1_per_d=float(f1), f1_sigma_per_d=float(f1_sigma), f1_npa_per_d=float(r.f1),
         f1_npa_sigma_per_d=float(r.s1), f2_per_d=float(r.f2), f2_sigma_per_d=float(r.s2),
         pa_window_mass=pa_mass, npa_window_mass=float(npa_mass), windows=windows, window_disagreement=disagree,
         npa_pairs=_npa_pairs(npa, problem.span_d), n_evaluations=int(n_eval), route=route,
         f2_admissible_share=float(share), npa_testable=testable, error_floor_mag=problem.error_floor_mag,
-        kappa_min=problem.kappa_min, **diag)
+        kappa_min=problem.kappa_min, f1_sigma_white_per_d=width.white, f1_red_noise_beta=width.beta,
+        f1_sigma_jackknife_per_d=width.jackknife, f1_sigma_method=f1_method, **diag)
