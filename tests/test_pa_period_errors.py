@@ -63,3 +63,62 @@ def test_beta_fast_against_slow_reference(rng):
     fast = red_noise_factor(t, r, err, s, bin_minutes=(20.0, 45.0), n_params=3)
     for k, w in enumerate((20.0, 45.0)):
         assert fast.beta_per_bin[k] == pytest.approx(red_noise_factor_reference(t, r, err, s, w, n_params=3), rel=1e-10)
+
+
+# ---------------------------------------------------------------------------
+# The synodic-sidereal difference for any pole
+
+
+def test_azimuth_rate_reduces_to_the_longitude_rate_for_the_ecliptic_pole():
+    # Harris et al. 1984 (Icarus 57, 251): for a spin axis at the ecliptic pole the bisector's
+    # azimuth about it is its ecliptic longitude, so both rates agree (geometry by construction).
+    from tumble.geometry import bisector_azimuth_rate_deg_per_d, bisector_longitude_rate_deg_per_d
+
+    t = np.linspace(0.0, 30.0, 300)
+    lon = np.radians(40.0 + 0.45 * t)
+    d = np.column_stack([np.cos(lon), np.sin(lon), np.zeros_like(t)])
+    rate = bisector_azimuth_rate_deg_per_d(t, d, d, [0.0, 0.0, 1.0])[0]
+    assert rate == pytest.approx(bisector_longitude_rate_deg_per_d(t, d, d), rel=1e-9)
+    assert rate == pytest.approx(0.45, rel=1e-9)
+    # the spin axis reversed turns the azimuth the other way
+    assert bisector_azimuth_rate_deg_per_d(t, d, d, [0.0, 0.0, -1.0])[0] == pytest.approx(-0.45, rel=1e-9)
+
+
+def test_pole_lattice_is_uniform_on_the_sphere():
+    # moments of the uniform distribution on the unit sphere: E[z] = 0, E[z^2] = 1/3 (common practice)
+    from tumble.geometry import pole_lattice
+
+    p = pole_lattice(2000)
+    assert np.allclose(np.linalg.norm(p, axis=1), 1.0)
+    assert abs(p[:, 2].mean()) < 1e-3 and p[:, 2].var() == pytest.approx(1 / 3, rel=1e-3)
+    assert np.allclose(p.mean(axis=0), 0.0, atol=2e-3)
+
+
+def test_simulated_synodic_period_follows_the_azimuth_rate_for_an_inclined_pole():
+    # A PA body with its pole in the ecliptic, 90 deg from the bisector (longitude about 83 deg in this
+    # plan): the light curve's synodic period differs from the sidereal one by P^2 * rate_az / 360 / 24
+    # with the bisector's azimuth rate about the spin axis (Harris et al. 1984); the ecliptic-longitude
+    # rule of thumb, exact only for a pole at the ecliptic pole, is several times too large here and of
+    # the wrong sign. Checked to 25 % of the difference, which is several times the scan's error.
+    from tumble.dynamics import RotationState
+    from tumble.geometry import bisector_azimuth_rate_deg_per_d, bisector_longitude_rate_deg_per_d
+    from tumble.periodogram import fourier_scan
+    from tumble.simulate import DenseCampaign, NoiseModel, opposition_elements, simulate_lightcurve
+
+    p_sid, lon_deg, lat_deg = 20.0, 173.0, 0.0
+    state = RotationState.principal_axis(p_sid, lon_deg, lat_deg, 0.0, 2459000.5)
+    plan = DenseCampaign(start_jd_utc=2459000.5, n_nights=14, hours_per_night=7.0, cadence_min=10.0,
+                         night_spacing_d=2.0)
+    el = opposition_elements(2459000.5, a_au=1.3, e=0.1, i_deg=2.0, days_before=14.0)
+    lc = simulate_lightcurve(state, (1.6, 1.1, 1.0), plan, el, noise=NoiseModel(0.003), rng=4).lightcurve
+    lon, lat = np.radians(lon_deg), np.radians(lat_deg)
+    pole = [np.cos(lat) * np.cos(lon), np.cos(lat) * np.sin(lon), np.sin(lat)]
+    rate_az = bisector_azimuth_rate_deg_per_d(lc.t, lc.sun_dir, lc.obs_dir, pole)[0]
+    rate_lon = bisector_longitude_rate_deg_per_d(lc.t, lc.sun_dir, lc.obs_dir)
+    f_syn_pred = 1.0 / p_sid - rate_az / 360.0 / 24.0  # c/h
+    predicted = 1.0 / f_syn_pred - p_sid
+    syn = fourier_scan(lc, min_period_h=15.0, max_period_h=25.0)
+    measured = syn.rotation_period_h - p_sid
+    assert abs(predicted) > 5.0 * syn.rotation_period_h_err
+    assert abs(rate_lon) > 2.0 * abs(rate_az) and rate_az * rate_lon < 0  # the rule of thumb fails here
+    assert measured == pytest.approx(predicted, rel=0.25)
