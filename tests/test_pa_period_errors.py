@@ -4,6 +4,7 @@ width against the least-squares formula, and a real dense PA rotator against its
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -122,3 +123,74 @@ def test_simulated_synodic_period_follows_the_azimuth_rate_for_an_inclined_pole(
     assert abs(predicted) > 5.0 * syn.rotation_period_h_err
     assert abs(rate_lon) > 2.0 * abs(rate_az) and rate_az * rate_lon < 0  # the rule of thumb fails here
     assert measured == pytest.approx(predicted, rel=0.25)
+
+
+def test_pole_marginal_rate_against_the_great_circle_formula():
+    # A bisector moving uniformly at omega along a great circle (normal h): about a spin axis n its
+    # azimuth turns at omega * (n.h) / (1 - (n.b)^2) (spherical geometry: the rate of the azimuth
+    # of a point moving perpendicular to b). Over poles uniform on the sphere (an independent Monte
+    # Carlo draw) the quantiles of |rate| must match the lattice quantiles of the geometry module.
+    from tumble.geometry import pole_marginal_bisector_rate_deg_per_d
+
+    omega, t = 0.3, np.linspace(0.0, 1.0, 50)  # deg/day over one day: the rate is constant along the arc
+    lon = np.radians(omega * t)
+    b = np.column_stack([np.cos(lon), np.sin(lon), np.zeros_like(t)])
+    mc = np.random.default_rng(7).normal(size=(400_000, 3))
+    mc /= np.linalg.norm(mc, axis=1, keepdims=True)
+    analytic = omega * np.abs(mc[:, 2]) / (1.0 - mc[:, 0] ** 2)  # b = x, h = z at the arc's start
+    for q in (0.5, 0.68, 0.8):
+        assert pole_marginal_bisector_rate_deg_per_d(t, b, b, quantile=q) == pytest.approx(
+            np.quantile(analytic, q), rel=0.03)
+
+
+# ---------------------------------------------------------------------------
+# The frequency width
+
+
+def test_laplace_frequency_width_against_least_squares_covariance():
+    # A sinusoid with white noise and a free zero-point per night: the evidence's f1 width must agree
+    # with the frequency error of a non-linear least-squares fit of the same model
+    # (scipy.optimize.curve_fit covariance; Montgomery & O'Donoghue 1999, Delta Scuti Star Newsl. 13,
+    # 28, give sqrt(6) sigma / (pi A sqrt(N) T) for one uninterrupted run).
+    from scipy.optimize import curve_fit
+
+    from tumble.classify.evidence import fourier_evidence
+    from tumble.photometry import LightCurve
+
+    rng = np.random.default_rng(11)
+    t, s = _nights(n_nights=8, per_night=70, cadence_min=5.0)
+    f0, amp, sig = 7.7, 0.15, 0.02
+    zp = rng.normal(0.0, 0.05, 8)
+    y = amp * np.cos(2 * np.pi * f0 * t + 0.4) + zp[s] + rng.normal(0.0, sig, t.size)
+    lc = LightCurve.from_arrays(2460000.5 + t, y, np.full(t.size, sig), session=s, object_id="sine")
+    ev = fourier_evidence(lc, p_min_h=2.0, p_max_h=6.0, error_floor_mag=0.0)
+
+    def model(tt, f, a, b, *z):
+        return a * np.cos(2 * np.pi * f * tt) + b * np.sin(2 * np.pi * f * tt) + np.asarray(z)[s]
+
+    p0 = [ev.f1_per_d, amp, 0.0, *zp]
+    popt, pcov = curve_fit(model, t, y, p0=p0, sigma=np.full(t.size, sig))
+    assert ev.f1_per_d == pytest.approx(popt[0], abs=0.2 * math.sqrt(pcov[0, 0]))
+    assert ev.f1_sigma_white_per_d == pytest.approx(math.sqrt(pcov[0, 0]), rel=0.15)
+    # white noise: no red-noise factor, no narrower peak, not at a daily edge
+    assert ev.f1_red_noise_beta < 1.15 and ev.f1_fine_gain == 0.0 and not ev.f1_at_daily_edge
+
+
+@pytest.mark.skipif(not Path(UD2005).exists(), reason="open data not present")
+def test_real_two_night_rotator_lies_within_its_interval():
+    # (155140) 2005 UD, two dense nights (Ishiguro et al. 2022 data, ../shared/external_data/ud2005_snuo/
+    # README.md); published P = 5.2340 h (Huang, Muinonen, Chen & Wang 2021, Planet. Space Sci. 195,
+    # 105120). Over 1.3 days the synodic-sidereal difference is negligible, so the 1-sigma interval of the
+    # light-curve fit alone must hold the published period.
+    import pandas as pd
+
+    import tumble
+    from tumble.classify.evidence import fourier_evidence
+
+    lc = tumble.read_lightcurve(pd.read_csv(UD2005), columns="time=jd_utc_mid,mag=mag_Rc,err=mag_err")
+    ev = fourier_evidence(lc)
+    mult = 1.0 if ev.second_harmonic_dominates else 2.0
+    p_h = 24.0 * mult / ev.f1_per_d
+    err_h = 24.0 * mult * ev.f1_sigma_per_d / ev.f1_per_d**2
+    assert abs(p_h - 5.2340) <= err_h
+    assert err_h < 0.01 * 5.2340  # and the interval says something (six rotations: below 1 %)

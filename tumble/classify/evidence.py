@@ -28,6 +28,7 @@ import numpy as np
 from tumble.classify.families import NPA_COMBO_ORDERS, NPA_MAX_BASE_HARMONICS, mixture, npa_variants, pa_variants
 from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG, error_scale_floor, geometry_error_floor
 from tumble.classify.prior import (
+    DAILY_WIDTH,
     admissible_f2_share,
     commensurate_mask,
     daily_alias_mask,
@@ -56,6 +57,16 @@ N_F2_PEAKS = 4
 MAX_ASCENT_GRID = 40_000
 #: Smallest quadrature error credited to ln B (nats): the rules agree to about this on resolved peaks.
 MIN_LNB_ERROR = 0.05
+#: The fine search for a narrow PA peak spans this many Laplace widths of the found peak on each side:
+#: the richer harmonic orders of the mixture can have a peak several times narrower than the order
+#: that dominates the coarse grid, offset from it by a few of its widths when that order is too poor.
+FINE_SEARCH_SIGMAS = 6.0
+#: Points of that fine grid (a step of 0.05 widths resolves a peak 20 times narrower).
+FINE_SEARCH_POINTS = 241
+#: A fine-grid point must beat the found peak by this many nats to replace it (above the grid's noise).
+FINE_SEARCH_MIN_GAIN = 0.5
+#: A PA peak within this many of its widths of the daily-alias exclusion is pinned at its edge.
+DAILY_EDGE_SIGMAS = 3.0
 #: The delete-one-session jackknife of f1 needs at least this many sessions (common practice: the
 #: jackknife variance from fewer groups is itself too uncertain to use).
 MIN_JACKKNIFE_SESSIONS = 4
@@ -134,6 +145,21 @@ class EvidenceResult:
         An admissible NPA alternative exists on these data.
     error_floor_mag, kappa_min : float
         The model-error floor (mag) and the error-scale bound used.
+    f1_sigma_white_per_d : float
+        Laplace width of the PA peak (independent residuals), c/d; ``f1_sigma_per_d`` is this width
+        by the rule ``f1_sigma_method`` (:data:`FREQUENCY_WIDTH_RULES`), widened at the daily edge.
+    f1_red_noise_beta : float
+        Time-averaging factor of the best PA fit's residuals (1 = white; diagnostic).
+    f1_sigma_jackknife_per_d : float
+        Delete-one-session jackknife width of f1, c/d (NaN unless computed; diagnostic).
+    f1_sigma_method : str
+        The width rule used.
+    f1_at_daily_edge : bool
+        The PA peak sits at the edge of the daily-alias exclusion: the period cannot be told from
+        the nightly zero-points closer to k cycles/day, and ``f1_sigma_per_d`` is widened to the
+        exclusion's half-width.
+    f1_fine_gain : float
+        Nats by which the fine search's narrow peak beat the window's peak (0: the peak was kept).
     """
 
     ln_z_pa: float
@@ -168,6 +194,8 @@ class EvidenceResult:
     f1_red_noise_beta: float = math.nan
     f1_sigma_jackknife_per_d: float = math.nan
     f1_sigma_method: str = ""
+    f1_at_daily_edge: bool = False
+    f1_fine_gain: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -520,11 +548,50 @@ def session_jackknife_f1(problem: EvidenceProblem, lc, f1: float, weights=None) 
     return float(math.sqrt((ng - 1) / ng * np.sum((f - f.mean()) ** 2))), ng
 
 
-def frequency_width(problem: EvidenceProblem, lc, f1: float, sigma_white: float, weights=None) -> FrequencyWidth:
-    """The PA frequency's width by the Laplace rule, the red-noise factor and the session jackknife."""
+def frequency_width(problem: EvidenceProblem, lc, f1: float, sigma_white: float, weights=None,
+                    jackknife: bool = False) -> FrequencyWidth:
+    """The PA frequency's width by the Laplace rule, the red-noise factor and (optionally) the session jackknife."""
     beta = pa_red_noise_beta(problem, lc, f1)
-    jack, ng = session_jackknife_f1(problem, lc, f1, weights)
+    jack, ng = session_jackknife_f1(problem, lc, f1, weights) if jackknife else (math.nan, 0)
     return FrequencyWidth(float(sigma_white), float(beta), float(jack), int(ng))
+
+
+def fine_pa_peak(problem: EvidenceProblem, peak: PeakIntegral) -> tuple:
+    """A narrower, higher PA peak near the window's peak: ``(PeakIntegral, gain in nats)``.
+
+    The window's grid resolves the peak of the dominant harmonic order; a richer order of the
+    mixture can put a peak several times narrower and many nats higher within a few widths of it
+    (the poorer order's misfit biases its peak). The mixture is evaluated on
+    :data:`FINE_SEARCH_POINTS` points over +-:data:`FINE_SEARCH_SIGMAS` widths; a point higher by
+    :data:`FINE_SEARCH_MIN_GAIN` nats is refined by :func:`integrate_peak` and replaces the peak.
+    Returns the given peak and 0 when nothing higher is found.
+    """
+    if not (np.isfinite(peak.sigma) and peak.sigma > 0):
+        return peak, 0.0
+    half = FINE_SEARCH_SIGMAS * peak.sigma
+    grid = np.linspace(peak.best - half, peak.best + half, FINE_SEARCH_POINTS)
+    grid = grid[(grid >= problem.f_lo) & (grid <= problem.f_hi)]
+    if grid.size < 3:
+        return peak, 0.0
+    v = problem.pa_log_density(grid)
+    j = int(np.argmax(v))
+    gain = float(v[j] - peak.best_value)
+    if not gain > FINE_SEARCH_MIN_GAIN:
+        return peak, 0.0
+    step = grid[1] - grid[0]
+    fine = integrate_peak(problem.pa_log_density, float(grid[j]), 2.0 * step, problem.f_lo, problem.f_hi)
+    return (fine, float(fine.best_value - peak.best_value)) if fine.best_value > peak.best_value else (peak, 0.0)
+
+
+def at_daily_edge(problem: EvidenceProblem, f1: float, sigma: float) -> bool:
+    """The PA peak lies within :data:`DAILY_EDGE_SIGMAS` widths of the daily-alias exclusion (nightly data only).
+
+    Without a width (no negative curvature: a peak cut by the exclusion has none) one coarse step is used.
+    """
+    if not problem.nightly:
+        return False
+    d = DAILY_EDGE_SIGMAS * sigma if np.isfinite(sigma) and sigma > 0 else problem.step
+    return bool(np.any(daily_alias_mask(np.array([f1 - d, f1 + d]), problem.span_d, problem.nightly)))
 
 
 def _width_white(w: FrequencyWidth) -> float:
@@ -641,7 +708,10 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
     ln_z_npa = logsumexp(ln_npa_k)
     ipa = keep[int(np.argmax(ln_pa_k))]
     inpa = keep[int(np.argmax(ln_npa_k))] if np.any(np.isfinite(ln_npa_k)) else ipa
-    f1 = pa_windows[ipa].best
+    # the period's location and width from the highest (possibly narrow) point of the dominant PA
+    # window; the window's integral (and ln B) stays the window rule's
+    pa_peak, fine_gain = fine_pa_peak(problem, pa_windows[ipa])
+    f1 = pa_peak.best
     share = admissible_f2_share(f1, problem.span_d)
     testable = bool(np.isfinite(ln_z_npa))
     ln_b = ln_z_npa - ln_z_pa if testable else math.nan
@@ -661,8 +731,11 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
     npa_mass = float(np.exp(ln_npa_k.max() - ln_z_npa)) * npa[inpa].mass if testable else 1.0
     r = npa[inpa]
     diag = _best_fit_diagnostics(problem, f1, r, lc.session)
-    width = frequency_width(problem, lc, f1, pa_windows[ipa].sigma, weights)
+    width = frequency_width(problem, lc, f1, pa_peak.sigma, weights)
     f1_sigma, f1_method = combined_frequency_width(width)
+    daily_edge = at_daily_edge(problem, f1, f1_sigma)
+    if daily_edge:  # the posterior is cut by the exclusion: the period may lie anywhere across it
+        f1_sigma = max(f1_sigma, DAILY_WIDTH / problem.span_d) if np.isfinite(f1_sigma) else DAILY_WIDTH / problem.span_d
     windows = tuple(dict(f1_per_d=float(pa_windows[i].best), ln_pa=float(pa_windows[i].ln_integral),
                          ln_npa=float(npa[i].ln), f2_per_d=float(npa[i].f2)) for i in keep)
     route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
@@ -679,4 +752,5 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
         npa_pairs=_npa_pairs(npa, problem.span_d), n_evaluations=int(n_eval), route=route,
         f2_admissible_share=float(share), npa_testable=testable, error_floor_mag=problem.error_floor_mag,
         kappa_min=problem.kappa_min, f1_sigma_white_per_d=width.white, f1_red_noise_beta=width.beta,
-        f1_sigma_jackknife_per_d=width.jackknife, f1_sigma_method=f1_method, **diag)
+        f1_sigma_jackknife_per_d=width.jackknife, f1_sigma_method=f1_method, f1_at_daily_edge=daily_edge,
+        f1_fine_gain=fine_gain, **diag)
