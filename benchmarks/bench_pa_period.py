@@ -27,13 +27,20 @@ the period error:
   rate, Harris et al. 1984) in light-curve frequency;
 - ``diag.syn_pole_per_d``: the same for the true pole (the azimuth rate of the phase-angle bisector about
   the spin axis, Harris et al. 1984, with the body's pole), signed so that ``f_syn = f_sid + value``;
-- ``diag.syn_pole_q68_per_d``: the 68th percentile of ``|value|`` over isotropic poles.
+- ``diag.syn_pole_q<NN>_per_d``: the NN-th percentile (:data:`SYNODIC_QUANTILES`) of ``|value|`` over
+  isotropic poles (:func:`tumble.geometry.pole_marginal_bisector_rate_deg_per_d`);
+- ``diag.f1_sigma_jackknife_per_d``: the delete-one-night jackknife width of f1.
+
+Each row keeps the benchmark's route as ``bench_route`` (the verdict's own ``route`` is the
+classifier's route name).
 
 ``report`` prints, per split and for the synodic (evidence) and sidereal periods: within 0.1 %,
 half/double/daily-alias counts, the distribution of ``(P - P_true)/sigma`` and the 68 % coverage; for
-the evidence route also the coverage each f1-width rule of
+synodic periods also the coverage each f1-width rule of
 :data:`tumble.classify.evidence.FREQUENCY_WIDTH_RULES` would give (the reported period's error
-recomputed with that rule's width and the same synodic widening).
+recomputed with that rule's width and the same synodic widening), the per-object diagnostics, and the
+coverage with the shipped synodic bound (ecliptic-longitude rate) against the pole-marginal bounds
+(``--cache`` recomputes the geometry columns with the current functions).
 
 Results are scientific estimates on simulated data, for research use.
 """
