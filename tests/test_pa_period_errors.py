@@ -194,3 +194,50 @@ def test_real_two_night_rotator_lies_within_its_interval():
     err_h = 24.0 * mult * ev.f1_sigma_per_d / ev.f1_per_d**2
     assert abs(p_h - 5.2340) <= err_h
     assert err_h < 0.01 * 5.2340  # and the interval says something (six rotations: below 1 %)
+
+
+def test_fine_search_finds_a_narrow_higher_peak():
+    # A broad Gaussian log-peak (width 1e-3) with a narrow one (width 5e-5) 3.5 broad widths away and 8 nats
+    # higher: the integral of exp(.) is dominated by the narrow peak, so f1 and its width must be its own
+    # (Laplace: the width of a Gaussian log-density is its standard deviation; Kass & Raftery 1995).
+    from types import SimpleNamespace
+
+    from tumble.classify.evidence import fine_pa_peak
+    from tumble.classify.quadrature import integrate_peak
+
+    f0, sb, f1, sn = 5.0, 1e-3, 5.0035, 5e-5  # the spike midway between the coarse grid points
+
+    def dens(f):
+        f = np.asarray(f, float)
+        return np.logaddexp(-0.5 * ((f - f0) / sb) ** 2, 8.0 - 0.5 * ((f - f1) / sn) ** 2)
+
+    problem = SimpleNamespace(pa_log_density=dens, f_lo=4.9, f_hi=5.1)
+    coarse = integrate_peak(dens, f0, 4e-3, 4.9, 5.1, n_grid=9)  # a grid too coarse for the spike
+    assert abs(coarse.best - f0) < sb
+    peak, gain = fine_pa_peak(problem, coarse)
+    assert peak.best == pytest.approx(f1, abs=0.1 * sn)
+    assert peak.sigma == pytest.approx(sn, rel=0.05)
+    assert gain == pytest.approx(8.0, abs=0.1)
+    # a single Gaussian peak is left alone
+    single = integrate_peak(lambda f: -0.5 * ((np.asarray(f) - f0) / sb) ** 2, f0, 4e-3, 4.9, 5.1)
+    assert fine_pa_peak(SimpleNamespace(pa_log_density=lambda f: -0.5 * ((np.asarray(f) - f0) / sb) ** 2,
+                                        f_lo=4.9, f_hi=5.1), single) == (single, 0.0)
+
+
+def test_daily_edge_flag():
+    # With nightly zero-points f1 within DAILY_WIDTH/span of k c/d (solar or sidereal day) is excluded
+    # (common practice); a peak within three widths of that band is at its edge.
+    from types import SimpleNamespace
+
+    from tumble.classify.evidence import DAILY_EDGE_SIGMAS, at_daily_edge
+    from tumble.classify.prior import DAILY_WIDTH
+    from tumble.periodogram.scan import SIDEREAL_DAY_PER_D
+
+    span = 20.0
+    problem = SimpleNamespace(nightly=True, span_d=span, step=1.0 / (6 * span))
+    edge = 2.0 * SIDEREAL_DAY_PER_D + DAILY_WIDTH / span  # upper edge of the band at 2 c/d (sidereal)
+    sigma = 1e-3
+    assert at_daily_edge(problem, edge + 0.5 * DAILY_EDGE_SIGMAS * sigma, sigma)
+    assert not at_daily_edge(problem, edge + 2.0 * DAILY_EDGE_SIGMAS * sigma, sigma)
+    assert not at_daily_edge(SimpleNamespace(nightly=False, span_d=span, step=1.0 / (6 * span)),
+                             edge + 0.5 * DAILY_EDGE_SIGMAS * sigma, sigma)
