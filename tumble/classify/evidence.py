@@ -28,6 +28,7 @@ import numpy as np
 from tumble.classify.families import NPA_COMBO_ORDERS, NPA_MAX_BASE_HARMONICS, mixture, npa_variants, pa_variants
 from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG, error_scale_floor, geometry_error_floor
 from tumble.classify.prior import (
+    DAILY_WIDTH,
     admissible_f2_share,
     commensurate_mask,
     daily_alias_mask,
@@ -40,7 +41,8 @@ from tumble.classify.thresholds import MIN_CYCLES
 from tumble.exceptions import TumbleError
 from tumble.model import FourierBasis, FourierVariant, LinearData, fit_linear, linear_log_evidence, prepare_linear
 
-__all__ = ["ClassifyError", "EvidenceResult", "EvidenceProblem", "fourier_evidence", "fourier_evidence_with_problem", "build_problem",
+__all__ = ["ClassifyError", "EvidenceResult", "FrequencyWidth", "frequency_width", "combined_frequency_width",
+           "session_jackknife_f1", "pa_red_noise_beta", "FREQUENCY_WIDTH_RULES", "EvidenceProblem", "fourier_evidence", "fourier_evidence_with_problem", "build_problem",
            "NpaWindow", "npa_window"]
 
 #: Largest f2 grid per window (the step is widened beyond it; the peaks are refined anyway).
@@ -55,6 +57,22 @@ N_F2_PEAKS = 4
 MAX_ASCENT_GRID = 40_000
 #: Smallest quadrature error credited to ln B (nats): the rules agree to about this on resolved peaks.
 MIN_LNB_ERROR = 0.05
+#: The fine search for a narrow PA peak spans this many Laplace widths of the found peak on each side:
+#: the richer harmonic orders of the mixture can have a peak several times narrower than the order
+#: that dominates the coarse grid, offset from it by a few of its widths when that order is too poor.
+FINE_SEARCH_SIGMAS = 6.0
+#: Points of that fine grid (a step of 0.05 widths resolves a peak 20 times narrower).
+FINE_SEARCH_POINTS = 241
+#: A fine-grid point must beat the found peak by this many nats to replace it (above the grid's noise).
+FINE_SEARCH_MIN_GAIN = 0.5
+#: A PA peak within this many of its widths of the daily-alias exclusion is pinned at its edge.
+DAILY_EDGE_SIGMAS = 3.0
+#: The delete-one-session jackknife of f1 needs at least this many sessions (common practice: the
+#: jackknife variance from fewer groups is itself too uncertain to use).
+MIN_JACKKNIFE_SESSIONS = 4
+#: Half-width of the f1 search of each jackknife replicate, in coarse steps (a step is 1/(6 span):
+#: the replicate stays on the same peak, never on a cycle-count alias 1/span away).
+JACKKNIFE_HALF_WIDTH_STEPS = 1.0
 
 
 class ClassifyError(TumbleError, ValueError):
@@ -127,6 +145,21 @@ class EvidenceResult:
         An admissible NPA alternative exists on these data.
     error_floor_mag, kappa_min : float
         The model-error floor (mag) and the error-scale bound used.
+    f1_sigma_white_per_d : float
+        Laplace width of the PA peak (independent residuals), c/d; ``f1_sigma_per_d`` is this width
+        by the rule ``f1_sigma_method`` (:data:`FREQUENCY_WIDTH_RULES`), widened at the daily edge.
+    f1_red_noise_beta : float
+        Time-averaging factor of the best PA fit's residuals (1 = white; diagnostic).
+    f1_sigma_jackknife_per_d : float
+        Delete-one-session jackknife width of f1, c/d (NaN unless computed; diagnostic).
+    f1_sigma_method : str
+        The width rule used.
+    f1_at_daily_edge : bool
+        The PA peak sits at the edge of the daily-alias exclusion: the period cannot be told from
+        the nightly zero-points closer to k cycles/day, and ``f1_sigma_per_d`` is widened to the
+        exclusion's half-width.
+    f1_fine_gain : float
+        Nats by which the fine search's narrow peak beat the window's peak (0: the peak was kept).
     """
 
     ln_z_pa: float
@@ -157,6 +190,35 @@ class EvidenceResult:
     npa_testable: bool = True
     error_floor_mag: float = math.nan
     kappa_min: float = math.nan
+    f1_sigma_white_per_d: float = math.nan
+    f1_red_noise_beta: float = math.nan
+    f1_sigma_jackknife_per_d: float = math.nan
+    f1_sigma_method: str = ""
+    f1_at_daily_edge: bool = False
+    f1_fine_gain: float = 0.0
+
+
+@dataclass(frozen=True)
+class FrequencyWidth:
+    """The 1-sigma width of the PA fundamental frequency by several estimators (c/d).
+
+    Attributes
+    ----------
+    white : float
+        Laplace width of the frequency-marginal evidence (independent residuals assumed).
+    beta : float
+        Time-averaging factor of the best PA fit's residuals (:func:`tumble.periodogram.red_noise.red_noise_factor`).
+    jackknife : float
+        Delete-one-session jackknife standard deviation of the best frequency (NaN with fewer than
+        :data:`MIN_JACKKNIFE_SESSIONS` sessions).
+    n_sessions : int
+        Sessions (groups) of the jackknife.
+    """
+
+    white: float
+    beta: float
+    jackknife: float
+    n_sessions: int
 
 
 @dataclass(frozen=True)
@@ -433,6 +495,128 @@ def ascent_windows(problem: EvidenceProblem, f2_best: float, known_f1) -> list:
             if all(abs(g1[j] - f) > 3 * problem.step for f in known_f1)]
 
 
+def _best_pa_fit(problem: EvidenceProblem, f1: float):
+    """The most probable PA variant's fit at ``f1`` and that variant's index."""
+    vpa = int(np.argmax(linear_log_evidence(problem.data, problem.pa_basis, [f1])[0]))
+    return fit_linear(problem.data, problem.pa_basis, vpa, f1), vpa
+
+
+def pa_red_noise_beta(problem: EvidenceProblem, lc, f1: float) -> float:
+    """Time-averaging factor beta of the best PA fit's residuals at ``f1`` (Winn et al. 2008, section 3)."""
+    from tumble.periodogram.red_noise import red_noise_factor
+
+    fit, _ = _best_pa_fit(problem, f1)
+    data = problem.data
+    n_par = len(fit.coefficients) + max(0, data.n_nuisance - len(np.unique(lc.session)))
+    return red_noise_factor(lc.t, data.y - fit.model_mag, 1.0 / data.sw, lc.session, n_params=n_par).beta
+
+
+def _pa_log_density_of(f, *, problem: EvidenceProblem, data: LinearData):
+    """The PA family's ``ln Z(f1) + ln p(f1)`` on other data (a jackknife replicate) with the problem's basis and prior."""
+    return mixture(linear_log_evidence(data, problem.pa_basis, f)) + problem.f1_log_prior(f)
+
+
+def session_jackknife_f1(problem: EvidenceProblem, lc, f1: float, weights=None) -> tuple:
+    """Delete-one-session jackknife standard deviation of the PA frequency (c/d) and the number of sessions.
+
+    Each replicate drops one session (sparse points, session -1, are never dropped), rebuilds the
+    whitened data with the same model-error floor and error-scale bound, and finds the peak of the
+    PA family's frequency-marginal evidence within :data:`JACKKNIFE_HALF_WIDTH_STEPS` coarse steps of
+    ``f1``. The grouped jackknife variance is ``(g - 1)/g * sum (f_i - mean f)^2`` over the ``g``
+    sessions (Quenouille 1956, Tukey 1958; for groups of observations, Efron & Tibshirani 1993,
+    An Introduction to the Bootstrap, section 11.5). It carries the night-to-night scatter of the
+    frequency that correlated residuals within nights (and a shape that changes from night to night)
+    produce, which the Laplace width of independent residuals does not.
+    """
+    session = np.asarray(lc.session)
+    groups = [s for s in np.unique(session) if s >= 0]
+    if len(groups) < MIN_JACKKNIFE_SESSIONS:
+        return math.nan, len(groups)
+    w = None if weights is None else np.asarray(weights, float)
+    half = JACKKNIFE_HALF_WIDTH_STEPS * problem.step
+    found = []
+    for g in groups:
+        keep = session != g
+        sub = lc.subset(keep)
+        data = prepare_linear(sub, weights=None if w is None else w[keep], error_floor_mag=problem.error_floor_mag,
+                              kappa_min=problem.kappa_min)
+        pk = integrate_peak(partial(_pa_log_density_of, problem=problem, data=data), f1, half, problem.f_lo,
+                            problem.f_hi)
+        found.append(pk.best)
+    f = np.asarray(found, float)
+    ng = len(f)
+    return float(math.sqrt((ng - 1) / ng * np.sum((f - f.mean()) ** 2))), ng
+
+
+def frequency_width(problem: EvidenceProblem, lc, f1: float, sigma_white: float, weights=None,
+                    jackknife: bool = False) -> FrequencyWidth:
+    """The PA frequency's width by the Laplace rule, the red-noise factor and (optionally) the session jackknife."""
+    beta = pa_red_noise_beta(problem, lc, f1)
+    jack, ng = session_jackknife_f1(problem, lc, f1, weights) if jackknife else (math.nan, 0)
+    return FrequencyWidth(float(sigma_white), float(beta), float(jack), int(ng))
+
+
+def fine_pa_peak(problem: EvidenceProblem, peak: PeakIntegral) -> tuple:
+    """A narrower, higher PA peak near the window's peak: ``(PeakIntegral, gain in nats)``.
+
+    The window's grid resolves the peak of the dominant harmonic order; a richer order of the
+    mixture can put a peak several times narrower and many nats higher within a few widths of it
+    (the poorer order's misfit biases its peak). The mixture is evaluated on
+    :data:`FINE_SEARCH_POINTS` points over +-:data:`FINE_SEARCH_SIGMAS` widths; a point higher by
+    :data:`FINE_SEARCH_MIN_GAIN` nats is refined by :func:`integrate_peak` and replaces the peak.
+    Returns the given peak and 0 when nothing higher is found.
+    """
+    if not (np.isfinite(peak.sigma) and peak.sigma > 0):
+        return peak, 0.0
+    half = FINE_SEARCH_SIGMAS * peak.sigma
+    grid = np.linspace(peak.best - half, peak.best + half, FINE_SEARCH_POINTS)
+    grid = grid[(grid >= problem.f_lo) & (grid <= problem.f_hi)]
+    if grid.size < 3:
+        return peak, 0.0
+    v = problem.pa_log_density(grid)
+    j = int(np.argmax(v))
+    gain = float(v[j] - peak.best_value)
+    if not gain > FINE_SEARCH_MIN_GAIN:
+        return peak, 0.0
+    step = grid[1] - grid[0]
+    fine = integrate_peak(problem.pa_log_density, float(grid[j]), 2.0 * step, problem.f_lo, problem.f_hi)
+    return (fine, float(fine.best_value - peak.best_value)) if fine.best_value > peak.best_value else (peak, 0.0)
+
+
+def at_daily_edge(problem: EvidenceProblem, f1: float, sigma: float) -> bool:
+    """The PA peak lies within :data:`DAILY_EDGE_SIGMAS` widths of the daily-alias exclusion (nightly data only).
+
+    Without a width (no negative curvature: a peak cut by the exclusion has none) one coarse step is used.
+    """
+    if not problem.nightly:
+        return False
+    d = DAILY_EDGE_SIGMAS * sigma if np.isfinite(sigma) and sigma > 0 else problem.step
+    return bool(np.any(daily_alias_mask(np.array([f1 - d, f1 + d]), problem.span_d, problem.nightly)))
+
+
+def _width_white(w: FrequencyWidth) -> float:
+    return w.white
+
+
+def _width_beta(w: FrequencyWidth) -> float:
+    return w.white * w.beta if np.isfinite(w.beta) else w.white
+
+
+def _width_jackknife(w: FrequencyWidth) -> float:
+    return max(w.white, w.jackknife) if np.isfinite(w.jackknife) else _width_beta(w)
+
+
+#: Rules that turn the estimators of :class:`FrequencyWidth` into the reported f1 width, by name.
+FREQUENCY_WIDTH_RULES = {"white": _width_white, "beta": _width_beta, "jackknife": _width_jackknife}
+#: The rule used (chosen on the calibration half of the library: docs/methods-classify.md).
+FREQUENCY_WIDTH_RULE = "white"
+
+
+def combined_frequency_width(w: FrequencyWidth, rule: str = FREQUENCY_WIDTH_RULE) -> tuple:
+    """The reported f1 width (c/d) by the named rule of :data:`FREQUENCY_WIDTH_RULES`, and the rule's name."""
+    return float(FREQUENCY_WIDTH_RULES[rule](w)), rule
+
+
 def _best_fit_diagnostics(problem: EvidenceProblem, f1: float, nw: NpaWindow, session) -> dict:
     """Variant labels, error scales, amplitude, harmonic dominance and Delta BIC at the best frequencies."""
     data, pa_b, npa_b = problem.data, problem.pa_basis, problem.npa_basis
@@ -524,7 +708,10 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
     ln_z_npa = logsumexp(ln_npa_k)
     ipa = keep[int(np.argmax(ln_pa_k))]
     inpa = keep[int(np.argmax(ln_npa_k))] if np.any(np.isfinite(ln_npa_k)) else ipa
-    f1 = pa_windows[ipa].best
+    # the period's location and width from the highest (possibly narrow) point of the dominant PA
+    # window; the window's integral (and ln B) stays the window rule's
+    pa_peak, fine_gain = fine_pa_peak(problem, pa_windows[ipa])
+    f1 = pa_peak.best
     share = admissible_f2_share(f1, problem.span_d)
     testable = bool(np.isfinite(ln_z_npa))
     ln_b = ln_z_npa - ln_z_pa if testable else math.nan
@@ -544,6 +731,11 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
     npa_mass = float(np.exp(ln_npa_k.max() - ln_z_npa)) * npa[inpa].mass if testable else 1.0
     r = npa[inpa]
     diag = _best_fit_diagnostics(problem, f1, r, lc.session)
+    width = frequency_width(problem, lc, f1, pa_peak.sigma, weights)
+    f1_sigma, f1_method = combined_frequency_width(width)
+    daily_edge = at_daily_edge(problem, f1, f1_sigma)
+    if daily_edge:  # the posterior is cut by the exclusion: the period may lie anywhere across it
+        f1_sigma = max(f1_sigma, DAILY_WIDTH / problem.span_d) if np.isfinite(f1_sigma) else DAILY_WIDTH / problem.span_d
     windows = tuple(dict(f1_per_d=float(pa_windows[i].best), ln_pa=float(pa_windows[i].ln_integral),
                          ln_npa=float(npa[i].ln), f2_per_d=float(npa[i].f2)) for i in keep)
     route = ("exact linear marginal likelihood (Fourier coefficients, zero-points, error scale) per frequency; "
@@ -554,9 +746,11 @@ def fourier_evidence_with_problem(lc, *, p_min_h: float = 0.5, p_max_h: float = 
              f"model-error floor {problem.error_floor_mag:.3g} mag, error scale >= {problem.kappa_min:.3g}")
     return problem, EvidenceResult(
         ln_z_pa=float(ln_z_pa), ln_z_npa=float(ln_z_npa), ln_bayes_factor=float(ln_b), ln_bayes_factor_err=float(err),
-        f1_per_d=float(f1), f1_sigma_per_d=float(pa_windows[ipa].sigma), f1_npa_per_d=float(r.f1),
+        f1_per_d=float(f1), f1_sigma_per_d=float(f1_sigma), f1_npa_per_d=float(r.f1),
         f1_npa_sigma_per_d=float(r.s1), f2_per_d=float(r.f2), f2_sigma_per_d=float(r.s2),
         pa_window_mass=pa_mass, npa_window_mass=float(npa_mass), windows=windows, window_disagreement=disagree,
         npa_pairs=_npa_pairs(npa, problem.span_d), n_evaluations=int(n_eval), route=route,
         f2_admissible_share=float(share), npa_testable=testable, error_floor_mag=problem.error_floor_mag,
-        kappa_min=problem.kappa_min, **diag)
+        kappa_min=problem.kappa_min, f1_sigma_white_per_d=width.white, f1_red_noise_beta=width.beta,
+        f1_sigma_jackknife_per_d=width.jackknife, f1_sigma_method=f1_method, f1_at_daily_edge=daily_edge,
+        f1_fine_gain=fine_gain, **diag)
