@@ -169,12 +169,14 @@ def _features(lc, ev: EvidenceResult) -> np.ndarray:
 
 
 def _bisector_rate(lc) -> float:
-    """The phase-angle bisector's ecliptic-longitude rate, deg/day (NaN without observing geometry)."""
-    from tumble.geometry import bisector_longitude_rate_deg_per_d
+    """The phase-angle bisector's azimuth rate about a spin axis, deg/day, that 80 % of poles uniform on the
+    sphere stay below (NaN without observing geometry): it bounds a synodic PA period's difference from
+    the sidereal one."""
+    from tumble.geometry import pole_marginal_bisector_rate_deg_per_d
 
     if lc.sun_dir is None or lc.obs_dir is None:
         return math.nan
-    return bisector_longitude_rate_deg_per_d(lc.t, lc.sun_dir, lc.obs_dir)
+    return pole_marginal_bisector_rate_deg_per_d(lc.t, lc.sun_dir, lc.obs_dir)
 
 
 def classify(lc, *, prior_npa: float = DEFAULT_PRIOR_NPA, rng=None, n_walkers: int | None = None,

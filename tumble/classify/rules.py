@@ -363,8 +363,10 @@ def _synodic_period(values: dict, rate_deg_per_d: float, warn: list) -> dict:
     """A synodic period's error widened by the synodic-sidereal difference the bisector's motion allows.
 
     The error becomes ``hypot(fit error, |P_syn - P_sid|)`` with the difference from
-    :func:`tumble.geometry.synodic_sidereal_difference_h`; without observing geometry it cannot be
-    bounded, and the warning says so.
+    :func:`tumble.geometry.synodic_sidereal_difference_h` at ``rate_deg_per_d``, the phase-angle
+    bisector's azimuth rate about the unknown spin axis that 80 % of poles stay below
+    (:func:`tumble.geometry.pole_marginal_bisector_rate_deg_per_d`); without observing geometry it
+    cannot be bounded, and the warning says so.
     """
     p, err = values.get("period_h", math.nan), values.get("period_h_err", math.nan)
     if not np.isfinite(p):
@@ -373,12 +375,25 @@ def _synodic_period(values: dict, rate_deg_per_d: float, warn: list) -> dict:
         warn.append("the period is synodic; without observing geometry its difference from the sidereal "
                     "period cannot be bounded")
         return dict(period_kind="synodic")
-    from tumble.geometry import synodic_sidereal_difference_h
+    from tumble.geometry import SYNODIC_BOUND_QUANTILE, synodic_sidereal_difference_h
 
     drift = synodic_sidereal_difference_h(p, rate_deg_per_d)
     warn.append(f"the period is synodic: its error includes up to {drift:.2g} h of synodic-sidereal difference "
-                f"(the phase-angle bisector moved {rate_deg_per_d:+.2g} deg/day in ecliptic longitude)")
+                f"(the phase-angle bisector turns at up to {abs(rate_deg_per_d):.2g} deg/day about the unknown "
+                f"spin axis for {100 * SYNODIC_BOUND_QUANTILE:.0f} % of poles)")
     return dict(period_h_err=float(math.hypot(err if np.isfinite(err) else 0.0, drift)), period_kind="synodic")
+
+
+def _pa_period_notes(ev, values: dict, warn: list) -> None:
+    """What the light curve cannot tell about a PA period: a daily-alias edge, one maximum per cycle."""
+    if getattr(ev, "f1_at_daily_edge", False):
+        warn.append("the period lies at the edge of the daily-alias exclusion: a period nearer 24/k h cannot be "
+                    "told apart with nightly zero-points; the error spans the excluded band")
+    p1 = values.get("p1_h", math.nan)
+    if not ev.second_harmonic_dominates and np.isfinite(p1):
+        warn.append(f"one maximum per light-curve cycle of {p1:.4g} h: the period assumes two per rotation "
+                    f"(common practice); a body with one dominant maximum would rotate in {p1:.4g} h, which "
+                    "photometry alone cannot tell")
 
 
 #: Period fields emptied when no significant period exists.
@@ -453,6 +468,7 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
     if rotation == "PA":
         sidereal = _sidereal_period(geometric_pa, values, warn, sparse_route) if geometric_pa is not None else {}
         values.update(sidereal or _synodic_period(values, synodic_rate_deg_per_d, warn))
+        _pa_period_notes(evidence, values, warn)
     if rotation != "PA":
         values.pop("period_h", None)
         values.pop("period_h_err", None)
