@@ -111,7 +111,8 @@ FIELDS: tuple[Field, ...] = (
           values=("PA", "NPA", "undecided", "")),
     Field("mode", "str", "", "NPA mode: SAM, LAM or unknown; empty for PA and undecided", header="mode",
           display="text", values=MODE_VALUES),
-    _f("p_npa", "", "posterior probability of NPA rotation at the prior prior_npa", "p(NPA)", "probability"),
+    _f("p_npa", "", "posterior probability of NPA rotation at the prior prior_npa (calibrated: of tumbling above "
+       "the per-point noise)", "p(NPA)", "probability"),
     _f("prior_npa", "", "prior probability of NPA rotation used for p_npa", "prior", "sig3"),
     _f("ln_bayes_factor", "", "natural log of the Bayes factor NPA:PA (positive favours NPA)", "ln B", "sig3"),
     _f("ln_bayes_factor_err", "", "estimated error of ln_bayes_factor", "ln B err", "sig2"),
