@@ -768,7 +768,10 @@ def laplace_approximation(model, x) -> SolutionLaplace:
     der0 = model.derived(x[None])
     p_psi, p_phi = float(der0["p_psi_h"][0]), float(der0["p_phi_h"][0])
     try:
-        lap = mode_laplace(model, sp, x)
+        # a parameter at its prior's edge (the jitter at its floor) has no room for a step: the
+        # curvature search divides by a zero step there and the prior's width takes over (intended)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lap = mode_laplace(model, sp, x)
     except (TumbleError, np.linalg.LinAlgError):
         return SolutionLaplace(p_psi, p_phi, math.nan, math.nan, math.nan)
     d = sp.ndim
