@@ -269,7 +269,8 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     max_points : int
         The light curve is thinned evenly to at most this many points for the physical fit.
     n_orientations : int
-        Random spin directions and phases tried per starting shape.
+        Spin directions and phases tried per starting shape (random for PA; quasi-uniform for NPA,
+        whose solution search, :func:`tumble.classify.solutions.search_solutions`, is deterministic).
     progress : bool
         tqdm progress bar for the sampling.
     student_t : bool

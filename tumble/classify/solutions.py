@@ -19,9 +19,13 @@ enumeration (:func:`search_solutions`):
    :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
    each screen go on.
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
-   fixed budget (:class:`FitBudget`): shapes x orientations, short and full Levenberg-Marquardt
-   (:func:`tumble.classify.rotation.optimise_state`); then shape restarts of the best distinct states,
-   and more rounds of them for the solutions near the best (:func:`polish_solutions`).
+   fixed budget (:class:`FitBudget`) and deterministic, well-spread starts: stratified shapes
+   (:func:`shape_solutions`) x quasi-uniform orientations (:func:`spread_orientations`, shifted per
+   pair by :func:`pair_shift`), short and full Levenberg-Marquardt
+   (:func:`tumble.classify.rotation.optimise_state`), a wider budget in two attempts for the best
+   screened pairs; then shape restarts and fresh fits of the pairs (:func:`refit_pairs`) of the best
+   distinct states, and more rounds of restarts for the solutions near the best
+   (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed.
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
    ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978); those within :data:`SOLUTION_DELTA_BIC`
