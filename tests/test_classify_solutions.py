@@ -123,7 +123,8 @@ def _tc3_lightcurve():
 def test_tc3_like_lam_is_recovered_with_its_main_period():
     lc = _tc3_lightcurve()
     _, ev = fourier_evidence_with_problem(lc, p_min_h=0.004, p_max_h=0.5)
-    sols = S.enumerate_solutions(lc, ev, max_points=200, budget=S.FitBudget(n_screened=8, n_orientations=24), rng=1)
+    sols = S.enumerate_solutions(lc, ev, max_points=200, budget=S.FitBudget(n_screened=8, n_orientations=24, n_wide=3, n_attempts_wide=1),
+                               rng=1)
     top = sols[0]
     # recovered as LAM, the main period 1 / (f_phi + f_psi) at Scheirich et al.'s 49.03 s
     assert top.mode == "LAM"
