@@ -626,6 +626,7 @@ def spread_orientations(space, base: dict, n: int, *, skip: int = 0, shift=None)
 
 
 def _attitude_dim(space, base: dict) -> int:
+    """Parameters not fixed by ``base`` (the attitude: direction and phases), i.e. the Halton dimension."""
     return sum(name not in base for name in space.names)
 
 
