@@ -762,7 +762,7 @@ def laplace_approximation(model, x) -> SolutionLaplace:
     :func:`tumble.inference.local.laplace_log_evidence`. The periods are functions of the state
     (:meth:`tumble.model.PhysicalModel.derived`); their variances are ``g^T Sigma g`` with ``g`` the
     gradient by central differences of :data:`PERIOD_GRADIENT_STEP_SIGMA` of each parameter's
-    Laplace standard deviation (the delta method; e.g. MacKay 2003, Information Theory, Inference
+    Laplace standard deviation, kept inside the prior's support (the delta method; e.g. MacKay 2003, Information Theory, Inference
     and Learning Algorithms, ch. 27). About 230 model evaluations (0.1 s on 300 points).
     """
     from tumble.inference.local import laplace_approximation as mode_laplace
@@ -780,15 +780,26 @@ def laplace_approximation(model, x) -> SolutionLaplace:
     except (TumbleError, np.linalg.LinAlgError):
         return SolutionLaplace(p_psi, p_phi, math.nan, math.nan, math.nan)
     d = sp.ndim
+    c = lap.centre
     h = PERIOD_GRADIENT_STEP_SIGMA * lap.sd
-    pts = np.repeat(lap.centre[None], 2 * d, axis=0)
-    pts[2 * np.arange(d), np.arange(d)] += h
-    pts[2 * np.arange(d) + 1, np.arange(d)] -= h
-    der = model.derived(pts)
+    # steps kept inside the prior's support (an axis ratio at 1 puts I2/I3 at 1: a step beyond is
+    # no rigid body); one-sided where there is room on one side only, no step where there is none
+    per = np.isfinite(sp.periods)
+    up = np.where(per | ~np.isfinite(sp.highs), h, np.minimum(h, 0.9 * (sp.highs - c)))
+    down = np.where(per | ~np.isfinite(sp.lows), h, np.minimum(h, 0.9 * (c - sp.lows)))
+    up, down = np.maximum(up, 0.0), np.maximum(down, 0.0)
+    pts = np.repeat(c[None], 2 * d, axis=0)
+    pts[2 * np.arange(d), np.arange(d)] += up
+    pts[2 * np.arange(d) + 1, np.arange(d)] -= down
+    try:
+        der = model.derived(pts)
+    except TumbleError:
+        return SolutionLaplace(p_psi, p_phi, math.nan, math.nan, laplace_log_evidence(lap), lap)
+    width = up + down
     sig = []
     for name in ("p_psi_h", "p_phi_h"):
         v = np.asarray(der[name], float)
-        g = (v[0::2] - v[1::2]) / (2.0 * h)
+        g = np.where(width > 0, (v[0::2] - v[1::2]) / np.where(width > 0, width, 1.0), 0.0)
         var = float(g @ lap.covariance @ g)
         sig.append(math.sqrt(var) if np.isfinite(var) and var >= 0 else math.nan)
     return SolutionLaplace(p_psi, p_phi, sig[0], sig[1], laplace_log_evidence(lap), lap)
