@@ -170,7 +170,7 @@ def jacobian_free_steps(space, x) -> tuple:
     """The parameters differentiated (all but the jitter) and their forward-difference steps.
 
     Returns ``(free, steps)``: indices into ``space.names`` and the steps in parameter units;
-    shared by :func:`optimise_state` and the solutions' Laplace approximation.
+    used by :func:`optimise_state` (the solutions' Laplace approximation is the sampler's, in :mod:`tumble.inference.local`).
     """
     names = space.names
     free = [i for i, n in enumerate(names) if n != "ln_jitter_mag"]
@@ -334,7 +334,8 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     max_points : int
         The light curve is thinned evenly to at most this many points for the physical fit.
     n_orientations : int
-        Random spin directions and phases tried per starting shape.
+        Spin directions and phases tried per starting shape (random for PA; quasi-uniform for NPA,
+        whose solution search, :func:`tumble.classify.solutions.search_solutions`, is deterministic).
     progress : bool
         tqdm progress bar for the sampling.
     student_t : bool
@@ -374,7 +375,8 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
         from tumble.classify.solutions import FitBudget, npa_models, search_solutions
 
         models = npa_models(sub, span_h, student_t=student_t)
-        search = search_solutions(lc, evidence, models, rng=rng, budget=FitBudget(n_orientations=n_orientations))
+        # rng=None: the search is deterministic (quasi-uniform starts), the seed moves only the sampling
+        search = search_solutions(lc, evidence, models, rng=None, budget=FitBudget(n_orientations=n_orientations))
         if not search.solutions:
             raise ClassifyError(f"{lc.object_id}: no SAM or LAM state reproduces the frequencies "
                                 f"{evidence.f1_npa_per_d:.6g} and {evidence.f2_per_d:.6g} per day")

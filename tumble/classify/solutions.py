@@ -19,9 +19,13 @@ enumeration (:func:`search_solutions`):
    :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
    each screen go on.
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
-   fixed budget (:class:`FitBudget`): shapes x orientations, short and full Levenberg-Marquardt
-   (:func:`tumble.classify.rotation.optimise_state`); then shape restarts of the best distinct states,
-   and more rounds of them for the solutions near the best (:func:`polish_solutions`).
+   fixed budget (:class:`FitBudget`) and deterministic, well-spread starts: stratified shapes
+   (:func:`shape_solutions`) x quasi-uniform orientations (:func:`spread_orientations`, shifted per
+   pair by :func:`pair_shift`), short and full Levenberg-Marquardt
+   (:func:`tumble.classify.rotation.optimise_state`), a wider budget in two attempts for the best
+   screened pairs; then shape restarts and fresh fits of the pairs (:func:`refit_pairs`) of the best
+   distinct states, and more rounds of restarts for the solutions near the best
+   (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed.
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
    ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978); those within :data:`SOLUTION_DELTA_BIC`
@@ -43,22 +47,20 @@ import numpy as np
 
 from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG
 from tumble.classify.rotation import (
-    jacobian_free_steps,
     npa_candidates,
     optimise_state,
-    random_orientations,
     thin_lightcurve,
-    whitened_residuals,
 )
 from tumble.classify.thresholds import MIN_CYCLES
 from tumble.exceptions import TumbleError
 from tumble.model import FourierBasis, FourierVariant, linear_log_evidence, nuisance_design, prepare_linear
 
 __all__ = [
-    "Solution", "SolutionSearch", "FitBudget", "Lattice", "FrequencyPair", "LaplaceApproximation",
+    "Solution", "SolutionSearch", "FitBudget", "Lattice", "FrequencyPair", "SolutionLaplace",
     "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
-    "frequency_pairs", "screened_pairs", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
-    "shape_solutions", "shape_restarts", "npa_models", "distinct_optima", "fit_pair", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
+    "frequency_pairs", "screened_pairs", "screen_orders", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
+    "shape_solutions", "shape_restarts", "constant_ratio_shapes", "pair_shift",
+    "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
 ]
 
 #: The NPA modes fitted (the physical model's names).
@@ -107,6 +109,8 @@ N_RESTART_SHAPES = 6
 N_RESTART_ORIENT = 2
 #: Restarts refined fully (after the short refinement of all of them).
 N_RESTART_LM = 2
+#: Fresh wide fits of the pair behind each of those best distinct solutions (:func:`refit_pairs`).
+N_REFIT_ATTEMPTS = 2
 #: Polishing: every distinct solution within this of the best BIC gets more rounds of shape restarts,
 #: so that the ranking near the listing edge is not an accident of one restart (the demo's KRN-007:
 #: its true solution sat 8.8 below a wrong one after one round, above it after more).
@@ -120,6 +124,9 @@ SHORT_LM_ITERATIONS = 12
 REFINE_HALF_WIDTH = 0.6
 REFINE_STEP = 0.03
 REFINE_VARIANTS = (FourierVariant(4, 0, 2), FourierVariant(4, 0, 3))
+#: Central-difference step of the periods' gradient, in units of each parameter's Laplace standard
+#: deviation (small against the mode's width, large against the model's rounding).
+PERIOD_GRADIENT_STEP_SIGMA = 1e-3
 
 
 @dataclass(frozen=True)
@@ -128,25 +135,40 @@ class FitBudget:
 
     Attributes
     ----------
-    n_shapes : int
-        Ellipsoids (axis ratios and excitation) that give the candidate's period ratio.
-    n_orientations : int
-        Random spin directions and phases per shape (the best of each shape is kept).
-    n_short : int
-        Starts (best shapes) refined by a short Levenberg-Marquardt run; the best is kept.
     n_screened : int
         Frequency pairs passed from each linear screen to the physical fit (:data:`N_SCREENED`).
+    n_shapes : int
+        Well-spread ellipsoids (axis ratios and excitation) that give the candidate's period ratio.
+    n_orientations : int
+        Quasi-uniform spin directions and phases per shape (the best of each shape is kept).
+    n_short : int
+        Starts (best shapes) refined by a short Levenberg-Marquardt run; the best is kept.
     n_full : int
         Of the short refinements of a pair, the best refined fully (the likelihood after a short run
         says little about the basin, so every screened pair gets its full refinement: with only
         the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
+    n_wide : int
+        The best this many pairs of each screen get the wider budget below (the true pair is
+        usually among them; its fit, not its screening, was what depended on the seed).
+    n_shapes_wide, n_short_wide, n_full_wide : int
+        ``n_shapes``, ``n_short`` and ``n_full`` of those pairs.
+    n_attempts_wide : int
+        Independent fits of each of those pairs (other Halton points of the shapes, another shift
+        of the orientations; the best is kept). One fit of the true pair of the demo's KRN-007 from
+        the wide budget reached the true optimum in 10 of 12 start sets (plus its shape restarts),
+        so two attempts fail together in about 3 % if the sets are independent.
     """
 
     n_screened: int = N_SCREENED
-    n_shapes: int = 3
+    n_shapes: int = 4
     n_orientations: int = 48
     n_short: int = 2
     n_full: int = 1
+    n_wide: int = 5
+    n_shapes_wide: int = 8
+    n_short_wide: int = 4
+    n_full_wide: int = 2
+    n_attempts_wide: int = 2
 
 
 @dataclass(frozen=True)
@@ -179,17 +201,20 @@ class FrequencyPair:
 
 
 @dataclass(frozen=True, eq=False)
-class LaplaceApproximation:
-    """The Gauss-Newton Laplace approximation at an optimum.
+class SolutionLaplace:
+    """A solution's periods, their errors and ln Z from the shared Laplace approximation of its mode.
 
     Attributes
     ----------
     p_psi_h, p_phi_h : float
         Periods at the optimum, hours.
     p_psi_sigma_h, p_phi_sigma_h : float
-        Their standard deviations from ``(J^T J)^-1``, hours (NaN when singular).
+        Their standard deviations, hours: the gradient of each period propagated through the mode's
+        covariance (NaN when the approximation failed).
     log_evidence : float
-        ``ln L + ln prior + d/2 ln 2 pi - 1/2 ln det(J^T J)``, nats (jitter held at its optimum).
+        Laplace ln Z of the mode, nats (:func:`tumble.inference.local.laplace_log_evidence`).
+    laplace : tumble.inference.local.LaplaceApproximation or None
+        The approximation itself (the same one the sampler of the mode starts from), None when failed.
     """
 
     p_psi_h: float
@@ -197,6 +222,7 @@ class LaplaceApproximation:
     p_psi_sigma_h: float
     p_phi_sigma_h: float
     log_evidence: float
+    laplace: object = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -483,12 +509,11 @@ def screen_chi2_reference(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
 # -- 5: the physical fit --------------------------------------------------------------------------------
 
 
-def shape_solutions(mode, ratio, rng, n_pick=4) -> list:
-    """Ellipsoid axis ratios and excitation ``u`` that give ``P_phi/P_psi = ratio`` in ``mode``.
+def constant_ratio_shapes(mode, ratio) -> list:
+    """Every ellipsoid of a grid of axis ratios with its excitation ``u`` giving ``P_phi/P_psi = ratio`` in ``mode``.
 
-    Returns up to ``n_pick`` ``(a_over_b, b_over_c, u)`` drawn from the solutions on a grid of
-    shapes (one root in ``u`` per shape; closed-form periods of
-    :func:`tumble.dynamics.periods_unit_momentum`); empty when the mode cannot give the ratio.
+    Returns ``[(a_over_b, b_over_c, u), ...]`` (one root in ``u`` per shape of a 14 x 10 grid; closed-form
+    periods of :func:`tumble.dynamics.periods_unit_momentum`); empty when the mode cannot give the ratio.
     """
     from tumble.dynamics import periods_unit_momentum
     from tumble.model import _inertia_from_ratios
@@ -514,22 +539,108 @@ def shape_solutions(mode, ratio, rng, n_pick=4) -> list:
         idx = np.flatnonzero(np.isfinite(rs[:-1]) & np.isfinite(rs[1:]) & (sign[:-1] * sign[1:] < 0))
         for j in idx[:1]:
             uu = u[j] - rs[j] * (u[j + 1] - u[j]) / (rs[j + 1] - rs[j])
-            sols.append((a_grid[s], b_grid[s], float(uu)))
+            sols.append((float(a_grid[s]), float(b_grid[s]), float(uu)))
+    return sols
+
+
+def shape_solutions(mode, ratio, n_pick=4, start=0) -> list:
+    """``n_pick`` ellipsoids ``(a_over_b, b_over_c, u)`` with ``P_phi/P_psi = ratio`` in ``mode``, stratified.
+
+    Points ``start + 1 .. start + n_pick`` of the two-dimensional Halton sequence (Halton 1960,
+    Numer. Math. 2, 84; :class:`scipy.stats.qmc.Halton`, unscrambled) are laid over the box of
+    ``(ln a/b, ln b/c)`` of the shapes of :func:`constant_ratio_shapes`, and each takes the nearest
+    shape not yet taken: deterministic, and every prefix covers the set evenly (random picks left
+    whole regions untried, and extremes-first orders waste a small budget on the corners). Empty
+    when the mode cannot give the ratio.
+    """
+    from scipy.stats import qmc
+
+    sols = constant_ratio_shapes(mode, ratio)
     if not sols:
         return []
-    pick = rng.choice(len(sols), size=min(n_pick, len(sols)), replace=False)
-    return [sols[i] for i in sorted(pick)]
+    z = np.array([(math.log(a), math.log(b)) for a, b, _ in sols])
+    lo, hi = z.min(axis=0), z.max(axis=0)
+    z = (z - lo) / np.where(hi > lo, hi - lo, 1.0)
+    seq = qmc.Halton(d=2, scramble=False)
+    seq.fast_forward(1 + int(start))  # the first Halton point is the origin (a corner): skipped
+    taken = []
+    free = np.ones(len(sols), bool)
+    for q in seq.random(min(n_pick, len(sols))):
+        d2 = np.where(free, np.sum((z - q[None]) ** 2, axis=1), np.inf)
+        k = int(np.argmin(d2))
+        free[k] = False
+        taken.append(sols[k])
+    return taken
 
 
-def shape_restarts(model, mode, x_best, rng) -> list:
-    """Starts that keep the frequencies of a fitted state and redraw its shape and orientation.
+def pair_shift(index: int, n_dim: int) -> np.ndarray:
+    """A deterministic Cranley-Patterson shift for the ``index``-th fit: ``frac(index * alpha)``.
+
+    ``alpha`` holds the inverse powers of the generalised golden ratio (the root of
+    ``x^(d+1) = x + 1``; an additive-recurrence low-discrepancy sequence, e.g. Niederreiter 1992,
+    Random Number Generation and Quasi-Monte Carlo Methods, ch. 5), so neighbouring candidates
+    (near-duplicate frequency pairs of one lattice) get different, evenly offset start sets and
+    one unlucky set cannot fail them all.
+    """
+    g = 2.0
+    for _ in range(60):
+        g = (1.0 + g) ** (1.0 / (n_dim + 1))
+    alpha = (1.0 / g) ** np.arange(1, n_dim + 1)
+    return np.mod(int(index) * alpha, 1.0)
+
+
+def orientation_shift(rng, n_dim: int) -> np.ndarray:
+    """The Cranley-Patterson shift of the orientation set: zeros without ``rng``, else uniform draws."""
+    return np.zeros(n_dim) if rng is None else rng.uniform(size=n_dim)
+
+
+def spread_orientations(space, base: dict, n: int, *, skip: int = 0, shift=None) -> np.ndarray:
+    """``(n, ndim)`` states with ``base`` fixed and the other parameters (the attitude) quasi-uniform.
+
+    The free parameters take the points ``skip + 1 .. skip + n`` of the Halton sequence (Halton
+    1960, Numer. Math. 2, 84; :class:`scipy.stats.qmc.Halton`, unscrambled), shifted modulo 1 by
+    ``shift`` (Cranley & Patterson 1976, SIAM J. Numer. Anal. 13, 904: any shift keeps the set's
+    spread), through each prior's inverse CDF. For the angular-momentum direction that map
+    (longitude uniform, sine of the latitude uniform) is equal-area, so the directions cover the
+    sphere evenly and the phases their circles; independent random draws leave gaps and clusters
+    at the sizes used here (48 starts in four dimensions), which made the fit of the true pair
+    depend on the seed.
+    """
+    from scipy.stats import qmc
+
+    names = space.names
+    free = [j for j, name in enumerate(names) if name not in base]
+    seq = qmc.Halton(d=max(len(free), 1), scramble=False)
+    seq.fast_forward(1 + int(skip))  # the first Halton point is the origin (a pole): skipped
+    q = seq.random(n)
+    if shift is not None:
+        q = np.mod(q + np.asarray(shift, float)[None, :len(free)], 1.0)
+    q = np.clip(q, 1e-9, 1.0 - 1e-9)
+    x = np.empty((n, len(names)))
+    for j, name in enumerate(names):
+        if name in base:
+            x[:, j] = base[name]
+    for k, j in enumerate(free):
+        x[:, j] = space.parameters[j].prior.ppf(q[:, k])
+    return x
+
+
+def _attitude_dim(space, base: dict) -> int:
+    """Parameters not fixed by ``base`` (the attitude: direction and phases), i.e. the Halton dimension."""
+    return sum(name not in base for name in space.names)
+
+
+def shape_restarts(model, mode, x_best, rng=None, round_index: int = 0, index: int = 0) -> list:
+    """Starts that keep the frequencies of a fitted state and take other shapes and orientations.
 
     The frequencies of an NPA state (``P_psi`` and the period ratio) are found well by the
     frequency mappings, but the fit then stalls in the shape: a wrong ellipsoid with the right
-    period ratio is a deep local optimum, while from the right shape almost every random
-    orientation converges (measured on simulated SAM and LAM bodies; ``docs/methods-classify.md``).
-    Returns ``N_RESTART_SHAPES x N_RESTART_ORIENT`` starts: the fitted shape and shapes drawn along
-    the constant-ratio curve of :func:`shape_solutions`, each with random orientations.
+    period ratio is a deep local optimum, while from the right shape almost every orientation
+    converges (measured on simulated SAM and LAM bodies; ``docs/methods-classify.md``). Returns
+    ``N_RESTART_SHAPES x N_RESTART_ORIENT`` starts: the fitted shape and the next well-spread shapes
+    of the constant-ratio set (:func:`shape_solutions`; round ``r`` takes the shapes after those of
+    the rounds before), each with quasi-uniform orientations (:func:`spread_orientations`, also
+    advanced by the round, shifted by :func:`pair_shift` of ``index``; ``rng`` only adds a shift).
     """
     from tumble.dynamics import periods_unit_momentum
 
@@ -538,13 +649,17 @@ def shape_restarts(model, mode, x_best, rng) -> list:
     args, _ = model.state_arrays(x_best[None])
     pp, pf = periods_unit_momentum(args[0], args[1], args[2])
     ratio = float(np.asarray(pf).ravel()[0] / np.asarray(pp).ravel()[0])
+    n_new = N_RESTART_SHAPES - 1
     shapes = [(d["a_over_b"], d["b_over_c"], d["excitation_u"])]
-    shapes += shape_solutions(mode, ratio, rng, n_pick=N_RESTART_SHAPES - 1)
+    shapes += shape_solutions(mode, ratio, n_pick=n_new, start=round_index * n_new)
     xs = []
-    for ab, bc, u in shapes:
+    for s, (ab, bc, u) in enumerate(shapes):
         base = {"p_psi_h": d["p_psi_h"], "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
                 "ln_jitter_mag": d["ln_jitter_mag"]}
-        xs.extend(random_orientations(sp, base, N_RESTART_ORIENT, rng))
+        n_att = _attitude_dim(sp, base)
+        shift = np.mod(pair_shift(index, n_att) + orientation_shift(rng, n_att), 1.0)
+        xs.extend(spread_orientations(sp, base, N_RESTART_ORIENT,
+                                      skip=(round_index * N_RESTART_SHAPES + s) * N_RESTART_ORIENT, shift=shift))
     return xs
 
 
@@ -556,34 +671,63 @@ def npa_models(sub, span_h: float, *, student_t: bool = False) -> dict:
             for mode in NPA_MODES}
 
 
-def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng) -> Optimum | None:
+def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng=None, *, wide: bool = False,
+             index: int = 0) -> Optimum | None:
     """The physical fit of one frequency pair in one mode under a fixed budget.
 
-    ``budget.n_shapes`` ellipsoids with the pair's period ratio x ``budget.n_orientations`` random
-    orientations; the best start of each of the ``budget.n_short`` best shapes gets a short
-    Levenberg-Marquardt run, the best ``budget.n_full`` of those a full one, and the best result is
-    returned (None when the mode cannot give the period ratio).
+    ``budget.n_shapes`` well-spread ellipsoids with the pair's period ratio (:func:`shape_solutions`)
+    x ``budget.n_orientations`` quasi-uniform orientations (:func:`spread_orientations`); the best
+    start of each of the ``budget.n_short`` best shapes gets a short Levenberg-Marquardt run, the
+    best ``budget.n_full`` of those a full one, and the best result is returned (None when the mode
+    cannot give the period ratio). ``wide``: the larger budget of the best screened pairs
+    (``budget.n_shapes_wide``, ``budget.n_short_wide``, ``budget.n_full_wide``). ``index`` (the
+    pair's place in the search) offsets the shapes' Halton points and shifts the orientation set
+    (:func:`pair_shift`), so near-duplicate pairs do not all get the same starts. ``rng`` (optional)
+    only adds a random shift (:func:`orientation_shift`); without it the fit is deterministic.
     """
-    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, rng, n_pick=budget.n_shapes)
+    n_shapes = budget.n_shapes_wide if wide else budget.n_shapes
+    n_short = budget.n_short_wide if wide else budget.n_short
+    n_full = budget.n_full_wide if wide else budget.n_full
+    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, n_pick=n_shapes, start=index * n_shapes)
     if not shapes:
         return None
     starts = []
     for ab, bc, u in shapes:
         base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
                 "ln_jitter_mag": math.log(1e-3)}
-        xs = random_orientations(model.space, base, budget.n_orientations, rng)
+        n_att = _attitude_dim(model.space, base)
+        xs = spread_orientations(model.space, base, budget.n_orientations,
+                                 shift=np.mod(pair_shift(index, n_att) + orientation_shift(rng, n_att), 1.0))
         ll = model(xs)
         j = int(np.argmax(ll))
         starts.append((float(ll[j]), xs[j]))
     starts.sort(key=lambda e: -e[0])
-    short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:budget.n_short]]
+    short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:n_short]]
     short.sort(key=lambda e: -e[1])
     best = None
-    for x0, v0 in short[:max(budget.n_full, 1)]:
-        opt = refine_fully(model, Optimum(mode, x0, float(v0), pair)) if budget.n_full > 0 else Optimum(mode, x0, float(v0), pair)
+    for x0, v0 in short[:max(n_full, 1)]:
+        opt = refine_fully(model, Optimum(mode, x0, float(v0), pair)) if n_full > 0 else Optimum(mode, x0, float(v0), pair)
         if best is None or opt.log_likelihood > best.log_likelihood:
             best = opt
     return best
+
+
+def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_index: int = 0) -> list:
+    """Fresh fits of the frequency pairs that led to the best distinct solutions of a mode.
+
+    A solution near the top of its mode may sit in a poor optimum of the right pair (its fit drifted
+    in shape or attitude; measured on the demo's KRN-007: the true pair's single fit reached ln L 754
+    against 806 from other start sets, and shape restarts from that state did not recover). Each
+    pair gets :data:`N_REFIT_ATTEMPTS` more fits with the wide budget from start sets not used
+    before (indices from ``first_index`` on).
+    """
+    out = []
+    for j, opt in enumerate(tops):
+        for k in range(N_REFIT_ATTEMPTS):
+            o = fit_pair(model, mode, opt.pair, budget, rng, wide=True, index=first_index + j * N_REFIT_ATTEMPTS + k)
+            if o is not None:
+                out.append(o)
+    return out
 
 
 def refine_fully(model, opt: Optimum) -> Optimum:
@@ -592,9 +736,10 @@ def refine_fully(model, opt: Optimum) -> Optimum:
     return Optimum(opt.mode, x, float(v), opt.pair) if v > opt.log_likelihood else opt
 
 
-def restart_optimum(model, opt: Optimum, rng) -> Optimum:
-    """The best of the shape restarts of a fitted state (or the state itself)."""
-    short = [optimise_state(model, x1, n_iter=SHORT_LM_ITERATIONS) for x1 in shape_restarts(model, opt.mode, opt.x, rng)]
+def restart_optimum(model, opt: Optimum, rng=None, round_index: int = 0, index: int = 0) -> Optimum:
+    """The best of the shape restarts (:func:`shape_restarts`, round ``round_index``) of a fitted state, or the state."""
+    starts = shape_restarts(model, opt.mode, opt.x, rng, round_index, index)
+    short = [optimise_state(model, x1, n_iter=SHORT_LM_ITERATIONS) for x1 in starts]
     short.sort(key=lambda e: -e[1])
     best = opt
     for x1, _ in short[:N_RESTART_LM]:
@@ -607,37 +752,57 @@ def restart_optimum(model, opt: Optimum, rng) -> Optimum:
 # -- 6: solutions ---------------------------------------------------------------------------------
 
 
-def laplace_approximation(model, x) -> LaplaceApproximation:
-    """Periods, their standard deviations and ln Z from the Gauss-Newton Hessian ``J^T J`` at ``x``.
+def laplace_approximation(model, x) -> SolutionLaplace:
+    """Periods, their standard deviations and ln Z of the mode at ``x`` from the shared Laplace approximation.
 
-    ``J`` is the forward-difference Jacobian of the whitened residuals (zero-points profiled) in
-    every parameter but the jitter, which stays at its optimum; the covariance is ``(J^T J)^-1``
-    and the period errors are propagated through :meth:`tumble.model.PhysicalModel.derived`
-    (Laplace approximation; e.g. MacKay 2003, Information Theory, Inference and Learning
-    Algorithms, ch. 27).
+    The approximation is :func:`tumble.inference.local.laplace_approximation` (the full
+    central-difference Hessian of the log-posterior, every parameter including the jitter,
+    regularised where the data do not constrain a direction), the same definition the sampler of a
+    solution's mode starts from (``docs/methods-classify.md`` section 5c); ln Z is
+    :func:`tumble.inference.local.laplace_log_evidence`. The periods are functions of the state
+    (:meth:`tumble.model.PhysicalModel.derived`); their variances are ``g^T Sigma g`` with ``g`` the
+    gradient by central differences of :data:`PERIOD_GRADIENT_STEP_SIGMA` of each parameter's
+    Laplace standard deviation, kept inside the prior's support (the delta method; e.g. MacKay 2003, Information Theory, Inference
+    and Learning Algorithms, ch. 27). About 230 model evaluations (0.1 s on 300 points).
     """
+    from tumble.inference.local import laplace_approximation as mode_laplace
+    from tumble.inference.local import laplace_log_evidence
+
     sp = model.space
     x = sp.wrap(np.asarray(x, float))
-    free, steps = jacobian_free_steps(sp, x)
-    pts = np.repeat(x[None], len(free) + 1, axis=0)
-    pts[1 + np.arange(len(free)), free] += steps
-    r = whitened_residuals(model, pts)
-    jac = (r[1:] - r[0][None]).T / steps[None, :]
-    der = model.derived(pts)
-    p_psi, p_phi = float(der["p_psi_h"][0]), float(der["p_phi_h"][0])
-    g_psi = (np.asarray(der["p_psi_h"][1:]) - p_psi) / steps
-    g_phi = (np.asarray(der["p_phi_h"][1:]) - p_phi) / steps
-    h = jac.T @ jac
-    ll = float(model(x[None])[0])
-    sign, logdet = np.linalg.slogdet(h)
-    if sign <= 0 or not np.isfinite(logdet):
-        return LaplaceApproximation(p_psi, p_phi, math.nan, math.nan, math.nan)
-    cov = np.linalg.pinv(h)
-    var_psi, var_phi = float(g_psi @ cov @ g_psi), float(g_phi @ cov @ g_phi)
-    log_prior = float(sp.log_prior(x[None])[0])
-    log_z = ll + log_prior + 0.5 * len(free) * math.log(2 * math.pi) - 0.5 * logdet
-    return LaplaceApproximation(p_psi, p_phi, math.sqrt(var_psi) if var_psi >= 0 else math.nan,
-                                math.sqrt(var_phi) if var_phi >= 0 else math.nan, float(log_z))
+    der0 = model.derived(x[None])
+    p_psi, p_phi = float(der0["p_psi_h"][0]), float(der0["p_phi_h"][0])
+    try:
+        # a parameter at its prior's edge (the jitter at its floor) has no room for a step: the
+        # curvature search divides by a zero step there and the prior's width takes over (intended)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lap = mode_laplace(model, sp, x)
+    except (TumbleError, np.linalg.LinAlgError):
+        return SolutionLaplace(p_psi, p_phi, math.nan, math.nan, math.nan)
+    d = sp.ndim
+    c = lap.centre
+    h = PERIOD_GRADIENT_STEP_SIGMA * lap.sd
+    # steps kept inside the prior's support (an axis ratio at 1 puts I2/I3 at 1: a step beyond is
+    # no rigid body); one-sided where there is room on one side only, no step where there is none
+    per = np.isfinite(sp.periods)
+    up = np.where(per | ~np.isfinite(sp.highs), h, np.minimum(h, 0.9 * (sp.highs - c)))
+    down = np.where(per | ~np.isfinite(sp.lows), h, np.minimum(h, 0.9 * (c - sp.lows)))
+    up, down = np.maximum(up, 0.0), np.maximum(down, 0.0)
+    pts = np.repeat(c[None], 2 * d, axis=0)
+    pts[2 * np.arange(d), np.arange(d)] += up
+    pts[2 * np.arange(d) + 1, np.arange(d)] -= down
+    try:
+        der = model.derived(pts)
+    except TumbleError:
+        return SolutionLaplace(p_psi, p_phi, math.nan, math.nan, laplace_log_evidence(lap), lap)
+    width = up + down
+    sig = []
+    for name in ("p_psi_h", "p_phi_h"):
+        v = np.asarray(der[name], float)
+        g = np.where(width > 0, (v[0::2] - v[1::2]) / np.where(width > 0, width, 1.0), 0.0)
+        var = float(g @ lap.covariance @ g)
+        sig.append(math.sqrt(var) if np.isfinite(var) and var >= 0 else math.nan)
+    return SolutionLaplace(p_psi, p_phi, sig[0], sig[1], laplace_log_evidence(lap), lap)
 
 
 def _frequencies(model, x) -> tuple:
@@ -701,35 +866,54 @@ def collect_solutions(optima, models, span_d: float) -> tuple:
     return listed, {mode: made[i] for mode, i in first_of_mode.items()}, tuple(sorted(made, key=lambda s: s.criterion))
 
 
-def polish_solutions(optima, models, span_d: float, rng) -> list:
-    """More shape restarts (:data:`POLISH_ROUNDS`) of the distinct solutions within :data:`POLISH_DELTA_BIC`."""
+def polish_solutions(optima, models, span_d: float, rng=None) -> list:
+    """More shape restarts (:data:`POLISH_ROUNDS`) of the distinct solutions within :data:`POLISH_DELTA_BIC`.
+
+    Round ``r`` of a solution takes the next well-spread shapes and orientations after those of the
+    rounds before (:func:`shape_restarts`), so the rounds never repeat a start.
+    """
     distinct = distinct_optima(optima, models, span_d)
     if not distinct:
         return []
     best_ll = distinct[0].log_likelihood
     near = [o for o in distinct if 2.0 * (best_ll - o.log_likelihood) <= POLISH_DELTA_BIC][:N_POLISHED]
     out = []
-    for opt in near:
-        for _ in range(POLISH_ROUNDS):
-            opt = restart_optimum(models[opt.mode], opt, rng)
+    for i, opt in enumerate(near):
+        for r in range(POLISH_ROUNDS):
+            opt = restart_optimum(models[opt.mode], opt, rng, round_index=1 + r, index=i)
         out.append(opt)
     return out
 
 
-def screened_pairs(lc, pairs, n_per_screen: int) -> list:
-    """The union of the best ``n_per_screen`` pairs of each screen of :data:`SCREEN_TERM_SETS`, in screen order."""
-    kept, seen = [], set()
+def screen_orders(lc, pairs, n_per_screen: int) -> list:
+    """For each screen of :data:`SCREEN_TERM_SETS`, the indices of its best ``n_per_screen`` pairs, best first."""
+    orders = []
     for terms in SCREEN_TERM_SETS:
         chi2 = screen_chi2(lc, pairs, terms)
-        order = np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:n_per_screen]
-        for i in order:
-            if int(i) not in seen:
-                seen.add(int(i))
-                kept.append(pairs[int(i)])
+        orders.append(np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:n_per_screen])
+    return orders
+
+
+def union_by_rank(orders, n_per_screen: int) -> list:
+    """The union of the first ``n_per_screen`` indices of each order, by rank (screens interleaved).
+
+    Rank 0 of each screen, then rank 1, ...; so the union for a smaller ``n`` is a prefix of this one.
+    """
+    kept, seen = [], set()
+    for rank in range(n_per_screen):
+        for order in orders:
+            if rank < len(order) and int(order[rank]) not in seen:
+                seen.add(int(order[rank]))
+                kept.append(int(order[rank]))
     return kept
 
 
-def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = FitBudget()) -> SolutionSearch:
+def screened_pairs(lc, pairs, n_per_screen: int) -> list:
+    """The union of the best ``n_per_screen`` pairs of each screen, by rank (:func:`union_by_rank`)."""
+    return [pairs[i] for i in union_by_rank(screen_orders(lc, pairs, n_per_screen), n_per_screen)]
+
+
+def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget = FitBudget()) -> SolutionSearch:
     """The enumeration (module notes) on a light curve with physical models already built (by mode).
 
     Parameters
@@ -739,24 +923,35 @@ def search_solutions(lc, evidence, models: dict, *, rng, budget: FitBudget = Fit
     evidence : EvidenceResult
     models : dict
         Mode -> :class:`tumble.model.PhysicalModel` (see :func:`npa_models`).
-    rng : numpy.random.Generator
+    rng : numpy.random.Generator or None
+        Only shifts the quasi-uniform orientation sets (:func:`orientation_shift`); None: the search
+        is deterministic. The shapes and the starts' structure never depend on it.
     budget : FitBudget
     """
     lattices = candidate_lattices(lc, evidence)
     pairs = frequency_pairs(lc.span_d, lattices, daily_aliasing(lc))
     if not pairs:
         return SolutionSearch((), {}, (), 0, 0, 0)
-    kept = screened_pairs(thin_lightcurve(lc, SCREEN_MAX_POINTS), pairs, budget.n_screened)
+    thin = thin_lightcurve(lc, SCREEN_MAX_POINTS)
+    orders = screen_orders(thin, pairs, budget.n_screened)
+    kept = [pairs[i] for i in union_by_rank(orders, budget.n_screened)]
+    # the best budget.n_wide of each screen (a prefix of kept) get the wider fit
+    n_wide = len(union_by_rank(orders, min(budget.n_wide, budget.n_screened)))
     optima = []
-    for pair in kept:
+    for i, pair in enumerate(kept):
+        wide = i < n_wide
         for mode, model in models.items():
-            opt = fit_pair(model, mode, pair, budget, rng)
-            if opt is not None:
-                optima.append(opt)
+            # attempt k of pair i starts from other points: index i + k len(kept) is no other pair's
+            tries = [fit_pair(model, mode, pair, budget, rng, wide=wide, index=i + k * len(kept))
+                     for k in range(budget.n_attempts_wide if wide else 1)]
+            tries = [o for o in tries if o is not None]
+            if tries:
+                optima.append(max(tries, key=lambda o: o.log_likelihood))
     n_fits = len(optima)
     for mode, model in models.items():
         tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
-        optima += [restart_optimum(model, o, rng) for o in tops]
+        optima += [restart_optimum(model, o, rng, index=i) for i, o in enumerate(tops)]
+        optima += refit_pairs(model, mode, tops, budget, rng, first_index=budget.n_attempts_wide * len(kept))
     optima += polish_solutions(optima, models, lc.span_d, rng)
     listed, best_by_mode, distinct = collect_solutions(optima, models, lc.span_d)
     return SolutionSearch(listed, best_by_mode, distinct, len(pairs), len(kept), n_fits)

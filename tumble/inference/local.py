@@ -1190,3 +1190,22 @@ def _to_model_coordinates(post, chart, space: ParameterSpace):
     diag = replace(post.diagnostics, mode_centres=centres)
     return replace(post, samples=x, log_prob=space.log_prior(x) + log_like, log_likelihood=log_like,
                    names=space.names, units=space.units, periods=space.periods, lows=space.lows, diagnostics=diag)
+
+
+def laplace_log_evidence(lap: LaplaceApproximation) -> float:
+    """ln Z of one mode under its Laplace approximation (:func:`laplace_approximation`), nats.
+
+    ``ln Z = ln p(x*) + ln L(x*) + d/2 ln 2 pi + 1/2 ln det Sigma`` with ``Sigma`` the approximation's
+    (regularised) covariance in the space's own parameters (Kass & Raftery 1995, JASA 90, 773,
+    eq. 4; the prior density is that of the parameters as sampled, so ``Sigma`` and the prior are in
+    the same units). The one definition used wherever a mode's evidence is compared (the tumbling
+    solutions of :mod:`tumble.classify.solutions`). NaN when ``Sigma`` is not positive definite.
+    """
+    sign, logdet = np.linalg.slogdet(np.asarray(lap.covariance, float))
+    if sign <= 0 or not np.isfinite(logdet) or not np.isfinite(lap.log_posterior):
+        return math.nan
+    d = len(lap.centre)
+    return float(lap.log_posterior + 0.5 * d * math.log(2.0 * math.pi) + 0.5 * logdet)
+
+
+__all__.append("laplace_log_evidence")
