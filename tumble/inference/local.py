@@ -197,7 +197,8 @@ def _diagonal_curvature(log_likelihood, space, x0, f0, h):
     pts[2 * idx, idx] += h
     pts[2 * idx + 1, idx] -= h
     f = _log_post(log_likelihood, space, pts)
-    with np.errstate(invalid="ignore", over="ignore"):  # stencil points outside the prior: -inf, handled by the caller
+    # stencil points outside the prior (-inf) and a zero step at a bound (h = 0): non-finite, handled by the caller
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
         return (f[0::2] - 2 * f0 + f[1::2]) / h**2
 
 
