@@ -490,8 +490,10 @@ class _LogPriorPlan:
         if self.norm_i.size:
             z = (x[..., self.norm_i] - self.norm_mu) / self.norm_sd
             total = total - 0.5 * np.sum(z * z, axis=-1)
-        for i, pr in self.other:
-            total = total + pr.log_pdf(x[..., i])
+        # a point outside a bounded support may sum +inf and -inf here (NaN); it is set to -inf below
+        with np.errstate(invalid="ignore"):
+            for i, pr in self.other:
+                total = total + pr.log_pdf(x[..., i])
         if inside is not None:
             total = np.where(inside, total, -np.inf)
         return np.asarray(total, dtype=float)
