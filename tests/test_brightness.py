@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from scipy import integrate
 
@@ -147,8 +147,15 @@ _vector = st.tuples(_component, _component, _component).filter(lambda v: np.lina
 _axis = st.floats(0.2, 5.0, allow_nan=False)
 
 
+#: Absolute round-off of the closed form relative to A/2 near 180 deg phase, where its terms cancel
+#: (measured in the test above: 1e-11 of A/2 at 174-180 deg).
+CANCELLATION_ABS = 1e-11
+
+
 @settings(max_examples=60, deadline=None)
 @given(_vector, _vector, st.tuples(_axis, _axis, _axis))
+@example(sun=(1.0, 0.0, 0.0625), obs=(-1.0, 0.0, 0.0), axes=(0.875, 1.0, 1.125))  # 176 deg: the cancellation
+@example(sun=(1.0, 0.0, 0.0625), obs=(-1.0, 0.0, 0.0), axes=(1.0, 1.0, 1.25))
 def test_property_finite_nonnegative_reciprocal_and_exact(sun, obs, axes):
     # For any geometry and any positive axes (not only a >= b >= c): finite,
     # non-negative, symmetric in Sun and observer (LS reciprocity, common
@@ -159,9 +166,10 @@ def test_property_finite_nonnegative_reciprocal_and_exact(sun, obs, axes):
     val = br.lommel_seeliger_ellipsoid(s, o, ax)
     assert np.isfinite(val) and val >= 0
     scale = 0.5 * br.projected_area(s, ax)  # the zero-phase value for this Sun direction
-    assert abs(val - br.lommel_seeliger_ellipsoid(o, s, ax)) <= 1e-12 * scale
+    # to round-off, which near 180 deg is the closed form's cancellation (CANCELLATION_ABS of A/2)
+    assert abs(val - br.lommel_seeliger_ellipsoid(o, s, ax)) <= CANCELLATION_ABS * scale
     quad = br.ellipsoid_quadrature(s, o, ax, order=64)
-    assert abs(val - quad) <= 1e-9 * max(val, 1e-3 * scale)
+    assert abs(val - quad) <= max(1e-9 * val, CANCELLATION_ABS * scale)
 
 
 def test_broadcasting_over_states_and_points(rng):
