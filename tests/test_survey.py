@@ -270,3 +270,39 @@ def test_report_option_calls_the_report_writer(sample, tmp_path, monkeypatch, ca
     assert code == 0
     assert calls == [(str(out), str(tmp_path / "rep"), str(tmp_path / "objs"))]
     assert "report        " in capsys.readouterr().out
+
+
+def test_no_binary_reaches_the_full_route_and_the_provenance(monkeypatch):
+    # `survey --no-binary` is `classify --no-binary` for every object (the CLI's own contract,
+    # docs/commands.md): the option reaches tumble.classify.classify and is recorded in the provenance
+    import argparse
+
+    import tumble.classify as tc
+    from tumble.cli.survey_cmd import add_parser
+    from tumble.survey import SurveyConfig
+
+    parser = argparse.ArgumentParser()
+    add_parser(parser.add_subparsers(dest="command"))
+    assert parser.parse_args(["survey", "x", "--out", "r.ecsv"]).binary is True
+    assert parser.parse_args(["survey", "x", "--out", "r.ecsv", "--no-binary"]).binary is False
+    seen = {}
+
+    def fake_classify(lc, **kwargs):
+        seen.update(kwargs)
+        raise RuntimeError("stop here")
+
+    monkeypatch.setattr(tc, "classify", fake_classify)
+    from tumble.survey import ObjectTask, _classify_task
+
+    config = SurveyConfig(binary=False)
+    assert config.provenance()["binary"] is False
+    with pytest.raises(RuntimeError, match="stop here"):
+        _classify_task(ObjectTask("X-1", 0, lightcurve=_tiny_lightcurve()), config)
+    assert seen["binary"] is False
+
+
+def _tiny_lightcurve():
+    from tumble.photometry import LightCurve
+
+    t = 2460000.5 + np.linspace(0.0, 1.0, 20)
+    return LightCurve.from_arrays(t, np.zeros_like(t), np.full_like(t, 0.01), object_id="X-1")

@@ -99,6 +99,8 @@ class SurveyConfig:
         Object -> (diameter_km, h_mag, albedo), any of them None, for the damping time.
     keep_objects_dir : str or None
         Folder for per-object verdict JSON files.
+    binary : bool
+        Weigh the binary alternative before an NPA verdict (full route; ``tumble.classify.classify``).
     """
 
     route: str = "full"
@@ -110,6 +112,7 @@ class SurveyConfig:
     object_timeout_s: float | None = 900.0
     sizes: dict = field(default_factory=dict)
     keep_objects_dir: str | None = None
+    binary: bool = True
 
     def __post_init__(self):
         if self.route not in ("full", "screen"):
@@ -131,7 +134,7 @@ class SurveyConfig:
         from tumble.results import make_provenance, plain_record
 
         return make_provenance(route=self.route, prior_npa=self.prior_npa, seed=self.seed,
-                               max_steps=int(self.max_steps),
+                               max_steps=int(self.max_steps), binary=bool(self.binary),
                                n_walkers=None if self.n_walkers is None else int(self.n_walkers),
                                read_options=plain_record(self.read_options),
                                sizes_sha256=_digest(sorted((str(k), list(v)) for k, v in self.sizes.items())))
@@ -321,7 +324,7 @@ def _classify_task(task: ObjectTask, config: SurveyConfig) -> dict:
         verdict = screen(lc, prior_npa=config.prior_npa)
     else:
         verdict = classify(lc, prior_npa=config.prior_npa, rng=rng, n_walkers=config.n_walkers,
-                           max_steps=config.max_steps).verdict
+                           max_steps=config.max_steps, binary=config.binary).verdict
     record = verdict.to_dict()
     record.setdefault("route", config.route)  # the verdict's own route wins once it carries one
     record = verdict_record(record)

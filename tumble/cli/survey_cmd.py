@@ -49,6 +49,8 @@ def add_parser(sub) -> None:
     p.add_argument("--prior-npa", type=float, default=0.1, metavar="P", help="prior probability of NPA (default 0.1)")
     p.add_argument("--max-steps", type=int, default=1500, metavar="S", help="sampler steps of the full route")
     p.add_argument("--walkers", type=int, metavar="W", help="sampler walkers of the full route")
+    p.add_argument("--no-binary", dest="binary", action="store_false",
+                   help="full route: do not weigh the binary alternative before an NPA verdict (weighed by default)")
     p.add_argument("--shortlist", type=int, default=15, metavar="N", help="NPA candidates to print (default 15)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.add_argument("--report", metavar="DIR",
@@ -148,7 +150,7 @@ def run(args: argparse.Namespace) -> int:
         route="screen" if args.screen else "full", seed=args.seed, prior_npa=args.prior_npa,
         read_options=read_options(args), max_steps=args.max_steps, n_walkers=args.walkers,
         object_timeout_s=args.object_timeout, sizes=_read_sizes(args.sizes) if args.sizes else {},
-        keep_objects_dir=args.keep_objects,
+        keep_objects_dir=args.keep_objects, binary=args.binary,
     )
     if args.inject is not None:
         return _run_inject(args, config)
