@@ -68,21 +68,12 @@ def truth_label(row) -> float:
     return 1.0
 
 
-#: |ln B| is clipped here before the transform: an infinite ln B (no admissible NPA model) is the extreme.
-LN_B_CLIP = 1.0e4
-
-
-def signed_log(x: float) -> float:
-    """sign(x) log(1 + |x|) (NaN stays NaN)."""
-    return math.copysign(math.log1p(abs(x)), x) if not math.isnan(x) else math.nan
-
-
 def _package_features(row) -> np.ndarray:
     """The package's own definition of the map's inputs (tumble.classify.calibration), from a results row."""
     from tumble.classify.calibration import calibration_features
 
-    return calibration_features(ln_b=float(np.clip(_num(scoring.get(row, "ln_b")), -LN_B_CLIP, LN_B_CLIP)),
-                                sparse_fraction=_num(row.get("lc.sparse_fraction")))
+    # clipping and the signed logarithm are the package's (one definition)
+    return calibration_features(ln_b=_num(scoring.get(row, "ln_b")), sparse_fraction=_num(row.get("lc.sparse_fraction")))
 
 
 def feat_ln_b(row) -> float:

@@ -386,7 +386,7 @@ def _synodic_period(values: dict, rate_deg_per_d: float, warn: list) -> dict:
 
 def _pa_period_notes(ev, values: dict, warn: list) -> None:
     """What the light curve cannot tell about a PA period: a daily-alias edge, one maximum per cycle."""
-    if getattr(ev, "f1_at_daily_edge", False):
+    if ev.f1_at_daily_edge:
         warn.append("the period lies at the edge of the daily-alias exclusion: a period nearer 24/k h cannot be "
                     "told apart with nightly zero-points; the error spans the excluded band")
     p1 = values.get("p1_h", math.nan)
