@@ -121,6 +121,23 @@ def test_sparse_pa_sidereal_period_and_pole_recovered():
     assert d["status"] == "unique" and d["alias_family"][0]["delta_chi2_scaled"] == 0.0
 
 
+def test_pole_threshold_is_the_chi_square_spread():
+    # The poles' threshold is a goodness-of-fit one: the standard deviation of the chi-square law
+    # with the fit's degrees of freedom, sqrt(2 dof) (scipy.stats.chi2), never below the alias
+    # threshold; every listed pole other than the mirror lies within it
+    from scipy.stats import chi2
+
+    from tumble.sparse import fit as F
+
+    for dof in (10, 300, 5000):
+        assert F._pole_threshold(9.0, dof) == pytest.approx(max(9.0, F.POLE_FIT_SIGMAS * chi2(dof).std()))
+    sim = _sparse_sim(2, period_h=10.063527624731542)
+    fit = fit_pa_geometry(sim.lightcurve, rng=1, n_steps=100)
+    assert fit.pole_delta_chi2 == pytest.approx(max(fit.alias_delta_chi2, chi2(fit.dof).std()))
+    assert all(p.delta_chi2_scaled <= fit.pole_delta_chi2 or p.kind == "mirror" for p in fit.poles)
+    assert fit.to_dict()["pole_delta_chi2"] == fit.pole_delta_chi2
+
+
 def test_sidereal_period_where_the_synodic_differs():
     # Near-Earth geometry over 90 days (phase 14-47 deg): the phase-angle bisector moves fast,
     # so a time-Fourier (synodic) period misses the sidereal one by far more than its error

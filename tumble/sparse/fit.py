@@ -90,6 +90,13 @@ SAME_POLE_DEG = 15.0
 #: (chi-square law with one degree of freedom; common practice). Wide scans raise it to
 #: 2 ln N for N independent frequencies (see _alias_threshold).
 ALIAS_DELTA_CHI2 = 9.0
+#: Poles: a pole solution whose chi-square lies within this many standard deviations of the
+#: chi-square statistic (sqrt(2 dof), the chi-square law's own spread) of the best is as good a
+#: fit by goodness of fit, and its sidereal period is covered by the interval. A likelihood-ratio
+#: threshold (the alias one) assumes the ellipsoid is the true shape; on non-ellipsoidal bodies
+#: one apparition ranks poles wrongly by more than that (a dense PA body of the calibration
+#: library: true pole 101 deg away, 11.6 worse in chi-square; benchmarks/bench_pa_period.py).
+POLE_FIT_SIGMAS = 1.0
 #: A best period within this fraction of either end of the searched range is not called unique
 #: (its minimum may lie outside the range; issue 14's "not at the edge of the grid").
 EDGE_FRACTION = 0.01
@@ -228,7 +235,7 @@ class GeometricPAFit:
         Best spin axis, ecliptic J2000, degrees (nan when the geometry was not in the data).
     poles : tuple of PoleSolution
         The best pole, the mirror solution, and every other distinct pole (restarts over the
-        sphere at the best period) within ``alias_delta_chi2`` of the best.
+        sphere at the best period) within ``pole_delta_chi2`` of the best.
     b_over_a, c_over_b : float
         Axis ratios of the ellipsoid (<= 1).
     h_mag : dict
@@ -255,6 +262,9 @@ class GeometricPAFit:
         period undecided.
     alias_delta_chi2 : float
         The threshold used: ``max(ALIAS_DELTA_CHI2, 2 ln N)`` for N independent frequencies.
+    pole_delta_chi2 : float
+        The poles' threshold: ``max(alias_delta_chi2, POLE_FIT_SIGMAS sqrt(2 dof))`` (goodness of
+        fit; the ellipsoid's pole ranking is not trusted beyond the chi-square's own spread).
     pole_sense_spread_per_d : float
         Largest difference between sidereal frequencies of one rotation seen with different poles:
         twice the bisector's mean angular rate over 2 pi, plus two grid steps, cycles/day.
@@ -302,6 +312,7 @@ class GeometricPAFit:
     delta_bic_rotation: float
     alias_family: tuple
     alias_delta_chi2: float
+    pole_delta_chi2: float
     pole_sense_spread_per_d: float
     geometry_fixed: bool
     geometry_note: str
@@ -339,7 +350,7 @@ class GeometricPAFit:
                               "pole_lon_deg": num(a.pole_lon_deg), "pole_lat_deg": num(a.pole_lat_deg),
                               "same_rotation": a.same_rotation}
                              for a in self.alias_family],
-            "alias_delta_chi2": self.alias_delta_chi2, "pole_sense_spread_per_d": self.pole_sense_spread_per_d,
+            "alias_delta_chi2": self.alias_delta_chi2, "pole_delta_chi2": self.pole_delta_chi2, "pole_sense_spread_per_d": self.pole_sense_spread_per_d,
             "geometry_fixed": self.geometry_fixed,
             "geometry_note": self.geometry_note, "warnings": list(self.warnings),
             "posterior": None if self.posterior is None else {
@@ -733,20 +744,24 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
     sols[0] = best
     s2 = max(1.0, best.chi2 / dof)
     alias_dchi2 = _alias_threshold(pb)
+    pole_dchi2 = _pole_threshold(alias_dchi2, dof)
     family = [s for s in sols if (s.chi2 - best.chi2) / s2 <= alias_dchi2]
     spread = _pole_sense_spread(pb)
     same = [abs(float(s.x[0]) - float(best.x[0])) <= spread for s in family]
     chi2_null = _null_chi2(pb)
     delta_bic = (chi2_null - best.chi2) / s2 - N_ROTATION_PARAMS * math.log(n)
     poles = tuple(PoleSolution(float(p.x[1]), float(p.x[2]), p.chi2, (p.chi2 - best.chi2) / s2, kind)
-                  for p, kind in pole_sols if (p.chi2 - best.chi2) / s2 <= alias_dchi2 or kind == "mirror")
+                  for p, kind in pole_sols if (p.chi2 - best.chi2) / s2 <= pole_dchi2 or kind == "mirror")
     post = _posterior(pb, best, s2, int(n_steps), rng) if sample else None
+    best_p = HOURS_PER_DAY / float(best.x[0])
     p_lo, p_hi = _period_interval(best, post, s2, n)
-    # the other acceptable poles give other sidereal periods: the interval covers them
+    # the other acceptable poles give other sidereal periods: the interval covers each of them with
+    # the best solution's own statistical width about it (the union of the poles' intervals)
+    below, above = best_p - p_lo, p_hi - best_p
     for p in poles:
-        if p.delta_chi2_scaled <= alias_dchi2:
+        if p.delta_chi2_scaled <= pole_dchi2:
             p_other = next(HOURS_PER_DAY / q.x[0] for q, _ in pole_sols if q.chi2 == p.chi2)
-            p_lo, p_hi = min(p_lo, p_other), max(p_hi, p_other)
+            p_lo, p_hi = min(p_lo, p_other - below), max(p_hi, p_other + above)
     for s, is_same in zip(family, same):  # so do the family members that are the same rotation
         if is_same:
             p_lo, p_hi = min(p_lo, HOURS_PER_DAY / s.x[0]), max(p_hi, HOURS_PER_DAY / s.x[0])
@@ -765,7 +780,6 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
     if post is not None and not (post.tau_max * 50 < post.n_steps * (1 - BURN_FRACTION)):
         warnings.append("posterior chain shorter than 50 autocorrelation times: intervals are indicative")
     ll = -0.5 * best.chi2 - 0.5 * float(np.sum(np.log(2 * np.pi / ell.w)))
-    best_p = HOURS_PER_DAY / float(best.x[0])
     ab, bc = math.exp(best.x[4]), math.exp(best.x[5])
     nan = float("nan")
     return GeometricPAFit(
@@ -780,7 +794,7 @@ def fit_pa_geometry(lc, *, period_range_h=None, period_hint_h: float | None = No
         n_points=n, chi2_null=chi2_null, delta_bic_rotation=float(delta_bic),
         alias_family=tuple(AliasMember(HOURS_PER_DAY / float(s.x[0]), (s.chi2 - best.chi2) / s2, float(s.x[1]),
                                        float(s.x[2]), bool(is_same)) for s, is_same in zip(family, same)),
-        alias_delta_chi2=alias_dchi2, pole_sense_spread_per_d=spread, geometry_fixed=pb.geometry_fixed, geometry_note=pb.geometry_note,
+        alias_delta_chi2=alias_dchi2, pole_delta_chi2=pole_dchi2, pole_sense_spread_per_d=spread, geometry_fixed=pb.geometry_fixed, geometry_note=pb.geometry_note,
         parameters=best.x, parameter_names=_names(ell), posterior=post,
         scan_frequency_per_d=pb.f0 + pb.df * np.arange(pb.n_freq), scan_chi2=best_scan,
         warnings=tuple(warnings),
@@ -850,6 +864,11 @@ def _alias_threshold(pb: _Problem) -> float:
     span = float(pb.scan.t[-1] - pb.scan.t[0])
     n_indep = max(2.0, 2.0 * pb.df * (pb.n_freq - 1) * span)
     return float(max(ALIAS_DELTA_CHI2, 2.0 * math.log(n_indep)))
+
+
+def _pole_threshold(alias_dchi2: float, dof: int) -> float:
+    """Delta chi2 (scaled) within which another pole is as good: :data:`POLE_FIT_SIGMAS` sqrt(2 dof), at least the alias one."""
+    return float(max(alias_dchi2, POLE_FIT_SIGMAS * math.sqrt(2.0 * dof)))
 
 
 def _pole_sense_spread(pb: _Problem) -> float:
