@@ -316,3 +316,19 @@ def test_physical_model_with_inertia_free_of_the_shape(rng):
     assert np.all(model(np.stack([bad, swapped])) == -np.inf)
     tied = PhysicalModel(lc, "SAM", p_psi_range_h=(1.0, 200.0), epoch_jd=st.epoch_jd)
     assert "i1_i3" not in tied.space.names
+
+
+def test_design_fast_kernel_matches_its_slow_reference(rng):
+    # The combination columns by angle addition from the harmonic tables against np.cos/np.sin of each
+    # column's own phase (FourierBasis.design_reference): the same columns to round-off (common practice:
+    # the recurrences lose about one unit of 1e-16 per step; 1e-11 leaves room for 60-day phases).
+    t = 2460000.0 + np.sort(rng.uniform(0, 60, 200))
+    lc = LightCurve.from_arrays(t, 0.1 * rng.standard_normal(200), np.full(200, 0.05), session=(t - t[0]).astype(int),
+                                light_time_corrected=True)
+    data = prepare_linear(lc)
+    basis = FourierBasis.build([FourierVariant(4, 2, 3), FourierVariant(3, 0, 3, pure_f2=True)])
+    assert np.any(basis.combos[:, 0] < 0) and np.any(basis.combos[:, 0] == 0)
+    f1, f2 = rng.uniform(1.0, 9.0, 7), rng.uniform(0.05, 0.9, 7)
+    fast, slow = basis.design(data, f1, f2), basis.design_reference(data, f1, f2)
+    assert fast.shape == slow.shape == (7, 200, basis.n_columns)
+    np.testing.assert_allclose(fast / data.sw[None, :, None], slow / data.sw[None, :, None], rtol=0, atol=1e-11)

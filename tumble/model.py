@@ -460,13 +460,52 @@ class FourierBasis:
                 out[:, :, col] = cj * poly
                 out[:, :, col + 1] = sj * poly
                 col += 2
-        for j, k in self.combos:
-            ph = 2 * np.pi * (j * f1 + k * f2)[:, None] * t[None, :]
-            out[:, :, col] = np.cos(ph)
-            out[:, :, col + 1] = np.sin(ph)
-            col += 2
+        if len(self.combos):
+            # combinations by angle addition from the harmonics of f1 and f2 (each by the same
+            # recurrence): no trigonometric call per combination column (was 30-50 % of the evidence)
+            h1 = _harmonic_table(c1, s1, int(np.max(np.abs(self.combos[:, 0]))))
+            ph2 = 2 * np.pi * f2[:, None] * t[None, :]
+            h2 = _harmonic_table(np.cos(ph2), np.sin(ph2), int(np.max(self.combos[:, 1])))
+            for j, k in self.combos:
+                cj, sj = h1[0][abs(j)], h1[1][abs(j)]
+                ck, sk = h2[0][k], h2[1][k]
+                if j >= 0:
+                    np.subtract(cj * ck, sj * sk, out=out[:, :, col])
+                    np.add(sj * ck, cj * sk, out=out[:, :, col + 1])
+                else:  # cos(-x) = cos x, sin(-x) = -sin x
+                    np.add(cj * ck, sj * sk, out=out[:, :, col])
+                    np.subtract(cj * sk, sj * ck, out=out[:, :, col + 1])
+                col += 2
         out *= data.sw[None, :, None]
         return out
+
+    def design_reference(self, data: LinearData, f1, f2=None) -> np.ndarray:
+        """Slow reference of :meth:`design`: ``np.cos``/``np.sin`` of every column's own phase."""
+        f1 = np.atleast_1d(np.asarray(f1, float))
+        if self.max_combo:
+            f1, f2 = np.broadcast_arrays(f1, np.atleast_1d(np.asarray(f2, float)))
+        t = data.t_d
+        legendre = legendre_drift(data.tau, self.drift)
+        cols = []
+        for j in range(1, self.max_harmonics + 1):
+            ph = 2 * np.pi * j * f1[:, None] * t[None, :]
+            c, s = np.cos(ph), np.sin(ph)
+            cols += [c, s]
+            for poly in legendre:
+                cols += [c * poly, s * poly]
+        for j, k in self.combos:
+            ph = 2 * np.pi * (j * f1 + k * f2)[:, None] * t[None, :]
+            cols += [np.cos(ph), np.sin(ph)]
+        return np.stack(cols, axis=-1) * data.sw[None, :, None]
+
+
+def _harmonic_table(c1, s1, n: int) -> tuple:
+    """``cos(j x)``, ``sin(j x)`` for ``j = 0..n`` from ``cos x``, ``sin x`` (angle-addition recurrence)."""
+    cos_j, sin_j = [np.ones_like(c1), c1], [np.zeros_like(s1), s1]
+    for _ in range(2, n + 1):
+        cos_j.append(cos_j[-1] * c1 - sin_j[-1] * s1)
+        sin_j.append(sin_j[-1] * c1 + cos_j[-2] * s1)
+    return cos_j[: n + 1], sin_j[: n + 1]
 
 
 #: Largest Legendre degree of the coefficient drift.
