@@ -74,6 +74,7 @@ __all__ = [
     "RotationState",
     "LightcurveFrequencies",
     "periods_unit_momentum",
+    "period_ratio_unit_momentum",
     "dynamic_inertia_from_periods",
     "batch_arguments",
     "attitude_matrices",
@@ -224,63 +225,66 @@ def _check_inertia(i1, i2, idd):
         raise RotationStateError("degenerate inertia: that mode does not exist for I2 = I3 (SAM) or I1 = I2 (LAM)")
 
 
-def _constants(i1, i2, idd):
-    """Closed-form constants at unit momentum (I3 = 1, L = 1) for arrays (K,).
-
-    Formulas of Landau & Lifshitz (1976, section 37) written with I_d;
-    periods as in Kaasalainen (2001) with P_psi = 4K/lambda and the mean
-    precession period through the complete integral of the third kind.
-    PA entries get harmless placeholder values (they are never used as NPA).
-    """
+def _placeholders(i1, i2, idd):
+    """Mode codes and the inertia with benign placeholders for PA entries (the NPA formulas stay finite there)."""
     i1 = np.asarray(i1, dtype=float)
     i2 = np.asarray(i2, dtype=float)
     idd = np.asarray(idd, dtype=float)
     mode = _mode_codes(i1, i2, idd)
-    sam = mode == _MODE_SAM
-    lam_ = mode == _MODE_LAM
     pa = mode == _MODE_PA
+    if np.any(pa):
+        i1 = np.where(pa, 0.5, i1)
+        i2 = np.where(pa, 0.8, i2)
+        idd = np.where(pa, 0.9, idd)
+    return mode, i1, i2, idd
+
+
+def _period_parts(mode, i1, i2, idd):
+    """``(m, K(m), lambda, n, Pi(n|m), P_psi, P_phi)`` at unit momentum (I3 = 1, L = 1), arrays (K,).
+
+    The one definition of the periods (Landau & Lifshitz 1976, section 37; Kaasalainen 2001):
+    ``P_psi = 4K/lambda`` and the mean precession period through ``Pi(n|m)``. ``i1, i2, idd`` carry
+    the placeholders of :func:`_placeholders` for PA entries.
+    """
     i3 = 1.0
-    # Benign placeholders for PA entries so the NPA formulas stay finite there.
-    i1 = np.where(pa, 0.5, i1)
-    i2 = np.where(pa, 0.8, i2)
-    idd = np.where(pa, 0.9, idd)
+    lam_ = mode == _MODE_LAM
     with np.errstate(divide="ignore", invalid="ignore"):
-        m_sam = (i2 - i1) * (i3 - idd) / ((i3 - i2) * (idd - i1))
-        m_lam = (i3 - i2) * (idd - i1) / ((i2 - i1) * (i3 - idd))
-        lam_sam = np.sqrt((i3 - i2) * (idd - i1) / (i1 * i2 * i3 * idd))
-        lam_lam = np.sqrt((i2 - i1) * (i3 - idd) / (i1 * i2 * i3 * idd))
-        n_sam = -i3 * (i2 - i1) / (i1 * (i3 - i2))
-        n_lam = -i1 * (i3 - i2) / (i3 * (i2 - i1))
-        # Amplitudes of I_i omega_i / L. SAM: (cn, sn, dn); LAM: (dn, sn, cn).
-        a1_sam = np.sqrt(i1 * (i3 - idd) / (idd * (i3 - i1)))
-        a2_sam = np.sqrt(i2 * (i3 - idd) / (idd * (i3 - i2)))
-        a3_sam = np.sqrt(i3 * (idd - i1) / (idd * (i3 - i1)))
-        a1_lam = np.sqrt(i1 * (i3 - idd) / (idd * (i3 - i1)))
-        a2_lam = np.sqrt(i2 * (idd - i1) / (idd * (i2 - i1)))
-        a3_lam = np.sqrt(i3 * (idd - i1) / (idd * (i3 - i1)))
-    m = np.where(sam | pa, m_sam, m_lam)
-    lam = np.where(sam | pa, lam_sam, lam_lam)
-    n = np.where(sam | pa, n_sam, n_lam)
-    amp = np.stack(
-        [
-            np.where(lam_, a1_lam, a1_sam),
-            np.where(lam_, a2_lam, a2_sam),
-            np.where(lam_, a3_lam, a3_sam),
-        ],
-        axis=-1,
-    )
+        m = np.where(lam_, (i3 - i2) * (idd - i1) / ((i2 - i1) * (i3 - idd)),
+                     (i2 - i1) * (i3 - idd) / ((i3 - i2) * (idd - i1)))
+        lam = np.sqrt(np.where(lam_, (i2 - i1) * (i3 - idd), (i3 - i2) * (idd - i1)) / (i1 * i2 * i3 * idd))
+        n = np.where(lam_, -i1 * (i3 - i2) / (i3 * (i2 - i1)), -i3 * (i2 - i1) / (i1 * (i3 - i2)))
     # Degenerate inertia (n = 0 or m = 0) is fine; clean NaN from 0/0 placeholders.
     m = np.nan_to_num(m, nan=0.0)
     n = np.nan_to_num(n, nan=0.0, neginf=-1e300)
     kk = special.ellipk(m)
     pi_c = carlson_pi_complete(n, m)
-    coef = (i3 - i1) / (i1 * i3 * lam)
-    c_phi = np.where(lam_, -coef, coef)
     p_psi = 4.0 * kk / lam
     # Mean precession period (Kaasalainen 2001; closed form via Pi(n|m)).
-    p_phi_sam = _TWO_PI * i1 * i3 * kk / (i1 * kk + (i3 - i1) * pi_c)
-    p_phi_lam = _TWO_PI * i1 * i3 * kk / (i3 * kk - (i3 - i1) * pi_c)
-    p_phi = np.where(lam_, p_phi_lam, p_phi_sam)
+    p_phi = _TWO_PI * i1 * i3 * kk / np.where(lam_, i3 * kk - (i3 - i1) * pi_c, i1 * kk + (i3 - i1) * pi_c)
+    return m, kk, lam, n, pi_c, p_psi, p_phi
+
+
+def _constants(i1, i2, idd):
+    """Closed-form constants at unit momentum (I3 = 1, L = 1) for arrays (K,).
+
+    Formulas of Landau & Lifshitz (1976, section 37) written with I_d;
+    periods as in Kaasalainen (2001) with P_psi = 4K/lambda and the mean
+    precession period through the complete integral of the third kind
+    (:func:`_period_parts`). PA entries get harmless placeholder values (they
+    are never used as NPA).
+    """
+    mode, i1, i2, idd = _placeholders(i1, i2, idd)
+    lam_ = mode == _MODE_LAM
+    i3 = 1.0
+    m, kk, lam, n, pi_c, p_psi, p_phi = _period_parts(mode, i1, i2, idd)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # Amplitudes of I_i omega_i / L. SAM: (cn, sn, dn); LAM: (dn, sn, cn).
+        amp = np.empty(np.shape(i1) + (3,))
+        amp[..., 0] = np.sqrt(i1 * (i3 - idd) / (idd * (i3 - i1)))
+        amp[..., 1] = np.sqrt(np.where(lam_, i2 * (idd - i1) / (idd * (i2 - i1)), i2 * (i3 - idd) / (idd * (i3 - i2))))
+        amp[..., 2] = np.sqrt(i3 * (idd - i1) / (idd * (i3 - i1)))
+    coef = (i3 - i1) / (i1 * i3 * lam)
+    c_phi = np.where(lam_, -coef, coef)
     kprime = special.ellipk(1.0 - m)
     nome = np.exp(-math.pi * kprime / kk)
     return _Constants(
@@ -296,6 +300,19 @@ def _constants(i1, i2, idd):
         p_phi_unit=p_phi,
         nome=nome,
     )
+
+
+def period_ratio_unit_momentum(i1_i3, i2_i3, id_i3) -> np.ndarray:
+    """``P_phi / P_psi`` of NPA states, arrays (K,), without validation (fast kernel).
+
+    The periods of :func:`periods_unit_momentum` (its slow reference, which validates the inertia
+    and builds every constant of the closed form) and nothing else: the function the sampler's
+    implicit chart solves for the excitation, several times per likelihood call. The caller passes
+    admissible NPA states only; others give meaningless numbers or ``nan``.
+    """
+    mode, i1, i2, idd = _placeholders(i1_i3, i2_i3, id_i3)
+    parts = _period_parts(mode, i1, i2, idd)
+    return parts[6] / parts[5]
 
 
 def periods_unit_momentum(i1_i3, i2_i3, id_i3):

@@ -857,7 +857,29 @@ class PhysicalModel:
         return ("l_lon_rad", "l_lat_rad", "phase0_rad" if self.mode == "PA" else "phi0_rad")
 
     def log_period_ratio(self, x) -> np.ndarray:
-        """``ln(P_phi / P_psi)`` of ``(K, ndim)`` vectors, shape ``(K,)`` (0 for PA); ``nan`` for an invalid state."""
+        """``ln(P_phi / P_psi)`` of ``(K, ndim)`` vectors, shape ``(K,)`` (0 for PA); ``nan`` for an invalid state.
+
+        Fast kernel (:func:`tumble.dynamics.period_ratio_unit_momentum` on the admissible rows; the
+        sampler's implicit chart calls it several times per likelihood call);
+        :meth:`log_period_ratio_reference` is the validated slow route.
+        """
+        from tumble.dynamics import period_ratio_unit_momentum
+
+        x = np.atleast_2d(np.asarray(x, float))
+        if self.mode == "PA":
+            return np.zeros(len(x))
+        i1, i2, idd = self._inertia(x)
+        ok = self._ratio_admissible(i1, i2, idd)
+        out = np.full(len(x), np.nan)
+        if ok.all():
+            return np.log(period_ratio_unit_momentum(i1, i2, idd))
+        if ok.any():
+            out[ok] = np.log(period_ratio_unit_momentum(i1[ok], i2[ok], idd[ok]))
+        return out
+
+    def log_period_ratio_reference(self, x) -> np.ndarray:
+        """Slow reference of :meth:`log_period_ratio`: the validated periods of
+        :func:`tumble.dynamics.periods_unit_momentum` from the full state arrays."""
         from tumble.dynamics import periods_unit_momentum
 
         x = np.atleast_2d(np.asarray(x, float))
@@ -865,8 +887,7 @@ class PhysicalModel:
             return np.zeros(len(x))
         args, _ = self.state_arrays(x)
         i1, i2, idd = (np.asarray(a, float) for a in args[:3])
-        ok = np.isfinite(i1 + i2 + idd) & (i1 > 0) & (i1 <= i2) & (i2 < 1.0) & (idd < 1.0) & (idd > i1)
-        ok &= np.abs(idd - i2) > 1e-9
+        ok = self._ratio_admissible(i1, i2, idd)
         out = np.full(len(x), np.nan)
         if ok.any():
             try:
@@ -875,6 +896,27 @@ class PhysicalModel:
                 return out
             out[ok] = np.log(np.asarray(pf) / np.asarray(pp))
         return out
+
+    @staticmethod
+    def _ratio_admissible(i1, i2, idd) -> np.ndarray:
+        """NPA states whose period ratio is defined: a rigid body's inertia (``I1 + I2 >= I3``, which only a
+        free-inertia state can miss) away from the separatrix by more than round-off. Row by row: one
+        inadmissible walker does not void its batch."""
+        with np.errstate(invalid="ignore"):
+            ok = np.isfinite(i1 + i2 + idd) & (i1 > 0) & (i1 <= i2) & (i2 < 1.0) & (idd < 1.0) & (idd > i1)
+            ok &= (np.abs(idd - i2) > 1e-9) & (i1 + i2 >= 1.0 - 1e-12)
+        return ok
+
+    def _inertia(self, x):
+        """``(I1/I3, I2/I3, I_d/I3)`` of ``(K, ndim)`` NPA vectors (the inertia part of :meth:`state_arrays`)."""
+        sp = self.space
+        if self.free_inertia:
+            i1, i2 = x[:, sp.index("i1_i3")], x[:, sp.index("i2_i3")]
+        else:
+            i1, i2 = _inertia_from_ratios(x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")])
+        u = x[:, sp.index("excitation_u")]
+        idd = 1.0 - u * (1.0 - i2) if self.mode == "SAM" else i1 + u * (i2 - i1)
+        return i1, i2, idd
 
     def sampling_chart(self, x_opt):
         """Coordinates in which the posterior of the mode at ``x_opt`` is nearly Gaussian.
@@ -901,12 +943,7 @@ class PhysicalModel:
         """Arguments of :func:`tumble.dynamics.ecliptic_to_body` and the axes for ``(K, ndim)`` vectors."""
         x = np.atleast_2d(np.asarray(x, float))
         sp = self.space
-        ab, bc = x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")]
-        if self.free_inertia:
-            i1, i2 = x[:, sp.index("i1_i3")], x[:, sp.index("i2_i3")]
-        else:
-            i1, i2 = _inertia_from_ratios(ab, bc)
-        axes = _ellipsoid_axes(ab, bc)
+        axes = _ellipsoid_axes(x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")])
         lon = np.degrees(x[:, sp.index("l_lon_rad")])
         lat = np.degrees(x[:, sp.index("l_lat_rad")])
         if self.mode == "PA":
@@ -914,11 +951,7 @@ class PhysicalModel:
             args = (np.ones(k), np.ones(k), np.ones(k), x[:, sp.index("period_h")], lon, lat,
                     np.degrees(x[:, sp.index("phase0_rad")]), np.zeros(k), self.epoch_jd)
         else:
-            u = x[:, sp.index("excitation_u")]
-            if self.mode == "SAM":
-                idd = 1.0 - u * (1.0 - i2)
-            else:
-                idd = i1 + u * (i2 - i1)
+            i1, i2, idd = self._inertia(x)
             args = (i1, i2, idd, x[:, sp.index("p_psi_h")], lon, lat, np.degrees(x[:, sp.index("phi0_rad")]),
                     np.degrees(x[:, sp.index("psi0_rad")]), self.epoch_jd)
         return args, axes
@@ -956,6 +989,17 @@ class PhysicalModel:
         t = self.t if t is None else t
         v = self._vectors if vectors is None else vectors
         body = ecliptic_to_body(*args, t, v)  # (2, K, n, 3)
+        flux = self.law.brightness(body[0], body[1], axes[:, None, :])
+        with np.errstate(divide="ignore"):
+            return -2.5 * np.log10(np.maximum(flux, 1e-300))
+
+    def shape_magnitudes_reference(self, x):
+        """Slow reference of :meth:`shape_magnitudes`: the attitude by special functions at every point
+        (``method="direct"`` of :func:`tumble.dynamics.ecliptic_to_body`) instead of its Fourier series."""
+        from tumble.dynamics import ecliptic_to_body
+
+        args, axes = self.state_arrays(x)
+        body = ecliptic_to_body(*args, self.t, self._vectors, method="direct")
         flux = self.law.brightness(body[0], body[1], axes[:, None, :])
         with np.errstate(divide="ignore"):
             return -2.5 * np.log10(np.maximum(flux, 1e-300))
