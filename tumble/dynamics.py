@@ -459,24 +459,8 @@ def _direct_parts(c, sel, x, euler_columns=False):
     ell : ndarray, shape (K, n, 3)
         Body components of the unit angular momentum ``I_i omega_i / L``.
     """
-    kk = c.kk[sel][:, None]
-    m = c.m[sel][:, None]
-    n = c.n[sel][:, None]
+    sn, cn, dn, phi_per = _elliptic_parts(c, sel, x)
     lam_mode = (c.mode[sel] == _MODE_LAM)[:, None]
-    u = x * (2.0 * kk / math.pi)
-    j = np.round(u / (2.0 * kk))
-    ur = u - 2.0 * kk * j  # |ur| <= K, amplitude within [-pi/2, pi/2]
-    sign = 1.0 - 2.0 * np.mod(j, 2.0)
-    sn_r, cn_r, dn_r, _ = special.ellipj(ur, np.broadcast_to(m, ur.shape))
-    cn_r = np.maximum(cn_r, 0.0)
-    s2 = sn_r * sn_r
-    pi_inc = sn_r * special.elliprf(cn_r * cn_r, dn_r * dn_r, 1.0) + n / 3.0 * sn_r * s2 * special.elliprj(
-        cn_r * cn_r, dn_r * dn_r, 1.0, 1.0 - n * s2
-    )
-    phi_per = c.c_phi[sel][:, None] * (pi_inc - c.pi_c[sel][:, None] / kk * ur)
-    sn = sign * sn_r
-    cn = sign * cn_r
-    dn = dn_r
     a = c.amp[sel]
     a1, a2, a3 = a[:, 0:1], a[:, 1:2], a[:, 2:3]
     # Body components of L/|L|: SAM (a1 cn, a2 sn, a3 dn); LAM (a1 dn, a2 sn, a3 cn).
@@ -494,17 +478,19 @@ def _direct_parts(c, sel, x, euler_columns=False):
     cp_ = ly / st
     cph = np.cos(phi_per)
     sph = np.sin(phi_per)
-    # A = Rx(theta) Rz(psi), rows in the Euler frame.
-    a_rows = np.stack(
-        [
-            np.stack([cp_, -sp_, np.zeros_like(cp_)], axis=-1),
-            np.stack([ct * sp_, ct * cp_, -st], axis=-1),
-            np.stack([st * sp_, st * cp_, ct], axis=-1),
-        ],
-        axis=-2,
-    )  # (K, n, 3, 3)
+    # A = Rx(theta) Rz(psi), rows in the Euler frame (filled in place: no stacking of temporaries).
+    a_rows = np.empty(st.shape + (3, 3))
+    a_rows[..., 0, 0] = cp_
+    a_rows[..., 0, 1] = -sp_
+    a_rows[..., 0, 2] = 0.0
+    a_rows[..., 1, 0] = ct * sp_
+    a_rows[..., 1, 1] = ct * cp_
+    a_rows[..., 1, 2] = -st
+    a_rows[..., 2, 0] = st * sp_
+    a_rows[..., 2, 1] = st * cp_
+    a_rows[..., 2, 2] = ct
     # Column permutation P (body axis -> Euler axis): LAM body 1,2,3 = Euler z,x,y.
-    if euler_columns:
+    if euler_columns or not lam_mode.any():
         ap = a_rows
     else:
         perm = np.where(lam_mode[:, 0:1], np.array([2, 0, 1]), np.array([0, 1, 2]))  # (K, 3)
@@ -514,6 +500,30 @@ def _direct_parts(c, sel, x, euler_columns=False):
     b[..., 1, :] = sph[..., None] * ap[..., 0, :] + cph[..., None] * ap[..., 1, :]
     b[..., 2, :] = ap[..., 2, :]
     return b, phi_per, ell
+
+
+def _elliptic_parts(c, sel, x):
+    """Signed ``sn, cn, dn`` over the whole period and the periodic part of phi at psi phases x (K, n).
+
+    ``u = 2 K x / pi`` is reduced to ``|u| <= K`` (amplitude within [-pi/2, pi/2], where the Carlson
+    form of ``Pi(n; am u|m)`` holds), and the signs restored from ``u -> u + 2K``;
+    ``phi_per = c_phi [Pi(n; am u|m) - (Pi(n|m)/K) u]`` (period ``pi`` in x).
+    """
+    kk = c.kk[sel][:, None]
+    m = c.m[sel][:, None]
+    n = c.n[sel][:, None]
+    u = x * (2.0 * kk / math.pi)
+    j = np.round(u / (2.0 * kk))
+    ur = u - 2.0 * kk * j  # |ur| <= K, amplitude within [-pi/2, pi/2]
+    sign = 1.0 - 2.0 * np.mod(j, 2.0)
+    sn_r, cn_r, dn_r, _ = special.ellipj(ur, np.broadcast_to(m, ur.shape))
+    cn_r = np.maximum(cn_r, 0.0)
+    s2 = sn_r * sn_r
+    pi_inc = sn_r * special.elliprf(cn_r * cn_r, dn_r * dn_r, 1.0) + n / 3.0 * sn_r * s2 * special.elliprj(
+        cn_r * cn_r, dn_r * dn_r, 1.0, 1.0 - n * s2
+    )
+    phi_per = c.c_phi[sel][:, None] * (pi_inc - c.pi_c[sel][:, None] / kk * ur)
+    return sign * sn_r, sign * cn_r, dn_r, phi_per
 
 
 def _initial_phase(c, sel, psi0):
@@ -647,6 +657,27 @@ def _fourier_coefficients(c, sel, harmonics):
     return _Series(coef=coef)
 
 
+def _unique_coefficients(c, sel, harmonics):
+    """:func:`_fourier_coefficients` of the states ``sel``, computed once per distinct inertia.
+
+    B(x) depends on the inertia alone (not on the period, the direction or the phases), and a batch
+    often repeats it: the optimiser's Jacobian (5 of 8 columns move only the period or the attitude),
+    the search's starts (many orientations per shape). Rows are identical to the per-state
+    computation (the series of each state is computed independently).
+    """
+    m = c.m[sel]
+    _, first, inverse = np.unique(m, return_index=True, return_inverse=True)
+    if len(first) == len(sel):
+        return _fourier_coefficients(c, sel, harmonics)
+    inverse = np.ravel(inverse)
+    rep = sel[first][inverse]
+    same = ((c.n[sel] == c.n[rep]) & (c.c_phi[sel] == c.c_phi[rep]) & (c.mode[sel] == c.mode[rep])
+            & np.all(c.amp[sel] == c.amp[rep], axis=1) & (c.kk[sel] == c.kk[rep]) & (c.pi_c[sel] == c.pi_c[rep]))
+    if not np.all(same):
+        return _fourier_coefficients(c, sel, harmonics)
+    return _Series(coef=_fourier_coefficients(c, sel[first], harmonics).coef[inverse])
+
+
 #: Basis rows per block of the Fourier evaluation are kept to about this many floats (cache size).
 _BLOCK_FLOATS = 1 << 17
 
@@ -732,7 +763,7 @@ def _fourier_route(c, npa_idx, x, out):
             continue
         # Sort by mode, then by harmonics needed (one FFT for the tier, both modes).
         members = members[np.lexsort((need[members], c.mode[npa_idx[members]]))]
-        series = _fourier_coefficients(c, npa_idx[members], int(need[members].max()))
+        series = _unique_coefficients(c, npa_idx[members], int(need[members].max()))
         modes = c.mode[npa_idx[members]]
         start = 0
         while start < len(members):
@@ -873,7 +904,7 @@ def _attitude_parts(batch, method):
         return phi_mean, b
     p_phi_h = c.p_phi_unit[npa_idx] * (batch.p_psi_h[npa_idx] / c.p_psi_unit[npa_idx])
     x0 = _initial_phase(c, npa_idx, batch.psi0[npa_idx])
-    _, phi_per0, _ = _direct_parts(c, npa_idx, x0[:, None])
+    phi_per0 = _elliptic_parts(c, npa_idx, x0[:, None])[3]
     dth = batch.dt_h[npa_idx]
     cycles = dth / batch.p_psi_h[npa_idx, None]
     cycles -= np.floor(cycles)
