@@ -254,8 +254,10 @@ def _period_parts(mode, i1, i2, idd):
         lam = np.sqrt(np.where(lam_, (i2 - i1) * (i3 - idd), (i3 - i2) * (idd - i1)) / (i1 * i2 * i3 * idd))
         n = np.where(lam_, -i1 * (i3 - i2) / (i3 * (i2 - i1)), -i3 * (i2 - i1) / (i1 * (i3 - i2)))
     # Degenerate inertia (n = 0 or m = 0) is fine; clean NaN from 0/0 placeholders.
-    m = np.nan_to_num(m, nan=0.0)
-    n = np.nan_to_num(n, nan=0.0, neginf=-1e300)
+    if not np.all(np.isfinite(m)):  # (the check is cheaper than nan_to_num on every call)
+        m = np.nan_to_num(m, nan=0.0)
+    if not np.all(np.isfinite(n)):
+        n = np.nan_to_num(n, nan=0.0, neginf=-1e300)
     kk = special.ellipk(m)
     pi_c = carlson_pi_complete(n, m)
     p_psi = 4.0 * kk / lam
@@ -841,9 +843,12 @@ def _invalid_states(i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch):
 
 
 def _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, invalid="raise"):
-    params = np.broadcast_arrays(
-        *[np.atleast_1d(np.asarray(v, dtype=float)) for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
-    )
+    params = [np.atleast_1d(np.asarray(v, dtype=float)) for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
+    if len({a.shape for a in params[:-1]}) == 1 and params[-1].shape == (1,) and params[0].ndim == 1:
+        # a model's walkers: eight arrays of one shape and one epoch (np.broadcast_arrays costs more)
+        params[-1] = np.full(params[0].shape, params[-1][0])
+    else:
+        params = np.broadcast_arrays(*params)
     if params[0].ndim != 1:
         raise RotationStateError("state parameters must be scalars or 1-D arrays over states")
     i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch = params
