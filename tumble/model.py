@@ -435,7 +435,9 @@ class FourierBasis:
         """Whitened design matrices for frequencies (cycles/day), shape ``(F, n, p)``.
 
         ``f1`` and ``f2`` broadcast to shape ``(F,)``; ``f2`` is needed when the
-        basis has combination terms.
+        basis has combination terms. The result is a transposed view of column-major storage
+        (each column written contiguously: writing the columns of a row-major array strided was
+        most of the design's time); :meth:`design_reference` is the slow reference.
         """
         f1 = np.atleast_1d(np.asarray(f1, float))
         if self.max_combo:
@@ -444,7 +446,7 @@ class FourierBasis:
             f1, f2 = np.broadcast_arrays(f1, np.atleast_1d(np.asarray(f2, float)))
         n_f = len(f1)
         t = data.t_d
-        out = np.empty((n_f, data.n_points, self.n_columns))
+        out = np.empty((n_f, self.n_columns, data.n_points))
         ph1 = 2 * np.pi * f1[:, None] * t[None, :]
         col = 0
         c1, s1 = np.cos(ph1), np.sin(ph1)
@@ -453,12 +455,12 @@ class FourierBasis:
         for j in range(1, self.max_harmonics + 1):
             if j > 1:  # angle-addition recurrence for cos(j x), sin(j x)
                 cj, sj = cj * c1 - sj * s1, sj * c1 + cj * s1
-            out[:, :, col] = cj
-            out[:, :, col + 1] = sj
+            out[:, col] = cj
+            out[:, col + 1] = sj
             col += 2
             for poly in legendre:
-                out[:, :, col] = cj * poly
-                out[:, :, col + 1] = sj * poly
+                out[:, col] = cj * poly
+                out[:, col + 1] = sj * poly
                 col += 2
         if len(self.combos):
             # combinations by angle addition from the harmonics of f1 and f2 (each by the same
@@ -470,14 +472,14 @@ class FourierBasis:
                 cj, sj = h1[0][abs(j)], h1[1][abs(j)]
                 ck, sk = h2[0][k], h2[1][k]
                 if j >= 0:
-                    np.subtract(cj * ck, sj * sk, out=out[:, :, col])
-                    np.add(sj * ck, cj * sk, out=out[:, :, col + 1])
+                    np.subtract(cj * ck, sj * sk, out=out[:, col])
+                    np.add(sj * ck, cj * sk, out=out[:, col + 1])
                 else:  # cos(-x) = cos x, sin(-x) = -sin x
-                    np.add(cj * ck, sj * sk, out=out[:, :, col])
-                    np.subtract(cj * sk, sj * ck, out=out[:, :, col + 1])
+                    np.add(cj * ck, sj * sk, out=out[:, col])
+                    np.subtract(cj * sk, sj * ck, out=out[:, col + 1])
                 col += 2
-        out *= data.sw[None, :, None]
-        return out
+        out *= data.sw[None, None, :]
+        return out.transpose(0, 2, 1)
 
     def design_reference(self, data: LinearData, f1, f2=None) -> np.ndarray:
         """Slow reference of :meth:`design`: ``np.cos``/``np.sin`` of every column's own phase."""
