@@ -60,3 +60,16 @@ def test_attitude_of_a_batch_with_repeated_inertia_matches_the_direct_route(rng)
     slow = ecliptic_to_body(*args, t, vec, method="direct")
     assert fast.shape == (2, 15, 300, 3)
     assert np.max(np.abs(fast - slow)) < 1e-12
+
+
+@pytest.mark.parametrize("harmonics", [8, 9, 29, 96])
+def test_series_from_the_reflected_quarter_period_equal_the_half_period_series(rng, harmonics):
+    # the fast kernel samples B(x) by special functions on half of the half period and reflects the rest
+    # (B(pi - x) = S * B(x), from the parity of sn, cn, dn; Landau & Lifshitz 1976, section 37); the slow
+    # reference computes every sample: the same coefficients to round-off (1e-14 of the unit matrix)
+    args = _npa_batch(rng, 10)
+    c = dynamics._constants(*args[:3])
+    sel = np.arange(10)
+    fast = dynamics._fourier_coefficients(c, sel, harmonics).coef
+    slow = dynamics._fourier_coefficients(c, sel, harmonics, symmetric=False).coef
+    np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-14)

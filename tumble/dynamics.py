@@ -619,17 +619,32 @@ def _basis_maps(n_odd, n_even, n_basis):
     return t_sin_odd, t_cos_odd, t_sin_even, t_cos_even
 
 
-def _fourier_coefficients(c, sel, harmonics):
-    """Fourier series of B(x) up to ``harmonics`` per state, from 2H+2 direct samples (FFT).
+#: Signs of B(pi - x) against B(x), entry by entry in Euler columns (u -> -u: sn and phi_per odd, cn and
+#: dn even, so each entry is a pure sine or cosine series; then u -> u + 2K negates columns x and y).
+_REFLECTION_SIGNS = {_MODE_SAM: np.array([[1.0, -1.0, -1.0], [-1.0, 1.0, 1.0], [-1.0, 1.0, 1.0]]),
+                     _MODE_LAM: np.array([[-1.0, 1.0, -1.0], [1.0, -1.0, 1.0], [1.0, -1.0, 1.0]])}
 
-    Only the first half period is sampled: ``B(x + pi) = B(x) diag(-1, -1, 1)``
-    in Euler columns (u -> u + 2K).
+
+def _fourier_coefficients(c, sel, harmonics, symmetric=True):
+    """Fourier series of B(x) up to ``harmonics`` per state, from 2H+2 samples (FFT).
+
+    Only the first half period is needed: ``B(x + pi) = B(x) diag(-1, -1, 1)`` in Euler columns
+    (u -> u + 2K). With ``symmetric`` (the fast kernel) only its first half is computed by special
+    functions and the rest follows from ``B(pi - x) = S * B(x)`` (:data:`_REFLECTION_SIGNS`), which
+    halves the elliptic-function calls; ``symmetric=False`` (the slow reference) computes every sample
+    of the half period. The two agree to round-off.
     """
     h = int(harmonics)
     msamp = 2 * h + 2
     half = msamp // 2
-    xs = np.arange(half) * (_TWO_PI / msamp)
-    bh, _, _ = _direct_parts(c, sel, np.broadcast_to(xs, (len(sel), half)), euler_columns=True)
+    n_direct = half // 2 + 1 if symmetric else half
+    xs = np.arange(n_direct) * (_TWO_PI / msamp)
+    bh, _, _ = _direct_parts(c, sel, np.broadcast_to(xs, (len(sel), n_direct)), euler_columns=True)
+    if n_direct < half:
+        lam = (c.mode[sel] == _MODE_LAM)[:, None, None, None]
+        signs = np.where(lam, _REFLECTION_SIGNS[_MODE_LAM], _REFLECTION_SIGNS[_MODE_SAM])
+        mirror = half - np.arange(n_direct, half)  # sample j = half - k is pi - x_k
+        bh = np.concatenate([bh, bh[:, mirror] * signs], axis=1)
     b = np.concatenate([bh, bh * np.array([-1.0, -1.0, 1.0])], axis=1)
     spec = np.fft.rfft(b, axis=1) / msamp  # (K, h+2, 3, 3)
     h_odd = h if h % 2 else h - 1
