@@ -29,6 +29,12 @@ reference kept beside it:
 Times are CPU times of this process (``time.process_time``); the machine's load average is printed
 with them, because absolute times on a shared machine are not performance figures (the ratios are).
 
+Another commit's route (before/after) cannot run in the same process; run its source tree with the
+same script in alternation (``--no-kernels``; the script imports ``tumble`` from ``PYTHONPATH`` first)::
+
+    git archive <commit> tumble | tar -x -C /some/dir
+    OPENBLAS_NUM_THREADS=1 PYTHONPATH=/some/dir nice .venv/bin/python benchmarks/bench_route_split.py --no-kernels
+
 Run (with ``nice`` on a shared machine)::
 
     OPENBLAS_NUM_THREADS=1 nice .venv/bin/python benchmarks/bench_route_split.py
