@@ -1073,6 +1073,13 @@ class _Rendezvous:
                 return self.results.pop(e)
             raise self.error
 
+    def abort(self, exc: BaseException):
+        """Wake every waiting ensemble with ``exc`` (the caller's thread was interrupted)."""
+        with self.cond:
+            if self.error is None:
+                self.error = exc
+            self.cond.notify_all()
+
     def leave(self):
         """An ensemble finished (or failed): the others no longer wait for its requests."""
         with self.cond:
@@ -1135,6 +1142,9 @@ def _run(ens: _Ensembles, steps: int, progress_bar=None):
             th.start()
         for th in threads:
             th.join()
+    except BaseException:  # e.g. KeyboardInterrupt in the caller: the ensembles stop at their next request
+        gate.abort(TumbleError("sampling interrupted"))
+        raise
     finally:
         for region, fn in zip(ens.regions, shared):
             region.log_likelihood = fn
