@@ -35,6 +35,8 @@ rather than the whole, multimodal posterior:
    :func:`~tumble.inference.sampling.assess_chains` hold (at least ``tau_multiple``
    autocorrelation times after burn-in, acceptance in ``acceptance_range``, split R-hat across the
    ensembles below ``rhat_max``, one walker cluster) and the mode is contained, or the budget ends.
+   The ensembles step side by side, their likelihood requests evaluated together in one vectorised
+   call (:func:`_run`; the chains are those of running them one after the other).
 
 The returned :class:`~tumble.inference.sampling.Posterior` states in its diagnostics whether every
 criterion was met and why not.
@@ -1150,7 +1152,6 @@ def _run(ens: _Ensembles, steps: int, progress_bar=None):
             region.log_likelihood = fn
     if errors:
         raise errors[0]
-    return gate.n_batches
 
 
 def _edge_fraction(samples, region: ModeRegion) -> float:
