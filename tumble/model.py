@@ -450,11 +450,12 @@ class FourierBasis:
         ph1 = 2 * np.pi * f1[:, None] * t[None, :]
         col = 0
         c1, s1 = np.cos(ph1), np.sin(ph1)
-        cj, sj = c1.copy(), s1.copy()
+        # cos(j x), sin(j x) of f1 by the angle-addition recurrence, for the harmonics and the combinations
+        n1 = max([self.max_harmonics] + [abs(int(j)) for j in self.combos[:, 0]])
+        h1 = _harmonic_table(c1, s1, n1)
         legendre = legendre_drift(data.tau, self.drift)
         for j in range(1, self.max_harmonics + 1):
-            if j > 1:  # angle-addition recurrence for cos(j x), sin(j x)
-                cj, sj = cj * c1 - sj * s1, sj * c1 + cj * s1
+            cj, sj = h1[0][j], h1[1][j]
             out[:, col] = cj
             out[:, col + 1] = sj
             col += 2
@@ -464,8 +465,7 @@ class FourierBasis:
                 col += 2
         if len(self.combos):
             # combinations by angle addition from the harmonics of f1 and f2 (each by the same
-            # recurrence): no trigonometric call per combination column (was 30-50 % of the evidence)
-            h1 = _harmonic_table(c1, s1, int(np.max(np.abs(self.combos[:, 0]))))
+            # recurrence): no trigonometric call per combination column (was about half of the evidence)
             ph2 = 2 * np.pi * f2[:, None] * t[None, :]
             h2 = _harmonic_table(np.cos(ph2), np.sin(ph2), int(np.max(self.combos[:, 1])))
             for j, k in self.combos:
