@@ -983,16 +983,22 @@ class PhysicalModel:
         i1, i2 = x[:, self.space.index("i1_i3")], x[:, self.space.index("i2_i3")]
         return (i1 + FREE_INERTIA_GAP <= i2) & (i2 <= 1.0 - FREE_INERTIA_GAP) & (i1 + i2 >= 1.0)
 
-    def shape_magnitudes(self, x, t=None, vectors=None):
-        """Model magnitudes without nuisance terms, ``-2.5 log10 I``, shape ``(K, n)``; ``I`` from :attr:`law`."""
+    def shape_magnitudes(self, x, t=None, vectors=None, invalid: str = "raise"):
+        """Model magnitudes without nuisance terms, ``-2.5 log10 I``, shape ``(K, n)``; ``I`` from :attr:`law`.
+
+        ``invalid`` as in :func:`tumble.dynamics.ecliptic_to_body`: ``"raise"`` for a batch holding a
+        state the closed form refuses (e.g. within its tolerance of the separatrix), ``"nan"`` for
+        ``nan`` magnitudes on that state's row only (the sampler's likelihood: one walker, or one
+        ensemble of a shared call, does not void the others).
+        """
         from tumble.dynamics import ecliptic_to_body
 
         args, axes = self.state_arrays(x)
         t = self.t if t is None else t
         v = self._vectors if vectors is None else vectors
-        body = ecliptic_to_body(*args, t, v)  # (2, K, n, 3)
-        flux = self.law.brightness(body[0], body[1], axes[:, None, :])
-        with np.errstate(divide="ignore"):
+        body = ecliptic_to_body(*args, t, v, invalid=invalid)  # (2, K, n, 3)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            flux = self.law.brightness(body[0], body[1], axes[:, None, :])
             return -2.5 * np.log10(np.maximum(flux, 1e-300))
 
     def shape_magnitudes_reference(self, x):
