@@ -858,7 +858,8 @@ def _invalid_states(i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch):
 
 
 def _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, invalid="raise"):
-    params = [np.atleast_1d(np.asarray(v, dtype=float)) for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
+    params = [np.atleast_1d(np.asarray(v, dtype=float))
+              for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
     if len({a.shape for a in params[:-1]}) == 1 and params[-1].shape == (1,) and params[0].ndim == 1:
         # a model's walkers: eight arrays of one shape and one epoch (np.broadcast_arrays costs more)
         params[-1] = np.full(params[0].shape, params[-1][0])
