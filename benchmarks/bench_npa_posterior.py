@@ -18,7 +18,9 @@ cache of the main checkout, held-out objects only) the script runs, per object:
      it (the jitter integrated out, the optimum polished to the top of its mode, two pilot rounds,
      the region holding the pilot's spread too, the jitter drawn back per sample);
 
-and prints per object and in total: converged or not, acceptance, chain length in autocorrelation
+(both tails run their ensembles with the likelihood requests batched, ``tumble.inference.local._run``,
+which gives the chains of the sequential run; ``benchmarks/bench_route_split.py`` times the batching
+against the sequential reference and the whole route's split), and prints per object and in total: converged or not, acceptance, chain length in autocorrelation
 times, split R-hat, walker clusters, the mode-edge fraction, the periods' 68 % intervals, the time
 split (evidence, enumeration, sampling) and the after/before ratios of sampling CPU time,
 likelihood evaluations and peak traced memory (``tracemalloc``), plus the peak RSS of the process.

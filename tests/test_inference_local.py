@@ -280,3 +280,43 @@ def test_small_npa_case_reports_its_convergence_honestly(rng):
     reach = MODE_REGION_SCALE * math.sqrt(stats.chi2.ppf(1 - MODE_REGION_TAIL, model.space.ndim)) * sd
     p_psi = post["p_psi_h"]
     assert np.all(np.abs(p_psi - x_opt[model.space.index("p_psi_h")]) <= reach)
+
+
+class _CountingLikelihood(_GaussianLikelihood):
+    """The scipy Gaussian, counting its calls; raises after ``fail_after`` calls when given."""
+
+    def __init__(self, mean, cov, fail_after=None):
+        super().__init__(mean, cov)
+        self.n_calls = 0
+        self.fail_after = fail_after
+
+    def __call__(self, x):
+        self.n_calls += 1
+        if self.fail_after is not None and self.n_calls > self.fail_after:
+            raise FloatingPointError("the likelihood failed on purpose")
+        return super().__call__(x)
+
+
+def test_batched_ensembles_reproduce_the_sequential_chains(rng, monkeypatch):
+    # the ensembles' likelihood requests batched into shared calls (local._run) against the slow reference
+    # that runs them one after the other (local._run_reference): the same chains (each ensemble keeps its
+    # own random stream; the Gaussian's rows are independent, so the values are bit-identical), about half
+    # the likelihood calls with two ensembles
+    from tumble.inference import local
+
+    mean, cov, space = _correlated_gaussian(rng)
+    fast_like = _CountingLikelihood(mean, cov)
+    fast = sample_local_mode(fast_like, space, mean, max_steps=400, rng=7)
+    monkeypatch.setattr(local, "_run", local._run_reference)
+    slow_like = _CountingLikelihood(mean, cov)
+    slow = sample_local_mode(slow_like, space, mean, max_steps=400, rng=7)
+    np.testing.assert_array_equal(fast.samples, slow.samples)
+    np.testing.assert_array_equal(fast.log_likelihood, slow.log_likelihood)
+    assert fast.diagnostics.n_evaluations == slow.diagnostics.n_evaluations
+    assert fast_like.n_calls < 0.6 * slow_like.n_calls
+
+
+def test_a_failing_likelihood_in_batched_ensembles_is_raised_not_hung(rng):
+    mean, cov, space = _correlated_gaussian(rng)
+    with pytest.raises(FloatingPointError, match="on purpose"):
+        sample_local_mode(_CountingLikelihood(mean, cov, fail_after=150), space, mean, max_steps=400, rng=7)

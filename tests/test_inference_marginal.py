@@ -198,3 +198,26 @@ def test_solution_mode_tail_reports_honestly_and_draws_the_jitter(rng):
     idx = np.linspace(0, len(post.samples) - 1, 6).astype(int)
     np.testing.assert_allclose(post.log_likelihood[idx], model(post.samples[idx]), rtol=1e-9, atol=1e-7)
     assert np.all(np.isfinite(model.space.log_prior(post.samples)))
+
+
+def test_a_refused_state_voids_only_its_own_row(rng):
+    # a state the closed form refuses (within SEPARATRIX_TOLERANCE of the SAM/LAM separatrix) among valid ones:
+    # -inf on its row, and the other rows equal to their values without it (the batched ensembles of
+    # tumble.inference.local._run rely on it: a shared call is the sum of its parts); the model's own
+    # likelihood (the slow reference) still refuses the whole batch
+    from tumble.dynamics import SEPARATRIX_TOLERANCE
+    from tumble.model import _inertia_from_ratios
+
+    model, x_true, _ = _sam_model(rng, n_nights=2, cadence_min=40)
+    lik = JitterMarginalLikelihood(model, n_nodes=16)
+    sp = model.space
+    bad = x_true.copy()
+    i1, i2 = _inertia_from_ratios(bad[sp.index("a_over_b")], bad[sp.index("b_over_c")])
+    # SAM: I_d = 1 - u (1 - I2); u just below 1 puts I_d 0.1 tolerance above I2
+    bad[sp.index("excitation_u")] = 1.0 - 0.1 * SEPARATRIX_TOLERANCE / (1.0 - i2)
+    good = np.vstack([x_true, sp.sample_prior(3, rng)])
+    alone = lik.node_log_likelihood(good)
+    mixed = lik.node_log_likelihood(np.vstack([good[:2], bad, good[2:]]))
+    assert np.all(np.isneginf(mixed[2]))
+    np.testing.assert_array_equal(np.delete(mixed, 2, axis=0), alone)
+    assert np.all(np.isneginf(model(np.vstack([good, bad]))))

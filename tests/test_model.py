@@ -316,3 +316,46 @@ def test_physical_model_with_inertia_free_of_the_shape(rng):
     assert np.all(model(np.stack([bad, swapped])) == -np.inf)
     tied = PhysicalModel(lc, "SAM", p_psi_range_h=(1.0, 200.0), epoch_jd=st.epoch_jd)
     assert "i1_i3" not in tied.space.names
+
+
+def test_design_fast_kernel_matches_its_slow_reference(rng):
+    # The combination columns by angle addition from the harmonic tables against np.cos/np.sin of each
+    # column's own phase (FourierBasis.design_reference): the same columns to round-off (common practice:
+    # the recurrences lose about one unit of 1e-16 per step; 1e-11 leaves room for 60-day phases).
+    t = 2460000.0 + np.sort(rng.uniform(0, 60, 200))
+    lc = LightCurve.from_arrays(t, 0.1 * rng.standard_normal(200), np.full(200, 0.05), session=(t - t[0]).astype(int),
+                                light_time_corrected=True)
+    data = prepare_linear(lc)
+    basis = FourierBasis.build([FourierVariant(4, 2, 3), FourierVariant(3, 0, 3, pure_f2=True)])
+    assert np.any(basis.combos[:, 0] < 0) and np.any(basis.combos[:, 0] == 0)
+    f1, f2 = rng.uniform(1.0, 9.0, 7), rng.uniform(0.05, 0.9, 7)
+    fast, slow = basis.design(data, f1, f2), basis.design_reference(data, f1, f2)
+    assert fast.shape == slow.shape == (7, 200, basis.n_columns)
+    np.testing.assert_allclose(fast / data.sw[None, :, None], slow / data.sw[None, :, None], rtol=0, atol=1e-11)
+
+
+@pytest.mark.parametrize("mode,free", [("SAM", False), ("LAM", False), ("SAM", True), ("LAM", True)])
+def test_period_ratio_fast_kernel_matches_the_validated_periods(rng, mode, free):
+    # ln(P_phi/P_psi) of the fast kernel (tumble.dynamics.period_ratio_unit_momentum on the admissible rows)
+    # against the slow reference through periods_unit_momentum (the closed form of Kaasalainen 2001, itself
+    # tested against the integrated Euler equations): equal to round-off, and nan where the state is not admissible
+    lc = _lc(rng, n=12, directions=True)
+    model = PhysicalModel(lc, mode, period_range_h=(1.0, 100.0), free_inertia=free)
+    x = model.space.sample_prior(256, rng)  # a free inertia drawn from its box is admissible in about 1 of 4
+    x[0, model.space.index("excitation_u")] = np.nan
+    fast, slow = model.log_period_ratio(x), model.log_period_ratio_reference(x)
+    assert np.isnan(fast[0]) and np.isnan(slow[0])
+    np.testing.assert_array_equal(np.isnan(fast), np.isnan(slow))
+    assert np.isfinite(fast).sum() >= 20
+    np.testing.assert_allclose(fast, slow, rtol=1e-13, atol=0, equal_nan=True)
+
+
+@pytest.mark.parametrize("mode", ["PA", "SAM", "LAM"])
+def test_shape_magnitudes_fast_route_matches_the_direct_reference(rng, mode):
+    # the attitude's Fourier series (the fast route) against special functions at every point (the
+    # direct route, tested against solve_ivp in test_dynamics): the same magnitudes to 1e-9 mag
+    # (the series' neglected tail is 1e-15 of the unit matrix; common practice)
+    lc = _lc(rng, n=50, directions=True)
+    model = PhysicalModel(lc, mode, period_range_h=(1.0, 100.0))
+    x = model.space.sample_prior(16, rng)
+    np.testing.assert_allclose(model.shape_magnitudes(x), model.shape_magnitudes_reference(x), rtol=0, atol=1e-9)

@@ -74,6 +74,7 @@ __all__ = [
     "RotationState",
     "LightcurveFrequencies",
     "periods_unit_momentum",
+    "period_ratio_unit_momentum",
     "dynamic_inertia_from_periods",
     "batch_arguments",
     "attitude_matrices",
@@ -224,63 +225,68 @@ def _check_inertia(i1, i2, idd):
         raise RotationStateError("degenerate inertia: that mode does not exist for I2 = I3 (SAM) or I1 = I2 (LAM)")
 
 
+def _placeholders(i1, i2, idd):
+    """Mode codes and the inertia with benign placeholders for PA entries (the NPA formulas stay finite there)."""
+    i1 = np.asarray(i1, dtype=float)
+    i2 = np.asarray(i2, dtype=float)
+    idd = np.asarray(idd, dtype=float)
+    mode = _mode_codes(i1, i2, idd)
+    pa = mode == _MODE_PA
+    if np.any(pa):
+        i1 = np.where(pa, 0.5, i1)
+        i2 = np.where(pa, 0.8, i2)
+        idd = np.where(pa, 0.9, idd)
+    return mode, i1, i2, idd
+
+
+def _period_parts(mode, i1, i2, idd):
+    """``(m, K(m), lambda, n, Pi(n|m), P_psi, P_phi)`` at unit momentum (I3 = 1, L = 1), arrays (K,).
+
+    The one definition of the periods (Landau & Lifshitz 1976, section 37; Kaasalainen 2001):
+    ``P_psi = 4K/lambda`` and the mean precession period through ``Pi(n|m)``. ``i1, i2, idd`` carry
+    the placeholders of :func:`_placeholders` for PA entries.
+    """
+    i3 = 1.0
+    lam_ = mode == _MODE_LAM
+    with np.errstate(divide="ignore", invalid="ignore"):
+        m = np.where(lam_, (i3 - i2) * (idd - i1) / ((i2 - i1) * (i3 - idd)),
+                     (i2 - i1) * (i3 - idd) / ((i3 - i2) * (idd - i1)))
+        lam = np.sqrt(np.where(lam_, (i2 - i1) * (i3 - idd), (i3 - i2) * (idd - i1)) / (i1 * i2 * i3 * idd))
+        n = np.where(lam_, -i1 * (i3 - i2) / (i3 * (i2 - i1)), -i3 * (i2 - i1) / (i1 * (i3 - i2)))
+    # Degenerate inertia (n = 0 or m = 0) is fine; clean NaN from 0/0 placeholders.
+    if not np.all(np.isfinite(m)):  # (the check is cheaper than nan_to_num on every call)
+        m = np.nan_to_num(m, nan=0.0)
+    if not np.all(np.isfinite(n)):
+        n = np.nan_to_num(n, nan=0.0, neginf=-1e300)
+    kk = special.ellipk(m)
+    pi_c = carlson_pi_complete(n, m)
+    p_psi = 4.0 * kk / lam
+    # Mean precession period (Kaasalainen 2001; closed form via Pi(n|m)).
+    p_phi = _TWO_PI * i1 * i3 * kk / np.where(lam_, i3 * kk - (i3 - i1) * pi_c, i1 * kk + (i3 - i1) * pi_c)
+    return m, kk, lam, n, pi_c, p_psi, p_phi
+
+
 def _constants(i1, i2, idd):
     """Closed-form constants at unit momentum (I3 = 1, L = 1) for arrays (K,).
 
     Formulas of Landau & Lifshitz (1976, section 37) written with I_d;
     periods as in Kaasalainen (2001) with P_psi = 4K/lambda and the mean
-    precession period through the complete integral of the third kind.
-    PA entries get harmless placeholder values (they are never used as NPA).
+    precession period through the complete integral of the third kind
+    (:func:`_period_parts`). PA entries get harmless placeholder values (they
+    are never used as NPA).
     """
-    i1 = np.asarray(i1, dtype=float)
-    i2 = np.asarray(i2, dtype=float)
-    idd = np.asarray(idd, dtype=float)
-    mode = _mode_codes(i1, i2, idd)
-    sam = mode == _MODE_SAM
+    mode, i1, i2, idd = _placeholders(i1, i2, idd)
     lam_ = mode == _MODE_LAM
-    pa = mode == _MODE_PA
     i3 = 1.0
-    # Benign placeholders for PA entries so the NPA formulas stay finite there.
-    i1 = np.where(pa, 0.5, i1)
-    i2 = np.where(pa, 0.8, i2)
-    idd = np.where(pa, 0.9, idd)
+    m, kk, lam, n, pi_c, p_psi, p_phi = _period_parts(mode, i1, i2, idd)
     with np.errstate(divide="ignore", invalid="ignore"):
-        m_sam = (i2 - i1) * (i3 - idd) / ((i3 - i2) * (idd - i1))
-        m_lam = (i3 - i2) * (idd - i1) / ((i2 - i1) * (i3 - idd))
-        lam_sam = np.sqrt((i3 - i2) * (idd - i1) / (i1 * i2 * i3 * idd))
-        lam_lam = np.sqrt((i2 - i1) * (i3 - idd) / (i1 * i2 * i3 * idd))
-        n_sam = -i3 * (i2 - i1) / (i1 * (i3 - i2))
-        n_lam = -i1 * (i3 - i2) / (i3 * (i2 - i1))
         # Amplitudes of I_i omega_i / L. SAM: (cn, sn, dn); LAM: (dn, sn, cn).
-        a1_sam = np.sqrt(i1 * (i3 - idd) / (idd * (i3 - i1)))
-        a2_sam = np.sqrt(i2 * (i3 - idd) / (idd * (i3 - i2)))
-        a3_sam = np.sqrt(i3 * (idd - i1) / (idd * (i3 - i1)))
-        a1_lam = np.sqrt(i1 * (i3 - idd) / (idd * (i3 - i1)))
-        a2_lam = np.sqrt(i2 * (idd - i1) / (idd * (i2 - i1)))
-        a3_lam = np.sqrt(i3 * (idd - i1) / (idd * (i3 - i1)))
-    m = np.where(sam | pa, m_sam, m_lam)
-    lam = np.where(sam | pa, lam_sam, lam_lam)
-    n = np.where(sam | pa, n_sam, n_lam)
-    amp = np.stack(
-        [
-            np.where(lam_, a1_lam, a1_sam),
-            np.where(lam_, a2_lam, a2_sam),
-            np.where(lam_, a3_lam, a3_sam),
-        ],
-        axis=-1,
-    )
-    # Degenerate inertia (n = 0 or m = 0) is fine; clean NaN from 0/0 placeholders.
-    m = np.nan_to_num(m, nan=0.0)
-    n = np.nan_to_num(n, nan=0.0, neginf=-1e300)
-    kk = special.ellipk(m)
-    pi_c = carlson_pi_complete(n, m)
+        amp = np.empty(np.shape(i1) + (3,))
+        amp[..., 0] = np.sqrt(i1 * (i3 - idd) / (idd * (i3 - i1)))
+        amp[..., 1] = np.sqrt(np.where(lam_, i2 * (idd - i1) / (idd * (i2 - i1)), i2 * (i3 - idd) / (idd * (i3 - i2))))
+        amp[..., 2] = np.sqrt(i3 * (idd - i1) / (idd * (i3 - i1)))
     coef = (i3 - i1) / (i1 * i3 * lam)
     c_phi = np.where(lam_, -coef, coef)
-    p_psi = 4.0 * kk / lam
-    # Mean precession period (Kaasalainen 2001; closed form via Pi(n|m)).
-    p_phi_sam = _TWO_PI * i1 * i3 * kk / (i1 * kk + (i3 - i1) * pi_c)
-    p_phi_lam = _TWO_PI * i1 * i3 * kk / (i3 * kk - (i3 - i1) * pi_c)
-    p_phi = np.where(lam_, p_phi_lam, p_phi_sam)
     kprime = special.ellipk(1.0 - m)
     nome = np.exp(-math.pi * kprime / kk)
     return _Constants(
@@ -296,6 +302,19 @@ def _constants(i1, i2, idd):
         p_phi_unit=p_phi,
         nome=nome,
     )
+
+
+def period_ratio_unit_momentum(i1_i3, i2_i3, id_i3) -> np.ndarray:
+    """``P_phi / P_psi`` of NPA states, arrays (K,), without validation (fast kernel).
+
+    The periods of :func:`periods_unit_momentum` (its slow reference, which validates the inertia
+    and builds every constant of the closed form) and nothing else: the function the sampler's
+    implicit chart solves for the excitation, several times per likelihood call. The caller passes
+    admissible NPA states only; others give meaningless numbers or ``nan``.
+    """
+    mode, i1, i2, idd = _placeholders(i1_i3, i2_i3, id_i3)
+    parts = _period_parts(mode, i1, i2, idd)
+    return parts[6] / parts[5]
 
 
 def periods_unit_momentum(i1_i3, i2_i3, id_i3):
@@ -442,24 +461,8 @@ def _direct_parts(c, sel, x, euler_columns=False):
     ell : ndarray, shape (K, n, 3)
         Body components of the unit angular momentum ``I_i omega_i / L``.
     """
-    kk = c.kk[sel][:, None]
-    m = c.m[sel][:, None]
-    n = c.n[sel][:, None]
+    sn, cn, dn, phi_per = _elliptic_parts(c, sel, x)
     lam_mode = (c.mode[sel] == _MODE_LAM)[:, None]
-    u = x * (2.0 * kk / math.pi)
-    j = np.round(u / (2.0 * kk))
-    ur = u - 2.0 * kk * j  # |ur| <= K, amplitude within [-pi/2, pi/2]
-    sign = 1.0 - 2.0 * np.mod(j, 2.0)
-    sn_r, cn_r, dn_r, _ = special.ellipj(ur, np.broadcast_to(m, ur.shape))
-    cn_r = np.maximum(cn_r, 0.0)
-    s2 = sn_r * sn_r
-    pi_inc = sn_r * special.elliprf(cn_r * cn_r, dn_r * dn_r, 1.0) + n / 3.0 * sn_r * s2 * special.elliprj(
-        cn_r * cn_r, dn_r * dn_r, 1.0, 1.0 - n * s2
-    )
-    phi_per = c.c_phi[sel][:, None] * (pi_inc - c.pi_c[sel][:, None] / kk * ur)
-    sn = sign * sn_r
-    cn = sign * cn_r
-    dn = dn_r
     a = c.amp[sel]
     a1, a2, a3 = a[:, 0:1], a[:, 1:2], a[:, 2:3]
     # Body components of L/|L|: SAM (a1 cn, a2 sn, a3 dn); LAM (a1 dn, a2 sn, a3 cn).
@@ -477,17 +480,19 @@ def _direct_parts(c, sel, x, euler_columns=False):
     cp_ = ly / st
     cph = np.cos(phi_per)
     sph = np.sin(phi_per)
-    # A = Rx(theta) Rz(psi), rows in the Euler frame.
-    a_rows = np.stack(
-        [
-            np.stack([cp_, -sp_, np.zeros_like(cp_)], axis=-1),
-            np.stack([ct * sp_, ct * cp_, -st], axis=-1),
-            np.stack([st * sp_, st * cp_, ct], axis=-1),
-        ],
-        axis=-2,
-    )  # (K, n, 3, 3)
+    # A = Rx(theta) Rz(psi), rows in the Euler frame (filled in place: no stacking of temporaries).
+    a_rows = np.empty(st.shape + (3, 3))
+    a_rows[..., 0, 0] = cp_
+    a_rows[..., 0, 1] = -sp_
+    a_rows[..., 0, 2] = 0.0
+    a_rows[..., 1, 0] = ct * sp_
+    a_rows[..., 1, 1] = ct * cp_
+    a_rows[..., 1, 2] = -st
+    a_rows[..., 2, 0] = st * sp_
+    a_rows[..., 2, 1] = st * cp_
+    a_rows[..., 2, 2] = ct
     # Column permutation P (body axis -> Euler axis): LAM body 1,2,3 = Euler z,x,y.
-    if euler_columns:
+    if euler_columns or not lam_mode.any():
         ap = a_rows
     else:
         perm = np.where(lam_mode[:, 0:1], np.array([2, 0, 1]), np.array([0, 1, 2]))  # (K, 3)
@@ -497,6 +502,30 @@ def _direct_parts(c, sel, x, euler_columns=False):
     b[..., 1, :] = sph[..., None] * ap[..., 0, :] + cph[..., None] * ap[..., 1, :]
     b[..., 2, :] = ap[..., 2, :]
     return b, phi_per, ell
+
+
+def _elliptic_parts(c, sel, x):
+    """Signed ``sn, cn, dn`` over the whole period and the periodic part of phi at psi phases x (K, n).
+
+    ``u = 2 K x / pi`` is reduced to ``|u| <= K`` (amplitude within [-pi/2, pi/2], where the Carlson
+    form of ``Pi(n; am u|m)`` holds), and the signs restored from ``u -> u + 2K``;
+    ``phi_per = c_phi [Pi(n; am u|m) - (Pi(n|m)/K) u]`` (period ``pi`` in x).
+    """
+    kk = c.kk[sel][:, None]
+    m = c.m[sel][:, None]
+    n = c.n[sel][:, None]
+    u = x * (2.0 * kk / math.pi)
+    j = np.round(u / (2.0 * kk))
+    ur = u - 2.0 * kk * j  # |ur| <= K, amplitude within [-pi/2, pi/2]
+    sign = 1.0 - 2.0 * np.mod(j, 2.0)
+    sn_r, cn_r, dn_r, _ = special.ellipj(ur, np.broadcast_to(m, ur.shape))
+    cn_r = np.maximum(cn_r, 0.0)
+    s2 = sn_r * sn_r
+    pi_inc = sn_r * special.elliprf(cn_r * cn_r, dn_r * dn_r, 1.0) + n / 3.0 * sn_r * s2 * special.elliprj(
+        cn_r * cn_r, dn_r * dn_r, 1.0, 1.0 - n * s2
+    )
+    phi_per = c.c_phi[sel][:, None] * (pi_inc - c.pi_c[sel][:, None] / kk * ur)
+    return sign * sn_r, sign * cn_r, dn_r, phi_per
 
 
 def _initial_phase(c, sel, psi0):
@@ -590,17 +619,32 @@ def _basis_maps(n_odd, n_even, n_basis):
     return t_sin_odd, t_cos_odd, t_sin_even, t_cos_even
 
 
-def _fourier_coefficients(c, sel, harmonics):
-    """Fourier series of B(x) up to ``harmonics`` per state, from 2H+2 direct samples (FFT).
+#: Signs of B(pi - x) against B(x), entry by entry in Euler columns (u -> -u: sn and phi_per odd, cn and
+#: dn even, so each entry is a pure sine or cosine series; then u -> u + 2K negates columns x and y).
+_REFLECTION_SIGNS = {_MODE_SAM: np.array([[1.0, -1.0, -1.0], [-1.0, 1.0, 1.0], [-1.0, 1.0, 1.0]]),
+                     _MODE_LAM: np.array([[-1.0, 1.0, -1.0], [1.0, -1.0, 1.0], [1.0, -1.0, 1.0]])}
 
-    Only the first half period is sampled: ``B(x + pi) = B(x) diag(-1, -1, 1)``
-    in Euler columns (u -> u + 2K).
+
+def _fourier_coefficients(c, sel, harmonics, symmetric=True):
+    """Fourier series of B(x) up to ``harmonics`` per state, from 2H+2 samples (FFT).
+
+    Only the first half period is needed: ``B(x + pi) = B(x) diag(-1, -1, 1)`` in Euler columns
+    (u -> u + 2K). With ``symmetric`` (the fast kernel) only its first half is computed by special
+    functions and the rest follows from ``B(pi - x) = S * B(x)`` (:data:`_REFLECTION_SIGNS`), which
+    halves the elliptic-function calls; ``symmetric=False`` (the slow reference) computes every sample
+    of the half period. The two agree to round-off.
     """
     h = int(harmonics)
     msamp = 2 * h + 2
     half = msamp // 2
-    xs = np.arange(half) * (_TWO_PI / msamp)
-    bh, _, _ = _direct_parts(c, sel, np.broadcast_to(xs, (len(sel), half)), euler_columns=True)
+    n_direct = half // 2 + 1 if symmetric else half
+    xs = np.arange(n_direct) * (_TWO_PI / msamp)
+    bh, _, _ = _direct_parts(c, sel, np.broadcast_to(xs, (len(sel), n_direct)), euler_columns=True)
+    if n_direct < half:
+        lam = (c.mode[sel] == _MODE_LAM)[:, None, None, None]
+        signs = np.where(lam, _REFLECTION_SIGNS[_MODE_LAM], _REFLECTION_SIGNS[_MODE_SAM])
+        mirror = half - np.arange(n_direct, half)  # sample j = half - k is pi - x_k
+        bh = np.concatenate([bh, bh[:, mirror] * signs], axis=1)
     b = np.concatenate([bh, bh * np.array([-1.0, -1.0, 1.0])], axis=1)
     spec = np.fft.rfft(b, axis=1) / msamp  # (K, h+2, 3, 3)
     h_odd = h if h % 2 else h - 1
@@ -628,6 +672,27 @@ def _fourier_coefficients(c, sel, harmonics):
     coef[:, 7] = cos_even[..., 1] @ t_ce
     coef[:, 8] = cos_even[..., 2] @ t_ce
     return _Series(coef=coef)
+
+
+def _unique_coefficients(c, sel, harmonics):
+    """:func:`_fourier_coefficients` of the states ``sel``, computed once per distinct inertia.
+
+    B(x) depends on the inertia alone (not on the period, the direction or the phases), and a batch
+    often repeats it: the optimiser's Jacobian (5 of 8 columns move only the period or the attitude),
+    the search's starts (many orientations per shape). Rows are identical to the per-state
+    computation (the series of each state is computed independently).
+    """
+    m = c.m[sel]
+    _, first, inverse = np.unique(m, return_index=True, return_inverse=True)
+    if len(first) == len(sel):
+        return _fourier_coefficients(c, sel, harmonics)
+    inverse = np.ravel(inverse)
+    rep = sel[first][inverse]
+    same = ((c.n[sel] == c.n[rep]) & (c.c_phi[sel] == c.c_phi[rep]) & (c.mode[sel] == c.mode[rep])
+            & np.all(c.amp[sel] == c.amp[rep], axis=1) & (c.kk[sel] == c.kk[rep]) & (c.pi_c[sel] == c.pi_c[rep]))
+    if not np.all(same):
+        return _fourier_coefficients(c, sel, harmonics)
+    return _Series(coef=_fourier_coefficients(c, sel[first], harmonics).coef[inverse])
 
 
 #: Basis rows per block of the Fourier evaluation are kept to about this many floats (cache size).
@@ -715,7 +780,7 @@ def _fourier_route(c, npa_idx, x, out):
             continue
         # Sort by mode, then by harmonics needed (one FFT for the tier, both modes).
         members = members[np.lexsort((need[members], c.mode[npa_idx[members]]))]
-        series = _fourier_coefficients(c, npa_idx[members], int(need[members].max()))
+        series = _unique_coefficients(c, npa_idx[members], int(need[members].max()))
         modes = c.mode[npa_idx[members]]
         start = 0
         while start < len(members):
@@ -793,9 +858,13 @@ def _invalid_states(i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch):
 
 
 def _prepare(i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd, t_jd, invalid="raise"):
-    params = np.broadcast_arrays(
-        *[np.atleast_1d(np.asarray(v, dtype=float)) for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
-    )
+    params = [np.atleast_1d(np.asarray(v, dtype=float))
+              for v in (i1_i3, i2_i3, id_i3, p_psi_h, l_lon_deg, l_lat_deg, phi0_deg, psi0_deg, epoch_jd)]
+    if len({a.shape for a in params[:-1]}) == 1 and params[-1].shape == (1,) and params[0].ndim == 1:
+        # a model's walkers: eight arrays of one shape and one epoch (np.broadcast_arrays costs more)
+        params[-1] = np.full(params[0].shape, params[-1][0])
+    else:
+        params = np.broadcast_arrays(*params)
     if params[0].ndim != 1:
         raise RotationStateError("state parameters must be scalars or 1-D arrays over states")
     i1, i2, idd, p_psi, lon, lat, phi0, psi0, epoch = params
@@ -856,7 +925,7 @@ def _attitude_parts(batch, method):
         return phi_mean, b
     p_phi_h = c.p_phi_unit[npa_idx] * (batch.p_psi_h[npa_idx] / c.p_psi_unit[npa_idx])
     x0 = _initial_phase(c, npa_idx, batch.psi0[npa_idx])
-    _, phi_per0, _ = _direct_parts(c, npa_idx, x0[:, None])
+    phi_per0 = _elliptic_parts(c, npa_idx, x0[:, None])[3]
     dth = batch.dt_h[npa_idx]
     cycles = dth / batch.p_psi_h[npa_idx, None]
     cycles -= np.floor(cycles)

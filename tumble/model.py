@@ -435,7 +435,9 @@ class FourierBasis:
         """Whitened design matrices for frequencies (cycles/day), shape ``(F, n, p)``.
 
         ``f1`` and ``f2`` broadcast to shape ``(F,)``; ``f2`` is needed when the
-        basis has combination terms.
+        basis has combination terms. The result is a transposed view of column-major storage
+        (each column written contiguously: writing the columns of a row-major array strided was
+        most of the design's time); :meth:`design_reference` is the slow reference.
         """
         f1 = np.atleast_1d(np.asarray(f1, float))
         if self.max_combo:
@@ -444,29 +446,68 @@ class FourierBasis:
             f1, f2 = np.broadcast_arrays(f1, np.atleast_1d(np.asarray(f2, float)))
         n_f = len(f1)
         t = data.t_d
-        out = np.empty((n_f, data.n_points, self.n_columns))
+        out = np.empty((n_f, self.n_columns, data.n_points))
         ph1 = 2 * np.pi * f1[:, None] * t[None, :]
         col = 0
         c1, s1 = np.cos(ph1), np.sin(ph1)
-        cj, sj = c1.copy(), s1.copy()
+        # cos(j x), sin(j x) of f1 by the angle-addition recurrence, for the harmonics and the combinations
+        n1 = max([self.max_harmonics] + [abs(int(j)) for j in self.combos[:, 0]])
+        h1 = _harmonic_table(c1, s1, n1)
         legendre = legendre_drift(data.tau, self.drift)
         for j in range(1, self.max_harmonics + 1):
-            if j > 1:  # angle-addition recurrence for cos(j x), sin(j x)
-                cj, sj = cj * c1 - sj * s1, sj * c1 + cj * s1
-            out[:, :, col] = cj
-            out[:, :, col + 1] = sj
+            cj, sj = h1[0][j], h1[1][j]
+            out[:, col] = cj
+            out[:, col + 1] = sj
             col += 2
             for poly in legendre:
-                out[:, :, col] = cj * poly
-                out[:, :, col + 1] = sj * poly
+                out[:, col] = cj * poly
+                out[:, col + 1] = sj * poly
                 col += 2
+        if len(self.combos):
+            # combinations by angle addition from the harmonics of f1 and f2 (each by the same
+            # recurrence): no trigonometric call per combination column (was about half of the evidence)
+            ph2 = 2 * np.pi * f2[:, None] * t[None, :]
+            h2 = _harmonic_table(np.cos(ph2), np.sin(ph2), int(np.max(self.combos[:, 1])))
+            for j, k in self.combos:
+                cj, sj = h1[0][abs(j)], h1[1][abs(j)]
+                ck, sk = h2[0][k], h2[1][k]
+                if j >= 0:
+                    np.subtract(cj * ck, sj * sk, out=out[:, col])
+                    np.add(sj * ck, cj * sk, out=out[:, col + 1])
+                else:  # cos(-x) = cos x, sin(-x) = -sin x
+                    np.add(cj * ck, sj * sk, out=out[:, col])
+                    np.subtract(cj * sk, sj * ck, out=out[:, col + 1])
+                col += 2
+        out *= data.sw[None, None, :]
+        return out.transpose(0, 2, 1)
+
+    def design_reference(self, data: LinearData, f1, f2=None) -> np.ndarray:
+        """Slow reference of :meth:`design`: ``np.cos``/``np.sin`` of every column's own phase."""
+        f1 = np.atleast_1d(np.asarray(f1, float))
+        if self.max_combo:
+            f1, f2 = np.broadcast_arrays(f1, np.atleast_1d(np.asarray(f2, float)))
+        t = data.t_d
+        legendre = legendre_drift(data.tau, self.drift)
+        cols = []
+        for j in range(1, self.max_harmonics + 1):
+            ph = 2 * np.pi * j * f1[:, None] * t[None, :]
+            c, s = np.cos(ph), np.sin(ph)
+            cols += [c, s]
+            for poly in legendre:
+                cols += [c * poly, s * poly]
         for j, k in self.combos:
             ph = 2 * np.pi * (j * f1 + k * f2)[:, None] * t[None, :]
-            out[:, :, col] = np.cos(ph)
-            out[:, :, col + 1] = np.sin(ph)
-            col += 2
-        out *= data.sw[None, :, None]
-        return out
+            cols += [np.cos(ph), np.sin(ph)]
+        return np.stack(cols, axis=-1) * data.sw[None, :, None]
+
+
+def _harmonic_table(c1, s1, n: int) -> tuple:
+    """``cos(j x)``, ``sin(j x)`` for ``j = 0..n`` from ``cos x``, ``sin x`` (angle-addition recurrence)."""
+    cos_j, sin_j = [np.ones_like(c1), c1], [np.zeros_like(s1), s1]
+    for _ in range(2, n + 1):
+        cos_j.append(cos_j[-1] * c1 - sin_j[-1] * s1)
+        sin_j.append(sin_j[-1] * c1 + cos_j[-2] * s1)
+    return cos_j[: n + 1], sin_j[: n + 1]
 
 
 #: Largest Legendre degree of the coefficient drift.
@@ -818,7 +859,29 @@ class PhysicalModel:
         return ("l_lon_rad", "l_lat_rad", "phase0_rad" if self.mode == "PA" else "phi0_rad")
 
     def log_period_ratio(self, x) -> np.ndarray:
-        """``ln(P_phi / P_psi)`` of ``(K, ndim)`` vectors, shape ``(K,)`` (0 for PA); ``nan`` for an invalid state."""
+        """``ln(P_phi / P_psi)`` of ``(K, ndim)`` vectors, shape ``(K,)`` (0 for PA); ``nan`` for an invalid state.
+
+        Fast kernel (:func:`tumble.dynamics.period_ratio_unit_momentum` on the admissible rows; the
+        sampler's implicit chart calls it several times per likelihood call);
+        :meth:`log_period_ratio_reference` is the validated slow route.
+        """
+        from tumble.dynamics import period_ratio_unit_momentum
+
+        x = np.atleast_2d(np.asarray(x, float))
+        if self.mode == "PA":
+            return np.zeros(len(x))
+        i1, i2, idd = self._inertia(x)
+        ok = self._ratio_admissible(i1, i2, idd)
+        out = np.full(len(x), np.nan)
+        if ok.all():
+            return np.log(period_ratio_unit_momentum(i1, i2, idd))
+        if ok.any():
+            out[ok] = np.log(period_ratio_unit_momentum(i1[ok], i2[ok], idd[ok]))
+        return out
+
+    def log_period_ratio_reference(self, x) -> np.ndarray:
+        """Slow reference of :meth:`log_period_ratio`: the validated periods of
+        :func:`tumble.dynamics.periods_unit_momentum` from the full state arrays."""
         from tumble.dynamics import periods_unit_momentum
 
         x = np.atleast_2d(np.asarray(x, float))
@@ -826,8 +889,7 @@ class PhysicalModel:
             return np.zeros(len(x))
         args, _ = self.state_arrays(x)
         i1, i2, idd = (np.asarray(a, float) for a in args[:3])
-        ok = np.isfinite(i1 + i2 + idd) & (i1 > 0) & (i1 <= i2) & (i2 < 1.0) & (idd < 1.0) & (idd > i1)
-        ok &= np.abs(idd - i2) > 1e-9
+        ok = self._ratio_admissible(i1, i2, idd)
         out = np.full(len(x), np.nan)
         if ok.any():
             try:
@@ -836,6 +898,27 @@ class PhysicalModel:
                 return out
             out[ok] = np.log(np.asarray(pf) / np.asarray(pp))
         return out
+
+    @staticmethod
+    def _ratio_admissible(i1, i2, idd) -> np.ndarray:
+        """NPA states whose period ratio is defined: a rigid body's inertia (``I1 + I2 >= I3``, which only a
+        free-inertia state can miss) away from the separatrix by more than round-off. Row by row: one
+        inadmissible walker does not void its batch."""
+        with np.errstate(invalid="ignore"):
+            ok = np.isfinite(i1 + i2 + idd) & (i1 > 0) & (i1 <= i2) & (i2 < 1.0) & (idd < 1.0) & (idd > i1)
+            ok &= (np.abs(idd - i2) > 1e-9) & (i1 + i2 >= 1.0 - 1e-12)
+        return ok
+
+    def _inertia(self, x):
+        """``(I1/I3, I2/I3, I_d/I3)`` of ``(K, ndim)`` NPA vectors (the inertia part of :meth:`state_arrays`)."""
+        sp = self.space
+        if self.free_inertia:
+            i1, i2 = x[:, sp.index("i1_i3")], x[:, sp.index("i2_i3")]
+        else:
+            i1, i2 = _inertia_from_ratios(x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")])
+        u = x[:, sp.index("excitation_u")]
+        idd = 1.0 - u * (1.0 - i2) if self.mode == "SAM" else i1 + u * (i2 - i1)
+        return i1, i2, idd
 
     def sampling_chart(self, x_opt):
         """Coordinates in which the posterior of the mode at ``x_opt`` is nearly Gaussian.
@@ -862,12 +945,7 @@ class PhysicalModel:
         """Arguments of :func:`tumble.dynamics.ecliptic_to_body` and the axes for ``(K, ndim)`` vectors."""
         x = np.atleast_2d(np.asarray(x, float))
         sp = self.space
-        ab, bc = x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")]
-        if self.free_inertia:
-            i1, i2 = x[:, sp.index("i1_i3")], x[:, sp.index("i2_i3")]
-        else:
-            i1, i2 = _inertia_from_ratios(ab, bc)
-        axes = _ellipsoid_axes(ab, bc)
+        axes = _ellipsoid_axes(x[:, sp.index("a_over_b")], x[:, sp.index("b_over_c")])
         lon = np.degrees(x[:, sp.index("l_lon_rad")])
         lat = np.degrees(x[:, sp.index("l_lat_rad")])
         if self.mode == "PA":
@@ -875,11 +953,7 @@ class PhysicalModel:
             args = (np.ones(k), np.ones(k), np.ones(k), x[:, sp.index("period_h")], lon, lat,
                     np.degrees(x[:, sp.index("phase0_rad")]), np.zeros(k), self.epoch_jd)
         else:
-            u = x[:, sp.index("excitation_u")]
-            if self.mode == "SAM":
-                idd = 1.0 - u * (1.0 - i2)
-            else:
-                idd = i1 + u * (i2 - i1)
+            i1, i2, idd = self._inertia(x)
             args = (i1, i2, idd, x[:, sp.index("p_psi_h")], lon, lat, np.degrees(x[:, sp.index("phi0_rad")]),
                     np.degrees(x[:, sp.index("psi0_rad")]), self.epoch_jd)
         return args, axes
@@ -909,14 +983,31 @@ class PhysicalModel:
         i1, i2 = x[:, self.space.index("i1_i3")], x[:, self.space.index("i2_i3")]
         return (i1 + FREE_INERTIA_GAP <= i2) & (i2 <= 1.0 - FREE_INERTIA_GAP) & (i1 + i2 >= 1.0)
 
-    def shape_magnitudes(self, x, t=None, vectors=None):
-        """Model magnitudes without nuisance terms, ``-2.5 log10 I``, shape ``(K, n)``; ``I`` from :attr:`law`."""
+    def shape_magnitudes(self, x, t=None, vectors=None, invalid: str = "raise"):
+        """Model magnitudes without nuisance terms, ``-2.5 log10 I``, shape ``(K, n)``; ``I`` from :attr:`law`.
+
+        ``invalid`` as in :func:`tumble.dynamics.ecliptic_to_body`: ``"raise"`` for a batch holding a
+        state the closed form refuses (e.g. within its tolerance of the separatrix), ``"nan"`` for
+        ``nan`` magnitudes on that state's row only (the sampler's likelihood: one walker, or one
+        ensemble of a shared call, does not void the others).
+        """
         from tumble.dynamics import ecliptic_to_body
 
         args, axes = self.state_arrays(x)
         t = self.t if t is None else t
         v = self._vectors if vectors is None else vectors
-        body = ecliptic_to_body(*args, t, v)  # (2, K, n, 3)
+        body = ecliptic_to_body(*args, t, v, invalid=invalid)  # (2, K, n, 3)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            flux = self.law.brightness(body[0], body[1], axes[:, None, :])
+            return -2.5 * np.log10(np.maximum(flux, 1e-300))
+
+    def shape_magnitudes_reference(self, x):
+        """Slow reference of :meth:`shape_magnitudes`: the attitude by special functions at every point
+        (``method="direct"`` of :func:`tumble.dynamics.ecliptic_to_body`) instead of its Fourier series."""
+        from tumble.dynamics import ecliptic_to_body
+
+        args, axes = self.state_arrays(x)
+        body = ecliptic_to_body(*args, self.t, self._vectors, method="direct")
         flux = self.law.brightness(body[0], body[1], axes[:, None, :])
         with np.errstate(divide="ignore"):
             return -2.5 * np.log10(np.maximum(flux, 1e-300))

@@ -35,6 +35,8 @@ rather than the whole, multimodal posterior:
    :func:`~tumble.inference.sampling.assess_chains` hold (at least ``tau_multiple``
    autocorrelation times after burn-in, acceptance in ``acceptance_range``, split R-hat across the
    ensembles below ``rhat_max``, one walker cluster) and the mode is contained, or the budget ends.
+   The ensembles step side by side, their likelihood requests evaluated together in one vectorised
+   call (:func:`_run`; the chains are those of running them one after the other).
 
 The returned :class:`~tumble.inference.sampling.Posterior` states in its diagnostics whether every
 criterion was met and why not.
@@ -43,6 +45,7 @@ criterion was met and why not.
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass, replace
 from typing import Callable
 
@@ -1025,13 +1028,130 @@ def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles,
     return _Ensembles(samplers, regions, out_states)
 
 
+def _run_one(ens: _Ensembles, e: int, steps: int, progress_bar=None):
+    """Advance ensemble ``e`` by ``steps`` (emcee's own loop; from its pending state or its chain's last)."""
+    sampler = ens.samplers[e]
+    state = ens.states[e] if ens.states[e] is not None else sampler.backend.get_last_sample()
+    for _ in sampler.sample(state, iterations=steps, store=True, skip_initial_state_check=True):
+        if progress_bar is not None:
+            progress_bar.update(1)
+    ens.states[e] = None
+
+
+def _run_reference(ens: _Ensembles, steps: int, progress_bar=None):
+    """Slow reference of :func:`_run`: the ensembles one after the other, one likelihood call per request."""
+    for e in range(len(ens.samplers)):
+        _run_one(ens, e, steps, progress_bar)
+
+
+class _Rendezvous:
+    """Where the ensembles' likelihood requests meet: one vectorised call for the pending requests of all.
+
+    Each ensemble runs emcee's unchanged loop in its own thread; its mode region's likelihood is a
+    :class:`_Member` that hands the points here and waits. When every ensemble still running has a
+    request pending, the last to arrive evaluates all of them in one call of ``log_likelihood``
+    (rows in ensemble order) and wakes the others. The likelihood is vectorised over rows and each
+    row's value does not depend on the others (to round-off), so the chains are those of
+    :func:`_run_reference`; only the number of calls (and their fixed Python and per-call costs)
+    halves with two ensembles. Only one thread computes at a time.
+    """
+
+    def __init__(self, log_likelihood, n_members: int):
+        self.log_likelihood = log_likelihood
+        self.live = int(n_members)
+        self.pending = {}
+        self.results = {}
+        self.error = None
+        self.n_batches = 0
+        self.cond = threading.Condition()
+
+    def submit(self, e: int, x: np.ndarray) -> np.ndarray:
+        with self.cond:
+            self.pending[e] = x
+            self._flush_when_complete()
+            while e not in self.results and self.error is None:
+                self.cond.wait()
+            if e in self.results:
+                return self.results.pop(e)
+            raise self.error
+
+    def abort(self, exc: BaseException):
+        """Wake every waiting ensemble with ``exc`` (the caller's thread was interrupted)."""
+        with self.cond:
+            if self.error is None:
+                self.error = exc
+            self.cond.notify_all()
+
+    def leave(self):
+        """An ensemble finished (or failed): the others no longer wait for its requests."""
+        with self.cond:
+            self.live -= 1
+            self._flush_when_complete()
+
+    def _flush_when_complete(self):
+        if not self.pending or len(self.pending) < self.live:
+            return
+        keys = sorted(self.pending)
+        parts = [np.atleast_2d(np.asarray(self.pending.pop(k), float)) for k in keys]
+        try:
+            values = np.asarray(self.log_likelihood(np.concatenate(parts)), float)
+        except Exception as exc:  # raised in every waiting ensemble's thread, then by _run in the caller's
+            self.error = exc
+        else:
+            self.n_batches += 1
+            for k, v in zip(keys, np.split(values, np.cumsum([len(p) for p in parts])[:-1])):
+                self.results[k] = v
+        self.cond.notify_all()
+
+
+class _Member:
+    """One ensemble's view of a :class:`_Rendezvous`: called like the likelihood it stands for."""
+
+    def __init__(self, rendezvous: _Rendezvous, e: int):
+        self.rendezvous = rendezvous
+        self.e = e
+
+    def __call__(self, x):
+        return self.rendezvous.submit(self.e, x)
+
+
+def _run_member(ens: _Ensembles, e: int, steps: int, gate: _Rendezvous, progress_bar, errors: list):
+    try:
+        _run_one(ens, e, steps, progress_bar)
+    except Exception as exc:  # re-raised by _run in the caller's thread
+        errors.append(exc)
+    finally:
+        gate.leave()
+
+
 def _run(ens: _Ensembles, steps: int, progress_bar=None):
-    for e, sampler in enumerate(ens.samplers):
-        state = ens.states[e] if ens.states[e] is not None else sampler.backend.get_last_sample()
-        for _ in sampler.sample(state, iterations=steps, store=True, skip_initial_state_check=True):
-            if progress_bar is not None:
-                progress_bar.update(1)
-        ens.states[e] = None
+    """Advance every ensemble by ``steps``, their likelihood requests batched into shared calls.
+
+    Same chains as :func:`_run_reference` (to the likelihood's round-off); the likelihood is called
+    about half as often with two ensembles (:class:`_Rendezvous`).
+    """
+    shared = [r.log_likelihood for r in ens.regions]
+    if len(ens.samplers) < 2 or any(fn is not shared[0] for fn in shared):
+        return _run_reference(ens, steps, progress_bar)
+    gate = _Rendezvous(shared[0], len(ens.samplers))
+    for e, region in enumerate(ens.regions):
+        region.log_likelihood = _Member(gate, e)
+    errors: list = []
+    threads = [threading.Thread(target=_run_member, args=(ens, e, steps, gate, progress_bar, errors), daemon=True)
+               for e in range(len(ens.samplers))]
+    try:
+        for th in threads:
+            th.start()
+        for th in threads:
+            th.join()
+    except BaseException:  # e.g. KeyboardInterrupt in the caller: the ensembles stop at their next request
+        gate.abort(TumbleError("sampling interrupted"))
+        raise
+    finally:
+        for region, fn in zip(ens.regions, shared):
+            region.log_likelihood = fn
+    if errors:
+        raise errors[0]
 
 
 def _edge_fraction(samples, region: ModeRegion) -> float:

@@ -99,7 +99,9 @@ class JitterMarginalLikelihood:
         if not ok.any():
             return out
         try:
-            m = self.model.shape_magnitudes(x[ok])
+            # row by row: a state the closed form refuses gives -inf on its own row only, so that a
+            # shared call of several ensembles (tumble.inference.local._run) is the sum of its parts
+            m = self.model.shape_magnitudes(x[ok], invalid="nan")
         except TumbleError:
             return out
         r = self.model.y[None, :] - m  # (K, n)

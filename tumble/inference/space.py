@@ -333,6 +333,9 @@ class ParameterSpace:
             raise TumbleError(f"duplicate parameter names in {names}")
         object.__setattr__(self, "parameters", params)
         object.__setattr__(self, "_plan", _LogPriorPlan(params))
+        # the names and their positions, looked up on every likelihood call (the parameters never change)
+        object.__setattr__(self, "_names", tuple(names))
+        object.__setattr__(self, "_index", {n: i for i, n in enumerate(names)})
 
     # -- descriptors -------------------------------------------------------
     @property
@@ -343,7 +346,7 @@ class ParameterSpace:
     @property
     def names(self) -> tuple[str, ...]:
         """Parameter names in vector order."""
-        return tuple(p.name for p in self.parameters)
+        return self._names
 
     @property
     def units(self) -> tuple[str, ...]:
@@ -373,8 +376,8 @@ class ParameterSpace:
     def index(self, name: str) -> int:
         """Position of parameter ``name`` in the vector."""
         try:
-            return self.names.index(name)
-        except ValueError:
+            return self._index[name]
+        except (KeyError, TypeError):
             raise TumbleError(f"unknown parameter {name!r}; known: {', '.join(self.names)}") from None
 
     # -- conversions -------------------------------------------------------
