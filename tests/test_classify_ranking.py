@@ -141,7 +141,7 @@ def test_rank_solutions_orders_by_the_rules_criterion(sam_fit):
     plain = S.rank_solutions(optima, models, lc, S.ranking_rule("bic"))
     direct = S.collect_solutions(optima, models, lc.span_d)
     assert [s.criterion for s in plain[2]] == [s.criterion for s in direct[2]]
-    for name in ("bic", "laplace", "polished"):
+    for name in ("bic", "laplace", "polished", "free-inertia"):
         listed, best_by_mode, distinct = S.rank_solutions(optima, models, lc, S.ranking_rule(name))
         crits = [s.criterion for s in distinct]
         assert crits == sorted(crits) and distinct[0].delta == 0.0
@@ -150,6 +150,13 @@ def test_rank_solutions_orders_by_the_rules_criterion(sam_fit):
         np.testing.assert_allclose([s.relative_probability for s in listed], w / w.sum(), rtol=1e-12)
         for mode in ("SAM", "LAM"):
             assert best_by_mode[mode] is next(s for s in distinct if s.mode == mode)
+        n = models["SAM"].y.size
+        for s in distinct:
+            # the state stays in the search's model (the one the mode is sampled in); a re-fit in a
+            # larger model scores the solution, never worse than its own start (nested models)
+            assert len(s.state) == models[s.mode].space.ndim
+            k = len(models[s.mode].space.names) + (2 if S.ranking_rule(name).free_inertia else 0)
+            assert s.criterion <= S.bic(s.log_likelihood, k, n) + 1e-6 or S.ranking_rule(name).evidence
         if S.ranking_rule(name).evidence:
             assert all(s.criterion == pytest.approx(-2.0 * s.log_evidence_laplace) for s in distinct)
 

@@ -922,7 +922,8 @@ def solution_criterion(log_likelihood: float, lap: SolutionLaplace, n_parameters
     return -2.0 * float(z) if np.isfinite(z) else math.inf
 
 
-def collect_solutions(optima, models, span_d: float, *, evidence: bool = False) -> tuple:
+def collect_solutions(optima, models, span_d: float, *, evidence: bool = False, rescored=None,
+                      rescore_models=None) -> tuple:
     """Distinct solutions of the optima ranked by BIC: ``(listed, best_by_mode, distinct)``.
 
     ``listed`` holds the solutions within :data:`SOLUTION_DELTA_BIC` of the best (best first, with
@@ -930,6 +931,9 @@ def collect_solutions(optima, models, span_d: float, *, evidence: bool = False) 
     to its best solution, listed or not (the mode comparison of the decision rules needs it);
     ``distinct`` holds every distinct solution found, best first (listed or not). ``evidence``:
     ranked by ``-2 ln Z`` of the Laplace approximation instead (:func:`solution_criterion`).
+    ``rescored`` (optimum -> its re-fit in ``rescore_models``, by mode; :func:`rank_solutions`): the
+    criterion is the re-fit's, while each solution's state, ``ln L``, periods and intervals stay
+    those of the search's model (the one its mode is sampled in).
     """
     distinct = distinct_optima(optima, models, span_d)
     if not distinct:
@@ -937,10 +941,17 @@ def collect_solutions(optima, models, span_d: float, *, evidence: bool = False) 
     n = int(models[distinct[0].mode].y.size)
     ks = [len(models[o.mode].space.names) for o in distinct]
     laps = [laplace_approximation(models[o.mode], o.x) for o in distinct]
-    crits = [solution_criterion(o.log_likelihood, lap, k, n, evidence) for o, lap, k in zip(distinct, laps, ks)]
+    if rescored is None:
+        crits = [solution_criterion(o.log_likelihood, lap, k, n, evidence) for o, lap, k in zip(distinct, laps, ks)]
+    else:
+        crits = []
+        for o in distinct:
+            r, m = rescored[o], rescore_models[o.mode]
+            lap_r = laplace_approximation(m, r.x) if evidence else None
+            crits.append(solution_criterion(r.log_likelihood, lap_r, len(m.space.names), n, evidence))
     best = min(crits)
     if not np.isfinite(best):  # no Laplace approximation at all: the BIC is the only criterion left
-        crits = [bic(o.log_likelihood, k, n) for o, k in zip(distinct, ks)]
+        crits = [bic((rescored[o] if rescored is not None else o).log_likelihood, k, n) for o, k in zip(distinct, ks)]
         best = min(crits)
     listed_idx = [i for i, c in enumerate(crits) if c - best <= SOLUTION_DELTA_BIC]
     weights = np.array([math.exp(-0.5 * (crits[i] - best)) for i in listed_idx])
@@ -1051,23 +1062,26 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
 
     The plain rule ranks the search's optima as they are (:func:`collect_solutions`). A rule that
     re-fits or polishes scores the best :data:`N_RANKED_PER_MODE` distinct solutions of each mode
-    (:func:`rank_optimum`); when the rule keeps the search's model the others are ranked as they
-    are, otherwise they are left out (their ``ln L`` is of another model).
+    (:func:`rank_optimum`). A polish in the search's model replaces the optimum (the others are
+    ranked as they are); a re-fit in another model gives only the criterion, each solution keeping
+    the search model's state, and the solutions not re-fitted are left out (their ``ln L`` is of
+    another model).
     """
     span_d = lc.span_d
     if not (rule.refits or rule.polish):
         return collect_solutions(optima, models, span_d, evidence=rule.evidence)
     distinct = distinct_optima(optima, models, span_d)
     targets = ranking_models(lc, models, rule)
-    seen, ranked = {}, []
+    seen, chosen, rest = {}, [], []
     for opt in distinct:
         seen[opt.mode] = seen.get(opt.mode, 0) + 1
-        if seen[opt.mode] <= N_RANKED_PER_MODE:
-            ranked.append(rank_optimum(opt, models[opt.mode], targets[opt.mode], rule, span_d))
-        elif targets is models:
-            ranked.append(opt)
-    ranked = [o for o in ranked if np.isfinite(o.log_likelihood)]
-    return collect_solutions(ranked, targets, span_d, evidence=rule.evidence)
+        (chosen if seen[opt.mode] <= N_RANKED_PER_MODE else rest).append(opt)
+    scored = {opt: rank_optimum(opt, models[opt.mode], targets[opt.mode], rule, span_d) for opt in chosen}
+    scored = {o: r for o, r in scored.items() if np.isfinite(r.log_likelihood)}
+    if not rule.refits:
+        return collect_solutions(list(scored.values()) + rest, models, span_d, evidence=rule.evidence)
+    return collect_solutions(list(scored), models, span_d, evidence=rule.evidence, rescored=scored,
+                             rescore_models=targets)
 
 
 __all__ += ["RankingRule", "RANKING_RULES", "DEFAULT_RANKING", "N_RANKED_PER_MODE", "bic", "solution_criterion",
