@@ -284,10 +284,11 @@ def summary(rows) -> str:
               f"Laplace ln Z picks the BIC's top of the best {LAPLACE_COMPARED} distinct: {frac('laplace_agrees')}",
               f"search time per object: median {np.median([r['search_s'] for r in det]):.0f} s, "
               f"max {np.max([r['search_s'] for r in det]):.0f} s (wall clock, shared machine)"]
-    names = [n for n in (det[0].get("rankings") or {})]
-    ranked = [r for r in det if set(names) <= set(r.get("rankings") or {})]
+    # the rules every scored row has (tables of runs with other --ranking lists can be summarised together)
+    ranked = [r for r in det if r.get("rankings")]
+    names = [n for n in (ranked[0]["rankings"] if ranked else {}) if all(n in r["rankings"] for r in ranked)]
     if names and ranked:
-        lines.append(f"\nranking rules side by side on the same {len(ranked)} searches (one run):")
+        lines.append(f"\nranking rules side by side on the same {len(ranked)} searches:")
         lines.append(f"{'rule':24s} {'top right':>10s} {'listed':>8s} {'mode':>8s} {'found':>8s} "
                      f"{'truth beats top':>16s} {'rank s (median)':>16s}")
         for name in names:
@@ -341,6 +342,8 @@ def main(argv=None) -> int:
     p.add_argument("--ranking", default="bic", metavar="RULE1,RULE2,...",
                    help="ranking rules compared side by side on the same searches (tumble.classify.solutions."
                         "RANKING_RULES; the first listed is not special)")
+    p.add_argument("--tables", default=None, metavar="T1,T2,...",
+                   help="only summarise these JSON-lines tables together (runs split by --offset)")
     args = p.parse_args(argv)
     from tumble.classify.solutions import ranking_rule
 
@@ -356,6 +359,12 @@ def main(argv=None) -> int:
         res = demo_seed_check([int(v) for v in args.demo_seeds.split(",")])
         print(f"{DEMO_OBJECT}: true solution top {sum(r[1] for r in res)}/{len(res)}, "
               f"listed {sum(r[2] for r in res)}/{len(res)}")
+        return 0
+    if args.tables:
+        rows = [json.loads(line) for t in args.tables.split(",") for line in Path(t).read_text().splitlines()
+                if line.strip()]
+        print(f"{args.split} dense tumblers of the library ({args.tables}):\n"
+              + summary([r for r in rows if r["object_id"] != DEMO_OBJECT]))
         return 0
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)

@@ -32,6 +32,10 @@ enumeration (:func:`search_solutions`):
    of the best are listed with relative probabilities ``exp(-Delta/2)`` normalised over the list,
    and 68 % intervals of ``P_psi`` and ``P_phi`` from the Laplace approximation at each solution's
    own optimum (:func:`laplace_approximation`), never from a mixture of separated modes.
+   Other ranking rules (:data:`RANKING_RULES`, :func:`rank_solutions`: each solution polished to
+   the top of its mode, re-fitted with the inertia free of the shape, with the Student-t likelihood
+   or the Lommel-Seeliger + Lambert law, or ranked by the Laplace ln Z) are compared side by side
+   by ``benchmarks/bench_solutions.py --ranking``; :data:`DEFAULT_RANKING` is the one used.
 
 Every listed solution is a scientific estimate for research use: the physical model is a triaxial
 ellipsoid with homogeneous inertia, so a real body can prefer a wrong lattice.
