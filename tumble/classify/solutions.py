@@ -896,12 +896,12 @@ def distinct_optima(optima, models, span_d: float) -> list:
     return distinct
 
 
-def _solution(opt: Optimum, model, lap: SolutionLaplace, criterion: float, best: float, k: int, n: int,
-              weight: float) -> Solution:
+def _solution(opt: Optimum, log_likelihood: float, lap: SolutionLaplace, criterion: float, best: float, k: int,
+              n: int, weight: float) -> Solution:
     return Solution(mode=opt.mode, p_psi_h=lap.p_psi_h, p_phi_h=lap.p_phi_h,
                     p_psi_interval_h=(lap.p_psi_h - lap.p_psi_sigma_h, lap.p_psi_h + lap.p_psi_sigma_h),
                     p_phi_interval_h=(lap.p_phi_h - lap.p_phi_sigma_h, lap.p_phi_h + lap.p_phi_sigma_h),
-                    log_likelihood=opt.log_likelihood, criterion=float(criterion), delta=float(criterion - best),
+                    log_likelihood=float(log_likelihood), criterion=float(criterion), delta=float(criterion - best),
                     relative_probability=float(weight), log_evidence_laplace=lap.log_evidence, n_parameters=k,
                     n_points=n, state=opt.x, candidate=opt.pair.candidate, source=opt.pair.source)
 
@@ -936,26 +936,26 @@ def collect_solutions(optima, models, span_d: float, *, evidence: bool = False, 
     ``distinct`` holds every distinct solution found, best first (listed or not). ``evidence``:
     ranked by ``-2 ln Z`` of the Laplace approximation instead (:func:`solution_criterion`).
     ``rescored`` (optimum -> its re-fit in ``rescore_models``, by mode; :func:`rank_solutions`): the
-    criterion is the re-fit's, while each solution's state, ``ln L``, periods and intervals stay
-    those of the search's model (the one its mode is sampled in).
+    criterion, ``ln L`` and parameter count are the re-fit's, while each solution's state, periods
+    and intervals stay those of the search's model (the one its mode is sampled in).
     """
     distinct = distinct_optima(optima, models, span_d)
     if not distinct:
         return (), {}, ()
     n = int(models[distinct[0].mode].y.size)
-    ks = [len(models[o.mode].space.names) for o in distinct]
     laps = [laplace_approximation(models[o.mode], o.x) for o in distinct]
     if rescored is None:
-        crits = [solution_criterion(o.log_likelihood, lap, k, n, evidence) for o, lap, k in zip(distinct, laps, ks)]
+        lls = [o.log_likelihood for o in distinct]
+        ks = [len(models[o.mode].space.names) for o in distinct]
+        evid = laps
     else:
-        crits = []
-        for o in distinct:
-            r, m = rescored[o], rescore_models[o.mode]
-            lap_r = laplace_approximation(m, r.x) if evidence else None
-            crits.append(solution_criterion(r.log_likelihood, lap_r, len(m.space.names), n, evidence))
+        lls = [rescored[o].log_likelihood for o in distinct]
+        ks = [len(rescore_models[o.mode].space.names) for o in distinct]
+        evid = [laplace_approximation(rescore_models[o.mode], rescored[o].x) if evidence else None for o in distinct]
+    crits = [solution_criterion(ll, lap, k, n, evidence) for ll, lap, k in zip(lls, evid, ks)]
     best = min(crits)
     if not np.isfinite(best):  # no Laplace approximation at all: the BIC is the only criterion left
-        crits = [bic((rescored[o] if rescored is not None else o).log_likelihood, k, n) for o, k in zip(distinct, ks)]
+        crits = [bic(ll, k, n) for ll, k in zip(lls, ks)]
         best = min(crits)
     listed_idx = [i for i, c in enumerate(crits) if c - best <= SOLUTION_DELTA_BIC]
     weights = np.array([math.exp(-0.5 * (crits[i] - best)) for i in listed_idx])
@@ -964,8 +964,8 @@ def collect_solutions(optima, models, span_d: float, *, evidence: bool = False, 
     first_of_mode = {}
     for i in order:
         first_of_mode.setdefault(distinct[i].mode, i)
-    made = [_solution(o, models[o.mode], lap, c, best, k, n, weight_of.get(i, 0.0))
-            for i, (o, lap, c, k) in enumerate(zip(distinct, laps, crits, ks))]
+    made = [_solution(o, ll, lap, c, best, k, n, weight_of.get(i, 0.0))
+            for i, (o, ll, lap, c, k) in enumerate(zip(distinct, lls, laps, crits, ks))]
     listed = tuple(sorted((made[i] for i in listed_idx), key=lambda s: s.criterion))
     return listed, {mode: made[i] for mode, i in first_of_mode.items()}, tuple(sorted(made, key=lambda s: s.criterion))
 
@@ -1068,8 +1068,9 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
     re-fits or polishes scores the best :data:`N_RANKED_PER_MODE` distinct solutions of each mode
     (:func:`rank_optimum`). A polish in the search's model replaces the optimum (the others are
     ranked as they are); a re-fit in another model gives only the criterion, each solution keeping
-    the search model's state, and the solutions not re-fitted are left out (their ``ln L`` is of
-    another model).
+    the search model's state, and the solutions not re-fitted are scored by that model at their own
+    state (:func:`transfer_state`; a lower bound of their re-fit, exact for a tied state in the
+    free-inertia model, which contains it), so that none is dropped from the list.
     """
     span_d = lc.span_d
     if not (rule.refits or rule.polish):
@@ -1084,6 +1085,11 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
     scored = {o: r for o, r in scored.items() if np.isfinite(r.log_likelihood)}
     if not rule.refits:
         return collect_solutions(list(scored.values()) + rest, models, span_d, evidence=rule.evidence)
+    for opt in rest:
+        x = transfer_state(opt.x, models[opt.mode], targets[opt.mode])
+        ll = float(targets[opt.mode](x[None])[0])
+        if np.isfinite(ll):
+            scored[opt] = Optimum(opt.mode, x, ll, opt.pair)
     return collect_solutions(list(scored), models, span_d, evidence=rule.evidence, rescored=scored,
                              rescore_models=targets)
 
