@@ -28,7 +28,9 @@ enumeration (:func:`search_solutions`):
    (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed.
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
-   ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978); those within :data:`SOLUTION_DELTA_BIC`
+   ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978) of a re-fit with the inertia ratios free
+   of the shape (:data:`DEFAULT_RANKING`; the state, periods and intervals stay the search
+   model's); those within :data:`SOLUTION_DELTA_BIC`
    of the best are listed with relative probabilities ``exp(-Delta/2)`` normalised over the list,
    and 68 % intervals of ``P_psi`` and ``P_phi`` from the Laplace approximation at each solution's
    own optimum (:func:`laplace_approximation`), never from a mixture of separated modes.
