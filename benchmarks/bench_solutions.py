@@ -34,6 +34,7 @@ beats top" counts the failures the rule's model itself would resolve if the sear
     nice .venv/bin/python benchmarks/bench_solutions.py --ids CAL-dense-npa-029,CAL-dense-npa-151 \
         --ranking bic,polished,free-inertia --no-demo --out benchmarks/.cache/ranking-subset.jsonl
     nice .venv/bin/python benchmarks/bench_solutions.py --split calibration --limit 40 --ranking ...
+    nice .venv/bin/python benchmarks/bench_solutions.py --tables A.jsonl,B.jsonl   # runs split by --offset
 
 The search of ``tumble classify`` is deterministic (well-spread starts, no random draws); here too.
 ``--demo-seeds`` reruns KRN-007's search with the orientation sets shifted by each seed (a
