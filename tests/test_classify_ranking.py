@@ -104,6 +104,9 @@ def test_ranking_models_share_the_data_and_the_priors(sam_fit):
             k = model.space.index("p_psi_h")
             assert got[mode].space.lows[k] == model.space.lows[k] and got[mode].space.highs[k] == model.space.highs[k]
             assert got[mode].student_t == rule.student_t and got[mode].free_inertia == rule.free_inertia
+    # a Student-t search keeps its likelihood under a rule that re-fits for another reason
+    t_models = S.npa_models(thin_lightcurve(lc, 150), lc.span_d * 24.0, student_t=True)
+    assert all(m.student_t for m in S.ranking_models(lc, t_models, S.ranking_rule("free-inertia")).values())
 
 
 @pytest.mark.parametrize("name", ["polished", "free-inertia", "student-t"])

@@ -998,7 +998,8 @@ def ranking_models(lc, models: dict, rule: RankingRule) -> dict:
     with the rule's law, inertia and likelihood (:class:`tumble.model.PhysicalModel`).
 
     ``lc`` is the full light curve; it is thinned the way the search's models were
-    (:func:`tumble.classify.rotation.thin_lightcurve` to their number of points).
+    (:func:`tumble.classify.rotation.thin_lightcurve` to their number of points). A search with the
+    Student-t likelihood keeps it under every rule.
     """
     from tumble.model import PhysicalModel
 
@@ -1012,7 +1013,8 @@ def ranking_models(lc, models: dict, rule: RankingRule) -> dict:
         sp = model.space
         k = sp.index("p_psi_h")
         out[mode] = PhysicalModel(sub, mode, p_psi_range_h=(float(sp.lows[k]), float(sp.highs[k])),
-                                  student_t=rule.student_t, law=rule.law, free_inertia=rule.free_inertia,
+                                  student_t=rule.student_t or model.student_t, law=rule.law,
+                                  free_inertia=rule.free_inertia, nu_t=model.nu_t,
                                   geometry=model.geometry, epoch_jd=model.epoch_jd)
     return out
 
