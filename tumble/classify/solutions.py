@@ -133,9 +133,9 @@ REFINE_VARIANTS = (FourierVariant(4, 0, 2), FourierVariant(4, 0, 3))
 #: Central-difference step of the periods' gradient, in units of each parameter's Laplace standard
 #: deviation (small against the mode's width, large against the model's rounding).
 PERIOD_GRADIENT_STEP_SIGMA = 1e-3
-#: Distinct solutions of each mode (the best first) re-scored by a ranking rule that re-fits or
-#: polishes (:func:`rank_solutions`): the search's own ranking puts the rest far below (they are
-#: not re-fitted; a re-fit costs one LM run or one polish per solution).
+#: Distinct solutions of each mode (the best first) re-fitted or polished by a ranking rule
+#: (:func:`rank_solutions`; one LM run or one polish each): the search puts the rest tens of nats
+#: below, and they are scored at their own state.
 N_RANKED_PER_MODE = 4
 #: The ranking rule of :func:`search_solutions` (a name of :data:`RANKING_RULES`): the BIC of a re-fit
 #: with the inertia free of the shape, the only cheap rule that fixed a held-out faceted tumbler
