@@ -11,7 +11,8 @@ the simulated truth:
 - time per object (the search alone, wall clock on this machine, side by side in one run);
 - for every failure, whether the search or the model is at fault: the same model started at the
   true periods (shapes along the true period ratio, refined with restarts) reaching a higher
-  log-likelihood than the search's top solution means the search missed it;
+  log-likelihood than the search's top solution, both polished to the tops of their modes, means
+  the search missed it (``fault_attribution``);
 - the ranking criterion (BIC) against the Laplace approximation of the evidence: does the
   Laplace ln Z pick the same top among the best distinct solutions (listed or not)?
 
@@ -21,6 +22,19 @@ Usage::
     nice .venv/bin/python benchmarks/bench_solutions.py --limit 40         # the first 40 held-out dense tumblers
     nice .venv/bin/python benchmarks/bench_solutions.py --demo-only        # KRN-007 of the demo
     nice .venv/bin/python benchmarks/bench_solutions.py --demo-seeds 0,1,2,3,4   # KRN-007, shifted start sets
+
+Ranking rules side by side (``--ranking bic,polished,free-inertia,...``; the names of
+``tumble.classify.solutions.RANKING_RULES``): the search runs once per object with the plain BIC
+ranking, and each rule then re-scores the same distinct solutions (``rank_solutions``: re-fitted
+with another model, polished to the top of its mode, or ranked by the Laplace ln Z); every rule's
+figures (top right, true listed, mode right, true found, ranking time) are printed in one table.
+For every object any rule gets wrong, the truth-started fit is scored by that rule too: "truth
+beats top" counts the failures the rule's model itself would resolve if the search found the truth.
+
+    nice .venv/bin/python benchmarks/bench_solutions.py --ids CAL-dense-npa-029,CAL-dense-npa-151 \
+        --ranking bic,polished,free-inertia --no-demo --out benchmarks/.cache/ranking-subset.jsonl
+    nice .venv/bin/python benchmarks/bench_solutions.py --split calibration --limit 40 --ranking ...
+    nice .venv/bin/python benchmarks/bench_solutions.py --tables A.jsonl,B.jsonl   # runs split by --offset
 
 The search of ``tumble classify`` is deterministic (well-spread starts, no random draws); here too.
 ``--demo-seeds`` reruns KRN-007's search with the orientation sets shifted by each seed (a
@@ -75,24 +89,99 @@ def periods_match(mode, p_psi_h, p_phi_h, truth, *, check_mode: bool) -> bool:
     return ok and (not check_mode or mode == truth["mode"])
 
 
-def truth_started_log_likelihood(lc, truth, rng) -> float:
-    """The physical model's best log-likelihood started at the true periods (both modes tried)."""
+def truth_started_optimum(lc, truth, rng, models=None):
+    """The physical model's best optimum started at the true periods (in the true mode), or None."""
     from tumble.classify import solutions as S
     from tumble.classify.rotation import thin_lightcurve
 
-    sub = thin_lightcurve(lc, 300)
-    models = S.npa_models(sub, lc.span_d * 24.0)
+    if models is None:
+        models = S.npa_models(thin_lightcurve(lc, 300), lc.span_d * 24.0)
     pair = S.FrequencyPair(24.0 / truth["p_psi_h"], 24.0 / truth["p_phi_h"], ("truth",), "truth")
-    best = -math.inf
+    best = None
     model = models[truth["mode"]]
     for _ in range(TRUTH_TRIALS):
         opt = S.fit_pair(model, truth["mode"], pair, S.FitBudget(n_shapes=4, n_short=4, n_full=2), rng)
         if opt is not None:
-            best = max(best, S.restart_optimum(model, opt, rng).log_likelihood)
+            opt = S.restart_optimum(model, opt, rng)
+            if best is None or opt.log_likelihood > best.log_likelihood:
+                best = opt
     return best
 
 
-def score_object(object_id, lc, truth, detected_by, check_model: bool) -> dict:
+def fault_attribution(lc, models, top, truth) -> dict:
+    """Search or model at fault: the truth-started fit and the top solution compared at the tops of their modes.
+
+    Both are polished (``rank_optimum`` with the 'polished' rule, the step the sampler takes before
+    sampling): an optimiser stopped on a mode's ridge can sit tens of nats below the top
+    (CAL-dense-npa-119: the truth-started fit 591.9 unpolished, 645.5 polished, against 638.9 for
+    the wrong top). A truth-started fit that drifted off the true periods counts as not better.
+    """
+    from tumble.classify import solutions as S
+
+    rule = S.ranking_rule("polished")
+    opt = truth_started_optimum(lc, truth, np.random.default_rng(SEED), models)
+    if opt is None:
+        return {"truth_ll": -math.inf, "fault": "model"}
+    mode = truth["mode"]
+    t = S.rank_optimum(opt, models[mode], models[mode], rule, lc.span_d)
+    top_opt = S.solution_optimum(top)
+    tp = S.rank_optimum(top_opt, models[top.mode], models[top.mode], rule, lc.span_d)
+    der = models[mode].derived(t.x[None])
+    stayed = periods_match(mode, float(der["p_psi_h"][0]), float(der["p_phi_h"][0]), truth, check_mode=False)
+    better = stayed and t.log_likelihood > tp.log_likelihood + 1.0
+    return {"truth_ll": t.log_likelihood, "top_ll_polished": tp.log_likelihood, "truth_stayed": stayed,
+            "fault": "search" if better else "model"}
+
+
+def score_listing(sols, distinct, truth) -> dict:
+    """Top right, mode right, true listed, true found of one ranking's solutions."""
+    if not sols:
+        return dict(top_right=False, mode_right=False, true_listed=False, true_found=False, n_listed=0,
+                    top_mode="", top_p_psi_h=math.nan, top_p_phi_h=math.nan, top_ll=math.nan, top_criterion=math.nan)
+    top = sols[0]
+    return dict(top_mode=top.mode, top_p_psi_h=top.p_psi_h, top_p_phi_h=top.p_phi_h, top_ll=top.log_likelihood,
+                top_criterion=top.criterion, n_listed=len(sols),
+                top_right=periods_match(top.mode, top.p_psi_h, top.p_phi_h, truth, check_mode=False),
+                mode_right=top.mode == truth["mode"],
+                true_listed=any(periods_match(s.mode, s.p_psi_h, s.p_phi_h, truth, check_mode=True) for s in sols),
+                true_found=any(periods_match(s.mode, s.p_psi_h, s.p_phi_h, truth, check_mode=True) for s in distinct))
+
+
+def score_rankings(lc, search, models, truth, rules, check_model: bool) -> dict:
+    """Each ranking rule on the search's distinct solutions: ``{name: scores}`` (see the module notes)."""
+    from tumble.classify import solutions as S
+
+    optima = [S.solution_optimum(s) for s in search.distinct]
+    out, results = {}, {}
+    for name in rules:
+        rule = S.ranking_rule(name)
+        t0 = time.perf_counter()
+        listed, _, distinct = S.rank_solutions(optima, models, lc, rule)
+        rec = score_listing(listed, distinct, truth)
+        rec["rank_s"] = time.perf_counter() - t0
+        out[name], results[name] = rec, listed
+    failed = [n for n in rules if not (out[n]["top_right"] and out[n]["mode_right"])]
+    if check_model and failed:
+        truth_opt = truth_started_optimum(lc, truth, np.random.default_rng(SEED), models)
+        for name in failed:
+            rule = S.ranking_rule(name)
+            if truth_opt is None or not results[name]:
+                continue
+            targets = S.ranking_models(lc, models, rule)
+            mode = truth["mode"]
+            opt = S.rank_optimum(truth_opt, models[mode], targets[mode], rule, lc.span_d)
+            k, n = len(targets[mode].space.names), int(targets[mode].y.size)
+            lap = S.laplace_approximation(targets[mode], opt.x) if rule.evidence else None
+            crit = S.solution_criterion(opt.log_likelihood, lap, k, n, rule.evidence)
+            der = targets[mode].derived(opt.x[None])
+            stayed = periods_match(mode, float(der["p_psi_h"][0]), float(der["p_phi_h"][0]), truth, check_mode=False)
+            # a truth-started fit that drifted to other periods says nothing of the truth
+            out[name].update(truth_ll=opt.log_likelihood, truth_criterion=crit, truth_stayed=stayed,
+                             truth_beats_top=bool(stayed and crit < results[name][0].criterion))
+    return out
+
+
+def score_object(object_id, lc, truth, detected_by, check_model: bool, rules=("bic",)) -> dict:
     """Run the search on one light curve and score it (a dictionary row)."""
     from tumble.classify import classify
     from tumble.classify.rotation import thin_lightcurve
@@ -110,8 +199,11 @@ def score_object(object_id, lc, truth, detected_by, check_model: bool) -> dict:
     t0 = time.perf_counter()
     # the search part of fit_rotation_state (optimisation only), with every distinct solution kept
     sub = thin_lightcurve(lc, 300)
-    search = search_solutions(lc, cls.evidence, npa_models(sub, lc.span_d * 24.0), rng=None)
+    models = npa_models(sub, lc.span_d * 24.0)
+    search = search_solutions(lc, cls.evidence, models, rng=None, ranking="bic")
     row["search_s"] = time.perf_counter() - t0
+    if tuple(rules) != ("bic",):
+        row["rankings"] = score_rankings(lc, search, models, truth, rules, check_model)
     sols = search.solutions
     if not sols:
         row.update(top_right=False, mode_right=False, true_listed=False, true_found=False, laplace_agrees=True,
@@ -131,10 +223,8 @@ def score_object(object_id, lc, truth, detected_by, check_model: bool) -> dict:
     lz = np.array([s.log_evidence_laplace for s in near])
     row["distinct"] = [[s.mode, s.p_psi_h, s.p_phi_h, s.delta, s.log_evidence_laplace] for s in near]
     row["laplace_agrees"] = bool(len(near) < 2 or not np.all(np.isfinite(lz)) or int(np.argmax(lz)) == 0)
-    if check_model and not (row["top_right"] and row["mode_right"]):
-        ll_truth = truth_started_log_likelihood(lc, truth, np.random.default_rng(SEED))
-        row["truth_ll"] = ll_truth
-        row["fault"] = "search" if ll_truth > top.log_likelihood + 1.0 else "model"
+    if check_model and "rankings" not in row and not (row["top_right"] and row["mode_right"]):
+        row.update(fault_attribution(lc, models, top, truth))
     return row
 
 
@@ -162,13 +252,16 @@ def demo_seed_check(seeds) -> list:
     return out
 
 
-def library_objects(library: Path, limit: int | None, offset: int = 0):
-    """Held-out dense tumblers of the library, in the library's hashed order: (id, lc, truth)."""
+def library_objects(library: Path, limit: int | None, offset: int = 0, split: str = "heldout", only=None):
+    """Dense tumblers of one half of the library, in the library's hashed order: (id, lc, truth).
+
+    ``only``: these ids (of that half or not), in the same order.
+    """
     from library.population import order_key, split_of
     from library.render import load_rendered
 
     ids = sorted((Path(p).stem for p in glob.glob(str(library / "CAL-dense-npa-*.json"))), key=order_key)
-    ids = [i for i in ids if split_of(i) == "heldout"]
+    ids = [i for i in ids if i in only] if only else [i for i in ids if split_of(i) == split]
     for oid in ids[offset:][:limit]:
         obj = load_rendered(library, oid)
         if obj is not None:
@@ -210,6 +303,23 @@ def summary(rows) -> str:
               f"Laplace ln Z picks the BIC's top of the best {LAPLACE_COMPARED} distinct: {frac('laplace_agrees')}",
               f"search time per object: median {np.median([r['search_s'] for r in det]):.0f} s, "
               f"max {np.max([r['search_s'] for r in det]):.0f} s (wall clock, shared machine)"]
+    # the rules every scored row has (tables of runs with other --ranking lists can be summarised together)
+    ranked = [r for r in det if r.get("rankings")]
+    names = [n for n in (ranked[0]["rankings"] if ranked else {}) if all(n in r["rankings"] for r in ranked)]
+    if names and ranked:
+        lines.append(f"\nranking rules side by side on the same {len(ranked)} searches:")
+        lines.append(f"{'rule':24s} {'top right':>10s} {'listed':>8s} {'mode':>8s} {'found':>8s} "
+                     f"{'truth beats top':>16s} {'rank s (median)':>16s}")
+        for name in names:
+            recs = [r["rankings"][name] for r in ranked]
+
+            def cnt(key):
+                return f"{sum(bool(x.get(key)) for x in recs)}/{len(recs)}"
+
+            beats = [x["truth_beats_top"] for x in recs if "truth_beats_top" in x]
+            lines.append(f"{name:24s} {cnt('top_right'):>10s} {cnt('true_listed'):>8s} {cnt('mode_right'):>8s} "
+                         f"{cnt('true_found'):>8s} {f'{sum(beats)}/{len(beats)}':>16s} "
+                         f"{np.median([x['rank_s'] for x in recs]):16.1f}")
     faults = [r.get("fault") for r in det if r.get("fault")]
     if faults:
         lines.append(f"failures: {faults.count('search')} search (truth-started fit better), "
@@ -221,6 +331,11 @@ def format_row(r) -> str:
     if not r.get("detected"):
         return f"{r['object_id']:20s} not detected ({r.get('rotation')})"
     fault = f" fault={r['fault']} (truth ll {r['truth_ll']:.1f})" if r.get("fault") else ""
+    for name, x in (r.get("rankings") or {}).items():
+        truth = f" truth ll {x['truth_ll']:.1f} beats={x['truth_beats_top']}" if "truth_ll" in x else ""
+        fault += (f"\n    {name:22s} top {x['top_mode']} {x['top_p_psi_h']:.4g}/{x['top_p_phi_h']:.4g} h "
+                  f"(ll {x['top_ll']:.1f}) right={x['top_right']} listed={x['true_listed']} "
+                  f"mode={x['mode_right']} {x['rank_s']:.0f} s{truth}")
     return (f"{r['object_id']:20s} truth {r['true_mode']} {r['true_p_psi_h']:.4g}/{r['true_p_phi_h']:.4g} h  "
             f"top {r['top_mode']} {r['top_p_psi_h']:.4g}/{r['top_p_phi_h']:.4g} h (ll {r['top_ll']:.1f})  "
             f"listed {r['n_listed']}  top_right={r['top_right']} listed={r['true_listed']} found={r.get('true_found')} "
@@ -240,13 +355,35 @@ def main(argv=None) -> int:
     p.add_argument("--no-fault-check", action="store_true", help="skip the truth-started fit of failures")
     p.add_argument("--demo-seeds", default=None, metavar="S1,S2,...",
                    help=f"only {DEMO_OBJECT}: its search with the orientation sets shifted by each seed")
+    p.add_argument("--split", default="heldout", choices=("heldout", "calibration"),
+                   help="half of the library (the targets are for the held-out half)")
+    p.add_argument("--ids", default=None, metavar="ID1,ID2,...", help="only these library objects")
+    p.add_argument("--ranking", default="bic", metavar="RULE1,RULE2,...",
+                   help="ranking rules compared side by side on the same searches (tumble.classify.solutions."
+                        "RANKING_RULES; the first listed is not special)")
+    p.add_argument("--tables", default=None, metavar="T1,T2,...",
+                   help="only summarise these JSON-lines tables together (runs split by --offset)")
     args = p.parse_args(argv)
+    from tumble.classify.solutions import ranking_rule
+
+    rules = tuple(v.strip() for v in args.ranking.split(",") if v.strip())
+    for name in rules:
+        try:
+            ranking_rule(name)
+        except Exception as exc:  # noqa: BLE001 - a benchmark's option error, one line
+            p.error(str(exc))
     warnings.simplefilter("ignore")
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     if args.demo_seeds:
         res = demo_seed_check([int(v) for v in args.demo_seeds.split(",")])
         print(f"{DEMO_OBJECT}: true solution top {sum(r[1] for r in res)}/{len(res)}, "
               f"listed {sum(r[2] for r in res)}/{len(res)}")
+        return 0
+    if args.tables:
+        rows = [json.loads(line) for t in args.tables.split(",") for line in Path(t).read_text().splitlines()
+                if line.strip()]
+        print(f"{args.split} dense tumblers of the library ({args.tables}):\n"
+              + summary([r for r in rows if r["object_id"] != DEMO_OBJECT]))
         return 0
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)
@@ -256,14 +393,15 @@ def main(argv=None) -> int:
     if not args.no_demo:
         sources.append(("always", [demo_object()]))
     if not args.demo_only:
-        sources.append(("verdict", library_objects(Path(args.library), args.limit, args.offset)))
+        only = set(args.ids.split(",")) if args.ids else None
+        sources.append(("verdict", library_objects(Path(args.library), args.limit, args.offset, args.split, only)))
     n_detected = 0
     with out.open("a") as fh:
         for detected_by, objects in sources:
             for oid, lc, truth in objects:
                 if oid in done:
                     continue
-                row = score_object(oid, lc, truth, detected_by, not args.no_fault_check)
+                row = score_object(oid, lc, truth, detected_by, not args.no_fault_check, rules)
                 fh.write(json.dumps(row) + "\n")
                 fh.flush()
                 rows.append(row)
@@ -272,7 +410,7 @@ def main(argv=None) -> int:
                 if args.quick and n_detected >= QUICK_DETECTED:
                     break
     lib_rows = [r for r in rows if r["object_id"] != DEMO_OBJECT]
-    print("\nheld-out dense tumblers of the library:\n" + summary(lib_rows))
+    print(f"\n{args.split} dense tumblers of the library:\n" + summary(lib_rows))
     demo = [r for r in rows if r["object_id"] == DEMO_OBJECT]
     if demo:
         print(f"\ndemo: {format_row(demo[-1])}")
