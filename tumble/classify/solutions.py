@@ -15,9 +15,10 @@ enumeration (:func:`search_solutions`):
    relations, published and other assignments (:func:`tumble.classify.rotation.npa_candidates`),
    deduplicated within :data:`SAME_PAIR_CYCLES` cycles per span.
 4. **Linear screens** (:func:`screen_chi2`, :func:`screened_pairs`): the chi-square of truncated
-   two-dimensional Fourier series in the physical frequencies (two term sets,
-   :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
-   each screen go on.
+   two-dimensional Fourier series in the physical frequencies with the nuisance zero-points, one
+   screen per NPA mode (:data:`SCREEN_TERM_SETS`: the terms that carry the power of simulated
+   tumblers of that mode, the one nearest the evidence's ``f1`` with a linearly drifting
+   amplitude); the :data:`N_SCREENED` best pairs of each screen go on.
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
    fixed budget (:class:`FitBudget`) and deterministic, well-spread starts: stratified shapes
    (:func:`shape_solutions`) x quasi-uniform orientations (:func:`spread_orientations`, shifted per
