@@ -18,8 +18,9 @@ budget, the number of pairs fitted, and the screening time. The "true pair" is t
 nearest to the true frequencies (largest of the two offsets, in cycles per span); it counts only
 within :data:`TRUE_PAIR_CYCLES` (the physical fit's own basin is about that wide).
 
-Variants (``--variants``, registry :data:`VARIANTS`): ``old`` are the term sets of main before this
-benchmark (4b98740), kept here literally as the baseline; ``new`` are the package's current screens.
+Variants (``--variants``, registry :data:`VARIANTS`): ``old`` are the term sets and pair budget of main
+before this benchmark (4b98740), kept here literally as the baseline; ``new`` are the package's current
+screens and budget.
 
 Usage::
 
@@ -208,8 +209,25 @@ def new_chi2(thin, pairs, evidence) -> list:
     return [screen_chi2(thin, pairs, screen, evidence.f1_npa_per_d) for screen in SCREEN_TERM_SETS]
 
 
-#: Screen variants compared (name -> chi-square of every pair under each screen).
-VARIANTS = {"old": old_chi2, "new": new_chi2}
+@dataclass(frozen=True)
+class Variant:
+    """A screen variant: the chi-square of every pair under each of its screens, and its pair budget."""
+
+    chi2: object
+    n_screened: int
+    n_wide: int
+
+
+def _current_budget():
+    from tumble.classify.solutions import FitBudget
+
+    return FitBudget()
+
+
+#: Screen variants compared: ``old`` with main's budget at 4b98740 (20 pairs per screen, the best
+#: 5 of each wide), ``new`` with the package's current budget (``FitBudget()``).
+VARIANTS = {"old": Variant(old_chi2, 20, 5),
+            "new": Variant(new_chi2, _current_budget().n_screened, _current_budget().n_wide)}
 
 
 def true_pair_index(pairs, truth, span_d) -> tuple:
@@ -222,19 +240,19 @@ def true_pair_index(pairs, truth, span_d) -> tuple:
 
 def score_variant(name, case: Case, thin, pairs, k) -> VariantResult:
     """The true pair's rank under each screen of a variant and in the union the search fits."""
-    from tumble.classify.solutions import FitBudget, union_by_rank
+    from tumble.classify.solutions import union_by_rank
 
-    budget = FitBudget()
+    variant = VARIANTS[name]
     t0 = time.perf_counter()
-    chi2s = VARIANTS[name](thin, pairs, case.evidence)
+    chi2s = variant.chi2(thin, pairs, case.evidence)
     dt = time.perf_counter() - t0
     full = [np.argsort(np.where(np.isfinite(c), c, np.inf), kind="stable") for c in chi2s]
     ranks, union_rank = (), -1
     if k >= 0:
         ranks = tuple(int(np.flatnonzero(o == k)[0]) for o in full)
         union_rank = union_by_rank(full, len(pairs)).index(k)
-    n_fitted = len(union_by_rank(full, budget.n_screened))
-    n_wide = len(union_by_rank(full, min(budget.n_wide, budget.n_screened)))
+    n_fitted = len(union_by_rank(full, variant.n_screened))
+    n_wide = len(union_by_rank(full, min(variant.n_wide, variant.n_screened)))
     return VariantResult(ranks, union_rank, n_fitted, n_wide, dt)
 
 
