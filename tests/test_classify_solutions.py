@@ -142,7 +142,7 @@ def test_apophis_like_sam_is_among_the_solutions():
     # Apophis-like SAM (Pravec et al. 2014: P_psi ~ 263 h, P_phi = 27.38 h; inertia I = 0.64 : 0.97 : 1
     # and L = (275 deg, -85 deg) of Lee et al. 2022, A&A 661, L3), a dense plan of 40 nights. Its light
     # curve is nearly one term, 2 (f_phi - f_psi), drifting with the geometry: the SAM screen with its
-    # drifting leading term ranks the true pair 1st of 3657 (the old term sets: 707th and 43rd, unfitted)
+    # drifting leading term ranks the true pair 2nd of 3657 (the old term sets: 708th and 44th, unfitted)
     st = RotationState.from_periods(0.64, 0.97, APOPHIS_P_PSI_H, APOPHIS_P_PHI_H, "SAM", l_lon_deg=275.0,
                                     l_lat_deg=-85.0)
     plan = DenseCampaign(2460000.5, n_nights=40, hours_per_night=6.0, cadence_min=30.0, zero_point_sigma_mag=0.02)

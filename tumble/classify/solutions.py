@@ -99,8 +99,8 @@ SAM_SCREEN_TERMS = ((1, 0), (2, -2), (2, 0), (1, -2), (0, 2), (1, 2), (3, 0), (3
 LAM_SCREEN_TERMS = ((1, 0), (2, 2), (2, 0), (1, 2), (0, 2), (4, 4), (4, 2), (3, 0), (3, 2), (4, 0))
 #: Legendre degree of the drift of the leading term's coefficients (the term nearest the evidence's
 #: strongest frequency): over weeks the aspect and phase angle change, and the strongest term's
-#: slowly changing amplitude is what wrong pairs otherwise absorb (Apophis-like SAM: true pair 3rd
-#: without drift, 1st with a linear one; a quadratic one ranks it no better).
+#: slowly changing amplitude is what wrong pairs otherwise absorb (Apophis-like SAM: true pair 4th
+#: without drift, 2nd with a linear one; a quadratic one ranked it no better in trials).
 SCREEN_DRIFT_DEGREE = 1
 
 
@@ -127,15 +127,15 @@ class ScreenTerms:
 #: The screens, each ranking the pairs on its own (the union of their best goes on): one per NPA
 #: mode, with the terms that carry the power of simulated tumblers of that mode. The true pair of a
 #: tumbler of either mode ranks near the top of its mode's screen (``benchmarks/bench_screens.py``:
-#: the Apophis-like SAM 1st, the library's detected dense tumblers <= 4th; the previous low-order and
-#: even-in-psi sets ranked the Apophis-like pair 707th and 43rd).
+#: the Apophis-like SAM 2nd, the library's detected dense tumblers <= 4th; the previous low-order and
+#: even-in-psi sets ranked the Apophis-like pair 708th and 44th).
 SCREEN_TERM_SETS = (
     ScreenTerms("SAM", SAM_SCREEN_TERMS, SCREEN_DRIFT_DEGREE),
     ScreenTerms("LAM", LAM_SCREEN_TERMS, SCREEN_DRIFT_DEGREE),
 )
 #: Frequency pairs passed from each screen to the physical fit (the union goes on). With the mode
-#: screens the true pair ranks <= 3rd in its own mode's screen on the library's detected dense
-#: tumblers and 10th on the demo's KRN-007 (``benchmarks/bench_screens.py``), so 12 suffice, and
+#: screens the true pair ranks <= 4th in its own mode's screen on the library's detected dense
+#: tumblers and 11th on the demo's KRN-007 (``benchmarks/bench_screens.py``), so 12 suffice, and
 #: the budget of the 8 pairs per screen no longer fitted pays for the wide fits of ``FitBudget.n_wide``.
 N_SCREENED = 12
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
@@ -193,9 +193,11 @@ class FitBudget:
         the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
     n_wide : int
         The best this many pairs of each screen get the wider budget below (the true pair is
-        usually among them; its fit, not its screening, was what depended on the seed). 10: the
-        demo's KRN-007's true pair is 10th in the SAM screen, and its narrow fit missed the true
-        state (search CPU the same as 20 screened with 5 wide: 52 s against 51 s, side by side).
+        usually among them; its fit, not its screening, was what depended on the seed). 10 with
+        12 screened (was 5 with 20): the budget of the pairs no longer screened in goes to wide fits,
+        at the same search CPU on the demo's KRN-007 (52 s against 51 s, side by side). Its true pair
+        is 11th in the SAM screen, just outside: its narrow fit reaches the true state here, but
+        missed it with 20 / 5 (docs/methods-classify.md section 5b, known limit).
     n_shapes_wide, n_short_wide, n_full_wide : int
         ``n_shapes``, ``n_short`` and ``n_full`` of those pairs.
     n_attempts_wide : int
