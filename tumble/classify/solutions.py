@@ -15,9 +15,10 @@ enumeration (:func:`search_solutions`):
    relations, published and other assignments (:func:`tumble.classify.rotation.npa_candidates`),
    deduplicated within :data:`SAME_PAIR_CYCLES` cycles per span.
 4. **Linear screens** (:func:`screen_chi2`, :func:`screened_pairs`): the chi-square of truncated
-   two-dimensional Fourier series in the physical frequencies (two term sets,
-   :data:`SCREEN_TERM_SETS`) with the nuisance zero-points; the :data:`N_SCREENED` best pairs of
-   each screen go on.
+   two-dimensional Fourier series in the physical frequencies with the nuisance zero-points, one
+   screen per NPA mode (:data:`SCREEN_TERM_SETS`: the terms that carry the power of simulated
+   tumblers of that mode, the one nearest the evidence's ``f1`` with a linearly drifting
+   amplitude); the :data:`N_SCREENED` best pairs of each screen go on.
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
    fixed budget (:class:`FitBudget`) and deterministic, well-spread starts: stratified shapes
    (:func:`shape_solutions`) x quasi-uniform orientations (:func:`spread_orientations`, shifted per
@@ -59,12 +60,19 @@ from tumble.classify.rotation import (
 )
 from tumble.classify.thresholds import MIN_CYCLES
 from tumble.exceptions import TumbleError
-from tumble.model import FourierBasis, FourierVariant, linear_log_evidence, nuisance_design, prepare_linear
+from tumble.model import (
+    FourierBasis,
+    FourierVariant,
+    legendre_drift,
+    linear_log_evidence,
+    nuisance_design,
+    prepare_linear,
+)
 
 __all__ = [
     "Solution", "SolutionSearch", "FitBudget", "Lattice", "FrequencyPair", "SolutionLaplace",
     "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
-    "frequency_pairs", "screened_pairs", "screen_orders", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
+    "frequency_pairs", "screened_pairs", "screen_orders", "ScreenTerms", "leading_term", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
     "shape_solutions", "shape_restarts", "constant_ratio_shapes", "pair_shift",
     "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
 ]
@@ -88,18 +96,54 @@ ALIAS_MIN_GAP_SHARE = 0.25
 SAME_PAIR_CYCLES = 0.05
 #: Two optima closer than this (cycles per span, in f_psi and f_phi) with the same mode are one solution.
 SAME_SOLUTION_CYCLES = 0.25
-#: Terms (n_phi, n_psi) of the screen's two-dimensional Fourier series in the physical frequencies,
-#: two sets, each screening on its own: the low orders of the lattice (Kaasalainen 2001), and the
-#: terms even in psi up to fourth order (an ellipsoid is symmetric under a half turn about a body
-#: axis, so its light curve often holds only 2 k f_psi, with the second harmonics of the dominant
-#: 2 (f_phi - f_psi) or 2 (f_phi + f_psi)). Neither ranks the truth high on every simulated tumbler
-#: (the demo's KRN-007: 13th and 183rd; an Apophis-like SAM: 315th and 20th), the union does.
+#: Terms (n_phi, n_psi) of the SAM screen's two-dimensional Fourier series in the physical
+#: frequencies (Kaasalainen 2001): those among the 8 strongest terms in at least a quarter of 48
+#: simulated SAM ellipsoids (8 inertia pairs x 2 excitations x 3 angular-momentum directions, noise-free,
+#: 40 days; ``benchmarks/bench_screens.py --content``), strongest on average first.
+SAM_SCREEN_TERMS = ((1, 0), (2, -2), (2, 0), (1, -2), (0, 2), (1, 2), (3, 0), (3, -2), (4, -4), (4, -2))
+#: The same measurement for the LAM screen (48 simulated LAM ellipsoids).
+LAM_SCREEN_TERMS = ((1, 0), (2, 2), (2, 0), (1, 2), (0, 2), (4, 4), (4, 2), (3, 0), (3, 2), (4, 0))
+#: Legendre degree of the drift of the leading term's coefficients (the term nearest the evidence's
+#: strongest frequency): over weeks the aspect and phase angle change, and the strongest term's
+#: slowly changing amplitude is what wrong pairs otherwise absorb (Apophis-like SAM: true pair 4th
+#: without drift, 2nd with a linear one; a quadratic one ranked it no better in trials).
+SCREEN_DRIFT_DEGREE = 1
+
+
+@dataclass(frozen=True)
+class ScreenTerms:
+    """One linear screen: the terms of its truncated two-dimensional Fourier series and its drift.
+
+    Attributes
+    ----------
+    name : str
+        The mode whose measured light-curve content the terms are (``"SAM"``, ``"LAM"``), or a label.
+    terms : tuple of (int, int)
+        ``(n_phi, n_psi)``: a cosine and a sine of ``2 pi (n_phi f_phi + n_psi f_psi) t`` each.
+    drift_degree : int
+        Legendre degree of the drift of the leading term's coefficients (0: none); the leading term
+        is the one nearest the light curve's strongest frequency (:func:`leading_term`).
+    """
+
+    name: str
+    terms: tuple
+    drift_degree: int = 0
+
+
+#: The screens, each ranking the pairs on its own (the union of their best goes on): one per NPA
+#: mode, with the terms that carry the power of simulated tumblers of that mode. The true pair of a
+#: tumbler of either mode ranks near the top of its mode's screen (``benchmarks/bench_screens.py``:
+#: the Apophis-like SAM 2nd, the library's detected dense tumblers <= 4th; the previous low-order and
+#: even-in-psi sets ranked the Apophis-like pair 708th and 44th).
 SCREEN_TERM_SETS = (
-    ((0, 1), (0, 2), (1, -2), (1, -1), (1, 0), (1, 1), (1, 2), (2, -2), (2, -1), (2, 0), (2, 1), (2, 2)),
-    ((0, 2), (0, 4)) + tuple((a, b) for a in (1, 2, 3, 4) for b in (-4, -2, 0, 2, 4)),
+    ScreenTerms("SAM", SAM_SCREEN_TERMS, SCREEN_DRIFT_DEGREE),
+    ScreenTerms("LAM", LAM_SCREEN_TERMS, SCREEN_DRIFT_DEGREE),
 )
-#: Frequency pairs passed from each screen to the physical fit (the union goes on).
-N_SCREENED = 20
+#: Frequency pairs passed from each screen to the physical fit (the union goes on). With the mode
+#: screens the true pair ranks <= 4th in its own mode's screen on the library's detected dense
+#: tumblers and 11th on the demo's KRN-007 (``benchmarks/bench_screens.py``), so 12 suffice, and
+#: the budget of the 8 pairs per screen no longer fitted pays for the wide fits of ``FitBudget.n_wide``.
+N_SCREENED = 12
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
 SCREEN_MAX_POINTS = 800
 #: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
@@ -163,7 +207,11 @@ class FitBudget:
         the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
     n_wide : int
         The best this many pairs of each screen get the wider budget below (the true pair is
-        usually among them; its fit, not its screening, was what depended on the seed).
+        usually among them; its fit, not its screening, was what depended on the seed). 10 with
+        12 screened (was 5 with 20): the budget of the pairs no longer screened in goes to wide fits,
+        at the same search CPU on the demo's KRN-007 (52 s against 51 s, side by side). Its true pair
+        is 11th in the SAM screen, just outside: its narrow fit reaches the true state here, but
+        missed it with 20 / 5 (docs/methods-classify.md section 5b, known limit).
     n_shapes_wide, n_short_wide, n_full_wide : int
         ``n_shapes``, ``n_short`` and ``n_full`` of those pairs.
     n_attempts_wide : int
@@ -178,7 +226,7 @@ class FitBudget:
     n_orientations: int = 48
     n_short: int = 2
     n_full: int = 1
-    n_wide: int = 5
+    n_wide: int = 10
     n_shapes_wide: int = 8
     n_short_wide: int = 4
     n_full_wide: int = 2
@@ -537,13 +585,46 @@ def _screen_columns(t, f_psi, f_phi, terms):
     return np.stack(cols, axis=1)
 
 
-def screen_chi2(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
-    """Chi-square of a screen's series (``terms``; zero-points free) at each pair, shape (len(pairs),).
+def leading_term(pair, terms, f_lead_per_d: float) -> tuple:
+    """The term ``(n_phi, n_psi)`` of ``terms`` whose frequency ``|n_phi f_phi + n_psi f_psi|`` at ``pair``
+    is nearest ``f_lead_per_d`` (c/d; the light curve's strongest frequency), the first one on ties."""
+    freq = [abs(n_phi * pair.f_phi_per_d + n_psi * pair.f_psi_per_d) for n_phi, n_psi in terms]
+    return tuple(terms[int(np.argmin(np.abs(np.asarray(freq) - f_lead_per_d)))])
+
+
+def _screen_time(lc) -> tuple:
+    """``(t, tau)``: times from the mean (days) and ``(t - t_mid) / (span / 2)`` in [-1, 1] (the drift variable)."""
+    t_jd = np.asarray(lc.t, float)
+    half = max(0.5 * float(np.ptp(t_jd)), 1e-12)
+    return t_jd - float(np.mean(t_jd)), (t_jd - 0.5 * (t_jd.min() + t_jd.max())) / half
+
+
+def _screen_design(t, tau, pair, screen: ScreenTerms, f_lead_per_d: float) -> np.ndarray:
+    """The screen's Fourier columns at one pair, then its leading term times ``P_1..P_d(tau)``."""
+    cols = _screen_columns(t, pair.f_psi_per_d, pair.f_phi_per_d, screen.terms)
+    if screen.drift_degree <= 0 or not np.isfinite(f_lead_per_d):
+        return cols
+    lead = _screen_columns(t, pair.f_psi_per_d, pair.f_phi_per_d, (leading_term(pair, screen.terms, f_lead_per_d),))
+    return np.hstack([cols] + [lead * p[:, None] for p in legendre_drift(tau, screen.drift_degree)])
+
+
+def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_d: float = math.nan) -> np.ndarray:
+    """Chi-square of a screen's series at each pair (zero-points free), shape (len(pairs),).
+
+    Parameters
+    ----------
+    lc : LightCurve
+    pairs : sequence of FrequencyPair
+    terms : ScreenTerms
+        The screen (:data:`SCREEN_TERM_SETS`).
+    f_lead_per_d : float
+        The light curve's strongest frequency, c/d (the evidence's ``f1``): the screen term nearest it
+        gets the drift columns (:attr:`ScreenTerms.drift_degree`); NaN: no drift.
 
     Fast route: the whitened nuisance columns are projected out once (QR), then each pair solves
     only its own normal equations. :func:`screen_chi2_reference` is the plain least squares.
     """
-    t = np.asarray(lc.t, float) - float(np.mean(lc.t))
+    t, tau = _screen_time(lc)
     w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
     z, _ = nuisance_design(lc)
     zw = z * w[:, None]
@@ -553,7 +634,7 @@ def screen_chi2(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
     base = float(yp @ yp)
     out = np.empty(len(pairs))
     for i, p in enumerate(pairs):
-        f = _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms) * w[:, None]
+        f = _screen_design(t, tau, p, terms, f_lead_per_d) * w[:, None]
         fp = f - q @ (q.T @ f)
         coef, *_ = np.linalg.lstsq(fp, yp, rcond=None)
         r = yp - fp @ coef
@@ -561,15 +642,29 @@ def screen_chi2(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
     return out
 
 
-def screen_chi2_reference(lc, pairs, terms=SCREEN_TERM_SETS[0]) -> np.ndarray:
-    """Slow reference of :func:`screen_chi2`: one least squares of [nuisance, Fourier] per pair."""
-    t = np.asarray(lc.t, float) - float(np.mean(lc.t))
+def screen_chi2_reference(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0],
+                          f_lead_per_d: float = math.nan) -> np.ndarray:
+    """Slow reference of :func:`screen_chi2`: one least squares of [nuisance, Fourier, drift] per pair.
+
+    The drift columns are built here from numpy's Legendre series, independently of the fast route.
+    """
+    t_jd = np.asarray(lc.t, float)
+    t = t_jd - float(np.mean(t_jd))
+    tau = (2.0 * t_jd - t_jd.min() - t_jd.max()) / (t_jd.max() - t_jd.min())
     w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
     z, _ = nuisance_design(lc)
     y = np.asarray(lc.reduced_mag, float)
+    drift = terms.drift_degree > 0 and np.isfinite(f_lead_per_d)
     out = np.empty(len(pairs))
     for i, p in enumerate(pairs):
-        a = np.hstack([z, _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms)]) * w[:, None]
+        blocks = [z, _screen_columns(t, p.f_psi_per_d, p.f_phi_per_d, terms.terms)]
+        if drift:
+            n_phi, n_psi = leading_term(p, terms.terms, f_lead_per_d)
+            arg = 2.0 * np.pi * (n_phi * p.f_phi_per_d + n_psi * p.f_psi_per_d) * t
+            for d in range(1, terms.drift_degree + 1):
+                leg = np.polynomial.legendre.Legendre.basis(d)(tau)
+                blocks.append(np.stack([np.cos(arg) * leg, np.sin(arg) * leg], axis=1))
+        a = np.hstack(blocks) * w[:, None]
         coef, *_ = np.linalg.lstsq(a, y * w, rcond=None)
         r = y * w - a @ coef
         out[i] = float(r @ r)
@@ -1122,11 +1217,14 @@ def polish_solutions(optima, models, span_d: float, rng=None) -> list:
     return out
 
 
-def screen_orders(lc, pairs, n_per_screen: int) -> list:
-    """For each screen of :data:`SCREEN_TERM_SETS`, the indices of its best ``n_per_screen`` pairs, best first."""
+def screen_orders(lc, pairs, n_per_screen: int, f_lead_per_d: float = math.nan) -> list:
+    """For each screen of :data:`SCREEN_TERM_SETS`, the indices of its best ``n_per_screen`` pairs, best first.
+
+    ``f_lead_per_d``: the light curve's strongest frequency (c/d), see :func:`screen_chi2`.
+    """
     orders = []
     for terms in SCREEN_TERM_SETS:
-        chi2 = screen_chi2(lc, pairs, terms)
+        chi2 = screen_chi2(lc, pairs, terms, f_lead_per_d)
         orders.append(np.argsort(np.where(np.isfinite(chi2), chi2, np.inf), kind="stable")[:n_per_screen])
     return orders
 
@@ -1145,9 +1243,9 @@ def union_by_rank(orders, n_per_screen: int) -> list:
     return kept
 
 
-def screened_pairs(lc, pairs, n_per_screen: int) -> list:
+def screened_pairs(lc, pairs, n_per_screen: int, f_lead_per_d: float = math.nan) -> list:
     """The union of the best ``n_per_screen`` pairs of each screen, by rank (:func:`union_by_rank`)."""
-    return [pairs[i] for i in union_by_rank(screen_orders(lc, pairs, n_per_screen), n_per_screen)]
+    return [pairs[i] for i in union_by_rank(screen_orders(lc, pairs, n_per_screen, f_lead_per_d), n_per_screen)]
 
 
 def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget = FitBudget(),
@@ -1173,7 +1271,8 @@ def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget 
     if not pairs:
         return SolutionSearch((), {}, (), 0, 0, 0)
     thin = thin_lightcurve(lc, SCREEN_MAX_POINTS)
-    orders = screen_orders(thin, pairs, budget.n_screened)
+    # the evidence's f1 is the light curve's strongest frequency: the screens' leading term drifts
+    orders = screen_orders(thin, pairs, budget.n_screened, evidence.f1_npa_per_d)
     kept = [pairs[i] for i in union_by_rank(orders, budget.n_screened)]
     # the best budget.n_wide of each screen (a prefix of kept) get the wider fit
     n_wide = len(union_by_rank(orders, min(budget.n_wide, budget.n_screened)))
