@@ -406,3 +406,15 @@ def test_each_mode_screen_ranks_its_own_simulated_tumbler_first():
         best = pairs[int(np.argmin(chi2))]
         assert S.SCREEN_TERM_SETS[index].name == mode
         assert abs(best.f_psi_per_d - f_psi) * lc.span_d < 0.05 and abs(best.f_phi_per_d - f_phi) * lc.span_d < 0.05
+
+
+def test_laplace_period_interval_is_withheld_where_the_linearisation_fails():
+    # The delta method (a first-order Taylor expansion; common practice) gives p +- sigma; an
+    # interval reaching below zero says nothing about a period, so beyond half the period it is not given
+    assert S.laplace_period_interval(20.0, 0.5) == (19.5, 20.5)
+    assert all(math.isnan(v) for v in S.laplace_period_interval(263.9, 1088.0))
+    assert all(math.isnan(v) for v in S.laplace_period_interval(20.0, float("nan")))
+    from tumble.schema import solutions_record
+
+    rec = solutions_record([{"mode": "SAM", "p_psi_h": 263.9, "p_psi_h_lo": float("nan"), "p_psi_h_hi": float("nan")}])
+    assert rec[0]["p_psi_h_lo"] is None and rec[0]["p_psi_h"] == 263.9

@@ -674,8 +674,9 @@ def solutions_table_html(v: Mapping) -> str:
     head = ("<tr><th>#</th><th>mode</th><th>P_psi (h)</th><th>68 % interval (h)</th><th>P_phi (h)</th>"
             "<th>68 % interval (h)</th><th>&Delta;BIC</th><th>relative probability</th><th>found from</th></tr>")
     note = (f"<p class=\"note\">Every tumbling solution whose BIC (-2 ln L + k ln N of the physical ellipsoid "
-            f"model) lies within {SOLUTION_DELTA_BIC:g} of the best, best first; intervals from each solution's own "
-            "optimum (Laplace approximation), not from a mixture of solutions. The first is the state reported "
+            f"model re-fitted with its inertia free of the shape) lies within {SOLUTION_DELTA_BIC:g} of the best, best "
+            "first; intervals from each solution's own optimum (Laplace approximation), not from a mixture of "
+            "solutions; '-' where that approximation does not constrain the period. The first is the state reported "
             "above. Scientific estimates for research use: a real body can prefer another lattice than the "
             "ellipsoid model does.</p>")
     return (f"<h2 id=\"h-solutions\">Tumbling solutions</h2><table id=\"solutions\"><thead>{head}</thead>"

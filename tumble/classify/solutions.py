@@ -177,6 +177,10 @@ REFINE_VARIANTS = (FourierVariant(4, 0, 2), FourierVariant(4, 0, 3))
 #: Central-difference step of the periods' gradient, in units of each parameter's Laplace standard
 #: deviation (small against the mode's width, large against the model's rounding).
 PERIOD_GRADIENT_STEP_SIGMA = 1e-3
+#: A listed solution's Laplace period interval wider than this fraction of the period is not given:
+#: the delta method's linearisation has failed (a near-symmetric SAM's P_psi came out 264 h with a
+#: 1088 h sigma, an interval into negative periods, while the search fixed the period to 1 %).
+MAX_LAPLACE_PERIOD_REL_SIGMA = 0.5
 #: Distinct solutions of each mode (the best first) re-fitted or polished by a ranking rule
 #: (:func:`rank_solutions`; one LM run or one polish each): the search puts the rest tens of nats
 #: below, and they are scored at their own state.
@@ -297,7 +301,8 @@ class Solution:
     p_psi_h, p_phi_h : float
         Rotation (P_psi) and precession (P_phi) periods at the optimum, hours.
     p_psi_interval_h, p_phi_interval_h : tuple of float
-        68 % intervals (lo, hi), hours, from the Laplace approximation of this solution's own mode.
+        68 % intervals (lo, hi), hours, from the Laplace approximation of this solution's own mode;
+        ``(nan, nan)`` where it fails (:func:`laplace_period_interval`).
     log_likelihood : float
         Maximum log-likelihood, nats (on the ``n_points`` fitted points).
     criterion : float
@@ -994,11 +999,20 @@ def distinct_optima(optima, models, span_d: float) -> list:
     return distinct
 
 
+def laplace_period_interval(p_h: float, sigma_h: float) -> tuple:
+    """The 68 % interval ``p +- sigma`` of a period from the delta method, or ``(nan, nan)`` when ``sigma``
+    exceeds :data:`MAX_LAPLACE_PERIOD_REL_SIGMA` of the period (the linearisation has failed: an
+    interval reaching down to zero or below is no statement about the period)."""
+    if not (np.isfinite(p_h) and np.isfinite(sigma_h)) or sigma_h > MAX_LAPLACE_PERIOD_REL_SIGMA * p_h:
+        return (math.nan, math.nan)
+    return (p_h - sigma_h, p_h + sigma_h)
+
+
 def _solution(opt: Optimum, log_likelihood: float, lap: SolutionLaplace, criterion: float, best: float, k: int,
               n: int, weight: float) -> Solution:
     return Solution(mode=opt.mode, p_psi_h=lap.p_psi_h, p_phi_h=lap.p_phi_h,
-                    p_psi_interval_h=(lap.p_psi_h - lap.p_psi_sigma_h, lap.p_psi_h + lap.p_psi_sigma_h),
-                    p_phi_interval_h=(lap.p_phi_h - lap.p_phi_sigma_h, lap.p_phi_h + lap.p_phi_sigma_h),
+                    p_psi_interval_h=laplace_period_interval(lap.p_psi_h, lap.p_psi_sigma_h),
+                    p_phi_interval_h=laplace_period_interval(lap.p_phi_h, lap.p_phi_sigma_h),
                     log_likelihood=float(log_likelihood), criterion=float(criterion), delta=float(criterion - best),
                     relative_probability=float(weight), log_evidence_laplace=lap.log_evidence, n_parameters=k,
                     n_points=n, state=opt.x, candidate=opt.pair.candidate, source=opt.pair.source)
