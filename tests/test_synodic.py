@@ -65,3 +65,25 @@ def test_synodic_period_error_is_widened_by_the_bisector_drift():
     warn = []
     out = _synodic_period({"period_h": 52.0, "period_h_err": 0.011}, math.nan, warn)
     assert out == {"period_kind": "synodic"} and "cannot be bounded" in warn[0]
+
+
+def test_sidereal_period_names_the_poles_its_interval_covers():
+    # The verdict's sidereal period: its error is half the geometry-aware fit's interval, and the
+    # warning says when several poles fit as well (one apparition rarely fixes the pole: the
+    # pole-sense and mirror ambiguities of Kaasalainen & Lamberg 2006, Inverse Problems 22, 749)
+    from types import SimpleNamespace
+
+    from tumble.classify.rules import _sidereal_period
+    from tumble.sparse.fit import PoleSolution
+
+    poles = (PoleSolution(234.0, 75.0, 487.3, 0.0, "best"), PoleSolution(35.0, -4.0, 498.2, 10.9, "other"),
+             PoleSolution(214.0, -16.0, 499.0, 11.6, "other"), PoleSolution(54.0, 75.0, 600.0, 112.7, "mirror"))
+    g = SimpleNamespace(geometry_fixed=False, status="unique", period_h=2.98363, period_h_lo=2.98360,
+                        period_h_hi=2.98402, poles=poles, pole_delta_chi2=40.5)
+    warn = []
+    out = _sidereal_period(g, {"period_syn_h": 2.98456}, warn, sparse_route=False)
+    assert out["period_kind"] == "sidereal" and out["period_h_err"] == pytest.approx(0.5 * (2.98402 - 2.98360))
+    assert "3 poles fit as well" in warn[0]
+    warn = []
+    _sidereal_period(SimpleNamespace(**{**vars(g), "poles": poles[:1]}), {"period_syn_h": 2.98456}, warn, False)
+    assert "mirror solution" in warn[0]

@@ -354,7 +354,10 @@ def _sidereal_period(g, values: dict, warn: list, sparse_route: bool) -> dict:
         warn.append(f"the geometry-aware fit's period {g.period_h:.6g} h differs from the synodic {syn:.6g} h by "
                     "more than a synodic drift: the period given is synodic")
         return {}
-    warn.append("sidereal period from the geometry-aware PA ellipsoid fit (the pole has a mirror solution)")
+    n_poles = sum(1 for q in g.poles if q.delta_chi2_scaled <= g.pole_delta_chi2)
+    warn.append("sidereal period from the geometry-aware PA ellipsoid fit"
+                + (f"; {n_poles} poles fit as well and the period's interval covers them (one apparition rarely "
+                   "fixes the pole)" if n_poles > 1 else " (the pole has a mirror solution)"))
     return dict(period_h=float(g.period_h), period_h_err=0.5 * float(g.period_h_hi - g.period_h_lo),
                 period_syn_h=float(syn) if np.isfinite(syn) else float(g.period_h), period_kind="sidereal")
 
