@@ -1144,27 +1144,44 @@ def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float)
     raises ``ln L`` and leaves ``f_psi`` and ``f_phi`` within :data:`SAME_SOLUTION_CYCLES` per span
     (a larger move is another solution, found or not by the search).
     """
-    from tumble.inference.local import polish_mode
-
     x = transfer_state(opt.x, source, target)
     ll = float(target(x[None])[0]) if target is not source else opt.log_likelihood
     if not np.isfinite(ll):
         return Optimum(opt.mode, x, ll, opt.pair)
-    steps = []
     if rule.refits:
-        steps.append(lambda x0: optimise_state(target, x0)[0])
+        x, ll = _ranking_step(target, _refit_proposal, x, ll, span_d)
     if rule.polish:
-        steps.append(lambda x0: polish_mode(target, target.space, x0, target.sampling_chart(x0)).x)
-    for step in steps:
-        try:
-            with np.errstate(all="ignore"):
-                x1 = target.space.wrap(np.asarray(step(x), float))
-            v1 = float(target(x1[None])[0])
-        except (TumbleError, np.linalg.LinAlgError, ValueError):
-            continue
-        if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(target, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
-            x, ll = x1, v1
+        x, ll = _ranking_step(target, _polish_proposal, x, ll, span_d)
     return Optimum(opt.mode, x, ll, opt.pair)
+
+
+def _refit_proposal(model, x) -> np.ndarray:
+    """A full Levenberg-Marquardt run from ``x``."""
+    return optimise_state(model, x)[0]
+
+
+def _polish_proposal(model, x) -> np.ndarray:
+    """``x`` carried to the top of its own mode (:func:`tumble.inference.local.polish_mode`)."""
+    from tumble.inference.local import polish_mode
+
+    return polish_mode(model, model.space, x, model.sampling_chart(x)).x
+
+
+def _ranking_step(model, propose, x, ll: float, span_d: float) -> tuple:
+    """``(x, ln L)`` after one step of :func:`rank_optimum`, or the input when the proposal fails,
+    lowers ``ln L`` or moves the frequencies to another solution (beyond :data:`SAME_SOLUTION_CYCLES`)."""
+    try:
+        with np.errstate(all="ignore"):
+            x1 = model.space.wrap(np.asarray(propose(model, x), float))
+        v1 = float(model(x1[None])[0])
+    except (TumbleError, np.linalg.LinAlgError, ValueError):
+        return x, ll
+    if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(model, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
+        return x1, v1
+    return x, ll
+    if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(model, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
+        return x1, v1
+    return x, ll
 
 
 def ranking_rule(name: str) -> RankingRule:
