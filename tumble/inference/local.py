@@ -243,12 +243,17 @@ def _regularised_covariance(hess, widths):
     vals, vecs = np.linalg.eigh(corr)
     floor = max(float(vals.max()) * MIN_EIGEN_RATIO, 1e-300)
     floor = max(floor, float(np.min(1.0 / (widths * s) ** 2)))
+    # no direction broader than a flat prior over the support (sd = width / sqrt 12) of any parameter
+    # it moves: a direction the data do not constrain (or a Hessian that is not negative definite
+    # there) is limited by the first prior it meets, with its proportions kept (parameter i's variance
+    # from direction k is v_ik^2 / (lambda_k s_i^2))
+    direction_floor = np.max(12.0 * vecs**2 / ((widths * s) ** 2)[:, None], axis=0)
+    floor = np.maximum(floor, direction_floor)
     n_reg = int(np.sum(vals < floor))
     vals = np.maximum(vals, floor)
     cov_scaled = (vecs / vals) @ vecs.T
     cov = cov_scaled / np.outer(s, s)
-    # no direction broader than a flat prior over the support (sd = width / sqrt 12): a direction the
-    # data do not constrain (or a Hessian that is not negative definite there) is limited by the prior
+    # and no parameter broader than its flat prior from all directions together (a last guard)
     sd = np.sqrt(np.diag(cov))
     shrink = np.minimum(1.0, widths / math.sqrt(12.0) / sd)
     cov = cov * np.outer(shrink, shrink)
