@@ -50,6 +50,8 @@ __all__ = [
     "MAX_FREQUENCIES",
     "ALIAS_DELTA_CHI2",
     "DETECTION_DELTA_BIC",
+    "POLE_FIT_SIGMAS",
+    "pole_fit_spread_chi2",
 ]
 
 HOURS_PER_DAY = 24.0
@@ -866,9 +868,16 @@ def _alias_threshold(pb: _Problem) -> float:
     return float(max(ALIAS_DELTA_CHI2, 2.0 * math.log(n_indep)))
 
 
+def pole_fit_spread_chi2(dof: int) -> float:
+    """Delta chi-square within which another pole fits as well by goodness of fit: :data:`POLE_FIT_SIGMAS`
+    standard deviations of the chi-square law, ``sqrt(2 dof)`` (the one definition; the PA sidereal
+    fit here and the tumbling solutions' mirror poles, :mod:`tumble.classify.poles`, use it)."""
+    return float(POLE_FIT_SIGMAS * math.sqrt(2.0 * max(int(dof), 0)))
+
+
 def _pole_threshold(alias_dchi2: float, dof: int) -> float:
-    """Delta chi2 (scaled) within which another pole is as good: :data:`POLE_FIT_SIGMAS` sqrt(2 dof), at least the alias one."""
-    return float(max(alias_dchi2, POLE_FIT_SIGMAS * math.sqrt(2.0 * dof)))
+    """Delta chi2 (scaled) within which another pole is as good: :func:`pole_fit_spread_chi2`, at least the alias one."""
+    return float(max(alias_dchi2, pole_fit_spread_chi2(dof)))
 
 
 def _pole_sense_spread(pb: _Problem) -> float:
