@@ -69,9 +69,6 @@ __all__ = [
     "AttitudeChart",
     "ImplicitChart",
     "ChartChain",
-    "LogCoordinateChart",
-    "AttitudeAxisMove",
-    "RandomDirectionMove",
     "haar_log_density",
     "ATTITUDE_NAMES",
     "ChartLikelihood",
@@ -122,8 +119,12 @@ MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
 #: nearly everything (a good sign, not a bad one), so the upper end is higher than the ensemble
 #: default; the lower end catches a proposal that misses the target
 LOCAL_ACCEPTANCE_RANGE = (0.15, 0.95)
-#: default budget: steps per ensemble (burn-in and pilot included)
-DEFAULT_MAX_STEPS = 1500
+#: default budget: the cap of the adaptive run, steps per ensemble (burn-in and pilots included); the
+#: run stops as soon as every criterion holds. 3000 = two pilots of 100 plus 55 tau (50 tau after a
+#: burn-in of 5 tau) for tau up to ~50 steps, the slowest held-out dense tumblers whose modes mix
+#: (measured: CAL-dense-npa-101 tau 25-36 steps needs 1600-2200 steps); modes with slower directions
+#: (tau 60-170 steps and growing with the run) are reported unconverged at the cap
+DEFAULT_MAX_STEPS = 3000
 DEFAULT_PILOT_STEPS = 100
 #: pilot rounds (each re-fits the proposal to the previous one's samples, so that the proposal of the
 #: main run comes from walkers that already mixed under a fitted proposal)
@@ -461,144 +462,6 @@ class LaplaceIndependenceMove(emcee.moves.MHMove):
         return new, self.log_density(x0) - self.log_density(new)
 
 
-#: dimension of the random subspace and the scale (in whitened units) of the random-direction move:
-#: measured on CAL-dense-npa-119 (pilot-fitted covariance, posterior samples) a 1-D update accepted
-#: 0.43 (2-D 0.26, 3-D 0.16; a full 8-D independence draw 0.06), scale 1.3 a little less than 1.0
-DIRECTION_DIM = 1
-DIRECTION_SCALE = 1.0
-
-
-class RandomDirectionMove(emcee.moves.MHMove):
-    """Independence update of the coordinate along a random direction of the mode's whitened space.
-
-    With the mode's mean ``m`` and covariance ``S = W W^T`` (the pilot's), every walker's point is
-    whitened, ``z = W^-1 (x - m)``; a random orthonormal ``d x k`` frame ``U`` is drawn per walker
-    (isotropic, independent of the state), the walker's coordinates along it, ``c = U^T z``, are
-    replaced by a fresh draw ``c' ~ N(0, scale^2 I_k)``, and the rest of ``z`` is kept. For a fixed
-    frame this is an independence Metropolis-Hastings update of ``c`` with the Hastings factor
-    ``ln q(c) - ln q(c')`` (Tierney 1994, Ann. Statist. 22, 1701); over random frames it is the
-    hit-and-run scheme (Chen & Schmeiser 1993, J. Comput. Graph. Stat. 2, 251) with an independence
-    proposal along the line. Why: a posterior close to Gaussian in each direction but not jointly
-    (measured on CAL-dense-npa-119: a Gaussian fitted to the posterior samples accepted 0.06 as a
-    full independence proposal, while its one-dimensional conditionals accepted 0.27-0.88) is
-    renewed one direction at a time, where the full draw is nearly always refused.
-
-    Parameters
-    ----------
-    mean : ndarray, shape (ndim,)
-    covariance : ndarray, shape (ndim, ndim)
-    dim : int
-        ``k``, directions renewed per update.
-    scale : float
-        Sd of the proposal in whitened units.
-    """
-
-    def __init__(self, mean, covariance, *, dim: int = DIRECTION_DIM, scale: float = DIRECTION_SCALE):
-        self.mean = np.asarray(mean, float)
-        self.chol = np.linalg.cholesky(np.asarray(covariance, float))
-        self.dim = int(dim)
-        self.scale = float(scale)
-        if not 1 <= self.dim <= len(self.mean):
-            raise TumbleError(f"the random-direction move needs 1 <= dim <= {len(self.mean)}, got {dim}")
-        super().__init__(self._propose)
-
-    def frames(self, n: int, random) -> np.ndarray:
-        """``n`` isotropic orthonormal ``(ndim, dim)`` frames (QR of Gaussian matrices, signs fixed)."""
-        g = random.standard_normal((n, len(self.mean), self.dim))
-        q, r = np.linalg.qr(g)
-        return q * np.sign(np.diagonal(r, axis1=-2, axis2=-1))[:, None, :]
-
-    def set_coordinates(self, x, frames, c_new):
-        """``(x', c, c')``: points with their coordinates along ``frames`` set to ``c_new``."""
-        z = np.linalg.solve(self.chol, (np.atleast_2d(x) - self.mean).T).T
-        c = np.einsum("nd,ndk->nk", z, frames)
-        z_new = z + np.einsum("ndk,nk->nd", frames, c_new - c)
-        return self.mean + z_new @ self.chol.T, c, c_new
-
-    def _propose(self, x0, random):
-        x0 = np.atleast_2d(x0)
-        n = len(x0)
-        new, c, c_new = self.set_coordinates(x0, self.frames(n, random), self.scale * random.standard_normal((n, self.dim)))
-        factor = 0.5 * (np.sum(c_new**2, axis=1) - np.sum(c**2, axis=1)) / self.scale**2
-        return new, factor
-
-
-#: the attitude-axis move draws its angle uniformly on the circle with this probability, else from a
-#: normal of the mode's width along the axis (a symmetric mixture: the uniform part crosses the
-#: whole circle, the normal part keeps a useful acceptance inside a peaked mode)
-AXIS_UNIFORM_FRACTION = 0.5
-
-
-class AttitudeAxisMove(emcee.moves.MHMove):
-    """Metropolis-Hastings move that turns the attitude about one fixed axis by a random angle.
-
-    The attitude is the rotation ``M = exp([w]x) M_opt`` of an :class:`AttitudeChart` (coordinates
-    ``idx`` of the sampled vector). The move proposes ``M' = R_axis(delta) M``, i.e.
-    ``w' = log(exp([delta axis]x) exp([w]x))``, with ``delta`` from a symmetric density (uniform on
-    ``(-pi, pi]`` with probability ``uniform_fraction``, else normal with sd ``scale_rad``).
-    Left multiplication by a rotation preserves the Haar measure, so the proposal is symmetric with
-    respect to it, and in exponential coordinates the Hastings factor is the ratio of the Haar
-    densities, ``ln h(w) - ln h(w')`` (:func:`haar_log_density`; e.g. Chirikjian 2012, vol. 2,
-    section 10.2; Tierney 1994, Ann. Statist. 22, 1701, for the Metropolis-Hastings ratio).
-
-    Why: a light curve with nearly fixed Sun and observer directions hardly constrains a rotation of
-    the whole body about their bisector (exactly none at zero phase angle, where the projected,
-    lit shape is invariant under it). Measured on dense tumblers of the calibration library
-    (CAL-dense-npa-119, -076): the attitude's posterior is a long line in ``w`` along the
-    phase-angle bisector (the three ``w`` correlated 0.99-0.999), reaching ``|w| = pi`` where the
-    chart cuts the circle, with the longest autocorrelation times; the ensemble moves must walk the
-    whole line and cannot cross the cut. The axis is the direction of largest variance of the
-    attitude block of the mode's covariance (it agreed with the sampled line and the bisector to
-    within a few degrees on both objects).
-
-    Parameters
-    ----------
-    idx : sequence of 3 int
-        Columns of the rotation vector ``w`` in the sampled vector.
-    axis : array_like, shape (3,)
-        The axis (normalised here).
-    scale_rad : float
-        Sd of the normal part of the angle, rad.
-    uniform_fraction : float
-        Probability of a uniform angle.
-    """
-
-    def __init__(self, idx, axis, scale_rad: float, uniform_fraction: float = AXIS_UNIFORM_FRACTION):
-        self.idx = np.asarray(idx, int)
-        a = np.asarray(axis, float)
-        self.axis = a / np.linalg.norm(a)
-        self.scale_rad = float(scale_rad)
-        self.uniform_fraction = float(uniform_fraction)
-        super().__init__(self._propose)
-
-    @classmethod
-    def from_covariance(cls, space: ParameterSpace, covariance, **kwargs):
-        """The move for the attitude coordinates of ``space`` (``None`` if it has none), axis and scale from ``covariance``."""
-        if not all(n in space.names for n in ATTITUDE_NAMES):
-            return None
-        idx = [space.index(n) for n in ATTITUDE_NAMES]
-        vals, vecs = np.linalg.eigh(np.asarray(covariance, float)[np.ix_(idx, idx)])
-        return cls(idx, vecs[:, -1], math.sqrt(max(float(vals[-1]), 0.0)), **kwargs)
-
-    def angles(self, n: int, random) -> np.ndarray:
-        """``n`` draws of the turning angle (rad)."""
-        uniform = random.uniform(-math.pi, math.pi, n)
-        normal = random.normal(0.0, self.scale_rad, n)
-        return np.where(random.uniform(size=n) < self.uniform_fraction, uniform, normal)
-
-    def turn(self, w, delta) -> np.ndarray:
-        """Rotation vectors of ``R_axis(delta) exp([w]x)``, shape ``(K, 3)``."""
-        return rotation_log(rotation_exp(np.asarray(delta, float)[:, None] * self.axis) @ rotation_exp(w))
-
-    def _propose(self, x0, random):
-        x0 = np.atleast_2d(x0)
-        w = x0[:, self.idx]
-        w_new = self.turn(w, self.angles(len(x0), random))
-        new = x0.copy()
-        new[:, self.idx] = w_new
-        return new, haar_log_density(w) - haar_log_density(w_new)
-
-
 # ---------------------------------------------------------------------------
 # the attitude chart: exponential coordinates of a rotation about the optimum
 # ---------------------------------------------------------------------------
@@ -890,72 +753,6 @@ class ImplicitChart:
         return self.to_model_with_correction(y)[1]
 
 
-class LogCoordinateChart:
-    """Sampling coordinates in which positive bounded parameters are replaced by their logarithms; picklable.
-
-    A ratio pinned by the data through a product (the ellipsoid's ``a/c = (a/b)(b/c)`` of a
-    light curve's amplitude) makes the posterior of its factors a hyperbola-shaped ridge; in
-    logarithms the ridge is the straight line ``ln(a/b) + ln(b/c) = const``, which the linear moves
-    and a Gaussian proposal follow. Measured on CAL-dense-npa-119 (a SAM of the calibration
-    library): ``a/b`` and ``b/c`` correlated -0.95 along a curve and had the longest
-    autocorrelation times of the run.
-
-    Prior: the parameter ``x`` with density ``p(x)`` becomes ``y = ln x`` with density
-    ``p(e^y) e^y`` (change of variables); the chart space gives ``y`` a flat prior on
-    ``[ln low, ln high]`` and :meth:`log_correction` adds the ratio, which is zero for a
-    log-uniform prior.
-
-    Parameters
-    ----------
-    space : ParameterSpace
-        The space the chart applies to (the model's, or the previous chart's).
-    names : sequence of str
-        Parameters replaced (priors with ``0 < low < high < inf``); the new coordinates are named
-        ``ln_<name>``.
-    """
-
-    def __init__(self, space: ParameterSpace, names):
-        from tumble.inference.space import Parameter, Uniform
-
-        self.model_space = space
-        self.idx = np.array([space.index(n) for n in names], int)
-        params = list(space.parameters)
-        self.priors = []
-        log_flat = []
-        for i in self.idx:
-            p = params[i]
-            lo, hi = float(p.prior.low), float(p.prior.high)
-            if not (0.0 < lo < hi < math.inf):
-                raise TumbleError(f"a log coordinate needs a prior on 0 < low < high < inf; {p.name} has [{lo}, {hi}]")
-            self.priors.append(p.prior)
-            log_flat.append(-math.log(math.log(hi) - math.log(lo)))
-            params[i] = Parameter(f"ln_{p.name}", Uniform(math.log(lo), math.log(hi)), f"ln {p.unit}".strip(),
-                                  f"natural logarithm of {p.name}")
-        self.log_flat = np.array(log_flat)
-        self.space = ParameterSpace(params)
-
-    def to_model(self, y) -> np.ndarray:
-        """Parameters of the space before this chart for chart points ``(K, ndim)``."""
-        x = np.array(np.atleast_2d(np.asarray(y, float)), copy=True)
-        x[:, self.idx] = np.exp(x[:, self.idx])
-        return x
-
-    def from_model(self, x) -> np.ndarray:
-        """Chart coordinates of ``(K, ndim)`` points."""
-        y = np.array(np.atleast_2d(np.asarray(x, float)), copy=True)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            y[:, self.idx] = np.log(y[:, self.idx])
-        return y
-
-    def log_correction(self, y) -> np.ndarray:
-        """``sum ln[p(e^y) e^y]`` minus the chart space's flat log-density, shape ``(K,)`` (0 for log-uniform priors)."""
-        y = np.atleast_2d(np.asarray(y, float))
-        out = np.zeros(len(y))
-        for k, (i, prior) in enumerate(zip(self.idx, self.priors)):
-            out = out + np.asarray(prior.log_pdf(np.exp(y[:, i])), float) + y[:, i] - self.log_flat[k]
-        return out
-
-
 class FixedCoordinateChart:
     """Sampling coordinates without one parameter, which is held at a value; picklable.
 
@@ -1161,34 +958,11 @@ def steps_for_budget(max_evaluations: int, n_walkers: int, n_ensembles: int) -> 
     return max(1, int(max_evaluations) // (int(n_walkers) * int(n_ensembles)))
 
 
-def _direction_move(space: ParameterSpace, centre, cov):
-    return RandomDirectionMove(centre, cov)
-
-
-def _attitude_axis_move(space: ParameterSpace, centre, cov):
-    return AttitudeAxisMove.from_covariance(space, cov)
-
-
-#: moves built from the mode's proposal centre and covariance, by name (``None``: not applicable
-#: to this space, e.g. no attitude coordinates)
-PROPOSAL_MOVES = {"direction": _direction_move, "attitude_axis": _attitude_axis_move}
-
-
-def _moves(independence: LaplaceIndependenceMove, weights, space: ParameterSpace, cov):
-    """``(move, weight)`` pairs of the mixture ``weights`` (names of :data:`ENSEMBLE_MOVES`,
-    :data:`PROPOSAL_MOVES` or "independence"); a move not applicable to ``space`` is left out."""
+def _moves(independence: LaplaceIndependenceMove, weights):
     out = []
     for name, w in weights.items():
-        if w <= 0:
-            continue
-        if name == "independence":
-            move = independence
-        elif name in PROPOSAL_MOVES:
-            move = PROPOSAL_MOVES[name](space, independence.mean, cov)
-        else:
-            move = ENSEMBLE_MOVES[name]()
-        if move is not None:
-            out.append((move, float(w)))
+        if w > 0:
+            out.append((independence if name == "independence" else ENSEMBLE_MOVES[name](), float(w)))
     return out
 
 
@@ -1256,7 +1030,7 @@ def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles,
                             cov if region_cov is None else region_cov, radius2, space.periods)
         lp = LogPosterior(region, space, 1.0, centre)
         independence = LaplaceIndependenceMove(centre, cov)
-        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS, space, cov),
+        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS),
                                         vectorize=True)
         random = np.random.RandomState(int(seeds[e]))
         if states is None:
