@@ -43,3 +43,36 @@ def test_haar_density_matches_scipy_random_rotations(rng):
         assert ang[order][np.searchsorted(cw, q)] == pytest.approx(np.quantile(ref, q), abs=0.02)
     # and the Haar density integrates to 8 pi^2 over the ball (the group's volume in these units)
     assert weight.mean() * (2 * math.pi) ** 3 * len(w) / n == pytest.approx(8 * math.pi**2, rel=0.01)
+
+
+# ---------------------------------------------------------------------------
+# the default budget is a cap, not a run length
+# ---------------------------------------------------------------------------
+def test_the_adaptive_run_stops_when_converged_well_before_its_cap(rng):
+    # a 4-dimensional correlated Gaussian (scipy.stats.multivariate_normal, the reference outside
+    # the project): the run converges (>= 50 tau, R-hat, acceptance) and stops at the first check
+    # that passes, far below DEFAULT_MAX_STEPS; its quantiles are the Gaussian's (scipy.stats.norm)
+    from tumble.inference import Parameter, ParameterSpace, Uniform
+    from tumble.inference.local import DEFAULT_MAX_STEPS, sample_local_mode
+    from tumble.inference.sampling import default_n_walkers
+
+    d = 4
+    a = rng.normal(size=(d, d))
+    cov = a @ a.T / d + 0.1 * np.eye(d)
+    mean = rng.normal(size=d)
+    space = ParameterSpace([Parameter(f"x{i}", Uniform(-20.0, 20.0)) for i in range(d)])
+    dist = stats.multivariate_normal(mean, cov)
+
+    def loglike(x):
+        return np.atleast_1d(dist.logpdf(np.atleast_2d(x)))
+
+    post = sample_local_mode(loglike, space, mean, rng=3)
+    diag = post.diagnostics
+    assert diag.converged, diag.reasons
+    assert diag.tau_multiples >= 50
+    assert diag.n_steps + diag.pilot_steps < DEFAULT_MAX_STEPS / 2
+    assert diag.n_evaluations < DEFAULT_MAX_STEPS * default_n_walkers(d) * 2 / 2
+    sd = np.sqrt(np.diag(cov))
+    for i in range(d):
+        q = np.quantile(post.samples[:, i], [0.15865, 0.84135])
+        np.testing.assert_allclose(q, stats.norm(mean[i], sd[i]).ppf([0.15865, 0.84135]), atol=0.15 * sd[i])
