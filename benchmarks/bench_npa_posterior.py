@@ -1,4 +1,4 @@
-"""Converged NPA posteriors: the sampling tail with the merged budget and with the adaptive run's cap, side by side.
+"""Converged NPA posteriors: the merged sampling tail and the current one (moves, adaptive cap), side by side.
 
 For detected dense tumblers of the calibration library (``benchmarks/library/``; rendered objects
 read from a cache folder, see ``docs/calibration-library.md``; by default the read-only library
@@ -11,14 +11,14 @@ cache of the main checkout, held-out objects only) the script runs, per object:
 3. on the same physical model and optimum, for each seed, **both sampling tails** in one run,
    alternating which goes first:
 
-   - ``before``: ``tumble.classify.rotation.sample_solution_mode`` with the budget merged before
-     2026-12-05 #4 (``BEFORE_STEPS`` = 1500 steps per ensemble);
-   - ``after``: the same with the adaptive run's cap ``tumble.inference.local.DEFAULT_MAX_STEPS``
-     (the run stops as soon as every criterion holds, so a mode that mixes costs no more than it
-     needs);
+   - ``before``: ``tumble.classify.rotation.sample_solution_mode`` as merged before 2026-12-05 #4:
+     the move mixture ``tumble.inference.local.MERGED_MOVE_WEIGHTS`` and a budget of
+     ``BEFORE_STEPS`` = 1500 steps per ensemble;
+   - ``after``: the same with the current mixture ``MOVE_WEIGHTS`` (the attitude-axis move added)
+     and the adaptive run's cap ``tumble.inference.local.DEFAULT_MAX_STEPS`` (the run stops as
+     soon as every criterion holds, so a mode that mixes costs no more than it needs);
 
-   the two differ only in the cap (same seed, same moves, same chart), so ``after`` continues
-   ``before``'s chains where the budget stopped them;
+   same seed, same chart, same optimum;
 
 and prints per object and in total: converged or not, acceptance, chain length in
 autocorrelation times, the coordinate with the longest autocorrelation time, split R-hat, walker
@@ -90,10 +90,12 @@ class SamplerRun:
     tau_steps: float
 
 
-def _sample(model, x, steps, seed, span_d):
+def _sample(kind, model, x, steps, seed, span_d):
     from tumble.classify.rotation import sample_solution_mode
+    from tumble.inference.local import MERGED_MOVE_WEIGHTS, MOVE_WEIGHTS
 
-    return sample_solution_mode(model, x, span_d=span_d, max_steps=steps, rng=seed)
+    weights = MERGED_MOVE_WEIGHTS if kind == "before" else MOVE_WEIGHTS
+    return sample_solution_mode(model, x, span_d=span_d, max_steps=steps, rng=seed, weights=weights)
 
 
 def _worst_coordinate(reasons) -> str:
@@ -105,16 +107,16 @@ def _worst_coordinate(reasons) -> str:
     return "-"
 
 
-def _run_sampler(model, x, steps, seed, span_d, memory):
+def _run_sampler(kind, model, x, steps, seed, span_d, memory):
     """One tail on one object: CPU time of a plain run, then (``memory``) the peak traced memory of a second,
     identical run under ``tracemalloc`` (which slows Python code several times, so it is not timed)."""
     t0 = time.process_time()
-    post = _sample(model, x, steps, seed, span_d)
+    post = _sample(kind, model, x, steps, seed, span_d)
     cpu = time.process_time() - t0
     peak = 0
     if memory:
         tracemalloc.start()
-        _sample(model, x, steps, seed, span_d)
+        _sample(kind, model, x, steps, seed, span_d)
         _, peak = tracemalloc.get_traced_memory()
         tracemalloc.stop()
     d = post.diagnostics
@@ -155,7 +157,7 @@ def run_object(obj, steps, seeds, memory=True, first="before"):
     for seed in seeds:
         run = {"seed": int(seed)}
         for kind in order:
-            run[kind] = _run_sampler(model, x, steps[kind], seed, lc.span_d, memory).__dict__
+            run[kind] = _run_sampler(kind, model, x, steps[kind], seed, lc.span_d, memory).__dict__
         row["runs"].append(run)
     return row
 

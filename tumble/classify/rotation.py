@@ -266,7 +266,8 @@ def sampling_chart(model, x_opt, marginal_jitter: bool):
 
 
 def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int | None = None, n_walkers: int | None = None,
-                         rng=None, progress: bool = False, marginal_jitter: bool = True, polish: bool = True):
+                         rng=None, progress: bool = False, marginal_jitter: bool = True, polish: bool = True,
+                         weights: dict | None = None):
     """Posterior of one solution's mode of the physical model (the sampling tail of :func:`fit_rotation_state`).
 
     1. The jitter is integrated out of the likelihood (Gaussian likelihood only;
@@ -281,6 +282,7 @@ def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int | None =
 
     ``max_steps`` is the cap of the adaptive run (steps per ensemble; default
     :data:`tumble.inference.local.DEFAULT_MAX_STEPS`): the run stops as soon as it has converged.
+    ``weights``: the move mixture (default :data:`tumble.inference.local.MOVE_WEIGHTS`).
 
     Returns the :class:`tumble.inference.Posterior` in the model's parameters; its diagnostics add
     ``polish_gain`` (nats of log-posterior gained by the polish) to the local-mode ones.
@@ -309,7 +311,8 @@ def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int | None =
             notes.append(f"the optimum's polish moved the frequencies by {shift:.2f} cycles per span (another "
                          f"solution) and was not used")
     post = sample_local_mode(likelihood, model.space, x, max_steps=max_steps, n_walkers=n_walkers,
-                             chart=sampling_chart(model, x, marginal_jitter), rng=rng, progress=progress)
+                             chart=sampling_chart(model, x, marginal_jitter), rng=rng, progress=progress,
+                             weights=weights)
     if marginal_jitter:
         s, ll = likelihood.draw_jitter(post.samples, rng)
         samples = post.samples.copy()

@@ -70,6 +70,7 @@ __all__ = [
     "ImplicitChart",
     "ChartChain",
     "haar_log_density",
+    "AttitudeAxisMove",
     "ATTITUDE_NAMES",
     "ChartLikelihood",
     "FixedCoordinateChart",
@@ -109,12 +110,21 @@ PROPOSAL_SCALE = 1.2
 #: the start of every ensemble is drawn wider than the posterior, so that split R-hat can see
 #: ensembles that have not forgotten their start (Gelman et al. 2013, BDA3, section 11.4)
 START_SCALE = 1.5
-#: move mixture (weights by name of :data:`ENSEMBLE_MOVES`, plus "independence"). Measured on a
+#: move mixture (weights by name of :data:`ENSEMBLE_MOVES`, plus "independence" and "attitude_axis"). Measured on a
 #: dense SAM (CAL-dense-npa-076, 600-800 steps): in the model's own parameters stretch alone accepted
 #: 0.23 (tau ~60), differential evolution 0.05, the independence move almost nothing (a curved
 #: ridge); in the model's sampling chart (nearly Gaussian within one Laplace sigma) this mixture
 #: accepted 0.16-0.20 with tau 80-90 steps over 1500 steps (the old sampler: 0.18-0.20, tau ~120)
-MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
+#:
+#: Since 2026-12-05 #4 also the attitude-axis move (:class:`AttitudeAxisMove`; left out, and the
+#: other weights renormalised by emcee, where the space has no attitude coordinates). Measured on
+#: CAL-dense-npa-024 (attitude the slowest coordinate; seed 1): tau 78 -> 41 steps over 1500 steps
+#: and 130 -> 57 over 3000 (13 -> 28 and 18 -> 45 tau); on -119 (the shape slowest) 77 -> 86 and on
+#: -076 79 -> 82, within the seed-to-seed spread (about +-20 %). The merged mixture is kept as
+#: :data:`MERGED_MOVE_WEIGHTS` for the benchmark's side-by-side comparison.
+MOVE_WEIGHTS = {"independence": 0.4, "stretch": 0.3, "de": 0.1, "attitude_axis": 0.2}
+#: the mixture before 2026-12-05 #4
+MERGED_MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
 #: acceptance range of this sampler: an independence proposal that matches the target accepts
 #: nearly everything (a good sign, not a bad one), so the upper end is higher than the ensemble
 #: default; the lower end catches a proposal that misses the target
@@ -460,6 +470,82 @@ class LaplaceIndependenceMove(emcee.moves.MHMove):
     def _propose(self, x0, random):
         new = self.draw(len(x0), random)
         return new, self.log_density(x0) - self.log_density(new)
+
+
+#: the attitude-axis move draws its angle uniformly on the circle with this probability, else from a
+#: normal of the mode's width along the axis (a symmetric mixture: the uniform part crosses the
+#: whole circle, the normal part keeps a useful acceptance inside a peaked mode)
+AXIS_UNIFORM_FRACTION = 0.5
+
+
+class AttitudeAxisMove(emcee.moves.MHMove):
+    """Metropolis-Hastings move that turns the attitude about one fixed axis by a random angle.
+
+    The attitude is the rotation ``M = exp([w]x) M_opt`` of an :class:`AttitudeChart` (coordinates
+    ``idx`` of the sampled vector). The move proposes ``M' = R_axis(delta) M``, i.e.
+    ``w' = log(exp([delta axis]x) exp([w]x))``, with ``delta`` from a symmetric density (uniform on
+    ``(-pi, pi]`` with probability ``uniform_fraction``, else normal with sd ``scale_rad``).
+    Left multiplication by a rotation preserves the Haar measure, so the proposal is symmetric with
+    respect to it, and in exponential coordinates the Hastings factor is the ratio of the Haar
+    densities, ``ln h(w) - ln h(w')`` (:func:`haar_log_density`; e.g. Chirikjian 2012, vol. 2,
+    section 10.2; Tierney 1994, Ann. Statist. 22, 1701, for the Metropolis-Hastings ratio).
+
+    Why: a light curve with nearly fixed Sun and observer directions hardly constrains a rotation of
+    the whole body about their bisector (exactly none at zero phase angle, where the projected,
+    lit shape is invariant under it). Measured on dense tumblers of the calibration library
+    (CAL-dense-npa-119, -076): the attitude's posterior is a long line in ``w`` along the
+    phase-angle bisector (the three ``w`` correlated 0.99-0.999), reaching ``|w| = pi`` where the
+    chart cuts the circle, with the longest autocorrelation times; the ensemble moves must walk the
+    whole line and cannot cross the cut. The axis is the direction of largest variance of the
+    attitude block of the mode's covariance (it agreed with the sampled line and the bisector to
+    within a few degrees on both objects).
+
+    Parameters
+    ----------
+    idx : sequence of 3 int
+        Columns of the rotation vector ``w`` in the sampled vector.
+    axis : array_like, shape (3,)
+        The axis (normalised here).
+    scale_rad : float
+        Sd of the normal part of the angle, rad.
+    uniform_fraction : float
+        Probability of a uniform angle.
+    """
+
+    def __init__(self, idx, axis, scale_rad: float, uniform_fraction: float = AXIS_UNIFORM_FRACTION):
+        self.idx = np.asarray(idx, int)
+        a = np.asarray(axis, float)
+        self.axis = a / np.linalg.norm(a)
+        self.scale_rad = float(scale_rad)
+        self.uniform_fraction = float(uniform_fraction)
+        super().__init__(self._propose)
+
+    @classmethod
+    def from_covariance(cls, space: ParameterSpace, covariance, **kwargs):
+        """The move for the attitude coordinates of ``space`` (``None`` if it has none), axis and scale from ``covariance``."""
+        if not all(n in space.names for n in ATTITUDE_NAMES):
+            return None
+        idx = [space.index(n) for n in ATTITUDE_NAMES]
+        vals, vecs = np.linalg.eigh(np.asarray(covariance, float)[np.ix_(idx, idx)])
+        return cls(idx, vecs[:, -1], math.sqrt(max(float(vals[-1]), 0.0)), **kwargs)
+
+    def angles(self, n: int, random) -> np.ndarray:
+        """``n`` draws of the turning angle (rad)."""
+        uniform = random.uniform(-math.pi, math.pi, n)
+        normal = random.normal(0.0, self.scale_rad, n)
+        return np.where(random.uniform(size=n) < self.uniform_fraction, uniform, normal)
+
+    def turn(self, w, delta) -> np.ndarray:
+        """Rotation vectors of ``R_axis(delta) exp([w]x)``, shape ``(K, 3)``."""
+        return rotation_log(rotation_exp(np.asarray(delta, float)[:, None] * self.axis) @ rotation_exp(w))
+
+    def _propose(self, x0, random):
+        x0 = np.atleast_2d(x0)
+        w = x0[:, self.idx]
+        w_new = self.turn(w, self.angles(len(x0), random))
+        new = x0.copy()
+        new[:, self.idx] = w_new
+        return new, haar_log_density(w) - haar_log_density(w_new)
 
 
 # ---------------------------------------------------------------------------
@@ -958,11 +1044,21 @@ def steps_for_budget(max_evaluations: int, n_walkers: int, n_ensembles: int) -> 
     return max(1, int(max_evaluations) // (int(n_walkers) * int(n_ensembles)))
 
 
-def _moves(independence: LaplaceIndependenceMove, weights):
+def _moves(independence: LaplaceIndependenceMove, weights, space: ParameterSpace, cov):
+    """``(move, weight)`` pairs of the mixture ``weights``: "independence", "attitude_axis" (left out
+    when ``space`` has no attitude coordinates) or a name of :data:`ENSEMBLE_MOVES`."""
     out = []
     for name, w in weights.items():
-        if w > 0:
-            out.append((independence if name == "independence" else ENSEMBLE_MOVES[name](), float(w)))
+        if w <= 0:
+            continue
+        if name == "independence":
+            move = independence
+        elif name == "attitude_axis":
+            move = AttitudeAxisMove.from_covariance(space, cov)
+        else:
+            move = ENSEMBLE_MOVES[name]()
+        if move is not None:
+            out.append((move, float(w)))
     return out
 
 
@@ -1030,7 +1126,7 @@ def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles,
                             cov if region_cov is None else region_cov, radius2, space.periods)
         lp = LogPosterior(region, space, 1.0, centre)
         independence = LaplaceIndependenceMove(centre, cov)
-        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS),
+        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS, space, cov),
                                         vectorize=True)
         random = np.random.RandomState(int(seeds[e]))
         if states is None:
