@@ -130,11 +130,10 @@ MERGED_MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
 #: default; the lower end catches a proposal that misses the target
 LOCAL_ACCEPTANCE_RANGE = (0.15, 0.95)
 #: default budget: the cap of the adaptive run, steps per ensemble (burn-in and pilots included); the
-#: run stops as soon as every criterion holds. 3000 = two pilots of 100 plus 55 tau (50 tau after a
-#: burn-in of 5 tau) for tau up to ~50 steps, the slowest held-out dense tumblers whose modes mix
-#: (measured: CAL-dense-npa-101 tau 25-36 steps needs 1600-2200 steps); modes with slower directions
-#: (tau 60-170 steps and growing with the run) are reported unconverged at the cap
-DEFAULT_MAX_STEPS = 3000
+#: run stops as soon as every criterion holds. Kept at 1500: a cap of 3000 was measured on six
+#: held-out dense tumblers (2026-12-05 #4) and converted none (the modes that mix converge within
+#: 1500; on the others tau grew with the run, to 130-200 steps) while doubling their sampling time
+DEFAULT_MAX_STEPS = 1500
 DEFAULT_PILOT_STEPS = 100
 #: pilot rounds (each re-fits the proposal to the previous one's samples, so that the proposal of the
 #: main run comes from walkers that already mixed under a fitted proposal)
