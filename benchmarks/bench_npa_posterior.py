@@ -34,7 +34,9 @@ Run (with ``nice`` on a shared machine)::
     OPENBLAS_NUM_THREADS=1 nice .venv/bin/python benchmarks/bench_npa_posterior.py --limit 10 --no-memory
     OPENBLAS_NUM_THREADS=1 nice .venv/bin/python benchmarks/bench_npa_posterior.py --objects CAL-dense-npa-024 --seeds 1 2
 
-``--quick``: the first 3 detected held-out objects, budgets 600 / 1200 steps.
+``--quick``: the first 3 detected held-out objects, 600 steps for both tails. ``--after-steps 3000``
+measures a larger cap (2026-12-05 #4: it converted none of six held-out tumblers, see
+``docs/methods-classify.md`` section 5c).
 """
 
 from __future__ import annotations
@@ -62,7 +64,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 #: the budget of the tail merged before 2026-12-05 #4 (steps per ensemble)
 BEFORE_STEPS = 1500
 #: --quick: budgets of the two tails and objects
-QUICK_STEPS = (600, 1200)
+QUICK_STEPS = (600, 600)
 QUICK_OBJECTS = 3
 #: the library's rendered objects (read only), as bench_classify.library_dir names them
 DEFAULT_CACHE = Path(__file__).resolve().parent / ".cache" / "library-cal-2-20261204"
