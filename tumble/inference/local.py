@@ -23,7 +23,9 @@ rather than the whole, multimodal posterior:
    differential evolution (ter Braak 2006, Stat. Comput. 16, 239), which follow the correlations and
    curvature the Gaussian misses. An optional chart (:class:`AttitudeChart`) samples a direction and
    the phase about it as a rotation vector about the optimum, which straightens the attitude's
-   curved ridge.
+   curved ridge; in such a space the mixture also turns the whole attitude about the axis the mode
+   constrains least (:class:`AttitudeAxisMove`: with nearly fixed Sun and observer directions, their
+   bisector), across the chart's cut at ``|w| = pi``.
    Periodic coordinates are sampled in a one-period window centred on the optimum
    (:class:`~tumble.inference.logpost.LogPosterior`), so angles are never cut near the mode.
 4. **Pilot and main run**: each of ``n_ensembles`` ensembles starts from independent draws of the
