@@ -121,8 +121,9 @@ START_SCALE = 1.5
 #: Since 2026-12-05 #4 also the attitude-axis move (:class:`AttitudeAxisMove`; left out, and the
 #: other weights renormalised by emcee, where the space has no attitude coordinates). Measured on
 #: CAL-dense-npa-024 (attitude the slowest coordinate; seed 1): tau 78 -> 41 steps over 1500 steps
-#: and 130 -> 57 over 3000 (13 -> 28 and 18 -> 45 tau); on -119 (the shape slowest) 77 -> 86 and on
-#: -076 79 -> 82, within the seed-to-seed spread (about +-20 %). The merged mixture is kept as
+#: and 130 -> 57 over 3000 (13 -> 28 and 18 -> 45 tau; 18 -> 32 tau in the benchmark's run, another
+#: random stream); on -119 (the shape slowest) 77 -> 86 and on -076 79 -> 82, within the
+#: seed-to-seed spread (about +-20 %); on modes that mix tau 5 -> 7-8 steps. The merged mixture is kept as
 #: :data:`MERGED_MOVE_WEIGHTS` for the benchmark's side-by-side comparison.
 MOVE_WEIGHTS = {"independence": 0.4, "stretch": 0.3, "de": 0.1, "attitude_axis": 0.2}
 #: the mixture before 2026-12-05 #4
