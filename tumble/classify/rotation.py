@@ -265,8 +265,9 @@ def sampling_chart(model, x_opt, marginal_jitter: bool):
     return ChartChain(charts)
 
 
-def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int = 1500, n_walkers: int | None = None,
-                         rng=None, progress: bool = False, marginal_jitter: bool = True, polish: bool = True):
+def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int | None = None, n_walkers: int | None = None,
+                         rng=None, progress: bool = False, marginal_jitter: bool = True, polish: bool = True,
+                         weights: dict | None = None):
     """Posterior of one solution's mode of the physical model (the sampling tail of :func:`fit_rotation_state`).
 
     1. The jitter is integrated out of the likelihood (Gaussian likelihood only;
@@ -279,17 +280,22 @@ def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int = 1500, 
        period ratio in place of the excitation; :func:`tumble.inference.local.sample_local_mode`).
     4. The jitter of every sample is drawn from its conditional posterior.
 
+    ``max_steps`` is the cap of the adaptive run (steps per ensemble; default
+    :data:`tumble.inference.local.DEFAULT_MAX_STEPS`): the run stops as soon as it has converged.
+    ``weights``: the move mixture (default :data:`tumble.inference.local.MOVE_WEIGHTS`).
+
     Returns the :class:`tumble.inference.Posterior` in the model's parameters; its diagnostics add
     ``polish_gain`` (nats of log-posterior gained by the polish) to the local-mode ones.
     """
     from dataclasses import replace
 
     from tumble.classify.solutions import SAME_SOLUTION_CYCLES
-    from tumble.inference.local import polish_mode, sample_local_mode
+    from tumble.inference.local import DEFAULT_MAX_STEPS, polish_mode, sample_local_mode
     from tumble.inference.marginal import JITTER_PARAMETER, JitterMarginalLikelihood
     from tumble.inference.space import as_generator
 
     rng = as_generator(rng)
+    max_steps = DEFAULT_MAX_STEPS if max_steps is None else int(max_steps)
     marginal_jitter = bool(marginal_jitter) and not model.student_t
     likelihood = JitterMarginalLikelihood(model) if marginal_jitter else model
     x = model.space.wrap(np.asarray(x_opt, float))
@@ -305,7 +311,8 @@ def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int = 1500, 
             notes.append(f"the optimum's polish moved the frequencies by {shift:.2f} cycles per span (another "
                          f"solution) and was not used")
     post = sample_local_mode(likelihood, model.space, x, max_steps=max_steps, n_walkers=n_walkers,
-                             chart=sampling_chart(model, x, marginal_jitter), rng=rng, progress=progress)
+                             chart=sampling_chart(model, x, marginal_jitter), rng=rng, progress=progress,
+                             weights=weights)
     if marginal_jitter:
         s, ll = likelihood.draw_jitter(post.samples, rng)
         samples = post.samples.copy()
@@ -316,7 +323,7 @@ def sample_solution_mode(model, x_opt, *, span_d: float, max_steps: int = 1500, 
 
 
 def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=None, n_walkers: int | None = None,
-                       max_steps: int = 1500, max_points: int = 300, n_orientations: int = 48,
+                       max_steps: int | None = None, max_points: int = 300, n_orientations: int = 48,
                        progress: bool = False, student_t: bool = False) -> RotationFit:
     """Fit the physical ellipsoid model to obtain the rotation state (see the module notes).
 
@@ -329,7 +336,8 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
         Which physical family to fit.
     rng : numpy.random.Generator, int or None
     n_walkers, max_steps : int
-        emcee ensemble size (default from the dimension) and step budget per ensemble;
+        emcee ensemble size (default from the dimension) and the cap of the adaptive sampling run,
+        steps per ensemble (default :data:`tumble.inference.local.DEFAULT_MAX_STEPS`);
         ``max_steps = 0`` skips sampling (optimisation only).
     max_points : int
         The light curve is thinned evenly to at most this many points for the physical fit.
@@ -389,7 +397,7 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
     posterior = None
     reasons = []
     converged = False
-    if max_steps > 0:
+    if max_steps is None or max_steps > 0:
         # the chosen solution's own mode, started from its optimum (tumble.inference.local): the
         # interval is never a mixture of separated modes, and leaving the mode is a diagnostic
         posterior = sample_solution_mode(model, best_x, span_d=lc.span_d, max_steps=max_steps, n_walkers=n_walkers,

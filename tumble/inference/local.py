@@ -23,7 +23,9 @@ rather than the whole, multimodal posterior:
    differential evolution (ter Braak 2006, Stat. Comput. 16, 239), which follow the correlations and
    curvature the Gaussian misses. An optional chart (:class:`AttitudeChart`) samples a direction and
    the phase about it as a rotation vector about the optimum, which straightens the attitude's
-   curved ridge.
+   curved ridge; in such a space the mixture also turns the whole attitude about the axis the mode
+   constrains least (:class:`AttitudeAxisMove`: with nearly fixed Sun and observer directions, their
+   bisector), across the chart's cut at ``|w| = pi``.
    Periodic coordinates are sampled in a one-period window centred on the optimum
    (:class:`~tumble.inference.logpost.LogPosterior`), so angles are never cut near the mode.
 4. **Pilot and main run**: each of ``n_ensembles`` ensembles starts from independent draws of the
@@ -69,6 +71,9 @@ __all__ = [
     "AttitudeChart",
     "ImplicitChart",
     "ChartChain",
+    "haar_log_density",
+    "AttitudeAxisMove",
+    "ATTITUDE_NAMES",
     "ChartLikelihood",
     "FixedCoordinateChart",
     "PolishedMode",
@@ -107,17 +112,30 @@ PROPOSAL_SCALE = 1.2
 #: the start of every ensemble is drawn wider than the posterior, so that split R-hat can see
 #: ensembles that have not forgotten their start (Gelman et al. 2013, BDA3, section 11.4)
 START_SCALE = 1.5
-#: move mixture (weights by name of :data:`ENSEMBLE_MOVES`, plus "independence"). Measured on a
+#: move mixture (weights by name of :data:`ENSEMBLE_MOVES`, plus "independence" and "attitude_axis"). Measured on a
 #: dense SAM (CAL-dense-npa-076, 600-800 steps): in the model's own parameters stretch alone accepted
 #: 0.23 (tau ~60), differential evolution 0.05, the independence move almost nothing (a curved
 #: ridge); in the model's sampling chart (nearly Gaussian within one Laplace sigma) this mixture
 #: accepted 0.16-0.20 with tau 80-90 steps over 1500 steps (the old sampler: 0.18-0.20, tau ~120)
-MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
+#:
+#: Since 2026-12-05 #4 also the attitude-axis move (:class:`AttitudeAxisMove`; left out, and the
+#: other weights renormalised by emcee, where the space has no attitude coordinates). Measured on
+#: CAL-dense-npa-024 (attitude the slowest coordinate; seed 1): tau 78 -> 41 steps over 1500 steps
+#: and 130 -> 57 over 3000 (13 -> 28 and 18 -> 45 tau; 18 -> 32 tau in the benchmark's run, another
+#: random stream); on -119 (the shape slowest) 77 -> 86 and on -076 79 -> 82, within the
+#: seed-to-seed spread (about +-20 %); on modes that mix tau 5 -> 7-8 steps. The merged mixture is kept as
+#: :data:`MERGED_MOVE_WEIGHTS` for the benchmark's side-by-side comparison.
+MOVE_WEIGHTS = {"independence": 0.4, "stretch": 0.3, "de": 0.1, "attitude_axis": 0.2}
+#: the mixture before 2026-12-05 #4
+MERGED_MOVE_WEIGHTS = {"independence": 0.5, "stretch": 0.4, "de": 0.1}
 #: acceptance range of this sampler: an independence proposal that matches the target accepts
 #: nearly everything (a good sign, not a bad one), so the upper end is higher than the ensemble
 #: default; the lower end catches a proposal that misses the target
 LOCAL_ACCEPTANCE_RANGE = (0.15, 0.95)
-#: default budget: steps per ensemble (burn-in and pilot included)
+#: default budget: the cap of the adaptive run, steps per ensemble (burn-in and pilots included); the
+#: run stops as soon as every criterion holds. Kept at 1500: a cap of 3000 was measured on six
+#: held-out dense tumblers (2026-12-05 #4) and converted none (the modes that mix converge within
+#: 1500; on the others tau grew with the run, to 130-200 steps) while doubling their sampling time
 DEFAULT_MAX_STEPS = 1500
 DEFAULT_PILOT_STEPS = 100
 #: pilot rounds (each re-fits the proposal to the previous one's samples, so that the proposal of the
@@ -461,6 +479,82 @@ class LaplaceIndependenceMove(emcee.moves.MHMove):
         return new, self.log_density(x0) - self.log_density(new)
 
 
+#: the attitude-axis move draws its angle uniformly on the circle with this probability, else from a
+#: normal of the mode's width along the axis (a symmetric mixture: the uniform part crosses the
+#: whole circle, the normal part keeps a useful acceptance inside a peaked mode)
+AXIS_UNIFORM_FRACTION = 0.5
+
+
+class AttitudeAxisMove(emcee.moves.MHMove):
+    """Metropolis-Hastings move that turns the attitude about one fixed axis by a random angle.
+
+    The attitude is the rotation ``M = exp([w]x) M_opt`` of an :class:`AttitudeChart` (coordinates
+    ``idx`` of the sampled vector). The move proposes ``M' = R_axis(delta) M``, i.e.
+    ``w' = log(exp([delta axis]x) exp([w]x))``, with ``delta`` from a symmetric density (uniform on
+    ``(-pi, pi]`` with probability ``uniform_fraction``, else normal with sd ``scale_rad``).
+    Left multiplication by a rotation preserves the Haar measure, so the proposal is symmetric with
+    respect to it, and in exponential coordinates the Hastings factor is the ratio of the Haar
+    densities, ``ln h(w) - ln h(w')`` (:func:`haar_log_density`; e.g. Chirikjian 2012, vol. 2,
+    section 10.2; Tierney 1994, Ann. Statist. 22, 1701, for the Metropolis-Hastings ratio).
+
+    Why: a light curve with nearly fixed Sun and observer directions hardly constrains a rotation of
+    the whole body about their bisector (exactly none at zero phase angle, where the projected,
+    lit shape is invariant under it). Measured on dense tumblers of the calibration library
+    (CAL-dense-npa-119, -076): the attitude's posterior is a long line in ``w`` along the
+    phase-angle bisector (the three ``w`` correlated 0.99-0.999), reaching ``|w| = pi`` where the
+    chart cuts the circle, with the longest autocorrelation times; the ensemble moves must walk the
+    whole line and cannot cross the cut. The axis is the direction of largest variance of the
+    attitude block of the mode's covariance (it agreed with the sampled line and the bisector to
+    within a few degrees on both objects).
+
+    Parameters
+    ----------
+    idx : sequence of 3 int
+        Columns of the rotation vector ``w`` in the sampled vector.
+    axis : array_like, shape (3,)
+        The axis (normalised here).
+    scale_rad : float
+        Sd of the normal part of the angle, rad.
+    uniform_fraction : float
+        Probability of a uniform angle.
+    """
+
+    def __init__(self, idx, axis, scale_rad: float, uniform_fraction: float = AXIS_UNIFORM_FRACTION):
+        self.idx = np.asarray(idx, int)
+        a = np.asarray(axis, float)
+        self.axis = a / np.linalg.norm(a)
+        self.scale_rad = float(scale_rad)
+        self.uniform_fraction = float(uniform_fraction)
+        super().__init__(self._propose)
+
+    @classmethod
+    def from_covariance(cls, space: ParameterSpace, covariance, **kwargs):
+        """The move for the attitude coordinates of ``space`` (``None`` if it has none), axis and scale from ``covariance``."""
+        if not all(n in space.names for n in ATTITUDE_NAMES):
+            return None
+        idx = [space.index(n) for n in ATTITUDE_NAMES]
+        vals, vecs = np.linalg.eigh(np.asarray(covariance, float)[np.ix_(idx, idx)])
+        return cls(idx, vecs[:, -1], math.sqrt(max(float(vals[-1]), 0.0)), **kwargs)
+
+    def angles(self, n: int, random) -> np.ndarray:
+        """``n`` draws of the turning angle (rad)."""
+        uniform = random.uniform(-math.pi, math.pi, n)
+        normal = random.normal(0.0, self.scale_rad, n)
+        return np.where(random.uniform(size=n) < self.uniform_fraction, uniform, normal)
+
+    def turn(self, w, delta) -> np.ndarray:
+        """Rotation vectors of ``R_axis(delta) exp([w]x)``, shape ``(K, 3)``."""
+        return rotation_log(rotation_exp(np.asarray(delta, float)[:, None] * self.axis) @ rotation_exp(w))
+
+    def _propose(self, x0, random):
+        x0 = np.atleast_2d(x0)
+        w = x0[:, self.idx]
+        w_new = self.turn(w, self.angles(len(x0), random))
+        new = x0.copy()
+        new[:, self.idx] = w_new
+        return new, haar_log_density(w) - haar_log_density(w_new)
+
+
 # ---------------------------------------------------------------------------
 # the attitude chart: exponential coordinates of a rotation about the optimum
 # ---------------------------------------------------------------------------
@@ -524,6 +618,23 @@ def rotation_log(m):
 
 #: sampled rotation vectors have length below this (the exponential chart is one-to-one there)
 CHART_MAX_ANGLE_RAD = math.pi
+#: names of the attitude's rotation-vector coordinates in an :class:`AttitudeChart`'s space
+ATTITUDE_NAMES = ("attitude_w1", "attitude_w2", "attitude_w3")
+
+
+def haar_log_density(w) -> np.ndarray:
+    """``ln[2 (1 - cos|w|) / |w|^2]``: the Haar density of rotation vectors ``(K, 3)`` relative to ``d^3 w / (8 pi^2)``.
+
+    The density of the rotation group's invariant measure in exponential coordinates (Miles 1965,
+    Biometrika 52, 636; Chirikjian 2012, Stochastic Models, Information Theory, and Lie Groups,
+    vol. 2, section 10.2); one at ``w = 0``, ``-inf`` at ``|w| = 2 pi``. Shape ``(K,)``.
+    """
+    th = np.linalg.norm(np.atleast_2d(np.asarray(w, float)), axis=1)
+    small = th < 1e-6
+    safe = np.where(small, 1.0, th)
+    haar = np.where(small, 1.0 - th**2 / 12.0, 2.0 * (1.0 - np.cos(safe)) / safe**2)
+    with np.errstate(divide="ignore"):
+        return np.log(haar)
 
 
 class AttitudeChart:
@@ -561,7 +672,7 @@ class AttitudeChart:
         self.m0 = direction_phase_matrix(*x0[self.idx])
         params = list(space.parameters)
         for k, i in enumerate(self.idx):
-            params[i] = Parameter(f"attitude_w{k + 1}", Uniform(-math.pi, math.pi), "rad",
+            params[i] = Parameter(ATTITUDE_NAMES[k], Uniform(-math.pi, math.pi), "rad",
                                   "rotation vector of the attitude about the optimum")
         self.space = ParameterSpace(params)
         self._log_const = 3.0 * math.log(2.0 * math.pi) - math.log(8.0 * math.pi**2)
@@ -590,11 +701,7 @@ class AttitudeChart:
         """
         y = np.atleast_2d(np.asarray(y, float))
         th = np.linalg.norm(y[:, self.idx], axis=1)
-        small = th < 1e-6
-        safe = np.where(small, 1.0, th)
-        haar = np.where(small, 1.0 - th**2 / 12.0, 2.0 * (1.0 - np.cos(safe)) / safe**2)
-        with np.errstate(divide="ignore"):
-            out = np.log(haar) + self._log_const
+        out = haar_log_density(y[:, self.idx]) + self._log_const
         return np.where(th < CHART_MAX_ANGLE_RAD, out, -np.inf)
 
 
@@ -944,11 +1051,21 @@ def steps_for_budget(max_evaluations: int, n_walkers: int, n_ensembles: int) -> 
     return max(1, int(max_evaluations) // (int(n_walkers) * int(n_ensembles)))
 
 
-def _moves(independence: LaplaceIndependenceMove, weights):
+def _moves(independence: LaplaceIndependenceMove, weights, space: ParameterSpace, cov):
+    """``(move, weight)`` pairs of the mixture ``weights``: "independence", "attitude_axis" (left out
+    when ``space`` has no attitude coordinates) or a name of :data:`ENSEMBLE_MOVES`."""
     out = []
     for name, w in weights.items():
-        if w > 0:
-            out.append((independence if name == "independence" else ENSEMBLE_MOVES[name](), float(w)))
+        if w <= 0:
+            continue
+        if name == "independence":
+            move = independence
+        elif name == "attitude_axis":
+            move = AttitudeAxisMove.from_covariance(space, cov)
+        else:
+            move = ENSEMBLE_MOVES[name]()
+        if move is not None:
+            out.append((move, float(w)))
     return out
 
 
@@ -1016,7 +1133,7 @@ def _start_ensembles(log_likelihood, space, centre, cov, n_walkers, n_ensembles,
                             cov if region_cov is None else region_cov, radius2, space.periods)
         lp = LogPosterior(region, space, 1.0, centre)
         independence = LaplaceIndependenceMove(centre, cov)
-        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS),
+        sampler = emcee.EnsembleSampler(n_walkers, space.ndim, lp, moves=_moves(independence, weights or MOVE_WEIGHTS, space, cov),
                                         vectorize=True)
         random = np.random.RandomState(int(seeds[e]))
         if states is None:
