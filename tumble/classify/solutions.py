@@ -56,6 +56,7 @@ from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG
 from tumble.classify.rotation import (
     npa_candidates,
     optimise_state,
+    optimise_states,
     thin_lightcurve,
 )
 from tumble.classify.thresholds import MIN_CYCLES
@@ -74,7 +75,7 @@ __all__ = [
     "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
     "frequency_pairs", "screened_pairs", "screen_orders", "ScreenTerms", "leading_term", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
     "shape_solutions", "shape_restarts", "constant_ratio_shapes", "pair_shift",
-    "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
+    "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "fit_pairs", "PairFit", "pair_starts", "refit_jobs", "restart_optima", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
 ]
 
 #: The NPA modes fitted (the physical model's names).
@@ -841,9 +842,92 @@ def npa_models(sub, span_h: float, *, student_t: bool = False) -> dict:
             for mode in NPA_MODES}
 
 
+@dataclass(frozen=True)
+class PairFit:
+    """One physical fit of the search: a frequency pair, its budget tier and its start set.
+
+    Attributes
+    ----------
+    pair : FrequencyPair
+    wide : bool
+        The wider budget of the best screened pairs (:class:`FitBudget`).
+    index : int
+        The fit's place in the search: offsets the shapes' Halton points and shifts the orientation
+        set (:func:`pair_shift`), so near-duplicate pairs and repeated attempts get other starts.
+    """
+
+    pair: FrequencyPair
+    wide: bool = False
+    index: int = 0
+
+
+def pair_starts(model, mode: str, job: PairFit, budget: FitBudget, rng=None) -> list:
+    """The starts of one fit (:func:`fit_pair`): the best orientation of each well-spread shape, best
+    ``n_short`` of them first, as ``(ndim,)`` vectors; empty when the mode cannot give the period ratio."""
+    pair = job.pair
+    n_shapes = budget.n_shapes_wide if job.wide else budget.n_shapes
+    n_short = budget.n_short_wide if job.wide else budget.n_short
+    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, n_pick=n_shapes, start=job.index * n_shapes)
+    starts = []
+    for ab, bc, u in shapes:
+        base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
+                "ln_jitter_mag": math.log(1e-3)}
+        n_att = _attitude_dim(model.space, base)
+        xs = spread_orientations(model.space, base, budget.n_orientations,
+                                 shift=np.mod(pair_shift(job.index, n_att) + orientation_shift(rng, n_att), 1.0))
+        ll = model(xs)
+        j = int(np.argmax(ll))
+        starts.append((float(ll[j]), xs[j]))
+    starts.sort(key=lambda e: -e[0])
+    return [x0 for _, x0 in starts[:n_short]]
+
+
+def fit_pairs(model, mode: str, jobs, budget: FitBudget, rng=None) -> list:
+    """The physical fits of many frequency pairs in one mode, batched: one :class:`Optimum` (or None) per job.
+
+    Each job is :func:`fit_pair`'s procedure: ``n_shapes`` well-spread ellipsoids with the pair's
+    period ratio (:func:`shape_solutions`) x ``n_orientations`` quasi-uniform orientations
+    (:func:`spread_orientations`); the best start of each of the ``n_short`` best shapes gets a
+    short Levenberg-Marquardt run, the best ``n_full`` of those a full one, and the best result is
+    returned (None when the mode cannot give the period ratio; ``job.wide``: the wider budget).
+    The short runs of all jobs are one batched optimisation
+    (:func:`tumble.classify.rotation.optimise_states`, every start advanced with its own damping),
+    and the full runs another, so the model's fixed cost per call is shared; each start takes the
+    same steps as it would alone (:func:`tumble.classify.rotation.optimise_state`, the reference).
+    """
+    jobs = list(jobs)
+    starts = [pair_starts(model, mode, job, budget, rng) for job in jobs]
+    owner = np.concatenate([np.full(len(st), j, int) for j, st in enumerate(starts)] + [np.empty(0, int)])
+    if owner.size == 0:
+        return [None] * len(jobs)
+    xs, lls = optimise_states(model, np.concatenate([np.asarray(st, float).reshape(-1, model.space.ndim)
+                                                    for st in starts if st]), n_iter=SHORT_LM_ITERATIONS)
+    # per job: its short runs, best first (stable, as a sort of the reference's list), the best n_full go on
+    chosen = []
+    for j, job in enumerate(jobs):
+        rows = np.flatnonzero(owner == j)
+        rows = rows[np.argsort(-lls[rows], kind="stable")]
+        n_full = budget.n_full_wide if job.wide else budget.n_full
+        chosen.append((rows[:max(n_full, 1)], n_full > 0))
+    full_rows = np.concatenate([r for r, full in chosen if full] + [np.empty(0, int)])
+    fx, fl = optimise_states(model, xs[full_rows]) if full_rows.size else (np.empty((0, model.space.ndim)), np.empty(0))
+    refined = {int(r): (fx[i], float(fl[i])) for i, r in enumerate(full_rows)}
+    out = []
+    for job, (rows, full) in zip(jobs, chosen):
+        best = None
+        for r in rows:
+            opt = Optimum(mode, xs[r], float(lls[r]), job.pair)
+            if full and refined[int(r)][1] > opt.log_likelihood:
+                opt = Optimum(mode, refined[int(r)][0], refined[int(r)][1], job.pair)
+            if best is None or opt.log_likelihood > best.log_likelihood:
+                best = opt
+        out.append(best)
+    return out
+
+
 def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng=None, *, wide: bool = False,
              index: int = 0) -> Optimum | None:
-    """The physical fit of one frequency pair in one mode under a fixed budget.
+    """The physical fit of one frequency pair in one mode under a fixed budget (:func:`fit_pairs` of one job).
 
     ``budget.n_shapes`` well-spread ellipsoids with the pair's period ratio (:func:`shape_solutions`)
     x ``budget.n_orientations`` quasi-uniform orientations (:func:`spread_orientations`); the best
@@ -855,35 +939,11 @@ def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng=None,
     (:func:`pair_shift`), so near-duplicate pairs do not all get the same starts. ``rng`` (optional)
     only adds a random shift (:func:`orientation_shift`); without it the fit is deterministic.
     """
-    n_shapes = budget.n_shapes_wide if wide else budget.n_shapes
-    n_short = budget.n_short_wide if wide else budget.n_short
-    n_full = budget.n_full_wide if wide else budget.n_full
-    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, n_pick=n_shapes, start=index * n_shapes)
-    if not shapes:
-        return None
-    starts = []
-    for ab, bc, u in shapes:
-        base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
-                "ln_jitter_mag": math.log(1e-3)}
-        n_att = _attitude_dim(model.space, base)
-        xs = spread_orientations(model.space, base, budget.n_orientations,
-                                 shift=np.mod(pair_shift(index, n_att) + orientation_shift(rng, n_att), 1.0))
-        ll = model(xs)
-        j = int(np.argmax(ll))
-        starts.append((float(ll[j]), xs[j]))
-    starts.sort(key=lambda e: -e[0])
-    short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:n_short]]
-    short.sort(key=lambda e: -e[1])
-    best = None
-    for x0, v0 in short[:max(n_full, 1)]:
-        opt = refine_fully(model, Optimum(mode, x0, float(v0), pair)) if n_full > 0 else Optimum(mode, x0, float(v0), pair)
-        if best is None or opt.log_likelihood > best.log_likelihood:
-            best = opt
-    return best
+    return fit_pairs(model, mode, [PairFit(pair, wide, index)], budget, rng)[0]
 
 
-def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_index: int = 0) -> list:
-    """Fresh fits of the frequency pairs that led to the best distinct solutions of a mode.
+def refit_jobs(tops, *, first_index: int = 0) -> list:
+    """The fresh wide fits (:class:`PairFit`) of the pairs behind the best distinct solutions of a mode.
 
     A solution near the top of its mode may sit in a poor optimum of the right pair (its fit drifted
     in shape or attitude; measured on the demo's KRN-007: the true pair's single fit reached ln L 754
@@ -891,13 +951,14 @@ def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_in
     pair gets :data:`N_REFIT_ATTEMPTS` more fits with the wide budget from start sets not used
     before (indices from ``first_index`` on).
     """
-    out = []
-    for j, opt in enumerate(tops):
-        for k in range(N_REFIT_ATTEMPTS):
-            o = fit_pair(model, mode, opt.pair, budget, rng, wide=True, index=first_index + j * N_REFIT_ATTEMPTS + k)
-            if o is not None:
-                out.append(o)
-    return out
+    return [PairFit(opt.pair, True, first_index + j * N_REFIT_ATTEMPTS + k)
+            for j, opt in enumerate(tops) for k in range(N_REFIT_ATTEMPTS)]
+
+
+def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_index: int = 0) -> list:
+    """Fresh wide fits of the frequency pairs that led to the best distinct solutions of a mode
+    (:func:`refit_jobs`, fitted together by :func:`fit_pairs`); the fits that exist."""
+    return [o for o in fit_pairs(model, mode, refit_jobs(tops, first_index=first_index), budget, rng) if o is not None]
 
 
 def refine_fully(model, opt: Optimum) -> Optimum:
@@ -906,17 +967,45 @@ def refine_fully(model, opt: Optimum) -> Optimum:
     return Optimum(opt.mode, x, float(v), opt.pair) if v > opt.log_likelihood else opt
 
 
+def restart_optima(model, opts, rng=None, round_index: int = 0, indices=None) -> list:
+    """:func:`restart_optimum` of several fitted states of one model, their restarts optimised together.
+
+    ``indices``: each state's start-set index (default ``0, 1, ...``). The short runs of all restarts
+    are one batched optimisation (:func:`tumble.classify.rotation.optimise_states`), the full runs of
+    the best :data:`N_RESTART_LM` of each state another. Returns one optimum per state (the state
+    itself when no restart beats it).
+    """
+    opts = list(opts)
+    if not opts:
+        return []
+    indices = list(range(len(opts))) if indices is None else list(indices)
+    starts = [shape_restarts(model, o.mode, o.x, rng, round_index, i) for o, i in zip(opts, indices)]
+    owner = np.concatenate([np.full(len(st), j, int) for j, st in enumerate(starts)])
+    xs, lls = optimise_states(model, np.concatenate([np.asarray(st, float) for st in starts]),
+                              n_iter=SHORT_LM_ITERATIONS)
+    best_rows = []
+    for j in range(len(opts)):
+        rows = np.flatnonzero(owner == j)
+        best_rows.append(rows[np.argsort(-lls[rows], kind="stable")][:N_RESTART_LM])
+    fx, fl = optimise_states(model, xs[np.concatenate(best_rows)])
+    out, at = [], 0
+    for opt, rows in zip(opts, best_rows):
+        best = opt
+        for i in range(at, at + len(rows)):
+            if fl[i] > best.log_likelihood:
+                best = Optimum(opt.mode, fx[i], float(fl[i]), opt.pair)
+        at += len(rows)
+        out.append(best)
+    return out
+
+
 def restart_optimum(model, opt: Optimum, rng=None, round_index: int = 0, index: int = 0) -> Optimum:
-    """The best of the shape restarts (:func:`shape_restarts`, round ``round_index``) of a fitted state, or the state."""
-    starts = shape_restarts(model, opt.mode, opt.x, rng, round_index, index)
-    short = [optimise_state(model, x1, n_iter=SHORT_LM_ITERATIONS) for x1 in starts]
-    short.sort(key=lambda e: -e[1])
-    best = opt
-    for x1, _ in short[:N_RESTART_LM]:
-        x, v = optimise_state(model, x1)
-        if v > best.log_likelihood:
-            best = Optimum(opt.mode, x, float(v), opt.pair)
-    return best
+    """The best of the shape restarts (:func:`shape_restarts`, round ``round_index``) of a fitted state, or the state.
+
+    The restarts get a short Levenberg-Marquardt run each, the best :data:`N_RESTART_LM` a full one
+    (:func:`restart_optima` of one state).
+    """
+    return restart_optima(model, [opt], rng, round_index, [index])[0]
 
 
 # -- 6: solutions ---------------------------------------------------------------------------------
@@ -1240,12 +1329,13 @@ def polish_solutions(optima, models, span_d: float, rng=None) -> list:
         return []
     best_ll = distinct[0].log_likelihood
     near = [o for o in distinct if 2.0 * (best_ll - o.log_likelihood) <= POLISH_DELTA_BIC][:N_POLISHED]
-    out = []
-    for i, opt in enumerate(near):
-        for r in range(POLISH_ROUNDS):
-            opt = restart_optimum(models[opt.mode], opt, rng, round_index=1 + r, index=i)
-        out.append(opt)
-    return out
+    for r in range(POLISH_ROUNDS):
+        # the solutions of one mode restart together (:func:`restart_optima`); solution i keeps its index
+        for mode in dict.fromkeys(o.mode for o in near):
+            idx = [i for i, o in enumerate(near) if o.mode == mode]
+            for i, o in zip(idx, restart_optima(models[mode], [near[i] for i in idx], rng, 1 + r, idx)):
+                near[i] = o
+    return near
 
 
 def screen_orders(lc, pairs, n_per_screen: int, f_lead_per_d: float = math.nan) -> list:
@@ -1307,20 +1397,21 @@ def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget 
     kept = [pairs[i] for i in union_by_rank(orders, budget.n_screened)]
     # the best budget.n_wide of each screen (a prefix of kept) get the wider fit
     n_wide = len(union_by_rank(orders, min(budget.n_wide, budget.n_screened)))
+    # every fit of one mode in one batch (fit_pairs); attempt k of pair i starts from other points:
+    # index i + k len(kept) is no other pair's
+    jobs = [PairFit(pair, i < n_wide, i + k * len(kept))
+            for i, pair in enumerate(kept) for k in range(budget.n_attempts_wide if i < n_wide else 1)]
+    fitted = {mode: fit_pairs(model, mode, jobs, budget, rng) for mode, model in models.items()}
     optima = []
-    for i, pair in enumerate(kept):
-        wide = i < n_wide
-        for mode, model in models.items():
-            # attempt k of pair i starts from other points: index i + k len(kept) is no other pair's
-            tries = [fit_pair(model, mode, pair, budget, rng, wide=wide, index=i + k * len(kept))
-                     for k in range(budget.n_attempts_wide if wide else 1)]
-            tries = [o for o in tries if o is not None]
+    for i in range(len(kept)):
+        for mode in models:
+            tries = [o for job, o in zip(jobs, fitted[mode]) if job.pair is kept[i] and o is not None]
             if tries:
                 optima.append(max(tries, key=lambda o: o.log_likelihood))
     n_fits = len(optima)
     for mode, model in models.items():
         tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
-        optima += [restart_optimum(model, o, rng, index=i) for i, o in enumerate(tops)]
+        optima += restart_optima(model, tops, rng)
         optima += refit_pairs(model, mode, tops, budget, rng, first_index=budget.n_attempts_wide * len(kept))
     optima += polish_solutions(optima, models, lc.span_d, rng)
     listed, best_by_mode, distinct = rank_solutions(optima, models, lc, ranking_rule(ranking))
