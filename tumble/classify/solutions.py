@@ -147,6 +147,11 @@ SCREEN_TERM_SETS = (
 N_SCREENED = 12
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
 SCREEN_MAX_POINTS = 800
+#: Pairs whose screen designs are built and solved together (800 points x 24 columns x 64 pairs: 10 MB).
+SCREEN_BLOCK_PAIRS = 64
+#: A pair whose screen normal matrix has its smallest eigenvalue below this fraction of the largest
+#: (singular values 1e-4 apart: the normal equations keep ~8 digits) is solved by plain least squares.
+SCREEN_EIGEN_RCOND = 1e-8
 #: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
 #: P_psi ~ 99 s (Scheirich et al. 2010, MAPS 45, 1804); the lattices themselves bound it in practice.
 MIN_P_PSI_H = 0.005
@@ -614,6 +619,24 @@ def _screen_design(t, tau, pair, screen: ScreenTerms, f_lead_per_d: float) -> np
     return np.hstack([cols] + [lead * p[:, None] for p in legendre_drift(tau, screen.drift_degree)])
 
 
+def _screen_design_batch(t, tau, f_psi, f_phi, screen: ScreenTerms, f_lead_per_d: float) -> np.ndarray:
+    """:func:`_screen_design` of many pairs at once (frequencies ``(P,)`` c/d), shape ``(P, n, columns)``."""
+    n_phi = np.array([a for a, _ in screen.terms], float)
+    n_psi = np.array([b for _, b in screen.terms], float)
+    freq = n_phi[None, :] * f_phi[:, None] + n_psi[None, :] * f_psi[:, None]  # (P, T)
+    blocks = []
+    arg = (2.0 * np.pi) * freq[:, None, :] * t[None, :, None]  # (P, n, T)
+    blocks += [np.cos(arg), np.sin(arg)]
+    if screen.drift_degree > 0 and np.isfinite(f_lead_per_d):
+        # the leading term of each pair (leading_term: the first on ties, as argmin)
+        lead = freq[np.arange(len(freq)), np.argmin(np.abs(np.abs(freq) - f_lead_per_d), axis=1)]
+        arg1 = (2.0 * np.pi) * lead[:, None] * t[None, :]
+        c1, s1 = np.cos(arg1), np.sin(arg1)
+        for p in legendre_drift(tau, screen.drift_degree):
+            blocks += [(c1 * p[None, :])[..., None], (s1 * p[None, :])[..., None]]
+    return np.concatenate(blocks, axis=2)
+
+
 def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_d: float = math.nan) -> np.ndarray:
     """Chi-square of a screen's series at each pair (zero-points free), shape (len(pairs),).
 
@@ -627,8 +650,12 @@ def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_
         The light curve's strongest frequency, c/d (the evidence's ``f1``): the screen term nearest it
         gets the drift columns (:attr:`ScreenTerms.drift_degree`); NaN: no drift.
 
-    Fast route: the whitened nuisance columns are projected out once (QR), then each pair solves
-    only its own normal equations. :func:`screen_chi2_reference` is the plain least squares.
+    Fast route: the whitened nuisance columns are projected out once (QR); then, for blocks of
+    :data:`SCREEN_BLOCK_PAIRS` pairs at once, the normal equations of the projected series are
+    solved through their eigen-decomposition and the chi-square is
+    that of the residual itself; a pair whose normal matrix is ill-conditioned (below
+    :data:`SCREEN_EIGEN_RCOND`) gets the plain least squares. :func:`screen_chi2_reference` is the
+    plain least squares per pair with the nuisance columns in the design.
     """
     t, tau = _screen_time(lc)
     w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
@@ -638,13 +665,28 @@ def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_
     y = np.asarray(lc.reduced_mag, float) * w
     yp = y - q @ (q.T @ y)
     base = float(yp @ yp)
+    f_psi = np.array([p.f_psi_per_d for p in pairs], float)
+    f_phi = np.array([p.f_phi_per_d for p in pairs], float)
     out = np.empty(len(pairs))
-    for i, p in enumerate(pairs):
-        f = _screen_design(t, tau, p, terms, f_lead_per_d) * w[:, None]
-        fp = f - q @ (q.T @ f)
-        coef, *_ = np.linalg.lstsq(fp, yp, rcond=None)
-        r = yp - fp @ coef
-        out[i] = float(r @ r) if np.isfinite(base) else math.nan
+    for i0 in range(0, len(pairs), SCREEN_BLOCK_PAIRS):
+        sl = slice(i0, i0 + SCREEN_BLOCK_PAIRS)
+        f = _screen_design_batch(t, tau, f_psi[sl], f_phi[sl], terms, f_lead_per_d) * w[None, :, None]
+        fp = f - q[None] @ (q.T[None] @ f)  # (B, n, c)
+        fpt = np.swapaxes(fp, 1, 2)
+        g = fpt @ fp
+        b = (fpt @ yp[None, :, None])[..., 0]
+        lam, vec = np.linalg.eigh(g)
+        inv = 1.0 / np.where(lam > 0, lam, 1.0)
+        coef = (vec @ (inv[..., None] * (np.swapaxes(vec, 1, 2) @ b[..., None])))[..., 0]
+        r = yp[None, :] - (fp @ coef[..., None])[..., 0]
+        chi2 = np.sum(r * r, axis=1)
+        # the normal equations square the condition number: ill-conditioned pairs (terms that nearly
+        # coincide, or slow terms the nightly zero-points absorb) get the plain least squares
+        for j in np.flatnonzero(~(lam[:, 0] > SCREEN_EIGEN_RCOND * lam[:, -1])):
+            coef_j, *_ = np.linalg.lstsq(fp[j], yp, rcond=None)
+            rj = yp - fp[j] @ coef_j
+            chi2[j] = float(rj @ rj)
+        out[sl] = chi2 if np.isfinite(base) else math.nan
     return out
 
 
