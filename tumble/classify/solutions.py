@@ -46,6 +46,7 @@ ellipsoid with homogeneous inertia, so a real body can prefer a wrong lattice.
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 from dataclasses import dataclass
@@ -174,6 +175,8 @@ POLISH_DELTA_BIC = 2.0 * SOLUTION_DELTA_BIC
 #: Rounds of shape restarts of each polished solution, and at most this many solutions polished.
 POLISH_ROUNDS = 2
 N_POLISHED = 6
+#: ln of the jitter (mag) of every start: 1 mmag, below any survey's errors (the optimiser sets it at the end).
+START_LN_JITTER = math.log(1e-3)
 #: Levenberg-Marquardt iterations of a short refinement.
 SHORT_LM_ITERATIONS = 12
 #: The evidence's pair re-located on a local grid without drift: half-width and step (cycles per span).
@@ -722,12 +725,11 @@ def screen_chi2_reference(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0],
 # -- 5: the physical fit --------------------------------------------------------------------------------
 
 
-def constant_ratio_shapes(mode, ratio) -> list:
-    """Every ellipsoid of a grid of axis ratios with its excitation ``u`` giving ``P_phi/P_psi = ratio`` in ``mode``.
-
-    Returns ``[(a_over_b, b_over_c, u), ...]`` (one root in ``u`` per shape of a 14 x 10 grid; closed-form
-    periods of :func:`tumble.dynamics.periods_unit_momentum`); empty when the mode cannot give the ratio.
-    """
+@functools.lru_cache(maxsize=4)
+def _ratio_table(mode: str) -> tuple:
+    """``(a_over_b (S,), b_over_c (S,), u (U,), ratio (S, U))``: ``P_phi/P_psi`` over the grid of
+    :func:`constant_ratio_shapes` (NaN where the state is not of ``mode``); it does not depend on the
+    ratio sought, so it is computed once per mode (read only)."""
     from tumble.dynamics import periods_unit_momentum
     from tumble.model import _inertia_from_ratios
 
@@ -744,15 +746,29 @@ def constant_ratio_shapes(mode, ratio) -> list:
     ok = (np.abs(idd - i2[:, None]) > 2e-3) & (idd < 1.0)
     idd = np.where(ok, idd, 0.5 * (i1 + i2)[:, None] if mode == "LAM" else 0.5 * (i2 + 1)[:, None])
     pp, pf = periods_unit_momentum(np.broadcast_to(i1[:, None], idd.shape), np.broadcast_to(i2[:, None], idd.shape), idd)
-    r = np.where(ok, np.asarray(pf) / np.asarray(pp), np.nan) - ratio
+    table = np.where(ok, np.asarray(pf) / np.asarray(pp), np.nan)
+    for arr in (a_grid, b_grid, u, table):
+        arr.setflags(write=False)
+    return a_grid, b_grid, u, table
+
+
+def constant_ratio_shapes(mode, ratio) -> list:
+    """Every ellipsoid of a grid of axis ratios with its excitation ``u`` giving ``P_phi/P_psi = ratio`` in ``mode``.
+
+    Returns ``[(a_over_b, b_over_c, u), ...]`` (one root in ``u`` per shape of a 14 x 10 grid; closed-form
+    periods of :func:`tumble.dynamics.periods_unit_momentum`, tabulated once per mode by
+    :func:`_ratio_table`); empty when the mode cannot give the ratio.
+    """
+    a_grid, b_grid, u, table = _ratio_table(str(mode))
+    r = table - ratio
+    sign = np.sign(r)
+    cross = np.isfinite(r[:, :-1]) & np.isfinite(r[:, 1:]) & (sign[:, :-1] * sign[:, 1:] < 0)
     sols = []
-    for s in range(len(a_grid)):
+    for s in np.flatnonzero(cross.any(axis=1)):
+        j = int(np.argmax(cross[s]))  # the first crossing of each shape
         rs = r[s]
-        sign = np.sign(rs)
-        idx = np.flatnonzero(np.isfinite(rs[:-1]) & np.isfinite(rs[1:]) & (sign[:-1] * sign[1:] < 0))
-        for j in idx[:1]:
-            uu = u[j] - rs[j] * (u[j + 1] - u[j]) / (rs[j + 1] - rs[j])
-            sols.append((float(a_grid[s]), float(b_grid[s]), float(uu)))
+        uu = u[j] - rs[j] * (u[j + 1] - u[j]) / (rs[j + 1] - rs[j])
+        sols.append((float(a_grid[s]), float(b_grid[s]), float(uu)))
     return sols
 
 
@@ -910,16 +926,21 @@ def pair_starts(model, mode: str, job: PairFit, budget: FitBudget, rng=None) -> 
     n_shapes = budget.n_shapes_wide if job.wide else budget.n_shapes
     n_short = budget.n_short_wide if job.wide else budget.n_short
     shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, n_pick=n_shapes, start=job.index * n_shapes)
-    starts = []
+    if not shapes:
+        return []
+    blocks = []
     for ab, bc, u in shapes:
         base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
-                "ln_jitter_mag": math.log(1e-3)}
+                "ln_jitter_mag": START_LN_JITTER}
         n_att = _attitude_dim(model.space, base)
-        xs = spread_orientations(model.space, base, budget.n_orientations,
-                                 shift=np.mod(pair_shift(job.index, n_att) + orientation_shift(rng, n_att), 1.0))
-        ll = model(xs)
-        j = int(np.argmax(ll))
-        starts.append((float(ll[j]), xs[j]))
+        blocks.append(spread_orientations(model.space, base, budget.n_orientations,
+                                          shift=np.mod(pair_shift(job.index, n_att) + orientation_shift(rng, n_att), 1.0)))
+    # every shape's orientations in one model call (per row: one refused state voids only itself)
+    ll = model.jitter_log_likelihood(np.concatenate(blocks), [START_LN_JITTER])[:, 0].reshape(len(blocks), -1)
+    starts = []
+    for xs, lls in zip(blocks, ll):
+        j = int(np.argmax(lls))
+        starts.append((float(lls[j]), xs[j]))
     starts.sort(key=lambda e: -e[0])
     return [x0 for _, x0 in starts[:n_short]]
 
