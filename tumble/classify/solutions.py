@@ -1286,11 +1286,13 @@ def _frequency_shift_cycles(model, x0, x1, span_d: float) -> float:
     return max(abs(f1[0] - f0[0]), abs(f1[1] - f0[1])) * span_d
 
 
-def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float) -> Optimum:
+def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float, refitted=None) -> Optimum:
     """One solution scored under a ranking rule: re-fitted in ``target`` and/or polished, never worse.
 
     The state moves to ``target``'s parameters (:func:`transfer_state`); where the rule's model
-    differs from the search's, a full Levenberg-Marquardt run refits it; with ``rule.polish`` the
+    differs from the search's, a full Levenberg-Marquardt run refits it (``refitted``: that run's
+    result, already computed with the other solutions' by
+    :func:`tumble.classify.rotation.optimise_states`); with ``rule.polish`` the
     state is carried to the top of its own mode (:func:`tumble.inference.local.polish_mode` in the
     model's sampling chart, the step the sampler takes before sampling). A step is kept only if it
     raises ``ln L`` and leaves ``f_psi`` and ``f_phi`` within :data:`SAME_SOLUTION_CYCLES` per span
@@ -1301,7 +1303,10 @@ def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float)
     if not np.isfinite(ll):
         return Optimum(opt.mode, x, ll, opt.pair)
     if rule.refits:
-        x, ll = _ranking_step(target, _refit_proposal, x, ll, span_d)
+        if refitted is None:
+            x, ll = _ranking_step(target, _refit_proposal, x, ll, span_d)
+        else:
+            x, ll = _accept_step(target, x, ll, np.asarray(refitted, float), span_d)
     if rule.polish:
         x, ll = _ranking_step(target, _polish_proposal, x, ll, span_d)
     return Optimum(opt.mode, x, ll, opt.pair)
@@ -1324,16 +1329,37 @@ def _ranking_step(model, propose, x, ll: float, span_d: float) -> tuple:
     lowers ``ln L`` or moves the frequencies to another solution (beyond :data:`SAME_SOLUTION_CYCLES`)."""
     try:
         with np.errstate(all="ignore"):
-            x1 = model.space.wrap(np.asarray(propose(model, x), float))
+            x1 = np.asarray(propose(model, x), float)
+    except (TumbleError, np.linalg.LinAlgError, ValueError):
+        return x, ll
+    return _accept_step(model, x, ll, x1, span_d)
+
+
+def _accept_step(model, x, ll: float, x1, span_d: float) -> tuple:
+    """``(x1, ln L(x1))`` when the proposed ``x1`` raises ``ln L`` and stays the same solution, else ``(x, ll)``."""
+    try:
+        with np.errstate(all="ignore"):
+            x1 = model.space.wrap(np.asarray(x1, float))
         v1 = float(model(x1[None])[0])
     except (TumbleError, np.linalg.LinAlgError, ValueError):
         return x, ll
     if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(model, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
         return x1, v1
     return x, ll
-    if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(model, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
-        return x1, v1
-    return x, ll
+
+
+def batched_refits(chosen, models: dict, targets: dict) -> dict:
+    """The ranking re-fits of the ``chosen`` optima, one batched Levenberg-Marquardt per mode
+    (:func:`tumble.classify.rotation.optimise_states` from each state moved to its target model by
+    :func:`transfer_state`): optimum -> refitted state in the target's parameters."""
+    out = {}
+    for mode in dict.fromkeys(o.mode for o in chosen):
+        group = [o for o in chosen if o.mode == mode]
+        xs = np.array([transfer_state(o.x, models[mode], targets[mode]) for o in group])
+        with np.errstate(all="ignore"):
+            fitted, _ = optimise_states(targets[mode], xs)
+        out.update(zip(group, fitted))
+    return out
 
 
 def ranking_rule(name: str) -> RankingRule:
@@ -1364,7 +1390,9 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
     for opt in distinct:
         seen[opt.mode] = seen.get(opt.mode, 0) + 1
         (chosen if seen[opt.mode] <= N_RANKED_PER_MODE else rest).append(opt)
-    scored = {opt: rank_optimum(opt, models[opt.mode], targets[opt.mode], rule, span_d) for opt in chosen}
+    refits = batched_refits(chosen, models, targets) if rule.refits else {}
+    scored = {opt: rank_optimum(opt, models[opt.mode], targets[opt.mode], rule, span_d, refits.get(opt))
+              for opt in chosen}
     scored = {o: r for o, r in scored.items() if np.isfinite(r.log_likelihood)}
     if not rule.refits:
         return collect_solutions(list(scored.values()) + rest, models, span_d, evidence=rule.evidence)
@@ -1378,7 +1406,7 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
 
 
 __all__ += ["RankingRule", "RANKING_RULES", "DEFAULT_RANKING", "N_RANKED_PER_MODE", "bic", "solution_criterion",
-            "solution_optimum", "transfer_state", "ranking_models", "rank_optimum", "ranking_rule", "rank_solutions"]
+            "solution_optimum", "transfer_state", "ranking_models", "rank_optimum", "batched_refits", "ranking_rule", "rank_solutions"]
 
 
 def polish_solutions(optima, models, span_d: float, rng=None) -> list:
