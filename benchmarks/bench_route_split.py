@@ -22,6 +22,10 @@ reference kept beside it:
   ``shape_magnitudes_reference`` (the attitude series and brightness);
 - ``period-ratio``: the sampler's implicit chart's function ``ln(P_phi/P_psi)``,
   :meth:`tumble.model.PhysicalModel.log_period_ratio` against ``log_period_ratio_reference``;
+- ``optimiser``: the short Levenberg-Marquardt runs of 16 starts near the fitted state, all advanced
+  together (:func:`tumble.classify.rotation.optimise_states`, what the solution search runs) against
+  one start at a time (``optimise_state``, the reference), with the largest ln L difference and the
+  peak traced memory of both;
 - ``ensembles``: the sampling tail with the ensembles' likelihood requests batched
   (``tumble.inference.local._run``) against running them one after the other
   (``_run_reference``), with the peak traced memory (``tracemalloc``, a separate untimed run) of both.
@@ -29,11 +33,17 @@ reference kept beside it:
 Times are CPU times of this process (``time.process_time``); the machine's load average is printed
 with them, because absolute times on a shared machine are not performance figures (the ratios are).
 
-Another commit's route (before/after) cannot run in the same process; run its source tree with the
-same script in alternation (``--no-kernels``; the script imports ``tumble`` from ``PYTHONPATH`` first)::
+Another commit's route (before/after) cannot run in the same process: ``--baseline DIR`` runs the
+route of the source tree in ``DIR`` (holding ``tumble/``) and this tree's, each in its own process
+(``--no-kernels``; ``PYTHONPATH`` set to the tree), alternated over ``--rounds`` rounds (new-old,
+old-new, ...), and prints per object and part the minimum CPU of each and their ratio, the peak RSS
+of each process and both verdicts. Snapshot both trees first, so that edits during the run do not
+leak into it::
 
-    git archive <commit> tumble | tar -x -C /some/dir
-    OPENBLAS_NUM_THREADS=1 PYTHONPATH=/some/dir nice .venv/bin/python benchmarks/bench_route_split.py --no-kernels
+    git archive <old commit> tumble | tar -x -C /tmp/old
+    git archive HEAD | tar -x -C /tmp/new
+    cd /tmp/new && OPENBLAS_NUM_THREADS=1 nice /path/to/.venv/bin/python benchmarks/bench_route_split.py \
+        --cache /path/to/benchmarks/.cache/library-cal-2-20261204 --baseline /tmp/old --rounds 2
 
 Run (with ``nice`` on a shared machine)::
 

@@ -36,6 +36,11 @@ beats top" counts the failures the rule's model itself would resolve if the sear
     nice .venv/bin/python benchmarks/bench_solutions.py --split calibration --limit 40 --ranking ...
     nice .venv/bin/python benchmarks/bench_solutions.py --tables A.jsonl,B.jsonl   # runs split by --offset
 
+``--wide N`` runs the search with ``FitBudget.n_wide = N`` (the pairs of each screen that get the
+wide fit budget; ``N`` = ``N_SCREENED`` gives every screened pair the wide budget), to measure a
+budget before it becomes the default; the search's CPU time and its number of physical fits per
+object are printed with the figures.
+
 The search of ``tumble classify`` is deterministic (well-spread starts, no random draws); here too.
 ``--demo-seeds`` reruns KRN-007's search with the orientation sets shifted by each seed (a
 Cranley-Patterson shift: every set as well spread, but different) and prints whether the true
