@@ -22,11 +22,14 @@ enumeration (:func:`search_solutions`):
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
    fixed budget (:class:`FitBudget`) and deterministic, well-spread starts: stratified shapes
    (:func:`shape_solutions`) x quasi-uniform orientations (:func:`spread_orientations`, shifted per
-   pair by :func:`pair_shift`), short and full Levenberg-Marquardt
-   (:func:`tumble.classify.rotation.optimise_state`), a wider budget in two attempts for the best
-   screened pairs; then shape restarts and fresh fits of the pairs (:func:`refit_pairs`) of the best
-   distinct states, and more rounds of restarts for the solutions near the best
-   (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed.
+   pair by :func:`pair_shift`), short and full Levenberg-Marquardt, a wider budget in two attempts
+   for the best screened pairs; then shape restarts and fresh fits of the pairs (:func:`refit_pairs`)
+   of the best distinct states, and more rounds of restarts for the solutions near the best
+   (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed. The fits of
+   one stage and mode run as one batch (:func:`fit_pairs`, :func:`restart_optima`): every start is
+   advanced by :func:`tumble.classify.rotation.optimise_states`, one model call per iteration for
+   all of them, each start taking the steps it would take alone
+   (:func:`tumble.classify.rotation.optimise_state`, the reference).
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
    ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978) of a re-fit with the inertia ratios free
