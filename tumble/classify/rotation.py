@@ -481,11 +481,12 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
         xs = np.concatenate(starts)
         ll = model(xs)
         top = np.argsort(-ll)[:3]
+        # the three best starts refined together (optimise_states: each as optimise_state alone)
+        fitted, values = optimise_states(model, xs[top])
         best_x, best_ll = None, -np.inf
-        for i in top:
-            x, v = optimise_state(model, xs[i])
+        for x, v in zip(fitted, values):
             if v > best_ll:
-                best_x, best_ll = x, v
+                best_x, best_ll = x, float(v)
         results["PA"] = (best_ll, best_x, model, ())
         chosen = "PA"
         solutions = ()
