@@ -223,11 +223,11 @@ class FitBudget:
         the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
     n_wide : int
         The best this many pairs of each screen get the wider budget below (the true pair is
-        usually among them; its fit, not its screening, was what depended on the seed). 10 with
-        12 screened (was 5 with 20): the budget of the pairs no longer screened in goes to wide fits,
-        at the same search CPU on the demo's KRN-007 (52 s against 51 s, side by side). Its true pair
-        is 11th in the SAM screen, just outside: its narrow fit reaches the true state here, but
-        missed it with 20 / 5 (docs/methods-classify.md section 5b, known limit).
+        usually among them; its fit, not its screening, was what depended on the seed). Since the
+        batched fits every screened pair (``N_SCREENED``; was 10 of 12, and 5 of 20 before): the
+        demo's KRN-007 true pair, 11th in the SAM screen, got only a narrow fit, and the wide fit of
+        CAL-dense-npa-029's true pair took it from 10/12 to 11/12 tops right on the held-out
+        half, at +12 % search CPU (docs/methods-classify.md section 5b).
     n_shapes_wide, n_short_wide, n_full_wide : int
         ``n_shapes``, ``n_short`` and ``n_full`` of those pairs.
     n_attempts_wide : int
@@ -242,7 +242,7 @@ class FitBudget:
     n_orientations: int = 48
     n_short: int = 2
     n_full: int = 1
-    n_wide: int = 10
+    n_wide: int = N_SCREENED
     n_shapes_wide: int = 8
     n_short_wide: int = 4
     n_full_wide: int = 2
