@@ -22,6 +22,10 @@ reference kept beside it:
   ``shape_magnitudes_reference`` (the attitude series and brightness);
 - ``period-ratio``: the sampler's implicit chart's function ``ln(P_phi/P_psi)``,
   :meth:`tumble.model.PhysicalModel.log_period_ratio` against ``log_period_ratio_reference``;
+- ``optimiser``: the short Levenberg-Marquardt runs of 16 starts near the fitted state, all advanced
+  together (:func:`tumble.classify.rotation.optimise_states`, what the solution search runs) against
+  one start at a time (``optimise_state``, the reference), with the largest ln L difference and the
+  peak traced memory of both;
 - ``ensembles``: the sampling tail with the ensembles' likelihood requests batched
   (``tumble.inference.local._run``) against running them one after the other
   (``_run_reference``), with the peak traced memory (``tracemalloc``, a separate untimed run) of both.
@@ -29,11 +33,17 @@ reference kept beside it:
 Times are CPU times of this process (``time.process_time``); the machine's load average is printed
 with them, because absolute times on a shared machine are not performance figures (the ratios are).
 
-Another commit's route (before/after) cannot run in the same process; run its source tree with the
-same script in alternation (``--no-kernels``; the script imports ``tumble`` from ``PYTHONPATH`` first)::
+Another commit's route (before/after) cannot run in the same process: ``--baseline DIR`` runs the
+route of the source tree in ``DIR`` (holding ``tumble/``) and this tree's, each in its own process
+(``--no-kernels``; ``PYTHONPATH`` set to the tree), alternated over ``--rounds`` rounds (new-old,
+old-new, ...), and prints per object and part the minimum CPU of each and their ratio, the peak RSS
+of each process and both verdicts. Snapshot both trees first, so that edits during the run do not
+leak into it::
 
-    git archive <commit> tumble | tar -x -C /some/dir
-    OPENBLAS_NUM_THREADS=1 PYTHONPATH=/some/dir nice .venv/bin/python benchmarks/bench_route_split.py --no-kernels
+    git archive <old commit> tumble | tar -x -C /tmp/old
+    git archive HEAD | tar -x -C /tmp/new
+    cd /tmp/new && OPENBLAS_NUM_THREADS=1 nice /path/to/.venv/bin/python benchmarks/bench_route_split.py \
+        --cache /path/to/benchmarks/.cache/library-cal-2-20261204 --baseline /tmp/old --rounds 2
 
 Run (with ``nice`` on a shared machine)::
 
@@ -73,6 +83,8 @@ DEFAULT_OBJECTS = ("CAL-dense-npa-076", "KRN-007")
 TARGET_S = 30.0
 #: walkers per model call in the kernel comparison (a red-blue half of two batched ensembles)
 KERNEL_BATCH = 36
+#: starts of the optimiser comparison (a few pairs' short runs of the search)
+OPTIMISER_STARTS = 16
 #: interleaved rounds of each side-by-side comparison (the minimum is kept)
 ROUNDS = 5
 SEED = 1
@@ -248,6 +260,30 @@ def compare_ensembles(model, x, span_d, memory: bool):
     return out
 
 
+def compare_optimiser(model, x, memory: bool):
+    """The search's short Levenberg-Marquardt runs of :data:`OPTIMISER_STARTS` starts near ``x``: all advanced
+    together (``optimise_states``) against one at a time (``optimise_state``, the reference): CPU,
+    largest log-likelihood difference, peak traced memory."""
+    from tumble.classify.rotation import optimise_state, optimise_states
+    from tumble.classify.solutions import SHORT_LM_ITERATIONS
+
+    rng = np.random.default_rng(SEED)
+    xs = model.space.wrap(x[None] + 0.02 * rng.standard_normal((OPTIMISER_STARTS, len(x))) * model.space.scales[None])
+
+    def fast():
+        return optimise_states(model, xs, n_iter=SHORT_LM_ITERATIONS)[1]
+
+    def slow():
+        return np.array([optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS)[1] for x0 in xs])
+
+    diff = float(np.max(np.abs(fast() - slow())))
+    t_fast, t_slow = side_by_side(fast, slow, rounds=2)
+    out = {"fast_s": t_fast, "slow_s": t_slow, "diff": diff}
+    if memory:
+        out["fast_peak"], out["slow_peak"] = _peak_traced(fast), _peak_traced(slow)
+    return out
+
+
 def _ratio(fast, slow) -> str:
     return f"x{fast / slow:.2f} (fast {fast * 1e3:.1f} ms, reference {slow * 1e3:.1f} ms)"
 
@@ -265,7 +301,9 @@ def run_object(name: str, cache: Path, *, kernels: bool, memory: bool):
     split = ", ".join(f"{k} {parts.get(k, 0.0):.1f} s ({100 * parts.get(k, 0.0) / total:.0f} %)"
                       for k in ("evidence", "enumeration", "sampling", "other"))
     print(f"  full route CPU {total:.1f} s (target {TARGET_S:.0f} s on one quiet core): {split}")
-    row = {"object": name, "total_s": total, "load": load, **{f"{k}_s": v for k, v in parts.items()}}
+    row = {"object": name, "total_s": total, "load": load, **{f"{k}_s": v for k, v in parts.items()},
+           "verdict": f"{v.rotation}/{v.mode} " + (f"P_psi {fit.derived['p_psi_h'][0]:.5g} h P_phi "
+                                                   f"{fit.derived['p_phi_h'][0]:.5g} h" if fit is not None else "")}
     if fit is not None and fit.posterior is not None:
         d = fit.posterior.diagnostics
         row.update(converged=bool(d.converged), tau_multiples=float(d.tau_multiples),
@@ -287,15 +325,59 @@ def run_object(name: str, cache: Path, *, kernels: bool, memory: bool):
             print(f"  period-ratio   {_ratio(fast, slow)} per call of {2 * KERNEL_BATCH} states; max |difference| "
                   f"{diff:.1e}")
             row["ratio_kernel"] = fast / slow
+            opt = compare_optimiser(model, x, memory)
+            mem = (f"; peak traced memory {opt['fast_peak'] / 1e6:.0f} MB vs {opt['slow_peak'] / 1e6:.0f} MB"
+                   if memory else "")
+            print(f"  optimiser      {_ratio(opt['fast_s'], opt['slow_s'])} for {OPTIMISER_STARTS} starts' short runs; "
+                  f"max |ln L difference| {opt['diff']:.1e}{mem}")
+            row["optimiser_ratio"] = opt["fast_s"] / opt["slow_s"]
             ens = compare_ensembles(model, x, lc.span_d, memory)
             mem = (f"; peak traced memory {ens['fast_peak'] / 1e6:.0f} MB vs {ens['slow_peak'] / 1e6:.0f} MB"
                    if memory else "")
             print(f"  ensembles      x{ens['fast_s'] / ens['slow_s']:.2f} (batched {ens['fast_s']:.1f} s, sequential "
                   f"{ens['slow_s']:.1f} s); same samples {'yes' if ens['same_samples'] else 'no'}{mem}")
             row["ensembles_ratio"] = ens["fast_s"] / ens["slow_s"]
-    print(f"  peak RSS of this process so far: {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB",
-          flush=True)
+    row["peak_rss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    print(f"  peak RSS of this process so far: {row['peak_rss_mb']:.0f} MB", flush=True)
     return row
+
+
+def baseline_rounds(objects, cache: str, baseline: str, rounds: int) -> int:
+    """The route of this tree and of ``baseline`` (a source tree holding ``tumble/``) alternated, each run in
+    its own process (``--no-kernels``): per object and part, the minimum CPU over rounds and the ratio."""
+    import json
+    import subprocess
+    import tempfile
+
+    trees = {"new": str(HERE.parent), "old": str(Path(baseline).resolve())}
+    best = {}
+    for obj in objects:
+        for r in range(rounds):
+            for kind in (("new", "old") if r % 2 == 0 else ("old", "new")):
+                with tempfile.NamedTemporaryFile(suffix=".json") as fh:
+                    env = dict(os.environ, PYTHONPATH=trees[kind])
+                    cmd = [sys.executable, __file__, "--objects", obj, "--cache", cache, "--no-kernels",
+                           "--json-out", fh.name]
+                    done = subprocess.run(cmd, env=env, capture_output=True, text=True)
+                    if done.returncode != 0:
+                        print(done.stdout + done.stderr)
+                        return 1
+                    row = json.loads(Path(fh.name).read_text())[0]
+                print(f"{obj} round {r + 1} {kind}: total {row['total_s']:.1f} s (enumeration "
+                      f"{row.get('enumeration_s', 0):.1f} s), peak RSS {row['peak_rss_mb']:.0f} MB, load {row['load']:.1f}",
+                      flush=True)
+                key = (obj, kind)
+                best[key] = {k: min(v, best.get(key, {}).get(k, np.inf)) for k, v in row.items()
+                             if isinstance(v, float)}
+                best[key]["verdict"] = row.get("verdict", "")
+    print(f"\nold ({trees['old']}) against new ({trees['new']}), minimum CPU over {rounds} alternated round(s):")
+    for obj in objects:
+        o, n = best[(obj, "old")], best[(obj, "new")]
+        parts = ", ".join(f"{k} {o.get(k + '_s', 0):.1f} -> {n.get(k + '_s', 0):.1f} s (x{n.get(k + '_s', 0) / max(o.get(k + '_s', 0), 1e-9):.2f})"
+                          for k in ("total", "evidence", "enumeration", "sampling", "other"))
+        print(f"  {obj}: {parts}; peak RSS {o['peak_rss_mb']:.0f} -> {n['peak_rss_mb']:.0f} MB")
+        print(f"    old: {o['verdict']}\n    new: {n['verdict']}")
+    return 0
 
 
 def main(argv=None) -> int:
@@ -306,11 +388,22 @@ def main(argv=None) -> int:
     p.add_argument("--quick", action="store_true", help="the first object only, no memory runs")
     p.add_argument("--no-kernels", action="store_true", help="the route's time split only")
     p.add_argument("--no-memory", action="store_true", help="skip the traced-memory runs of the sampling tail")
+    p.add_argument("--baseline", default=None, metavar="DIR",
+                   help="a source tree of another commit (holding tumble/): its route and this tree's alternated, "
+                        "each in its own process, and their ratios printed")
+    p.add_argument("--rounds", type=int, default=2, help="alternated rounds of --baseline (the minimum is kept)")
+    p.add_argument("--json-out", default=None, help=argparse.SUPPRESS)
     args = p.parse_args(argv)
     warnings.simplefilter("ignore")
     objects = args.objects[:1] if args.quick else args.objects
+    if args.baseline:
+        return baseline_rounds(objects, args.cache, args.baseline, args.rounds)
     rows = [run_object(o, Path(args.cache), kernels=not args.no_kernels, memory=not (args.no_memory or args.quick))
             for o in objects]
+    if args.json_out:
+        import json
+
+        Path(args.json_out).write_text(json.dumps(rows))
     print("\nsummary (CPU s; load averages " + ", ".join(f"{r['load']:.1f}" for r in rows) + " on 2 cores):")
     for r in rows:
         print(f"  {r['object']:>18}: total {r['total_s']:.1f} = evidence {r.get('evidence_s', 0):.1f} + enumeration "

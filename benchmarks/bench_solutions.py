@@ -36,6 +36,11 @@ beats top" counts the failures the rule's model itself would resolve if the sear
     nice .venv/bin/python benchmarks/bench_solutions.py --split calibration --limit 40 --ranking ...
     nice .venv/bin/python benchmarks/bench_solutions.py --tables A.jsonl,B.jsonl   # runs split by --offset
 
+``--wide N`` runs the search with ``FitBudget.n_wide = N`` (the pairs of each screen that get the
+wide fit budget; ``N`` = ``N_SCREENED`` gives every screened pair the wide budget), to measure a
+budget before it becomes the default; the search's CPU time and its number of physical fits per
+object are printed with the figures.
+
 The search of ``tumble classify`` is deterministic (well-spread starts, no random draws); here too.
 ``--demo-seeds`` reruns KRN-007's search with the orientation sets shifted by each seed (a
 Cranley-Patterson shift: every set as well spread, but different) and prints whether the true
@@ -181,12 +186,14 @@ def score_rankings(lc, search, models, truth, rules, check_model: bool) -> dict:
     return out
 
 
-def score_object(object_id, lc, truth, detected_by, check_model: bool, rules=("bic",)) -> dict:
-    """Run the search on one light curve and score it (a dictionary row)."""
+def score_object(object_id, lc, truth, detected_by, check_model: bool, rules=("bic",), budget=None) -> dict:
+    """Run the search on one light curve and score it (a dictionary row); ``budget``: the search's
+    :class:`tumble.classify.solutions.FitBudget` (default: the search's own)."""
     from tumble.classify import classify
     from tumble.classify.rotation import thin_lightcurve
-    from tumble.classify.solutions import npa_models, search_solutions
+    from tumble.classify.solutions import FitBudget, npa_models, search_solutions
 
+    budget = budget or FitBudget()
     row = {"object_id": object_id, "true_mode": truth["mode"], "true_p_psi_h": truth["p_psi_h"],
            "true_p_phi_h": truth["p_phi_h"]}
     t0 = time.perf_counter()
@@ -200,8 +207,11 @@ def score_object(object_id, lc, truth, detected_by, check_model: bool, rules=("b
     # the search part of fit_rotation_state (optimisation only), with every distinct solution kept
     sub = thin_lightcurve(lc, 300)
     models = npa_models(sub, lc.span_d * 24.0)
-    search = search_solutions(lc, cls.evidence, models, rng=None, ranking="bic")
+    c0 = time.process_time()
+    search = search_solutions(lc, cls.evidence, models, rng=None, ranking="bic", budget=budget)
     row["search_s"] = time.perf_counter() - t0
+    row["search_cpu_s"] = time.process_time() - c0
+    row["n_fits"] = search.n_fits
     if tuple(rules) != ("bic",):
         row["rankings"] = score_rankings(lc, search, models, truth, rules, check_model)
     sols = search.solutions
@@ -303,6 +313,11 @@ def summary(rows) -> str:
               f"Laplace ln Z picks the BIC's top of the best {LAPLACE_COMPARED} distinct: {frac('laplace_agrees')}",
               f"search time per object: median {np.median([r['search_s'] for r in det]):.0f} s, "
               f"max {np.max([r['search_s'] for r in det]):.0f} s (wall clock, shared machine)"]
+    cpu = [r["search_cpu_s"] for r in det if "search_cpu_s" in r]
+    if cpu:
+        lines.append(f"search CPU per object: median {np.median(cpu):.0f} s, max {np.max(cpu):.0f} s, "
+                     f"total {np.sum(cpu):.0f} s; physical fits per object median "
+                     f"{np.median([r['n_fits'] for r in det if 'n_fits' in r]):.0f}")
     # the rules every scored row has (tables of runs with other --ranking lists can be summarised together)
     ranked = [r for r in det if r.get("rankings")]
     names = [n for n in (ranked[0]["rankings"] if ranked else {}) if all(n in r["rankings"] for r in ranked)]
@@ -361,10 +376,15 @@ def main(argv=None) -> int:
     p.add_argument("--ranking", default="bic", metavar="RULE1,RULE2,...",
                    help="ranking rules compared side by side on the same searches (tumble.classify.solutions."
                         "RANKING_RULES; the first listed is not special)")
+    p.add_argument("--wide", type=int, default=None, metavar="N",
+                   help="the search's FitBudget.n_wide (pairs of each screen with the wide fit budget; "
+                        "default: the search's own)")
     p.add_argument("--tables", default=None, metavar="T1,T2,...",
                    help="only summarise these JSON-lines tables together (runs split by --offset)")
     args = p.parse_args(argv)
-    from tumble.classify.solutions import ranking_rule
+    from dataclasses import replace
+
+    from tumble.classify.solutions import FitBudget, ranking_rule
 
     rules = tuple(v.strip() for v in args.ranking.split(",") if v.strip())
     for name in rules:
@@ -372,6 +392,8 @@ def main(argv=None) -> int:
             ranking_rule(name)
         except Exception as exc:  # noqa: BLE001 - a benchmark's option error, one line
             p.error(str(exc))
+    budget = FitBudget() if args.wide is None else replace(FitBudget(), n_wide=args.wide)
+    print(f"search budget: {budget}", flush=True)
     warnings.simplefilter("ignore")
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     if args.demo_seeds:
@@ -401,7 +423,7 @@ def main(argv=None) -> int:
             for oid, lc, truth in objects:
                 if oid in done:
                     continue
-                row = score_object(oid, lc, truth, detected_by, not args.no_fault_check, rules)
+                row = score_object(oid, lc, truth, detected_by, not args.no_fault_check, rules, budget)
                 fh.write(json.dumps(row) + "\n")
                 fh.flush()
                 rows.append(row)

@@ -175,3 +175,21 @@ def test_rules_come_from_one_registry():
     assert all(r.law in SCATTERING_LAWS and name == r.name for name, r in S.RANKING_RULES.items())
     with pytest.raises(TumbleError, match="unknown ranking rule"):
         S.ranking_rule("nonesuch")
+
+
+def test_batched_ranking_refits_equal_each_refit_alone(sam_fit):
+    # the free-inertia re-fits of the ranked solutions run as one batched Levenberg-Marquardt
+    # (batched_refits); each solution's score must be the one of its own re-fit (rank_optimum's
+    # reference route, optimise_state from the transferred state)
+    lc, models, opt = sam_fit
+    rule = S.RANKING_RULES["free-inertia"]
+    targets = S.ranking_models(lc, models, rule)
+    other = S.fit_pair(models["SAM"], "SAM", S.FrequencyPair(24.0 / (1.5 * P_PSI_H), 24.0 / P_PHI_H, (), "x1.5"),
+                       S.FitBudget(n_shapes=2, n_short=1))
+    chosen = [opt, other]
+    refits = S.batched_refits(chosen, models, targets)
+    for o in chosen:
+        fast = S.rank_optimum(o, models["SAM"], targets["SAM"], rule, lc.span_d, refits[o])
+        slow = S.rank_optimum(o, models["SAM"], targets["SAM"], rule, lc.span_d)
+        assert fast.log_likelihood == pytest.approx(slow.log_likelihood, abs=1e-4)
+        assert fast.log_likelihood >= o.log_likelihood - 1e-9  # the tied state is inside the free model

@@ -73,3 +73,53 @@ def test_series_from_the_reflected_quarter_period_equal_the_half_period_series(r
     fast = dynamics._fourier_coefficients(c, sel, harmonics).coef
     slow = dynamics._fourier_coefficients(c, sel, harmonics, symmetric=False).coef
     np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-14)
+
+
+def _small_sam_model(mode="SAM"):
+    """A physical model of a simulated dense SAM (Kaasalainen 2001 closed-form attitude), 120 points."""
+    from tumble.brightness import axes_from_inertia_ratios
+    from tumble.classify.rotation import thin_lightcurve
+    from tumble.classify.solutions import npa_models
+    from tumble.dynamics import RotationState
+    from tumble.simulate import DenseCampaign, NoiseModel, simulate_lightcurve
+
+    plan = DenseCampaign(EPOCH, n_nights=5, hours_per_night=6.0, cadence_min=12.0, zero_point_sigma_mag=0.02)
+    st = RotationState.from_periods(0.5, 0.85, 30.0, 7.5, "SAM", l_lon_deg=60.0, l_lat_deg=35.0)
+    lc = simulate_lightcurve(st, axes_from_inertia_ratios(0.5, 0.85), plan, noise=NoiseModel(0.01), rng=3).lightcurve
+    return npa_models(thin_lightcurve(lc, 120), lc.span_d * 24.0)[mode]
+
+
+def test_jitter_grid_likelihood_matches_one_model_call_per_vector(rng):
+    # the magnitudes computed once per state against the model called on every (state, jitter)
+    # vector (slow reference); a state at the separatrix (I_d = I2, refused by the closed form)
+    # voids its own row only
+    model = _small_sam_model()
+    sp = model.space
+    xs = sp.sample_prior(6, rng)
+    grid = np.linspace(sp.lows[sp.index("ln_jitter_mag")], sp.highs[sp.index("ln_jitter_mag")], 7)
+    fast = model.jitter_log_likelihood(xs, grid)
+    ref = model.jitter_log_likelihood_reference(xs, grid)
+    np.testing.assert_allclose(fast, ref, rtol=1e-10, atol=1e-8)
+    bad = xs.copy()
+    bad[2, sp.index("excitation_u")] = 1.0  # SAM I_d = I2: the separatrix
+    out = model.jitter_log_likelihood(bad, grid)
+    assert np.all(np.isneginf(out[2]))
+    np.testing.assert_allclose(np.delete(out, 2, axis=0), np.delete(ref, 2, axis=0), rtol=1e-10, atol=1e-8)
+
+
+def test_whitened_residuals_per_row_leave_the_other_states_alone(rng):
+    # invalid="nan": a state the closed form refuses gets the out-of-prior residual on its row only,
+    # the others equal their residuals computed alone (the reference's one-state calls)
+    from tumble.classify.rotation import OUT_OF_PRIOR_RESIDUAL, whitened_residuals
+
+    model = _small_sam_model()
+    sp = model.space
+    xs = sp.sample_prior(4, rng)
+    # inside the prior, but b ~ c puts I_d within the closed form's tolerance of I2 (the separatrix)
+    xs[1, sp.index("b_over_c")] = 1.0 + 1e-7
+    assert np.isfinite(sp.log_prior(xs[1:2]))[0]
+    assert np.all(whitened_residuals(model, xs) == OUT_OF_PRIOR_RESIDUAL)  # invalid="raise": the whole batch
+    r = whitened_residuals(model, xs, invalid="nan")
+    assert np.all(r[1] == OUT_OF_PRIOR_RESIDUAL)
+    for i in (0, 2, 3):
+        np.testing.assert_allclose(r[i], whitened_residuals(model, xs[i:i + 1])[0], rtol=1e-10, atol=1e-10)

@@ -1012,17 +1012,21 @@ class PhysicalModel:
         with np.errstate(divide="ignore"):
             return -2.5 * np.log10(np.maximum(flux, 1e-300))
 
-    def _profiled(self, x):
+    def _profiled(self, x, invalid: str = "raise"):
         """Residuals after the weighted least-squares nuisance fit, per walker (fast kernel).
 
         Returns ``(resid (K, n), var (K, n), a (K, q, q), m (K, n), coef (K, q))``, ``a`` the
         weighted normal matrix ``Z^T W Z``. When every point belongs to exactly one zero-point
         column and there are no other nuisance columns (dense sessions), ``a`` is diagonal and
         the fit is a weighted mean per session (two matrix products); otherwise batched matrix
-        products. :meth:`_profiled_reference` is the plain per-walker computation.
+        products. :meth:`_profiled_reference` is the plain per-walker computation. ``invalid`` as
+        in :meth:`shape_magnitudes` (``"nan"``: a state the closed form refuses gets NaN rows only).
         """
-        m = self.shape_magnitudes(x)
-        jit = np.exp(x[:, self.space.index("ln_jitter_mag")])
+        m = self.shape_magnitudes(x, invalid=invalid)
+        return self._profile_magnitudes(m, np.exp(x[:, self.space.index("ln_jitter_mag")]))
+
+    def _profile_magnitudes(self, m, jit):
+        """:meth:`_profiled` from the shape magnitudes ``m`` (K, n) and the jitters ``jit`` (K,), mag."""
         var = self.err[None, :] ** 2 + jit[:, None] ** 2
         w = 1.0 / var
         r = self.y[None, :] - m
@@ -1069,6 +1073,10 @@ class PhysicalModel:
             resid, var, a, _, _ = self._profiled(x)
         except TumbleError:
             return np.full(len(x), -np.inf)
+        return self._log_likelihood_profiled(resid, var, a)
+
+    def _log_likelihood_profiled(self, resid, var, a) -> np.ndarray:
+        """The marginal log-likelihood (K,) from :meth:`_profiled`'s residuals, variances and normal matrices."""
         if self.student_t:
             nu = self.nu_t
             ll = (special.gammaln(0.5 * (nu + 1)) - special.gammaln(0.5 * nu) - 0.5 * np.log(nu * np.pi * var)
@@ -1082,6 +1090,40 @@ class PhysicalModel:
         q = self.z.shape[1]
         ll = -0.5 * chi2 - 0.5 * np.sum(np.log(2 * np.pi * var), axis=1) - 0.5 * logdet_a + 0.5 * q * np.log(2 * np.pi)
         return np.where(np.isfinite(ll), ll, -np.inf)
+
+    def jitter_log_likelihood(self, x, ln_jitter_mag) -> np.ndarray:
+        """Log-likelihood of each state ``x`` (K, ndim) at each jitter of ``ln_jitter_mag`` (G,), shape (K, G).
+
+        The shape magnitudes do not depend on the jitter, so they are computed once per state and only
+        the nuisance fit and the likelihood are repeated per jitter (the optimiser's final jitter grid;
+        a G-fold cheaper model call). A state the closed form refuses gets ``-inf`` on its row only.
+        :meth:`jitter_log_likelihood_reference` calls the model on every (state, jitter) vector.
+        """
+        x = np.atleast_2d(np.asarray(x, float))
+        grid = np.asarray(ln_jitter_mag, float).ravel()
+        out = np.full((len(x), len(grid)), -np.inf)
+        good = self.inertia_admissible(x)
+        if not np.any(good):
+            return out
+        m = self.shape_magnitudes(x[good], invalid="nan")
+        k, g = len(m), len(grid)
+        resid, var, a, _, _ = self._profile_magnitudes(np.repeat(m, g, axis=0), np.tile(np.exp(grid), k))
+        with np.errstate(invalid="ignore"):
+            ll = self._log_likelihood_profiled(resid, var, a).reshape(k, g)
+        out[good] = np.where(np.isfinite(ll), ll, -np.inf)
+        return out
+
+    def jitter_log_likelihood_reference(self, x, ln_jitter_mag) -> np.ndarray:
+        """Slow reference of :meth:`jitter_log_likelihood`: one model call per state on its jitter grid."""
+        x = np.atleast_2d(np.asarray(x, float))
+        grid = np.asarray(ln_jitter_mag, float).ravel()
+        k = self.space.index("ln_jitter_mag")
+        out = np.empty((len(x), len(grid)))
+        for i, xi in enumerate(x):
+            xs = np.repeat(xi[None], len(grid), axis=0)
+            xs[:, k] = grid
+            out[i] = self(xs)
+        return out
 
     def predict(self, x):
         """Best-fit magnitudes (shape part plus the fitted nuisance terms), shape ``(K, n)``."""

@@ -19,7 +19,8 @@ import numpy as np
 from tumble.classify.evidence import ClassifyError, EvidenceResult
 from tumble.exceptions import TumbleError
 
-__all__ = ["npa_candidates", "RotationFit", "fit_rotation_state", "optimise_state", "thin_lightcurve",
+__all__ = ["npa_candidates", "RotationFit", "fit_rotation_state", "optimise_state", "optimise_states",
+           "batched_whitened_residuals", "thin_lightcurve",
            "whitened_residuals", "random_orientations", "sample_solution_mode", "sampling_chart"]
 
 
@@ -141,10 +142,13 @@ def thin_lightcurve(lc, max_points):
 OUT_OF_PRIOR_RESIDUAL = 1e3
 
 
-def whitened_residuals(model, xs) -> np.ndarray:
+def whitened_residuals(model, xs, invalid: str = "raise") -> np.ndarray:
     """Residuals over their standard deviation (zero-points profiled) of ``(K, ndim)`` states, shape ``(K, n)``.
 
-    States outside the prior get :data:`OUT_OF_PRIOR_RESIDUAL` everywhere.
+    States outside the prior get :data:`OUT_OF_PRIOR_RESIDUAL` everywhere. ``invalid="raise"`` (the
+    reference optimiser's call): a state the closed form refuses (at the separatrix) gives every row
+    of the batch that residual; ``"nan"`` (the batched optimiser, whose batch holds many independent
+    starts): only that state's row.
     """
     sp = model.space
     xs = sp.wrap(np.atleast_2d(xs))
@@ -152,8 +156,10 @@ def whitened_residuals(model, xs) -> np.ndarray:
     r = np.full((len(xs), model.y.size), OUT_OF_PRIOR_RESIDUAL)
     if ok.any():
         try:
-            res, var, _, _, _ = model._profiled(xs[ok])
-            r[ok] = res / np.sqrt(var)
+            with np.errstate(invalid="ignore"):
+                res, var, _, _, _ = model._profiled(xs[ok], invalid=invalid)
+                w = res / np.sqrt(var)
+            r[ok] = np.where(np.all(np.isfinite(w), axis=1)[:, None], w, OUT_OF_PRIOR_RESIDUAL)
         except TumbleError:
             pass
     return r
@@ -178,6 +184,10 @@ def jacobian_free_steps(space, x) -> tuple:
                       else JACOBIAN_REL_STEP_RATIO * x[i] if names[i] in ("a_over_b", "b_over_c")
                       else JACOBIAN_ABS_STEP for i in free])
     return free, steps
+
+
+#: Points of the final jitter grid of the optimisers (ln jitter uniform over its prior).
+JITTER_GRID_POINTS = 24
 
 
 def optimise_state(model, x0, n_iter: int = 40):
@@ -208,7 +218,7 @@ def optimise_state(model, x0, n_iter: int = 40):
         g = jac.T @ r0
         dh = np.diag(h).copy()
         dh[dh <= 0] = 1.0
-        lams = lam * np.array([0.01, 0.1, 1.0, 10.0, 100.0])
+        lams = lam * np.array(LM_DAMPING_TRIALS)
         trial = []
         for lm in lams:
             try:
@@ -231,12 +241,122 @@ def optimise_state(model, x0, n_iter: int = 40):
                 break
     # best jitter on a small grid, then the full likelihood
     lo, hi = sp.lows[ij], sp.highs[ij]
-    grid = np.linspace(lo, hi, 24)
+    grid = np.linspace(lo, hi, JITTER_GRID_POINTS)
     xs = np.repeat(x[None], len(grid), axis=0)
     xs[:, ij] = grid
     ll = model(xs)
     x = xs[int(np.argmax(ll))]
     return x, float(np.max(ll))
+
+
+#: The damping factors tried at each Levenberg-Marquardt iteration, times the current one (shared by
+#: :func:`optimise_state` and :func:`optimise_states`, so both take the same steps).
+LM_DAMPING_TRIALS = (0.01, 0.1, 1.0, 10.0, 100.0)
+#: Model rows (states) per call of the batched optimiser: above ~50 rows the cost per row is flat
+#: (0.11 ms on 300 points, against 1.2 ms for a single row), and the call's arrays (~100 kB a row)
+#: stay within tens of MB.
+OPTIMISER_ROWS_PER_CALL = 256
+
+
+def batched_whitened_residuals(model, xs) -> np.ndarray:
+    """:func:`whitened_residuals` of many independent states, per row (``invalid="nan"``), in calls of at
+    most :data:`OPTIMISER_ROWS_PER_CALL` rows; shape ``(K, n)``."""
+    xs = np.atleast_2d(xs)
+    if len(xs) <= OPTIMISER_ROWS_PER_CALL:
+        return whitened_residuals(model, xs, invalid="nan")
+    return np.concatenate([whitened_residuals(model, xs[i:i + OPTIMISER_ROWS_PER_CALL], invalid="nan")
+                           for i in range(0, len(xs), OPTIMISER_ROWS_PER_CALL)])
+
+
+def _damped_steps(h, g, lams) -> np.ndarray:
+    """Levenberg-Marquardt steps ``-(H + lam diag(H))^-1 g`` for ``H`` (A, d, d), ``g`` (A, d) and the damping
+    factors ``lams`` (A, L): shape (A, L, d); a singular system gives a zero step (as in :func:`optimise_state`)."""
+    dh = np.diagonal(h, axis1=1, axis2=2).copy()
+    dh[dh <= 0] = 1.0
+    a, n_l, d = len(h), lams.shape[1], h.shape[1]
+    mats = h[:, None] + lams[:, :, None, None] * (dh[:, None, :, None] * np.eye(d)[None, None])
+    rhs = np.broadcast_to(-g[:, None, :, None], (a, n_l, d, 1))
+    try:
+        return np.linalg.solve(mats, rhs)[..., 0]
+    except np.linalg.LinAlgError:
+        out = np.zeros((a, n_l, d))
+        for i in range(a):
+            for j in range(n_l):
+                try:
+                    out[i, j] = np.linalg.solve(mats[i, j], rhs[i, j, :, 0])
+                except np.linalg.LinAlgError:
+                    pass
+        return out
+
+
+def optimise_states(model, x0, n_iter: int = 40) -> tuple:
+    """:func:`optimise_state` of many independent starts ``x0`` (S, ndim), all advanced together.
+
+    Each start keeps its own damping, its own forward-difference steps and its own stopping rule,
+    exactly as in :func:`optimise_state` (the slow reference, one start at a time): per iteration
+    the Jacobians of all active starts are one batched model evaluation and their damped trial
+    steps (:data:`LM_DAMPING_TRIALS`) another, so the model's fixed cost per call is paid once per
+    iteration instead of once per start (Marquardt 1963, J. SIAM 11, 431). A start leaves the batch
+    when it stops. The jitter is set at the end on the same grid, with the shape magnitudes computed
+    once per start (:meth:`tumble.model.PhysicalModel.jitter_log_likelihood`). Returns
+    ``(x (S, ndim), log_likelihood (S,))``.
+    """
+    sp = model.space
+    names = sp.names
+    ij = names.index("ln_jitter_mag")
+    x0 = np.asarray(x0, float)
+    if x0.size == 0:
+        return np.empty((0, sp.ndim)), np.empty(0)
+    x = sp.wrap(np.atleast_2d(x0).copy())
+    n_s = len(x)
+    free, _ = jacobian_free_steps(sp, x[0])
+    free = np.asarray(free)
+    d = len(free)
+    steps = np.array([jacobian_free_steps(sp, xi)[1] for xi in x])  # (S, d), fixed at the start
+    r0 = batched_whitened_residuals(model, x)
+    c0 = np.sum(r0 * r0, axis=1)
+    lam = np.full(n_s, 1e-2)
+    active = np.ones(n_s, bool)
+    factors = np.asarray(LM_DAMPING_TRIALS)
+    n_l = len(factors)
+    for _ in range(n_iter):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        a = idx.size
+        pts = np.repeat(x[idx], d, axis=0).reshape(a, d, -1)
+        pts[:, np.arange(d), free] += steps[idx]
+        rj = batched_whitened_residuals(model, pts.reshape(a * d, -1)).reshape(a, d, -1)
+        jt = (rj - r0[idx, None, :]) / steps[idx, :, None]  # (A, d, n): the Jacobian transposed
+        h = jt @ np.swapaxes(jt, 1, 2)
+        g = (jt @ r0[idx, :, None])[..., 0]
+        lams = lam[idx, None] * factors[None, :]
+        trial = _damped_steps(h, g, lams)  # (A, L, d)
+        tx = np.repeat(x[idx], n_l, axis=0).reshape(a, n_l, -1)
+        tx[:, :, free] += trial
+        rt = batched_whitened_residuals(model, tx.reshape(a * n_l, -1)).reshape(a, n_l, -1)
+        ct = np.sum(rt * rt, axis=2)
+        k = np.argmin(ct, axis=1)
+        ck = ct[np.arange(a), k]
+        better = ck < c0[idx]
+        for j in np.flatnonzero(better):
+            i = idx[j]
+            improvement = c0[i] - ck[j]
+            x[i] = sp.wrap(tx[j, k[j]][None])[0]
+            r0[i], c0[i], lam[i] = rt[j, k[j]], ck[j], max(lams[j, k[j]], 1e-8)
+            if improvement < 1e-6 * max(c0[i], 1.0):
+                active[i] = False
+        for j in np.flatnonzero(~better):
+            i = idx[j]
+            lam[i] *= 100.0
+            if lam[i] > 1e8:
+                active[i] = False
+    # best jitter on the reference's grid, then the full likelihood
+    grid = np.linspace(sp.lows[ij], sp.highs[ij], JITTER_GRID_POINTS)
+    ll = model.jitter_log_likelihood(x, grid)
+    best = np.argmax(ll, axis=1)
+    x[:, ij] = grid[best]
+    return x, ll[np.arange(n_s), best]
 
 
 def random_orientations(space, base: dict, n, rng) -> np.ndarray:
@@ -369,11 +489,12 @@ def fit_rotation_state(lc, evidence: EvidenceResult, hypothesis: str, *, rng=Non
         xs = np.concatenate(starts)
         ll = model(xs)
         top = np.argsort(-ll)[:3]
+        # the three best starts refined together (optimise_states: each as optimise_state alone)
+        fitted, values = optimise_states(model, xs[top])
         best_x, best_ll = None, -np.inf
-        for i in top:
-            x, v = optimise_state(model, xs[i])
+        for x, v in zip(fitted, values):
             if v > best_ll:
-                best_x, best_ll = x, v
+                best_x, best_ll = x, float(v)
         results["PA"] = (best_ll, best_x, model, ())
         chosen = "PA"
         solutions = ()

@@ -22,11 +22,14 @@ enumeration (:func:`search_solutions`):
 5. **Physical fit** of each kept pair in each mode whose dynamics can give its period ratio, with a
    fixed budget (:class:`FitBudget`) and deterministic, well-spread starts: stratified shapes
    (:func:`shape_solutions`) x quasi-uniform orientations (:func:`spread_orientations`, shifted per
-   pair by :func:`pair_shift`), short and full Levenberg-Marquardt
-   (:func:`tumble.classify.rotation.optimise_state`), a wider budget in two attempts for the best
-   screened pairs; then shape restarts and fresh fits of the pairs (:func:`refit_pairs`) of the best
-   distinct states, and more rounds of restarts for the solutions near the best
-   (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed.
+   pair by :func:`pair_shift`), short and full Levenberg-Marquardt, a wider budget in two attempts
+   for the best screened pairs; then shape restarts and fresh fits of the pairs (:func:`refit_pairs`)
+   of the best distinct states, and more rounds of restarts for the solutions near the best
+   (:func:`polish_solutions`). No random draw: the solutions do not depend on a seed. The fits of
+   one stage and mode run as one batch (:func:`fit_pairs`, :func:`restart_optima`): every start is
+   advanced by :func:`tumble.classify.rotation.optimise_states`, one model call per iteration for
+   all of them, each start taking the steps it would take alone
+   (:func:`tumble.classify.rotation.optimise_state`, the reference).
 6. **Solutions** (:func:`collect_solutions`): optima with the same mode and periods (within
    :data:`SAME_SOLUTION_CYCLES` cycles per span in ``f_psi`` and ``f_phi``) are one solution;
    ranked by ``BIC = -2 ln L_max + k ln N`` (Schwarz 1978) of a re-fit with the inertia ratios free
@@ -46,6 +49,7 @@ ellipsoid with homogeneous inertia, so a real body can prefer a wrong lattice.
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 from dataclasses import dataclass
@@ -56,6 +60,7 @@ from tumble.classify.noise import MODEL_ERROR_FLOOR_MAG
 from tumble.classify.rotation import (
     npa_candidates,
     optimise_state,
+    optimise_states,
     thin_lightcurve,
 )
 from tumble.classify.thresholds import MIN_CYCLES
@@ -74,7 +79,7 @@ __all__ = [
     "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
     "frequency_pairs", "screened_pairs", "screen_orders", "ScreenTerms", "leading_term", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
     "shape_solutions", "shape_restarts", "constant_ratio_shapes", "pair_shift",
-    "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
+    "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "fit_pairs", "PairFit", "pair_starts", "refit_jobs", "restart_optima", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
 ]
 
 #: The NPA modes fitted (the physical model's names).
@@ -146,6 +151,11 @@ SCREEN_TERM_SETS = (
 N_SCREENED = 12
 #: The screen's light curve is thinned evenly to at most this many points (cost linear in points).
 SCREEN_MAX_POINTS = 800
+#: Pairs whose screen designs are built and solved together (800 points x 24 columns x 64 pairs: 10 MB).
+SCREEN_BLOCK_PAIRS = 64
+#: A pair whose screen normal matrix has its smallest eigenvalue below this fraction of the largest
+#: (singular values 1e-4 apart: the normal equations keep ~8 digits) is solved by plain least squares.
+SCREEN_EIGEN_RCOND = 1e-8
 #: Shortest rotation period P_psi considered, hours: below the fastest tumbler known, 2008 TC3's
 #: P_psi ~ 99 s (Scheirich et al. 2010, MAPS 45, 1804); the lattices themselves bound it in practice.
 MIN_P_PSI_H = 0.005
@@ -168,6 +178,8 @@ POLISH_DELTA_BIC = 2.0 * SOLUTION_DELTA_BIC
 #: Rounds of shape restarts of each polished solution, and at most this many solutions polished.
 POLISH_ROUNDS = 2
 N_POLISHED = 6
+#: ln of the jitter (mag) of every start: 1 mmag, below any survey's errors (the optimiser sets it at the end).
+START_LN_JITTER = math.log(1e-3)
 #: Levenberg-Marquardt iterations of a short refinement.
 SHORT_LM_ITERATIONS = 12
 #: The evidence's pair re-located on a local grid without drift: half-width and step (cycles per span).
@@ -211,11 +223,11 @@ class FitBudget:
         the best short runs of all pairs refined, the demo's KRN-007 lost its true solution).
     n_wide : int
         The best this many pairs of each screen get the wider budget below (the true pair is
-        usually among them; its fit, not its screening, was what depended on the seed). 10 with
-        12 screened (was 5 with 20): the budget of the pairs no longer screened in goes to wide fits,
-        at the same search CPU on the demo's KRN-007 (52 s against 51 s, side by side). Its true pair
-        is 11th in the SAM screen, just outside: its narrow fit reaches the true state here, but
-        missed it with 20 / 5 (docs/methods-classify.md section 5b, known limit).
+        usually among them; its fit, not its screening, was what depended on the seed). Since the
+        batched fits every screened pair (``N_SCREENED``; was 10 of 12, and 5 of 20 before): the
+        demo's KRN-007 true pair, 11th in the SAM screen, got only a narrow fit, and the wide fit of
+        CAL-dense-npa-029's true pair took it from 10/12 to 11/12 tops right on the held-out
+        half, at +12 % search CPU (docs/methods-classify.md section 5b).
     n_shapes_wide, n_short_wide, n_full_wide : int
         ``n_shapes``, ``n_short`` and ``n_full`` of those pairs.
     n_attempts_wide : int
@@ -230,7 +242,7 @@ class FitBudget:
     n_orientations: int = 48
     n_short: int = 2
     n_full: int = 1
-    n_wide: int = 10
+    n_wide: int = N_SCREENED
     n_shapes_wide: int = 8
     n_short_wide: int = 4
     n_full_wide: int = 2
@@ -613,6 +625,24 @@ def _screen_design(t, tau, pair, screen: ScreenTerms, f_lead_per_d: float) -> np
     return np.hstack([cols] + [lead * p[:, None] for p in legendre_drift(tau, screen.drift_degree)])
 
 
+def _screen_design_batch(t, tau, f_psi, f_phi, screen: ScreenTerms, f_lead_per_d: float) -> np.ndarray:
+    """:func:`_screen_design` of many pairs at once (frequencies ``(P,)`` c/d), shape ``(P, n, columns)``."""
+    n_phi = np.array([a for a, _ in screen.terms], float)
+    n_psi = np.array([b for _, b in screen.terms], float)
+    freq = n_phi[None, :] * f_phi[:, None] + n_psi[None, :] * f_psi[:, None]  # (P, T)
+    blocks = []
+    arg = (2.0 * np.pi) * freq[:, None, :] * t[None, :, None]  # (P, n, T)
+    blocks += [np.cos(arg), np.sin(arg)]
+    if screen.drift_degree > 0 and np.isfinite(f_lead_per_d):
+        # the leading term of each pair (leading_term: the first on ties, as argmin)
+        lead = freq[np.arange(len(freq)), np.argmin(np.abs(np.abs(freq) - f_lead_per_d), axis=1)]
+        arg1 = (2.0 * np.pi) * lead[:, None] * t[None, :]
+        c1, s1 = np.cos(arg1), np.sin(arg1)
+        for p in legendre_drift(tau, screen.drift_degree):
+            blocks += [(c1 * p[None, :])[..., None], (s1 * p[None, :])[..., None]]
+    return np.concatenate(blocks, axis=2)
+
+
 def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_d: float = math.nan) -> np.ndarray:
     """Chi-square of a screen's series at each pair (zero-points free), shape (len(pairs),).
 
@@ -626,8 +656,12 @@ def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_
         The light curve's strongest frequency, c/d (the evidence's ``f1``): the screen term nearest it
         gets the drift columns (:attr:`ScreenTerms.drift_degree`); NaN: no drift.
 
-    Fast route: the whitened nuisance columns are projected out once (QR), then each pair solves
-    only its own normal equations. :func:`screen_chi2_reference` is the plain least squares.
+    Fast route: the whitened nuisance columns are projected out once (QR); then, for blocks of
+    :data:`SCREEN_BLOCK_PAIRS` pairs at once, the normal equations of the projected series are
+    solved through their eigen-decomposition and the chi-square is
+    that of the residual itself; a pair whose normal matrix is ill-conditioned (below
+    :data:`SCREEN_EIGEN_RCOND`) gets the plain least squares. :func:`screen_chi2_reference` is the
+    plain least squares per pair with the nuisance columns in the design.
     """
     t, tau = _screen_time(lc)
     w = 1.0 / np.hypot(np.asarray(lc.err, float), MODEL_ERROR_FLOOR_MAG)
@@ -637,13 +671,28 @@ def screen_chi2(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0], f_lead_per_
     y = np.asarray(lc.reduced_mag, float) * w
     yp = y - q @ (q.T @ y)
     base = float(yp @ yp)
+    f_psi = np.array([p.f_psi_per_d for p in pairs], float)
+    f_phi = np.array([p.f_phi_per_d for p in pairs], float)
     out = np.empty(len(pairs))
-    for i, p in enumerate(pairs):
-        f = _screen_design(t, tau, p, terms, f_lead_per_d) * w[:, None]
-        fp = f - q @ (q.T @ f)
-        coef, *_ = np.linalg.lstsq(fp, yp, rcond=None)
-        r = yp - fp @ coef
-        out[i] = float(r @ r) if np.isfinite(base) else math.nan
+    for i0 in range(0, len(pairs), SCREEN_BLOCK_PAIRS):
+        sl = slice(i0, i0 + SCREEN_BLOCK_PAIRS)
+        f = _screen_design_batch(t, tau, f_psi[sl], f_phi[sl], terms, f_lead_per_d) * w[None, :, None]
+        fp = f - q[None] @ (q.T[None] @ f)  # (B, n, c)
+        fpt = np.swapaxes(fp, 1, 2)
+        g = fpt @ fp
+        b = (fpt @ yp[None, :, None])[..., 0]
+        lam, vec = np.linalg.eigh(g)
+        inv = 1.0 / np.where(lam > 0, lam, 1.0)
+        coef = (vec @ (inv[..., None] * (np.swapaxes(vec, 1, 2) @ b[..., None])))[..., 0]
+        r = yp[None, :] - (fp @ coef[..., None])[..., 0]
+        chi2 = np.sum(r * r, axis=1)
+        # the normal equations square the condition number: ill-conditioned pairs (terms that nearly
+        # coincide, or slow terms the nightly zero-points absorb) get the plain least squares
+        for j in np.flatnonzero(~(lam[:, 0] > SCREEN_EIGEN_RCOND * lam[:, -1])):
+            coef_j, *_ = np.linalg.lstsq(fp[j], yp, rcond=None)
+            rj = yp - fp[j] @ coef_j
+            chi2[j] = float(rj @ rj)
+        out[sl] = chi2 if np.isfinite(base) else math.nan
     return out
 
 
@@ -679,12 +728,11 @@ def screen_chi2_reference(lc, pairs, terms: ScreenTerms = SCREEN_TERM_SETS[0],
 # -- 5: the physical fit --------------------------------------------------------------------------------
 
 
-def constant_ratio_shapes(mode, ratio) -> list:
-    """Every ellipsoid of a grid of axis ratios with its excitation ``u`` giving ``P_phi/P_psi = ratio`` in ``mode``.
-
-    Returns ``[(a_over_b, b_over_c, u), ...]`` (one root in ``u`` per shape of a 14 x 10 grid; closed-form
-    periods of :func:`tumble.dynamics.periods_unit_momentum`); empty when the mode cannot give the ratio.
-    """
+@functools.lru_cache(maxsize=4)
+def _ratio_table(mode: str) -> tuple:
+    """``(a_over_b (S,), b_over_c (S,), u (U,), ratio (S, U))``: ``P_phi/P_psi`` over the grid of
+    :func:`constant_ratio_shapes` (NaN where the state is not of ``mode``); it does not depend on the
+    ratio sought, so it is computed once per mode (read only)."""
     from tumble.dynamics import periods_unit_momentum
     from tumble.model import _inertia_from_ratios
 
@@ -701,15 +749,29 @@ def constant_ratio_shapes(mode, ratio) -> list:
     ok = (np.abs(idd - i2[:, None]) > 2e-3) & (idd < 1.0)
     idd = np.where(ok, idd, 0.5 * (i1 + i2)[:, None] if mode == "LAM" else 0.5 * (i2 + 1)[:, None])
     pp, pf = periods_unit_momentum(np.broadcast_to(i1[:, None], idd.shape), np.broadcast_to(i2[:, None], idd.shape), idd)
-    r = np.where(ok, np.asarray(pf) / np.asarray(pp), np.nan) - ratio
+    table = np.where(ok, np.asarray(pf) / np.asarray(pp), np.nan)
+    for arr in (a_grid, b_grid, u, table):
+        arr.setflags(write=False)
+    return a_grid, b_grid, u, table
+
+
+def constant_ratio_shapes(mode, ratio) -> list:
+    """Every ellipsoid of a grid of axis ratios with its excitation ``u`` giving ``P_phi/P_psi = ratio`` in ``mode``.
+
+    Returns ``[(a_over_b, b_over_c, u), ...]`` (one root in ``u`` per shape of a 14 x 10 grid; closed-form
+    periods of :func:`tumble.dynamics.periods_unit_momentum`, tabulated once per mode by
+    :func:`_ratio_table`); empty when the mode cannot give the ratio.
+    """
+    a_grid, b_grid, u, table = _ratio_table(str(mode))
+    r = table - ratio
+    sign = np.sign(r)
+    cross = np.isfinite(r[:, :-1]) & np.isfinite(r[:, 1:]) & (sign[:, :-1] * sign[:, 1:] < 0)
     sols = []
-    for s in range(len(a_grid)):
+    for s in np.flatnonzero(cross.any(axis=1)):
+        j = int(np.argmax(cross[s]))  # the first crossing of each shape
         rs = r[s]
-        sign = np.sign(rs)
-        idx = np.flatnonzero(np.isfinite(rs[:-1]) & np.isfinite(rs[1:]) & (sign[:-1] * sign[1:] < 0))
-        for j in idx[:1]:
-            uu = u[j] - rs[j] * (u[j + 1] - u[j]) / (rs[j + 1] - rs[j])
-            sols.append((float(a_grid[s]), float(b_grid[s]), float(uu)))
+        uu = u[j] - rs[j] * (u[j + 1] - u[j]) / (rs[j + 1] - rs[j])
+        sols.append((float(a_grid[s]), float(b_grid[s]), float(uu)))
     return sols
 
 
@@ -841,9 +903,97 @@ def npa_models(sub, span_h: float, *, student_t: bool = False) -> dict:
             for mode in NPA_MODES}
 
 
+@dataclass(frozen=True)
+class PairFit:
+    """One physical fit of the search: a frequency pair, its budget tier and its start set.
+
+    Attributes
+    ----------
+    pair : FrequencyPair
+    wide : bool
+        The wider budget of the best screened pairs (:class:`FitBudget`).
+    index : int
+        The fit's place in the search: offsets the shapes' Halton points and shifts the orientation
+        set (:func:`pair_shift`), so near-duplicate pairs and repeated attempts get other starts.
+    """
+
+    pair: FrequencyPair
+    wide: bool = False
+    index: int = 0
+
+
+def pair_starts(model, mode: str, job: PairFit, budget: FitBudget, rng=None) -> list:
+    """The starts of one fit (:func:`fit_pair`): the best orientation of each well-spread shape, best
+    ``n_short`` of them first, as ``(ndim,)`` vectors; empty when the mode cannot give the period ratio."""
+    pair = job.pair
+    n_shapes = budget.n_shapes_wide if job.wide else budget.n_shapes
+    n_short = budget.n_short_wide if job.wide else budget.n_short
+    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, n_pick=n_shapes, start=job.index * n_shapes)
+    if not shapes:
+        return []
+    blocks = []
+    for ab, bc, u in shapes:
+        base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
+                "ln_jitter_mag": START_LN_JITTER}
+        n_att = _attitude_dim(model.space, base)
+        blocks.append(spread_orientations(model.space, base, budget.n_orientations,
+                                          shift=np.mod(pair_shift(job.index, n_att) + orientation_shift(rng, n_att), 1.0)))
+    # every shape's orientations in one model call (per row: one refused state voids only itself)
+    ll = model.jitter_log_likelihood(np.concatenate(blocks), [START_LN_JITTER])[:, 0].reshape(len(blocks), -1)
+    starts = []
+    for xs, lls in zip(blocks, ll):
+        j = int(np.argmax(lls))
+        starts.append((float(lls[j]), xs[j]))
+    starts.sort(key=lambda e: -e[0])
+    return [x0 for _, x0 in starts[:n_short]]
+
+
+def fit_pairs(model, mode: str, jobs, budget: FitBudget, rng=None) -> list:
+    """The physical fits of many frequency pairs in one mode, batched: one :class:`Optimum` (or None) per job.
+
+    Each job is :func:`fit_pair`'s procedure: ``n_shapes`` well-spread ellipsoids with the pair's
+    period ratio (:func:`shape_solutions`) x ``n_orientations`` quasi-uniform orientations
+    (:func:`spread_orientations`); the best start of each of the ``n_short`` best shapes gets a
+    short Levenberg-Marquardt run, the best ``n_full`` of those a full one, and the best result is
+    returned (None when the mode cannot give the period ratio; ``job.wide``: the wider budget).
+    The short runs of all jobs are one batched optimisation
+    (:func:`tumble.classify.rotation.optimise_states`, every start advanced with its own damping),
+    and the full runs another, so the model's fixed cost per call is shared; each start takes the
+    same steps as it would alone (:func:`tumble.classify.rotation.optimise_state`, the reference).
+    """
+    jobs = list(jobs)
+    starts = [pair_starts(model, mode, job, budget, rng) for job in jobs]
+    owner = np.concatenate([np.full(len(st), j, int) for j, st in enumerate(starts)] + [np.empty(0, int)])
+    if owner.size == 0:
+        return [None] * len(jobs)
+    xs, lls = optimise_states(model, np.concatenate([np.asarray(st, float).reshape(-1, model.space.ndim)
+                                                    for st in starts if st]), n_iter=SHORT_LM_ITERATIONS)
+    # per job: its short runs, best first (stable, as a sort of the reference's list), the best n_full go on
+    chosen = []
+    for j, job in enumerate(jobs):
+        rows = np.flatnonzero(owner == j)
+        rows = rows[np.argsort(-lls[rows], kind="stable")]
+        n_full = budget.n_full_wide if job.wide else budget.n_full
+        chosen.append((rows[:max(n_full, 1)], n_full > 0))
+    full_rows = np.concatenate([r for r, full in chosen if full] + [np.empty(0, int)])
+    fx, fl = optimise_states(model, xs[full_rows]) if full_rows.size else (np.empty((0, model.space.ndim)), np.empty(0))
+    refined = {int(r): (fx[i], float(fl[i])) for i, r in enumerate(full_rows)}
+    out = []
+    for job, (rows, full) in zip(jobs, chosen):
+        best = None
+        for r in rows:
+            opt = Optimum(mode, xs[r], float(lls[r]), job.pair)
+            if full and refined[int(r)][1] > opt.log_likelihood:
+                opt = Optimum(mode, refined[int(r)][0], refined[int(r)][1], job.pair)
+            if best is None or opt.log_likelihood > best.log_likelihood:
+                best = opt
+        out.append(best)
+    return out
+
+
 def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng=None, *, wide: bool = False,
              index: int = 0) -> Optimum | None:
-    """The physical fit of one frequency pair in one mode under a fixed budget.
+    """The physical fit of one frequency pair in one mode under a fixed budget (:func:`fit_pairs` of one job).
 
     ``budget.n_shapes`` well-spread ellipsoids with the pair's period ratio (:func:`shape_solutions`)
     x ``budget.n_orientations`` quasi-uniform orientations (:func:`spread_orientations`); the best
@@ -855,35 +1005,11 @@ def fit_pair(model, mode: str, pair: FrequencyPair, budget: FitBudget, rng=None,
     (:func:`pair_shift`), so near-duplicate pairs do not all get the same starts. ``rng`` (optional)
     only adds a random shift (:func:`orientation_shift`); without it the fit is deterministic.
     """
-    n_shapes = budget.n_shapes_wide if wide else budget.n_shapes
-    n_short = budget.n_short_wide if wide else budget.n_short
-    n_full = budget.n_full_wide if wide else budget.n_full
-    shapes = shape_solutions(mode, pair.f_psi_per_d / pair.f_phi_per_d, n_pick=n_shapes, start=index * n_shapes)
-    if not shapes:
-        return None
-    starts = []
-    for ab, bc, u in shapes:
-        base = {"p_psi_h": 24.0 / pair.f_psi_per_d, "excitation_u": u, "a_over_b": ab, "b_over_c": bc,
-                "ln_jitter_mag": math.log(1e-3)}
-        n_att = _attitude_dim(model.space, base)
-        xs = spread_orientations(model.space, base, budget.n_orientations,
-                                 shift=np.mod(pair_shift(index, n_att) + orientation_shift(rng, n_att), 1.0))
-        ll = model(xs)
-        j = int(np.argmax(ll))
-        starts.append((float(ll[j]), xs[j]))
-    starts.sort(key=lambda e: -e[0])
-    short = [optimise_state(model, x0, n_iter=SHORT_LM_ITERATIONS) for _, x0 in starts[:n_short]]
-    short.sort(key=lambda e: -e[1])
-    best = None
-    for x0, v0 in short[:max(n_full, 1)]:
-        opt = refine_fully(model, Optimum(mode, x0, float(v0), pair)) if n_full > 0 else Optimum(mode, x0, float(v0), pair)
-        if best is None or opt.log_likelihood > best.log_likelihood:
-            best = opt
-    return best
+    return fit_pairs(model, mode, [PairFit(pair, wide, index)], budget, rng)[0]
 
 
-def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_index: int = 0) -> list:
-    """Fresh fits of the frequency pairs that led to the best distinct solutions of a mode.
+def refit_jobs(tops, *, first_index: int = 0) -> list:
+    """The fresh wide fits (:class:`PairFit`) of the pairs behind the best distinct solutions of a mode.
 
     A solution near the top of its mode may sit in a poor optimum of the right pair (its fit drifted
     in shape or attitude; measured on the demo's KRN-007: the true pair's single fit reached ln L 754
@@ -891,13 +1017,14 @@ def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_in
     pair gets :data:`N_REFIT_ATTEMPTS` more fits with the wide budget from start sets not used
     before (indices from ``first_index`` on).
     """
-    out = []
-    for j, opt in enumerate(tops):
-        for k in range(N_REFIT_ATTEMPTS):
-            o = fit_pair(model, mode, opt.pair, budget, rng, wide=True, index=first_index + j * N_REFIT_ATTEMPTS + k)
-            if o is not None:
-                out.append(o)
-    return out
+    return [PairFit(opt.pair, True, first_index + j * N_REFIT_ATTEMPTS + k)
+            for j, opt in enumerate(tops) for k in range(N_REFIT_ATTEMPTS)]
+
+
+def refit_pairs(model, mode: str, tops, budget: FitBudget, rng=None, *, first_index: int = 0) -> list:
+    """Fresh wide fits of the frequency pairs that led to the best distinct solutions of a mode
+    (:func:`refit_jobs`, fitted together by :func:`fit_pairs`); the fits that exist."""
+    return [o for o in fit_pairs(model, mode, refit_jobs(tops, first_index=first_index), budget, rng) if o is not None]
 
 
 def refine_fully(model, opt: Optimum) -> Optimum:
@@ -906,17 +1033,45 @@ def refine_fully(model, opt: Optimum) -> Optimum:
     return Optimum(opt.mode, x, float(v), opt.pair) if v > opt.log_likelihood else opt
 
 
+def restart_optima(model, opts, rng=None, round_index: int = 0, indices=None) -> list:
+    """:func:`restart_optimum` of several fitted states of one model, their restarts optimised together.
+
+    ``indices``: each state's start-set index (default ``0, 1, ...``). The short runs of all restarts
+    are one batched optimisation (:func:`tumble.classify.rotation.optimise_states`), the full runs of
+    the best :data:`N_RESTART_LM` of each state another. Returns one optimum per state (the state
+    itself when no restart beats it).
+    """
+    opts = list(opts)
+    if not opts:
+        return []
+    indices = list(range(len(opts))) if indices is None else list(indices)
+    starts = [shape_restarts(model, o.mode, o.x, rng, round_index, i) for o, i in zip(opts, indices)]
+    owner = np.concatenate([np.full(len(st), j, int) for j, st in enumerate(starts)])
+    xs, lls = optimise_states(model, np.concatenate([np.asarray(st, float) for st in starts]),
+                              n_iter=SHORT_LM_ITERATIONS)
+    best_rows = []
+    for j in range(len(opts)):
+        rows = np.flatnonzero(owner == j)
+        best_rows.append(rows[np.argsort(-lls[rows], kind="stable")][:N_RESTART_LM])
+    fx, fl = optimise_states(model, xs[np.concatenate(best_rows)])
+    out, at = [], 0
+    for opt, rows in zip(opts, best_rows):
+        best = opt
+        for i in range(at, at + len(rows)):
+            if fl[i] > best.log_likelihood:
+                best = Optimum(opt.mode, fx[i], float(fl[i]), opt.pair)
+        at += len(rows)
+        out.append(best)
+    return out
+
+
 def restart_optimum(model, opt: Optimum, rng=None, round_index: int = 0, index: int = 0) -> Optimum:
-    """The best of the shape restarts (:func:`shape_restarts`, round ``round_index``) of a fitted state, or the state."""
-    starts = shape_restarts(model, opt.mode, opt.x, rng, round_index, index)
-    short = [optimise_state(model, x1, n_iter=SHORT_LM_ITERATIONS) for x1 in starts]
-    short.sort(key=lambda e: -e[1])
-    best = opt
-    for x1, _ in short[:N_RESTART_LM]:
-        x, v = optimise_state(model, x1)
-        if v > best.log_likelihood:
-            best = Optimum(opt.mode, x, float(v), opt.pair)
-    return best
+    """The best of the shape restarts (:func:`shape_restarts`, round ``round_index``) of a fitted state, or the state.
+
+    The restarts get a short Levenberg-Marquardt run each, the best :data:`N_RESTART_LM` a full one
+    (:func:`restart_optima` of one state).
+    """
+    return restart_optima(model, [opt], rng, round_index, [index])[0]
 
 
 # -- 6: solutions ---------------------------------------------------------------------------------
@@ -1134,11 +1289,13 @@ def _frequency_shift_cycles(model, x0, x1, span_d: float) -> float:
     return max(abs(f1[0] - f0[0]), abs(f1[1] - f0[1])) * span_d
 
 
-def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float) -> Optimum:
+def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float, refitted=None) -> Optimum:
     """One solution scored under a ranking rule: re-fitted in ``target`` and/or polished, never worse.
 
     The state moves to ``target``'s parameters (:func:`transfer_state`); where the rule's model
-    differs from the search's, a full Levenberg-Marquardt run refits it; with ``rule.polish`` the
+    differs from the search's, a full Levenberg-Marquardt run refits it (``refitted``: that run's
+    result, already computed with the other solutions' by
+    :func:`tumble.classify.rotation.optimise_states`); with ``rule.polish`` the
     state is carried to the top of its own mode (:func:`tumble.inference.local.polish_mode` in the
     model's sampling chart, the step the sampler takes before sampling). A step is kept only if it
     raises ``ln L`` and leaves ``f_psi`` and ``f_phi`` within :data:`SAME_SOLUTION_CYCLES` per span
@@ -1149,7 +1306,10 @@ def rank_optimum(opt: Optimum, source, target, rule: RankingRule, span_d: float)
     if not np.isfinite(ll):
         return Optimum(opt.mode, x, ll, opt.pair)
     if rule.refits:
-        x, ll = _ranking_step(target, _refit_proposal, x, ll, span_d)
+        if refitted is None:
+            x, ll = _ranking_step(target, _refit_proposal, x, ll, span_d)
+        else:
+            x, ll = _accept_step(target, x, ll, np.asarray(refitted, float), span_d)
     if rule.polish:
         x, ll = _ranking_step(target, _polish_proposal, x, ll, span_d)
     return Optimum(opt.mode, x, ll, opt.pair)
@@ -1172,16 +1332,37 @@ def _ranking_step(model, propose, x, ll: float, span_d: float) -> tuple:
     lowers ``ln L`` or moves the frequencies to another solution (beyond :data:`SAME_SOLUTION_CYCLES`)."""
     try:
         with np.errstate(all="ignore"):
-            x1 = model.space.wrap(np.asarray(propose(model, x), float))
+            x1 = np.asarray(propose(model, x), float)
+    except (TumbleError, np.linalg.LinAlgError, ValueError):
+        return x, ll
+    return _accept_step(model, x, ll, x1, span_d)
+
+
+def _accept_step(model, x, ll: float, x1, span_d: float) -> tuple:
+    """``(x1, ln L(x1))`` when the proposed ``x1`` raises ``ln L`` and stays the same solution, else ``(x, ll)``."""
+    try:
+        with np.errstate(all="ignore"):
+            x1 = model.space.wrap(np.asarray(x1, float))
         v1 = float(model(x1[None])[0])
     except (TumbleError, np.linalg.LinAlgError, ValueError):
         return x, ll
     if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(model, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
         return x1, v1
     return x, ll
-    if np.isfinite(v1) and v1 > ll and _frequency_shift_cycles(model, x, x1, span_d) <= SAME_SOLUTION_CYCLES:
-        return x1, v1
-    return x, ll
+
+
+def batched_refits(chosen, models: dict, targets: dict) -> dict:
+    """The ranking re-fits of the ``chosen`` optima, one batched Levenberg-Marquardt per mode
+    (:func:`tumble.classify.rotation.optimise_states` from each state moved to its target model by
+    :func:`transfer_state`): optimum -> refitted state in the target's parameters."""
+    out = {}
+    for mode in dict.fromkeys(o.mode for o in chosen):
+        group = [o for o in chosen if o.mode == mode]
+        xs = np.array([transfer_state(o.x, models[mode], targets[mode]) for o in group])
+        with np.errstate(all="ignore"):
+            fitted, _ = optimise_states(targets[mode], xs)
+        out.update(zip(group, fitted))
+    return out
 
 
 def ranking_rule(name: str) -> RankingRule:
@@ -1212,7 +1393,9 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
     for opt in distinct:
         seen[opt.mode] = seen.get(opt.mode, 0) + 1
         (chosen if seen[opt.mode] <= N_RANKED_PER_MODE else rest).append(opt)
-    scored = {opt: rank_optimum(opt, models[opt.mode], targets[opt.mode], rule, span_d) for opt in chosen}
+    refits = batched_refits(chosen, models, targets) if rule.refits else {}
+    scored = {opt: rank_optimum(opt, models[opt.mode], targets[opt.mode], rule, span_d, refits.get(opt))
+              for opt in chosen}
     scored = {o: r for o, r in scored.items() if np.isfinite(r.log_likelihood)}
     if not rule.refits:
         return collect_solutions(list(scored.values()) + rest, models, span_d, evidence=rule.evidence)
@@ -1226,7 +1409,7 @@ def rank_solutions(optima, models: dict, lc, rule: RankingRule = RANKING_RULES[D
 
 
 __all__ += ["RankingRule", "RANKING_RULES", "DEFAULT_RANKING", "N_RANKED_PER_MODE", "bic", "solution_criterion",
-            "solution_optimum", "transfer_state", "ranking_models", "rank_optimum", "ranking_rule", "rank_solutions"]
+            "solution_optimum", "transfer_state", "ranking_models", "rank_optimum", "batched_refits", "ranking_rule", "rank_solutions"]
 
 
 def polish_solutions(optima, models, span_d: float, rng=None) -> list:
@@ -1240,12 +1423,13 @@ def polish_solutions(optima, models, span_d: float, rng=None) -> list:
         return []
     best_ll = distinct[0].log_likelihood
     near = [o for o in distinct if 2.0 * (best_ll - o.log_likelihood) <= POLISH_DELTA_BIC][:N_POLISHED]
-    out = []
-    for i, opt in enumerate(near):
-        for r in range(POLISH_ROUNDS):
-            opt = restart_optimum(models[opt.mode], opt, rng, round_index=1 + r, index=i)
-        out.append(opt)
-    return out
+    for r in range(POLISH_ROUNDS):
+        # the solutions of one mode restart together (:func:`restart_optima`); solution i keeps its index
+        for mode in dict.fromkeys(o.mode for o in near):
+            idx = [i for i, o in enumerate(near) if o.mode == mode]
+            for i, o in zip(idx, restart_optima(models[mode], [near[i] for i in idx], rng, 1 + r, idx)):
+                near[i] = o
+    return near
 
 
 def screen_orders(lc, pairs, n_per_screen: int, f_lead_per_d: float = math.nan) -> list:
@@ -1307,20 +1491,21 @@ def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget 
     kept = [pairs[i] for i in union_by_rank(orders, budget.n_screened)]
     # the best budget.n_wide of each screen (a prefix of kept) get the wider fit
     n_wide = len(union_by_rank(orders, min(budget.n_wide, budget.n_screened)))
+    # every fit of one mode in one batch (fit_pairs); attempt k of pair i starts from other points:
+    # index i + k len(kept) is no other pair's
+    jobs = [PairFit(pair, i < n_wide, i + k * len(kept))
+            for i, pair in enumerate(kept) for k in range(budget.n_attempts_wide if i < n_wide else 1)]
+    fitted = {mode: fit_pairs(model, mode, jobs, budget, rng) for mode, model in models.items()}
     optima = []
-    for i, pair in enumerate(kept):
-        wide = i < n_wide
-        for mode, model in models.items():
-            # attempt k of pair i starts from other points: index i + k len(kept) is no other pair's
-            tries = [fit_pair(model, mode, pair, budget, rng, wide=wide, index=i + k * len(kept))
-                     for k in range(budget.n_attempts_wide if wide else 1)]
-            tries = [o for o in tries if o is not None]
+    for i in range(len(kept)):
+        for mode in models:
+            tries = [o for job, o in zip(jobs, fitted[mode]) if job.pair is kept[i] and o is not None]
             if tries:
                 optima.append(max(tries, key=lambda o: o.log_likelihood))
     n_fits = len(optima)
     for mode, model in models.items():
         tops = distinct_optima([o for o in optima if o.mode == mode], models, lc.span_d)[:N_RESTART_TOP]
-        optima += [restart_optimum(model, o, rng, index=i) for i, o in enumerate(tops)]
+        optima += restart_optima(model, tops, rng)
         optima += refit_pairs(model, mode, tops, budget, rng, first_index=budget.n_attempts_wide * len(kept))
     optima += polish_solutions(optima, models, lc.span_d, rng)
     listed, best_by_mode, distinct = rank_solutions(optima, models, lc, ranking_rule(ranking))
