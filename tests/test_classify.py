@@ -134,6 +134,38 @@ def test_unconverged_state_posterior_caps_the_grade(pa_evidence):
     assert v3.mode == "unknown"  # SAM and LAM not told apart (issue 19: "unknown", not "none")
 
 
+def test_other_directions_of_l_widen_the_verdicts_period_intervals(pa_evidence):
+    # one apparition rarely fixes the angular momentum's direction, and another direction reads the
+    # same light curve at other periods (the synodic effect; common practice for PA poles): when the
+    # top solution lists other directions that fit as well, the verdict's intervals hold its intervals
+    # (which cover them) and a warning says so; with one direction nothing changes
+    import numpy as np
+
+    from tumble.classify.solutions import Solution
+
+    lc, ev = pa_evidence
+    npa = replace(ev, ln_bayes_factor=40.0, f1_npa_per_d=6.6, f2_per_d=1.6, f1_npa_sigma_per_d=1e-4,
+                  f2_sigma_per_d=1e-4, npa_window_mass=1.0, window_disagreement=False)
+    derived = {k: (1.0, 0.9, 1.1) for k in ("excitation", "a_over_b", "b_over_c", "l_lon_deg", "l_lat_deg")}
+    derived.update(p_psi_h=(30.0, 29.9, 30.1), p_phi_h=(3.33, 3.32, 3.34))
+    sol = Solution(mode="SAM", p_psi_h=30.0, p_psi_interval_h=(29.5, 30.2), p_phi_h=3.33,
+                   p_phi_interval_h=(3.30, 3.335), log_likelihood=100.0, criterion=-150.0, delta=0.0,
+                   relative_probability=1.0, log_evidence_laplace=60.0, n_parameters=9, n_points=100,
+                   state=np.zeros(9), candidate=(), source="test", n_poles=3)
+    fit = RotationFit(mode="SAM", max_log_likelihood={"SAM": 100.0, "LAM": 50.0}, best={},
+                      candidate=("SAM", 0.6, 7.2, (0, 1), (1, 1)), posterior=object(), derived=derived,
+                      converged=True, reasons=(), n_points_fitted=100, geometry_note="from the data",
+                      solutions=(sol,))
+    v = decide(npa, span_d=lc.span_d, fit=fit)
+    assert v.rotation == "NPA"
+    assert (v.p_psi_h_lo, v.p_psi_h_hi) == pytest.approx((29.5, 30.2))
+    assert (v.p_phi_h_lo, v.p_phi_h_hi) == pytest.approx((3.30, 3.34))
+    assert any("3 directions of the angular momentum fit as well" in w for w in v.warnings)
+    one = decide(npa, span_d=lc.span_d, fit=replace(fit, solutions=(replace(sol, n_poles=1),)))
+    assert (one.p_phi_h_lo, one.p_phi_h_hi) == pytest.approx((3.32, 3.34))
+    assert not any("directions of the angular momentum" in w for w in one.warnings)
+
+
 def test_daily_alias_second_period_is_undecided(pa_evidence):
     lc, ev = pa_evidence
     npa = replace(ev, ln_bayes_factor=40.0, f1_npa_per_d=6.6, f2_per_d=1.0027, f2_sigma_per_d=1e-4,

@@ -667,16 +667,19 @@ def solutions_table_html(v: Mapping) -> str:
             iv = (f"{_e(format_value(by_name[name].display, lo))} &ndash; {_e(format_value(by_name[name].display, hi))}"
                   if _fin(lo) and _fin(hi) else "-")
             cells.append(f"<td class=\"num\">{_e(format_value(by_name[name].display, sol.get(name)))}</td><td>{iv}</td>")
-        for name in ("delta_bic", "relative_probability"):
+        for name in ("delta_bic", "relative_probability", "n_poles"):
             cells.append(f"<td class=\"num\">{_e(format_value(by_name[name].display, sol.get(name)))}</td>")
         cells.append(f"<td>{_e(sol.get('source') or '')}</td>")
         rows.append("<tr>" + "".join(cells) + "</tr>")
     head = ("<tr><th>#</th><th>mode</th><th>P_psi (h)</th><th>68 % interval (h)</th><th>P_phi (h)</th>"
-            "<th>68 % interval (h)</th><th>&Delta;BIC</th><th>relative probability</th><th>found from</th></tr>")
+            "<th>68 % interval (h)</th><th>&Delta;BIC</th><th>relative probability</th><th>L poles</th>"
+            "<th>found from</th></tr>")
     note = (f"<p class=\"note\">Every tumbling solution whose BIC (-2 ln L + k ln N of the physical ellipsoid "
             f"model re-fitted with its inertia free of the shape) lies within {SOLUTION_DELTA_BIC:g} of the best, best "
             "first; intervals from each solution's own optimum (Laplace approximation), not from a mixture of "
-            "solutions; '-' where that approximation does not constrain the period. The first is the state reported "
+            "solutions, widened to cover the other directions of the angular momentum L that fit as well ('L poles' "
+            "counts them: one apparition rarely fixes L, and each direction reads the light curve at slightly other "
+            "periods); '-' where that approximation does not constrain the period. The first is the state reported "
             "above. Scientific estimates for research use: a real body can prefer another lattice than the "
             "ellipsoid model does.</p>")
     return (f"<h2 id=\"h-solutions\">Tumbling solutions</h2><table id=\"solutions\"><thead>{head}</thead>"

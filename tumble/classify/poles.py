@@ -113,28 +113,36 @@ def other_poles(model, x, *, n_phases: int = N_POLE_PHASES) -> OtherPoles:
     """Refit a tumbling solution at ``x`` from the three other symmetric directions of its ``L``.
 
     Each direction's starts (:func:`pole_starts`) are scored by the model, the
-    :data:`N_POLE_OPTIMISED` best optimised (:func:`tumble.classify.rotation.optimise_state`), and the
+    :data:`N_POLE_OPTIMISED` best optimised together (:func:`tumble.classify.rotation.optimise_states`), and the
     best optimum kept with its periods' Laplace widths
     (:func:`tumble.classify.solutions.laplace_approximation`).
     """
-    from tumble.classify.rotation import optimise_state
+    from tumble.classify.rotation import optimise_states
     from tumble.classify.solutions import laplace_approximation
     from tumble.sparse.fit import pole_fit_spread_chi2
 
     sp = model.space
     x = sp.wrap(np.asarray(x, float))
     ll0 = float(np.asarray(model(x[None]), float)[0])
-    fits = []
-    for label, lon, lat in symmetric_directions(x[sp.index("l_lon_rad")], x[sp.index("l_lat_rad")]):
+    directions = symmetric_directions(x[sp.index("l_lon_rad")], x[sp.index("l_lat_rad")])
+    chosen, owner = [], []
+    for j, (_, lon, lat) in enumerate(directions):
         xs = pole_starts(sp, x, lon, lat, n_phases)
         ll = np.asarray(model(xs), float)
-        best_x, best_ll = None, -np.inf
-        for i in np.argsort(-ll)[:N_POLE_OPTIMISED]:
-            xo, v = optimise_state(model, xs[i])
-            if v > best_ll:
-                best_x, best_ll = xo, v
-        if best_x is None or not np.isfinite(best_ll):
+        keep = [i for i in np.argsort(-ll)[:N_POLE_OPTIMISED] if np.isfinite(ll[i])]
+        chosen += [xs[i] for i in keep]
+        owner += [j] * len(keep)
+    # every direction's starts in one batched Levenberg-Marquardt (optimise_state one at a time is
+    # its reference)
+    xo, llo = optimise_states(model, np.array(chosen)) if chosen else (np.empty((0, sp.ndim)), np.empty(0))
+    owner = np.asarray(owner, int)
+    fits = []
+    for j, (label, _, _) in enumerate(directions):
+        mine = np.flatnonzero((owner == j) & np.isfinite(llo))
+        if not len(mine):
             continue
+        k = mine[int(np.argmax(llo[mine]))]
+        best_x, best_ll = xo[k], float(llo[k])
         lap = laplace_approximation(model, best_x)
         fits.append(PoleFit(label, best_x, float(best_ll - ll0), lap.p_psi_h, lap.p_phi_h, lap.p_psi_sigma_h,
                             lap.p_phi_sigma_h, math.degrees(float(best_x[sp.index("l_lon_rad")])) % 360.0,

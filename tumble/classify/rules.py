@@ -336,10 +336,41 @@ def _npa_periods(ev, fit) -> dict:
         eppsi = 24.0 * math.hypot(ap * s1, bp * s2) / (24.0 / ppsi) ** 2
         epphi = 24.0 * math.hypot(af * s1, bf * s2) / (24.0 / pphi) ** 2
         ppsi_lo, ppsi_hi, pphi_lo, pphi_hi = ppsi - eppsi, ppsi + eppsi, pphi - epphi, pphi + epphi
+    # the other directions of L that fit as well read the light curve at other periods: the intervals
+    # cover the top solution's, which cover them (tumble.classify.poles)
+    top = _top_solution(fit)
+    if top is not None and top.n_poles > 1:
+        ppsi_lo, ppsi_hi = _union((ppsi_lo, ppsi_hi), top.p_psi_interval_h)
+        pphi_lo, pphi_hi = _union((pphi_lo, pphi_hi), top.p_phi_interval_h)
     ex = fit.derived["excitation"]
     v.update(p_psi_h=ppsi, p_psi_h_lo=ppsi_lo, p_psi_h_hi=ppsi_hi, p_phi_h=pphi, p_phi_h_lo=pphi_lo,
              p_phi_h_hi=pphi_hi, excitation=ex[0], excitation_lo=ex[1], excitation_hi=ex[2])
     return v
+
+
+def _top_solution(fit):
+    """The listed solution the fitted state is (the first), or None."""
+    sols = getattr(fit, "solutions", ()) or ()
+    return sols[0] if sols and sols[0].mode == fit.mode else None
+
+
+def _union(a: tuple, b: tuple) -> tuple:
+    """The smallest interval holding both (a non-finite end of ``b`` adds nothing)."""
+    lo, hi = a
+    if np.isfinite(b[0]):
+        lo = min(lo, b[0]) if np.isfinite(lo) else lo
+    if np.isfinite(b[1]):
+        hi = max(hi, b[1]) if np.isfinite(hi) else hi
+    return lo, hi
+
+
+def _npa_pole_note(fit, warn: list) -> None:
+    """Say when other directions of the angular momentum fit as well and the period intervals cover them."""
+    top = _top_solution(fit)
+    if top is not None and top.n_poles > 1:
+        warn.append(f"{top.n_poles} directions of the angular momentum fit as well (one apparition rarely fixes it) "
+                    "and read the light curve at slightly different periods: the P_psi and P_phi intervals cover "
+                    "them all")
 
 
 def _sidereal_period(g, values: dict, warn: list, sparse_route: bool) -> dict:
@@ -472,6 +503,8 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
         sidereal = _sidereal_period(geometric_pa, values, warn, sparse_route) if geometric_pa is not None else {}
         values.update(sidereal or _synodic_period(values, synodic_rate_deg_per_d, warn))
         _pa_period_notes(evidence, values, warn)
+    if rotation == "NPA":
+        _npa_pole_note(fit, warn)
     if rotation != "PA":
         values.pop("period_h", None)
         values.pop("period_h_err", None)

@@ -77,7 +77,7 @@ from tumble.model import (
 __all__ = [
     "Solution", "SolutionSearch", "FitBudget", "Lattice", "FrequencyPair", "SolutionLaplace",
     "enumerate_solutions", "search_solutions", "candidate_lattices", "aliased_bases", "daily_aliasing",
-    "frequency_pairs", "screened_pairs", "screen_orders", "ScreenTerms", "leading_term", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions",
+    "frequency_pairs", "screened_pairs", "screen_orders", "ScreenTerms", "leading_term", "union_by_rank", "polish_solutions", "refine_fully", "screen_chi2", "screen_chi2_reference", "laplace_approximation", "collect_solutions", "cover_other_poles",
     "shape_solutions", "shape_restarts", "constant_ratio_shapes", "pair_shift",
     "spread_orientations", "orientation_shift", "npa_models", "distinct_optima", "fit_pair", "fit_pairs", "PairFit", "pair_starts", "refit_jobs", "restart_optima", "refit_pairs", "restart_optimum", "SOLUTION_DELTA_BIC", "NPA_MODES",
 ]
@@ -350,6 +350,7 @@ class Solution:
     state: np.ndarray
     candidate: tuple
     source: str
+    n_poles: int = 1
 
     def to_dict(self) -> dict:
         """JSON-ready record (the ``solutions`` entries of verdict.json; units in the key names)."""
@@ -358,7 +359,7 @@ class Solution:
                 "p_phi_h_lo": float(self.p_phi_interval_h[0]), "p_phi_h_hi": float(self.p_phi_interval_h[1]),
                 "log_likelihood": float(self.log_likelihood), "bic": float(self.criterion),
                 "delta_bic": float(self.delta), "relative_probability": float(self.relative_probability),
-                "source": self.source}
+                "n_poles": int(self.n_poles), "source": self.source}
 
 
 @dataclass(frozen=True, eq=False)
@@ -1463,6 +1464,29 @@ def screened_pairs(lc, pairs, n_per_screen: int, f_lead_per_d: float = math.nan)
     return [pairs[i] for i in union_by_rank(screen_orders(lc, pairs, n_per_screen, f_lead_per_d), n_per_screen)]
 
 
+def cover_other_poles(solutions, models: dict) -> tuple:
+    """Each solution's 68 % intervals widened to cover the other directions of ``L`` that fit as well.
+
+    One apparition rarely fixes the direction of the angular momentum, and another direction reads
+    the same light curve at other periods (:mod:`tumble.classify.poles`): each solution is refitted
+    from the three symmetric directions of its ``L`` (:func:`tumble.classify.poles.other_poles`) and
+    its intervals cover every one within the goodness-of-fit threshold, each with its own Laplace
+    width (:func:`tumble.classify.poles.covering_interval`); ``n_poles`` counts the directions that
+    fit as well, its own included. Periods, state and ranking are unchanged.
+    """
+    from dataclasses import replace
+
+    from tumble.classify.poles import covering_interval, other_poles
+
+    out = []
+    for s in solutions:
+        poles = other_poles(models[s.mode], s.state)
+        out.append(replace(s, p_psi_interval_h=covering_interval(s.p_psi_interval_h, "p_psi_h", poles),
+                           p_phi_interval_h=covering_interval(s.p_phi_interval_h, "p_phi_h", poles),
+                           n_poles=1 + len(poles.as_good)))
+    return tuple(out)
+
+
 def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget = FitBudget(),
                      ranking: str = DEFAULT_RANKING) -> SolutionSearch:
     """The enumeration (module notes) on a light curve with physical models already built (by mode).
@@ -1509,6 +1533,7 @@ def search_solutions(lc, evidence, models: dict, *, rng=None, budget: FitBudget 
         optima += refit_pairs(model, mode, tops, budget, rng, first_index=budget.n_attempts_wide * len(kept))
     optima += polish_solutions(optima, models, lc.span_d, rng)
     listed, best_by_mode, distinct = rank_solutions(optima, models, lc, ranking_rule(ranking))
+    listed = cover_other_poles(listed, models)
     return SolutionSearch(listed, best_by_mode, distinct, len(pairs), len(kept), n_fits)
 
 
