@@ -246,7 +246,7 @@ def _periods_rows(v: Mapping) -> list[tuple[str, str, str, str, str]]:
     interval("excitation", "E/E0", "", "rotational energy over the PA energy at the same angular momentum")
     interval("a_over_b", "a/b", "", "long/intermediate axis ratio")
     interval("b_over_c", "b/c", "", "intermediate/short axis ratio")
-    mirror = "; the mirror solution (lon + 180 deg, -lat) is not excluded by disk-integrated photometry"
+    mirror = "; the mirror solution (lon + 180 deg, the same lat) is not excluded by disk-integrated photometry"
     interval("l_lon_deg", "L longitude", "deg", "angular momentum, ecliptic J2000" + mirror)
     interval("l_lat_deg", "L latitude", "deg", "angular momentum, ecliptic J2000" + mirror)
     period("p_orb_h", "P_orb", "orbital period of the binary hypothesis" if not _is_true(v.get("binary_candidate"))

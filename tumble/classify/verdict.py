@@ -13,8 +13,9 @@ from tumble.display import format_probability
 __all__ = ["Verdict", "MIRROR_NOTE", "UNTESTABLE_REASON", "NO_PERIOD_REASON", "grade_sentence",
            "format_probability"]
 
-MIRROR_NOTE = ("the angular-momentum direction has a mirror solution (lon + 180 deg, -lat) that disk-integrated "
-               "photometry near the ecliptic cannot exclude; with a fixed viewing geometry it is relative to that frame")
+MIRROR_NOTE = ("the angular-momentum direction has a mirror solution (lon + 180 deg, the same lat; the mirror "
+               "of the scene through the ecliptic) that disk-integrated photometry near the ecliptic cannot "
+               "exclude; with a fixed viewing geometry it is relative to that frame")
 #: Reason given when the data admit no NPA alternative (wording ours).
 UNTESTABLE_REASON = "NPA not testable on this span"
 #: Reason given when no period passes the significance, coverage and resolution checks.
