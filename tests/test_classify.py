@@ -161,9 +161,11 @@ def test_other_directions_of_l_widen_the_verdicts_period_intervals(pa_evidence):
     assert (v.p_psi_h_lo, v.p_psi_h_hi) == pytest.approx((29.5, 30.2))
     assert (v.p_phi_h_lo, v.p_phi_h_hi) == pytest.approx((3.30, 3.34))
     assert any("3 directions of the angular momentum fit as well" in w for w in v.warnings)
+    assert not any("mirror solution" in w for w in v.warnings)  # said once, by the note above
     one = decide(npa, span_d=lc.span_d, fit=replace(fit, solutions=(replace(sol, n_poles=1),)))
     assert (one.p_phi_h_lo, one.p_phi_h_hi) == pytest.approx((3.32, 3.34))
     assert not any("directions of the angular momentum" in w for w in one.warnings)
+    assert any("mirror solution" in w for w in one.warnings)
 
 
 def test_daily_alias_second_period_is_undecided(pa_evidence):

@@ -517,7 +517,9 @@ def decide(evidence, *, span_d: float, prior_npa: float = th.DEFAULT_PRIOR_NPA, 
             warn.append(fit.geometry_note)
         if favour == "NPA" and fit.mode in ("SAM", "LAM"):
             margin = mode_margin(fit)
-            warn.append(MIRROR_NOTE)
+            top = _top_solution(fit)
+            if top is None or top.n_poles <= 1:  # else the note of the directions that fit as well says more
+                warn.append(MIRROR_NOTE)
         if not fit.converged:
             warn.append("physical-model posterior not converged or multimodal: " + "; ".join(fit.reasons))
     if binary is not None and rule_binary_alternative(inputs):  # the binary was named: its figures go out
