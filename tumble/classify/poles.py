@@ -29,7 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["N_POLE_PHASES", "PoleFit", "OtherPoles", "symmetric_directions", "pole_starts", "other_poles",
-           "covering_interval"]
+           "covering_interval", "interval_union"]
 
 #: phase starts per direction of L: the Euler angles phi0 and psi0 each on this many equally spaced
 #: values (16 starts per direction: one within 45 deg of any optimum's phases in both; on CAL-dense-
@@ -160,11 +160,21 @@ def covering_interval(interval: tuple, period_name: str, poles: OtherPoles) -> t
     'p_psi_h' or 'p_phi_h'); a direction whose width is not finite contributes nothing. An interval
     that is not finite stays so (a withheld interval is not made up from the other poles).
     """
-    lo, hi = (float(v) for v in interval)
-    if not (np.isfinite(lo) and np.isfinite(hi)):
-        return (lo, hi)
+    out = tuple(float(v) for v in interval)
     for f in poles.as_good:
         p, s = getattr(f, period_name), getattr(f, period_name.replace("_h", "_sigma_h"))
-        if np.isfinite(p) and np.isfinite(s):
-            lo, hi = min(lo, p - s), max(hi, p + s)
+        out = interval_union(out, (p - s, p + s))
+    return out
+
+
+def interval_union(a: tuple, b: tuple) -> tuple:
+    """The smallest interval holding ``a`` and ``b``; a non-finite end of ``b`` adds nothing and a
+    non-finite end of ``a`` stays (a withheld interval is not made up from another one)."""
+    lo, hi = (float(v) for v in a)
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        return (lo, hi)
+    if np.isfinite(b[0]):
+        lo = min(lo, float(b[0]))
+    if np.isfinite(b[1]):
+        hi = max(hi, float(b[1]))
     return (lo, hi)

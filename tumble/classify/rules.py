@@ -340,8 +340,10 @@ def _npa_periods(ev, fit) -> dict:
     # cover the top solution's, which cover them (tumble.classify.poles)
     top = _top_solution(fit)
     if top is not None and top.n_poles > 1:
-        ppsi_lo, ppsi_hi = _union((ppsi_lo, ppsi_hi), top.p_psi_interval_h)
-        pphi_lo, pphi_hi = _union((pphi_lo, pphi_hi), top.p_phi_interval_h)
+        from tumble.classify.poles import interval_union
+
+        ppsi_lo, ppsi_hi = interval_union((ppsi_lo, ppsi_hi), top.p_psi_interval_h)
+        pphi_lo, pphi_hi = interval_union((pphi_lo, pphi_hi), top.p_phi_interval_h)
     ex = fit.derived["excitation"]
     v.update(p_psi_h=ppsi, p_psi_h_lo=ppsi_lo, p_psi_h_hi=ppsi_hi, p_phi_h=pphi, p_phi_h_lo=pphi_lo,
              p_phi_h_hi=pphi_hi, excitation=ex[0], excitation_lo=ex[1], excitation_hi=ex[2])
@@ -349,19 +351,10 @@ def _npa_periods(ev, fit) -> dict:
 
 
 def _top_solution(fit):
-    """The listed solution the fitted state is (the first), or None."""
-    sols = getattr(fit, "solutions", ()) or ()
-    return sols[0] if sols and sols[0].mode == fit.mode else None
-
-
-def _union(a: tuple, b: tuple) -> tuple:
-    """The smallest interval holding both (a non-finite end of ``b`` adds nothing)."""
-    lo, hi = a
-    if np.isfinite(b[0]):
-        lo = min(lo, b[0]) if np.isfinite(lo) else lo
-    if np.isfinite(b[1]):
-        hi = max(hi, b[1]) if np.isfinite(hi) else hi
-    return lo, hi
+    """The listed solution the fitted state is (the first), or None (also without a fit)."""
+    if fit is None or not fit.solutions:
+        return None
+    return fit.solutions[0] if fit.solutions[0].mode == fit.mode else None
 
 
 def _npa_pole_note(fit, warn: list) -> None:
